@@ -1,0 +1,461 @@
+//! Typed configuration: built-in defaults, then an optional TOML file, then
+//! `REACHCAST_*` environment variables, then command-line flags.
+//!
+//! Everything is checked once, at start, before a socket is bound or a file
+//! is written; an error names the offending key (for example
+//! `server.shutdown_grace_secs`) and where the value came from, so an
+//! operator can fix it without reading code.
+//!
+//! Environment variables map to keys by section and name:
+//! `REACHCAST_SERVER_BIND` sets `server.bind`, `REACHCAST_STORAGE_DATA_DIR`
+//! sets `storage.data_dir`. An unknown `REACHCAST_*` variable is an error
+//! rather than silently ignored, because a typo in a deployment file would
+//! otherwise leave a default in force unnoticed.
+
+use std::{
+    net::SocketAddr,
+    path::{Path, PathBuf},
+    time::Duration,
+};
+
+use serde::Deserialize;
+
+/// Prefix of the environment variables read as configuration.
+pub const ENV_PREFIX: &str = "REACHCAST_";
+
+/// The one `REACHCAST_*` variable that is not a key: the path of the
+/// configuration file itself (read by the command line).
+pub const ENV_CONFIG_FILE: &str = "REACHCAST_CONFIG";
+
+/// A configuration problem, always naming the key.
+#[derive(Debug, thiserror::Error)]
+pub enum ConfigError {
+    #[error("cannot read configuration file {path}: {source}")]
+    Read {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+    #[error("configuration file {path} is not valid TOML or has a bad value: {message}")]
+    Parse { path: PathBuf, message: String },
+    #[error("configuration key `{key}` (from {origin}): {message}")]
+    Invalid {
+        key: String,
+        origin: String,
+        message: String,
+    },
+    #[error("environment variable {var} does not name a configuration key (known keys: {known})")]
+    UnknownEnv { var: String, known: String },
+}
+
+/// The whole configuration of the service.
+#[derive(Debug, Clone, Default, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct Config {
+    pub server: ServerConfig,
+    pub storage: StorageConfig,
+    pub log: LogConfig,
+    pub demo: DemoConfig,
+}
+
+/// `[server]`: the HTTP listener.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct ServerConfig {
+    /// Address and port to listen on. Port 0 picks a free port.
+    pub bind: String,
+    /// How long a shutdown waits for requests in flight before giving up.
+    pub shutdown_grace_secs: u64,
+    /// Upper bound on the time one request may take.
+    pub request_timeout_secs: u64,
+    /// Largest request body accepted, in bytes.
+    pub body_limit_bytes: usize,
+}
+
+/// `[storage]`: the embedded SQLite database.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct StorageConfig {
+    /// Folder that holds the database file; created if missing.
+    pub data_dir: PathBuf,
+    /// How long a connection waits for a lock held by another before failing.
+    pub busy_timeout_ms: u64,
+    /// Size of the connection pool.
+    pub max_connections: u32,
+}
+
+/// `[log]`: what the service writes to standard error.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct LogConfig {
+    /// A `tracing` filter such as `info` or `reachcast=debug,tower_http=info`.
+    /// `RUST_LOG`, when set, takes precedence.
+    pub filter: String,
+}
+
+/// `[demo]`: the invented demonstration reach.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct DemoConfig {
+    /// Seed the invented demo reach and replay its synthetic storm.
+    pub enabled: bool,
+}
+
+impl Default for ServerConfig {
+    fn default() -> Self {
+        Self {
+            bind: "127.0.0.1:8080".to_owned(),
+            shutdown_grace_secs: 10,
+            request_timeout_secs: 30,
+            body_limit_bytes: 8 * 1024 * 1024,
+        }
+    }
+}
+
+impl Default for StorageConfig {
+    fn default() -> Self {
+        Self {
+            data_dir: PathBuf::from("./data"),
+            busy_timeout_ms: 5_000,
+            max_connections: 8,
+        }
+    }
+}
+
+impl Default for LogConfig {
+    fn default() -> Self {
+        Self {
+            filter: "info".to_owned(),
+        }
+    }
+}
+
+impl Default for DemoConfig {
+    fn default() -> Self {
+        Self { enabled: true }
+    }
+}
+
+/// Values given on the command line; they override file and environment.
+#[derive(Debug, Clone, Default)]
+pub struct Overrides {
+    pub bind: Option<String>,
+    pub data_dir: Option<PathBuf>,
+}
+
+/// Every key, as `section.name`, in the order the example file documents them.
+pub const KEYS: &[&str] = &[
+    "server.bind",
+    "server.shutdown_grace_secs",
+    "server.request_timeout_secs",
+    "server.body_limit_bytes",
+    "storage.data_dir",
+    "storage.busy_timeout_ms",
+    "storage.max_connections",
+    "log.filter",
+    "demo.enabled",
+];
+
+impl Config {
+    /// Loads defaults, the optional file, the environment and the overrides,
+    /// then validates the result.
+    pub fn load(
+        file: Option<&Path>,
+        env: impl IntoIterator<Item = (String, String)>,
+        overrides: &Overrides,
+    ) -> Result<Self, ConfigError> {
+        let mut table = match file {
+            Some(path) => {
+                let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read {
+                    path: path.to_owned(),
+                    source,
+                })?;
+                text.parse::<toml::Table>()
+                    .map_err(|e| ConfigError::Parse {
+                        path: path.to_owned(),
+                        message: e.message().to_owned(),
+                    })?
+            }
+            None => toml::Table::new(),
+        };
+        let origin_of_file = file
+            .map(|p| format!("file {}", p.display()))
+            .unwrap_or_else(|| "defaults".to_owned());
+        let mut origins: Vec<(String, String)> = Vec::new();
+
+        let mut env: Vec<(String, String)> = env
+            .into_iter()
+            .filter(|(k, _)| k.starts_with(ENV_PREFIX) && k != ENV_CONFIG_FILE)
+            .collect();
+        env.sort();
+        for (var, value) in env {
+            let key = env_key(&var).ok_or_else(|| ConfigError::UnknownEnv {
+                var: var.clone(),
+                known: KEYS
+                    .iter()
+                    .map(|k| env_name(k))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+            })?;
+            set_key(&mut table, key, env_value(&value));
+            origins.push((key.to_owned(), format!("environment variable {var}")));
+        }
+        if let Some(bind) = &overrides.bind {
+            set_key(&mut table, "server.bind", toml::Value::String(bind.clone()));
+            origins.push(("server.bind".to_owned(), "--bind".to_owned()));
+        }
+        if let Some(dir) = &overrides.data_dir {
+            set_key(
+                &mut table,
+                "storage.data_dir",
+                toml::Value::String(dir.display().to_string()),
+            );
+            origins.push(("storage.data_dir".to_owned(), "--data-dir".to_owned()));
+        }
+
+        let origin = |key: &str| -> String {
+            origins
+                .iter()
+                .rev()
+                .find(|(k, _)| k == key)
+                .map(|(_, o)| o.clone())
+                .unwrap_or_else(|| origin_of_file.clone())
+        };
+
+        // serde_path_to_error reports the path of the value that failed, so
+        // the message names `section.key` whatever the TOML library says.
+        let config: Config =
+            serde_path_to_error::deserialize(toml::Value::Table(table)).map_err(|e| {
+                let key = e.path().to_string();
+                ConfigError::Invalid {
+                    origin: origin(&key),
+                    key,
+                    message: e.into_inner().message().to_owned(),
+                }
+            })?;
+        config.validate(&origin)?;
+        Ok(config)
+    }
+
+    fn validate(&self, origin: &dyn Fn(&str) -> String) -> Result<(), ConfigError> {
+        let bad = |key: &str, message: String| ConfigError::Invalid {
+            key: key.to_owned(),
+            origin: origin(key),
+            message,
+        };
+        self.bind_addr()
+            .map_err(|m| bad("server.bind", m.to_string()))?;
+        if self.server.shutdown_grace_secs == 0 || self.server.shutdown_grace_secs > 3600 {
+            return Err(bad(
+                "server.shutdown_grace_secs",
+                format!(
+                    "must be between 1 and 3600 seconds, got {}",
+                    self.server.shutdown_grace_secs
+                ),
+            ));
+        }
+        if self.server.request_timeout_secs == 0 || self.server.request_timeout_secs > 3600 {
+            return Err(bad(
+                "server.request_timeout_secs",
+                format!(
+                    "must be between 1 and 3600 seconds, got {}",
+                    self.server.request_timeout_secs
+                ),
+            ));
+        }
+        if self.server.body_limit_bytes < 1024 {
+            return Err(bad(
+                "server.body_limit_bytes",
+                format!(
+                    "must be at least 1024 bytes, got {}",
+                    self.server.body_limit_bytes
+                ),
+            ));
+        }
+        if self.storage.data_dir.as_os_str().is_empty() {
+            return Err(bad("storage.data_dir", "must not be empty".to_owned()));
+        }
+        if self.storage.max_connections == 0 || self.storage.max_connections > 64 {
+            return Err(bad(
+                "storage.max_connections",
+                format!(
+                    "must be between 1 and 64, got {}",
+                    self.storage.max_connections
+                ),
+            ));
+        }
+        if self.storage.busy_timeout_ms > 600_000 {
+            return Err(bad(
+                "storage.busy_timeout_ms",
+                format!(
+                    "must be at most 600000 ms, got {}",
+                    self.storage.busy_timeout_ms
+                ),
+            ));
+        }
+        if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {
+            return Err(bad("log.filter", format!("not a valid log filter: {e}")));
+        }
+        Ok(())
+    }
+
+    /// The listen address, parsed.
+    pub fn bind_addr(&self) -> Result<SocketAddr, std::net::AddrParseError> {
+        self.server.bind.parse()
+    }
+
+    /// Bounded drain time on shutdown.
+    pub fn shutdown_grace(&self) -> Duration {
+        Duration::from_secs(self.server.shutdown_grace_secs)
+    }
+
+    /// Path of the SQLite database file inside the data directory.
+    pub fn database_path(&self) -> PathBuf {
+        self.storage.data_dir.join("reachcast.sqlite3")
+    }
+}
+
+/// `server.bind` → `REACHCAST_SERVER_BIND`.
+pub fn env_name(key: &str) -> String {
+    format!("{ENV_PREFIX}{}", key.replace('.', "_").to_uppercase())
+}
+
+fn env_key(var: &str) -> Option<&'static str> {
+    KEYS.iter().copied().find(|k| env_name(k) == var)
+}
+
+/// Environment values are strings; numbers and booleans are recognised so
+/// `REACHCAST_DEMO_ENABLED=false` means the boolean, not the word.
+fn env_value(raw: &str) -> toml::Value {
+    let t = raw.trim();
+    if let Ok(i) = t.parse::<i64>() {
+        return toml::Value::Integer(i);
+    }
+    match t {
+        "true" => toml::Value::Boolean(true),
+        "false" => toml::Value::Boolean(false),
+        _ => toml::Value::String(raw.to_owned()),
+    }
+}
+
+fn set_key(table: &mut toml::Table, key: &str, value: toml::Value) {
+    let (section, name) = key.split_once('.').unwrap_or(("", key));
+    let entry = table
+        .entry(section.to_owned())
+        .or_insert_with(|| toml::Value::Table(toml::Table::new()));
+    if !entry.is_table() {
+        *entry = toml::Value::Table(toml::Table::new());
+    }
+    if let toml::Value::Table(t) = entry {
+        t.insert(name.to_owned(), value);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn load_str(text: &str, env: &[(&str, &str)]) -> Result<Config, ConfigError> {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let path = dir.path().join("c.toml");
+        std::fs::write(&path, text).expect("write config");
+        Config::load(
+            Some(&path),
+            env.iter().map(|(k, v)| (k.to_string(), v.to_string())),
+            &Overrides::default(),
+        )
+    }
+
+    #[test]
+    fn defaults_are_valid() {
+        let c = Config::load(None, Vec::new(), &Overrides::default()).expect("defaults");
+        assert_eq!(c, Config::default());
+        assert_eq!(c.bind_addr().expect("addr").port(), 8080);
+    }
+
+    #[test]
+    fn file_then_env_then_flags() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let path = dir.path().join("c.toml");
+        std::fs::write(
+            &path,
+            "[server]\nbind = \"127.0.0.1:9000\"\nshutdown_grace_secs = 3\n",
+        )
+        .expect("write");
+        let c = Config::load(
+            Some(&path),
+            vec![(
+                "REACHCAST_SERVER_SHUTDOWN_GRACE_SECS".to_owned(),
+                "7".to_owned(),
+            )],
+            &Overrides {
+                bind: Some("127.0.0.1:0".to_owned()),
+                data_dir: None,
+            },
+        )
+        .expect("load");
+        assert_eq!(c.server.bind, "127.0.0.1:0");
+        assert_eq!(c.server.shutdown_grace_secs, 7);
+    }
+
+    #[test]
+    fn wrong_type_names_the_key() {
+        let e = load_str("[server]\nshutdown_grace_secs = \"soon\"\n", &[]).unwrap_err();
+        let msg = e.to_string();
+        assert!(msg.contains("server.shutdown_grace_secs"), "{msg}");
+    }
+
+    #[test]
+    fn unknown_key_names_the_key() {
+        let e = load_str("[storage]\ndata_dri = \"x\"\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("storage.data_dri"), "{e}");
+        let e = load_str("[nonsense]\na = 1\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("nonsense"), "{e}");
+    }
+
+    #[test]
+    fn semantic_errors_name_the_key_and_origin() {
+        let e = load_str("", &[("REACHCAST_SERVER_BIND", "not-an-address")]).unwrap_err();
+        let msg = e.to_string();
+        assert!(msg.contains("server.bind"), "{msg}");
+        assert!(msg.contains("REACHCAST_SERVER_BIND"), "{msg}");
+        let e = load_str("[storage]\nmax_connections = 0\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("storage.max_connections"), "{e}");
+        let e = load_str("[log]\nfilter = \"=[\"\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("log.filter"), "{e}");
+    }
+
+    #[test]
+    fn unknown_env_var_is_rejected() {
+        let e = load_str("", &[("REACHCAST_SERVER_BINDD", "x")]).unwrap_err();
+        assert!(e.to_string().contains("REACHCAST_SERVER_BINDD"), "{e}");
+    }
+
+    #[test]
+    fn env_booleans_parse() {
+        let c = load_str("", &[("REACHCAST_DEMO_ENABLED", "false")]).expect("load");
+        assert!(!c.demo.enabled);
+    }
+
+    /// The shipped example documents every key with its default value.
+    #[test]
+    fn example_file_matches_defaults_and_documents_every_key() {
+        let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("deploy/reachcast.example.toml");
+        let c =
+            Config::load(Some(&path), Vec::new(), &Overrides::default()).expect("example loads");
+        assert_eq!(c, Config::default());
+        let text = std::fs::read_to_string(&path).expect("read example");
+        for key in KEYS {
+            let name = key.split_once('.').map(|(_, n)| n).unwrap_or(key);
+            assert!(
+                text.contains(&format!("\n{name} = ")),
+                "{key} not in example"
+            );
+        }
+    }
+
+    #[test]
+    fn bad_toml_is_reported_with_the_file() {
+        let e = load_str("[server\n", &[]).unwrap_err();
+        assert!(matches!(e, ConfigError::Parse { .. }), "{e}");
+    }
+}

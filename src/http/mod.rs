@@ -1,0 +1,120 @@
+//! The HTTP layer: one router per resource file, merged here, plus the
+//! middleware every request passes through (request id, tracing span,
+//! timeout, body limit, security headers).
+//!
+//! Handlers stay thin: they parse input, call the store or the forecast
+//! layer, and shape the answer.
+
+pub mod assets;
+pub mod error;
+pub mod health;
+
+use std::{
+    sync::{
+        Arc,
+        atomic::{AtomicU64, Ordering},
+    },
+    time::Duration,
+};
+
+use axum::{
+    Router,
+    extract::DefaultBodyLimit,
+    http::{HeaderName, HeaderValue, Request, StatusCode, header},
+    routing::any,
+};
+use tower::ServiceBuilder;
+use tower_http::{
+    request_id::{MakeRequestId, PropagateRequestIdLayer, RequestId, SetRequestIdLayer},
+    set_header::SetResponseHeaderLayer,
+    timeout::TimeoutLayer,
+    trace::TraceLayer,
+};
+
+use crate::{config::Config, store::Store};
+
+/// Shared by every handler. Cheap to clone.
+#[derive(Clone)]
+pub struct AppState {
+    pub config: Arc<Config>,
+    pub store: Store,
+}
+
+const REQUEST_ID: HeaderName = HeaderName::from_static("x-request-id");
+
+/// Request ids: a per-process counter prefixed with the start time, unique
+/// enough to find one request in the logs, with no random source needed.
+#[derive(Clone)]
+struct CountingIds {
+    prefix: Arc<str>,
+    next: Arc<AtomicU64>,
+}
+
+impl MakeRequestId for CountingIds {
+    fn make_request_id<B>(&mut self, _: &Request<B>) -> Option<RequestId> {
+        let n = self.next.fetch_add(1, Ordering::Relaxed);
+        HeaderValue::from_str(&format!("{}-{n}", self.prefix))
+            .ok()
+            .map(RequestId::new)
+    }
+}
+
+/// Content Security Policy for the dashboard: everything from this origin,
+/// nothing from anywhere else, so the page works on a closed network and
+/// injected markup cannot load scripts.
+const CSP: &str = "default-src 'self'; img-src 'self' data:; style-src 'self'; script-src 'self'; connect-src 'self'; frame-ancestors 'none'; base-uri 'none'; form-action 'self'";
+
+/// Builds the whole application router.
+pub fn router(state: AppState) -> Router {
+    let timeout = Duration::from_secs(state.config.server.request_timeout_secs);
+    let body_limit = state.config.server.body_limit_bytes;
+    let ids = CountingIds {
+        prefix: Arc::from(format!("{:x}", chrono::Utc::now().timestamp()).as_str()),
+        next: Arc::new(AtomicU64::new(1)),
+    };
+
+    let api = Router::new().fallback(any(error::not_found));
+
+    Router::new()
+        .merge(health::router())
+        .nest("/api", api)
+        .fallback(assets::serve)
+        .with_state(state)
+        .layer(
+            ServiceBuilder::new()
+                .layer(SetRequestIdLayer::new(REQUEST_ID, ids))
+                .layer(
+                    TraceLayer::new_for_http().make_span_with(|req: &Request<_>| {
+                        let id = req
+                            .headers()
+                            .get(REQUEST_ID)
+                            .and_then(|v| v.to_str().ok())
+                            .unwrap_or("-");
+                        tracing::info_span!(
+                            "request",
+                            id = %id,
+                            method = %req.method(),
+                            path = %req.uri().path(),
+                        )
+                    }),
+                )
+                .layer(PropagateRequestIdLayer::new(REQUEST_ID))
+                .layer(TimeoutLayer::with_status_code(
+                    StatusCode::SERVICE_UNAVAILABLE,
+                    timeout,
+                ))
+                .layer(DefaultBodyLimit::max(body_limit))
+                .layer(SetResponseHeaderLayer::if_not_present(
+                    header::X_CONTENT_TYPE_OPTIONS,
+                    HeaderValue::from_static("nosniff"),
+                ))
+                .layer(SetResponseHeaderLayer::if_not_present(
+                    header::CONTENT_SECURITY_POLICY,
+                    HeaderValue::from_static(CSP),
+                ))
+                .layer(SetResponseHeaderLayer::if_not_present(
+                    header::REFERRER_POLICY,
+                    HeaderValue::from_static("no-referrer"),
+                )),
+        )
+}

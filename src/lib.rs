@@ -1,0 +1,16 @@
+//! reachcast: advisory flood-stage forecasts along a river reach.
+//!
+//! The binary (`main.rs`) is glue over this library. Dependencies point one
+//! way: `http` → `store` (and later `forecast`) → `engine`; the engine knows
+//! nothing above it. See DEVELOPERS.md for the architecture.
+
+pub mod app;
+pub mod cli;
+pub mod config;
+pub mod http;
+pub mod store;
+pub mod telemetry;
+
+/// The caution every forecast output carries.
+pub const CAUTION: &str = "Advisory model output only. This is not an official warning. \
+Follow official warnings and the instructions of local emergency authorities.";

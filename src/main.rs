@@ -1,0 +1,49 @@
+use std::process::ExitCode;
+
+use clap::Parser;
+use reachcast::{
+    app::{Application, shutdown_signal},
+    cli::Cli,
+    config::{Config, Overrides},
+    telemetry,
+};
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    let args = cli.serve_args();
+    let overrides = Overrides {
+        bind: args.bind,
+        data_dir: args.data_dir,
+    };
+    // Configuration is checked before anything else happens, so a bad value
+    // stops the start with a message naming the key.
+    let config = match Config::load(cli.config.as_deref(), std::env::vars(), &overrides) {
+        Ok(c) => c,
+        Err(e) => {
+            eprintln!("reachcast: configuration error: {e}");
+            return ExitCode::from(2);
+        }
+    };
+    telemetry::init(&config.log.filter);
+    let runtime = match tokio::runtime::Runtime::new() {
+        Ok(r) => r,
+        Err(e) => {
+            eprintln!("reachcast: cannot start the async runtime: {e}");
+            return ExitCode::FAILURE;
+        }
+    };
+    match runtime.block_on(serve(config)) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("reachcast: {e:#}");
+            ExitCode::FAILURE
+        }
+    }
+}
+
+async fn serve(config: Config) -> anyhow::Result<()> {
+    let app = Application::build(config).await?;
+    let addr = app.local_addr()?;
+    tracing::info!(%addr, "reachcast listening; dashboard at http://{addr}/");
+    app.run_until(shutdown_signal()).await
+}

@@ -1,0 +1,231 @@
+//! Every SQL statement of the service lives in this module: rows go in,
+//! domain types come out. Handlers and the scheduler never write SQL.
+//!
+//! The database is one SQLite file in the data directory, opened with:
+//! - WAL journal, so readers never block the writer;
+//! - `synchronous = FULL`, so a write the API acknowledged survives a power
+//!   cut or a killed process (WAL with `NORMAL` may lose the last commits);
+//! - foreign keys enforced;
+//! - a busy timeout, so brief lock contention waits instead of failing.
+//!
+//! Migrations are embedded in the binary and applied at open.
+
+use std::{str::FromStr, time::Duration};
+
+use chrono::{DateTime, Utc};
+use sqlx::{
+    Row, SqlitePool,
+    migrate::Migrator,
+    sqlite::{SqliteConnectOptions, SqliteJournalMode, SqlitePoolOptions, SqliteSynchronous},
+};
+
+use crate::config::StorageConfig;
+
+/// The schema, compiled into the binary from `migrations/`.
+pub static MIGRATOR: Migrator = sqlx::migrate!("./migrations");
+
+/// A storage failure, with enough context to log; clients see a generic text.
+#[derive(Debug, thiserror::Error)]
+pub enum StoreError {
+    #[error("cannot create data directory {path}: {source}")]
+    DataDir {
+        path: String,
+        source: std::io::Error,
+    },
+    #[error("database error: {0}")]
+    Sqlx(#[from] sqlx::Error),
+    #[error("migration error: {0}")]
+    Migrate(#[from] sqlx::migrate::MigrateError),
+}
+
+/// Identity of the database, kept across restarts.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct ServiceMeta {
+    pub instance_id: String,
+    pub created_at: DateTime<Utc>,
+    pub last_start: DateTime<Utc>,
+    pub start_count: i64,
+}
+
+/// Whether the schema in the file matches the one in the binary.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct MigrationStatus {
+    /// Migrations embedded in this binary.
+    pub known: usize,
+    /// Of those, applied successfully to the database.
+    pub applied: usize,
+    /// Highest applied version.
+    pub latest_version: Option<i64>,
+}
+
+impl MigrationStatus {
+    pub fn complete(&self) -> bool {
+        self.applied == self.known
+    }
+}
+
+/// Handle to the database. Cheap to clone (the pool is reference-counted).
+#[derive(Clone, Debug)]
+pub struct Store {
+    pool: SqlitePool,
+}
+
+impl Store {
+    /// Opens (creating if needed) the database in `cfg.data_dir`, applies
+    /// migrations and records this start.
+    pub async fn open(cfg: &StorageConfig) -> Result<Self, StoreError> {
+        std::fs::create_dir_all(&cfg.data_dir).map_err(|source| StoreError::DataDir {
+            path: cfg.data_dir.display().to_string(),
+            source,
+        })?;
+        let path = cfg.data_dir.join("reachcast.sqlite3");
+        let options = SqliteConnectOptions::from_str("sqlite:")?
+            .filename(&path)
+            .create_if_missing(true)
+            .journal_mode(SqliteJournalMode::Wal)
+            .synchronous(SqliteSynchronous::Full)
+            .foreign_keys(true)
+            .busy_timeout(Duration::from_millis(cfg.busy_timeout_ms));
+        let pool = SqlitePoolOptions::new()
+            .max_connections(cfg.max_connections)
+            .connect_with(options)
+            .await?;
+        MIGRATOR.run(&pool).await?;
+        let store = Self { pool };
+        store.record_start().await?;
+        Ok(store)
+    }
+
+    /// The pool, for the few callers (tests, maintenance) that need it.
+    pub fn pool(&self) -> &SqlitePool {
+        &self.pool
+    }
+
+    /// Closes every connection, checkpointing the WAL.
+    pub async fn close(&self) {
+        self.pool.close().await;
+    }
+
+    async fn record_start(&self) -> Result<(), StoreError> {
+        let now = Utc::now().to_rfc3339();
+        sqlx::query(
+            "INSERT INTO service_meta (id, instance_id, created_at, last_start, start_count)
+             VALUES (1, lower(hex(randomblob(16))), ?1, ?1, 1)
+             ON CONFLICT (id) DO UPDATE
+               SET last_start = excluded.last_start, start_count = start_count + 1",
+        )
+        .bind(&now)
+        .execute(&self.pool)
+        .await?;
+        Ok(())
+    }
+
+    /// Identity and start history of this database.
+    pub async fn service_meta(&self) -> Result<ServiceMeta, StoreError> {
+        let row = sqlx::query(
+            "SELECT instance_id, created_at, last_start, start_count FROM service_meta WHERE id = 1",
+        )
+        .fetch_one(&self.pool)
+        .await?;
+        Ok(ServiceMeta {
+            instance_id: row.try_get("instance_id")?,
+            created_at: parse_time(row.try_get("created_at")?)?,
+            last_start: parse_time(row.try_get("last_start")?)?,
+            start_count: row.try_get("start_count")?,
+        })
+    }
+
+    /// Round trip to the database; fails when the file is unreachable.
+    pub async fn ping(&self) -> Result<(), StoreError> {
+        sqlx::query("SELECT 1").execute(&self.pool).await?;
+        Ok(())
+    }
+
+    /// Compares the applied migrations with the embedded ones.
+    pub async fn migration_status(&self) -> Result<MigrationStatus, StoreError> {
+        let applied: Vec<(i64, bool)> =
+            sqlx::query_as("SELECT version, success FROM _sqlx_migrations ORDER BY version")
+                .fetch_all(&self.pool)
+                .await?;
+        let known: Vec<i64> = MIGRATOR
+            .iter()
+            .filter(|m| !m.migration_type.is_down_migration())
+            .map(|m| m.version)
+            .collect();
+        let ok = known
+            .iter()
+            .filter(|v| applied.iter().any(|(a, s)| a == *v && *s))
+            .count();
+        Ok(MigrationStatus {
+            known: known.len(),
+            applied: ok,
+            latest_version: applied.iter().filter(|(_, s)| *s).map(|(v, _)| *v).max(),
+        })
+    }
+
+    /// `PRAGMA integrity_check`; `true` when SQLite answers `ok`.
+    pub async fn integrity_ok(&self) -> Result<bool, StoreError> {
+        let (answer,): (String,) = sqlx::query_as("PRAGMA integrity_check")
+            .fetch_one(&self.pool)
+            .await?;
+        Ok(answer == "ok")
+    }
+}
+
+fn parse_time(text: String) -> Result<DateTime<Utc>, sqlx::Error> {
+    DateTime::parse_from_rfc3339(&text)
+        .map(|t| t.with_timezone(&Utc))
+        .map_err(|e| sqlx::Error::Decode(Box::new(e)))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn cfg(dir: &std::path::Path) -> StorageConfig {
+        StorageConfig {
+            data_dir: dir.to_owned(),
+            ..StorageConfig::default()
+        }
+    }
+
+    #[tokio::test]
+    async fn opens_with_durable_pragmas() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let store = Store::open(&cfg(dir.path())).await.expect("open");
+        let (mode,): (String,) = sqlx::query_as("PRAGMA journal_mode")
+            .fetch_one(store.pool())
+            .await
+            .expect("journal_mode");
+        assert_eq!(mode.to_lowercase(), "wal");
+        // 2 = FULL (SQLite documentation, PRAGMA synchronous).
+        let (sync,): (i64,) = sqlx::query_as("PRAGMA synchronous")
+            .fetch_one(store.pool())
+            .await
+            .expect("synchronous");
+        assert_eq!(sync, 2);
+        let (fk,): (i64,) = sqlx::query_as("PRAGMA foreign_keys")
+            .fetch_one(store.pool())
+            .await
+            .expect("foreign_keys");
+        assert_eq!(fk, 1);
+        let status = store.migration_status().await.expect("status");
+        assert!(status.complete(), "{status:?}");
+        assert!(status.known >= 1);
+        assert!(store.integrity_ok().await.expect("integrity"));
+    }
+
+    #[tokio::test]
+    async fn reopening_keeps_identity_and_counts_starts() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let first = Store::open(&cfg(dir.path())).await.expect("open");
+        let a = first.service_meta().await.expect("meta");
+        first.close().await;
+        let second = Store::open(&cfg(dir.path())).await.expect("reopen");
+        let b = second.service_meta().await.expect("meta");
+        assert_eq!(a.instance_id, b.instance_id);
+        assert_eq!(a.created_at, b.created_at);
+        assert_eq!(b.start_count, a.start_count + 1);
+        assert_eq!(a.instance_id.len(), 32);
+    }
+}

@@ -1,0 +1,19 @@
+//! Logging: `tracing` events to standard error, filtered by `log.filter`
+//! (or `RUST_LOG` when set). Each HTTP request gets a span with its id,
+//! method and path (see `http::router`).
+
+use tracing_subscriber::{EnvFilter, fmt, prelude::*};
+
+/// Installs the global subscriber. Safe to call more than once (later calls
+/// are ignored), which keeps tests that build several apps simple.
+pub fn init(filter: &str) {
+    let filter = std::env::var("RUST_LOG")
+        .ok()
+        .and_then(|f| EnvFilter::try_new(f).ok())
+        .or_else(|| EnvFilter::try_new(filter).ok())
+        .unwrap_or_else(|| EnvFilter::new("info"));
+    let _ = tracing_subscriber::registry()
+        .with(filter)
+        .with(fmt::layer().with_writer(std::io::stderr).with_target(false))
+        .try_init();
+}

@@ -1,0 +1,204 @@
+//! The service skeleton, through a real HTTP server on a real SQLite file.
+
+mod common;
+
+use std::process::Command;
+
+use common::spawn_app;
+use serde_json::Value;
+
+#[tokio::test]
+async fn health_answers_ok() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let app = spawn_app(dir.path()).await;
+    let res = app
+        .client
+        .get(app.url("/health"))
+        .send()
+        .await
+        .expect("GET /health");
+    assert_eq!(res.status(), 200);
+    assert!(
+        res.headers().get("x-request-id").is_some(),
+        "request id echoed"
+    );
+    let body: Value = res.json().await.expect("json");
+    assert_eq!(body["status"], "ok");
+    app.stop().await;
+}
+
+#[tokio::test]
+async fn ready_reports_database_and_schema() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let app = spawn_app(dir.path()).await;
+    let res = app
+        .client
+        .get(app.url("/ready"))
+        .send()
+        .await
+        .expect("GET /ready");
+    assert_eq!(res.status(), 200);
+    let body: Value = res.json().await.expect("json");
+    assert_eq!(body["status"], "ready");
+    assert_eq!(body["database"], "ok");
+    assert_eq!(body["migrations"]["applied"], body["migrations"]["known"]);
+    assert!(
+        dir.path().join("reachcast.sqlite3").exists(),
+        "database file created in data dir"
+    );
+    app.stop().await;
+}
+
+#[tokio::test]
+async fn dashboard_page_carries_the_caution() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let app = spawn_app(dir.path()).await;
+    let res = app.client.get(app.url("/")).send().await.expect("GET /");
+    assert_eq!(res.status(), 200);
+    let ctype = res.headers()["content-type"]
+        .to_str()
+        .expect("ascii")
+        .to_owned();
+    assert!(ctype.starts_with("text/html"), "{ctype}");
+    let etag = res.headers()["etag"].clone();
+    let html = res.text().await.expect("body");
+    assert!(html.contains("Advisory model output only"));
+    assert!(html.contains("not an official warning"));
+    // Revalidation with the ETag costs a 304 and no body.
+    let again = app
+        .client
+        .get(app.url("/"))
+        .header("if-none-match", etag)
+        .send()
+        .await
+        .expect("GET / again");
+    assert_eq!(again.status(), 304);
+    app.stop().await;
+}
+
+#[tokio::test]
+async fn unknown_api_path_is_a_problem_document() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let app = spawn_app(dir.path()).await;
+    let res = app
+        .client
+        .get(app.url("/api/nothing-here"))
+        .send()
+        .await
+        .expect("GET");
+    assert_eq!(res.status(), 404);
+    // RFC 9457 §3: media type application/problem+json, members type/title/status.
+    assert_eq!(res.headers()["content-type"], "application/problem+json");
+    let body: Value = res.json().await.expect("json");
+    assert_eq!(body["status"], 404);
+    assert!(body["type"].is_string() && body["title"].is_string());
+    app.stop().await;
+}
+
+#[tokio::test]
+async fn restart_on_same_data_dir_keeps_what_was_written() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let first = spawn_app(dir.path()).await;
+    let a: Value = first
+        .client
+        .get(first.url("/ready"))
+        .send()
+        .await
+        .expect("GET /ready")
+        .json()
+        .await
+        .expect("json");
+    first.stop().await;
+
+    let second = spawn_app(dir.path()).await;
+    let b: Value = second
+        .client
+        .get(second.url("/ready"))
+        .send()
+        .await
+        .expect("GET /ready")
+        .json()
+        .await
+        .expect("json");
+    assert_eq!(a["instance"]["instance_id"], b["instance"]["instance_id"]);
+    assert_eq!(a["instance"]["created_at"], b["instance"]["created_at"]);
+    assert_eq!(
+        b["instance"]["start_count"].as_i64().expect("count"),
+        a["instance"]["start_count"].as_i64().expect("count") + 1
+    );
+    second.stop().await;
+}
+
+/// The real binary refuses to start on a bad value and names the key.
+#[test]
+fn bad_config_value_fails_start_naming_the_key() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let cfg = dir.path().join("bad.toml");
+    std::fs::write(&cfg, "[server]\nshutdown_grace_secs = \"later\"\n").expect("write");
+    let out = Command::new(env!("CARGO_BIN_EXE_reachcast"))
+        .args(["--config"])
+        .arg(&cfg)
+        .args(["--data-dir"])
+        .arg(dir.path().join("data"))
+        .output()
+        .expect("run binary");
+    assert!(!out.status.success());
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("server.shutdown_grace_secs"), "{stderr}");
+    assert!(
+        !dir.path().join("data").exists(),
+        "nothing written before config is valid"
+    );
+
+    let out = Command::new(env!("CARGO_BIN_EXE_reachcast"))
+        .env("REACHCAST_STORAGE_MAX_CONNECTIONS", "0")
+        .args(["--data-dir"])
+        .arg(dir.path().join("data"))
+        .output()
+        .expect("run binary");
+    assert!(!out.status.success());
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("storage.max_connections"), "{stderr}");
+    assert!(
+        stderr.contains("REACHCAST_STORAGE_MAX_CONNECTIONS"),
+        "{stderr}"
+    );
+}
+
+/// The real binary stops cleanly on SIGTERM (what systemd sends).
+#[cfg(unix)]
+#[test]
+fn binary_stops_cleanly_on_sigterm() {
+    use std::io::{BufRead, BufReader};
+    let dir = tempfile::tempdir().expect("temp dir");
+    let mut child = Command::new(env!("CARGO_BIN_EXE_reachcast"))
+        .args(["serve", "--bind", "127.0.0.1:0", "--data-dir"])
+        .arg(dir.path())
+        .env("REACHCAST_DEMO_ENABLED", "false")
+        .env("RUST_LOG", "info")
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .expect("spawn");
+    let stderr = child.stderr.take().expect("stderr");
+    let mut lines = BufReader::new(stderr).lines();
+    // Wait for the listening line: the server is up once it is logged.
+    let mut seen = false;
+    for line in lines.by_ref() {
+        let line = line.expect("line");
+        if line.contains("listening") {
+            seen = true;
+            break;
+        }
+    }
+    assert!(seen, "server announced its address");
+    let pid = child.id().to_string();
+    let status = Command::new("kill")
+        .args(["-TERM", &pid])
+        .status()
+        .expect("kill");
+    assert!(status.success());
+    let rest: Vec<String> = lines.map_while(Result::ok).collect();
+    let exit = child.wait().expect("wait");
+    assert!(exit.success(), "exit status {exit:?}; log: {rest:?}");
+    assert!(rest.iter().any(|l| l.contains("stopped")), "{rest:?}");
+}
