@@ -99,30 +99,29 @@ impl Application {
     }
 }
 
-/// Completes on Ctrl-C or, on Unix, SIGTERM (what systemd sends on stop).
-pub async fn shutdown_signal() {
-    let ctrl_c = async {
-        if let Err(e) = tokio::signal::ctrl_c().await {
-            tracing::error!(error = %e, "cannot listen for Ctrl-C");
-            std::future::pending::<()>().await;
+/// Registers for SIGINT (Ctrl-C) and SIGTERM (what systemd sends on stop)
+/// now, and returns a future that completes when either arrives.
+///
+/// Registration happens before the future is polled so that a signal sent
+/// right after the service announces itself is not lost to the default
+/// handler (which would kill the process without a drain).
+#[cfg(unix)]
+pub fn shutdown_signal() -> std::io::Result<impl Future<Output = ()>> {
+    use tokio::signal::unix::{SignalKind, signal};
+    let mut term = signal(SignalKind::terminate())?;
+    let mut int = signal(SignalKind::interrupt())?;
+    Ok(async move {
+        tokio::select! {
+            _ = term.recv() => tracing::info!("SIGTERM received"),
+            _ = int.recv() => tracing::info!("interrupt received"),
         }
-    };
-    #[cfg(unix)]
-    let terminate = async {
-        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
-            Ok(mut s) => {
-                s.recv().await;
-            }
-            Err(e) => {
-                tracing::error!(error = %e, "cannot listen for SIGTERM");
-                std::future::pending::<()>().await;
-            }
-        }
-    };
-    #[cfg(not(unix))]
-    let terminate = std::future::pending::<()>();
-    tokio::select! {
-        () = ctrl_c => {}
-        () = terminate => {}
-    }
+    })
+}
+
+/// Ctrl-C on platforms without Unix signals.
+#[cfg(not(unix))]
+pub fn shutdown_signal() -> std::io::Result<impl Future<Output = ()>> {
+    Ok(async {
+        let _ = tokio::signal::ctrl_c().await;
+    })
 }

@@ -7,7 +7,10 @@
 pub mod app;
 pub mod cli;
 pub mod config;
+pub mod engine;
+pub mod forecast;
 pub mod http;
+pub mod offline;
 pub mod store;
 pub mod telemetry;
 

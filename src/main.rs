@@ -3,13 +3,25 @@ use std::process::ExitCode;
 use clap::Parser;
 use reachcast::{
     app::{Application, shutdown_signal},
-    cli::Cli,
+    cli::{Cli, Command},
     config::{Config, Overrides},
     telemetry,
 };
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    if let Some(Command::Route(args)) = &cli.command {
+        return match reachcast::offline::route(args) {
+            Ok(summary) => {
+                print!("{summary}");
+                ExitCode::SUCCESS
+            }
+            Err(e) => {
+                eprintln!("reachcast route: {e:#}");
+                ExitCode::from(2)
+            }
+        };
+    }
     let args = cli.serve_args();
     let overrides = Overrides {
         bind: args.bind,
@@ -42,8 +54,9 @@ fn main() -> ExitCode {
 }
 
 async fn serve(config: Config) -> anyhow::Result<()> {
+    let signal = shutdown_signal()?;
     let app = Application::build(config).await?;
     let addr = app.local_addr()?;
     tracing::info!(%addr, "reachcast listening; dashboard at http://{addr}/");
-    app.run_until(shutdown_signal()).await
+    app.run_until(signal).await
 }

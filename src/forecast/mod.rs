@@ -1,0 +1,10 @@
+//! From a reach description and an inflow to forecasts at points of
+//! interest: the reach document format, inflow parsing, one routing run and
+//! the threshold analysis. Pure code; the scheduler and the offline `route`
+//! command add the I/O.
+
+pub mod exceed;
+pub mod inflow;
+pub mod report;
+pub mod run;
+pub mod spec;

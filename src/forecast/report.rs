@@ -1,0 +1,204 @@
+//! Text renderings of a run: the readable summary the `route` command
+//! prints and the results CSV it writes. Both carry the caution.
+
+use std::fmt::Write as _;
+
+use chrono::{DateTime, Utc};
+
+use super::run::RunOutput;
+use crate::CAUTION;
+
+fn hours_minutes(seconds: f64) -> String {
+    let total = (seconds / 60.0).round() as i64;
+    let (h, m) = (total / 60, total % 60);
+    if h > 0 {
+        format!("{h} h {m:02} min")
+    } else {
+        format!("{m} min")
+    }
+}
+
+fn time(t: DateTime<Utc>) -> String {
+    t.format("%Y-%m-%d %H:%M UTC").to_string()
+}
+
+/// The summary printed by `reachcast route`: per point the crest, the bridge
+/// margins and each threshold's first crossing and time above, then the
+/// engine diagnostics and warnings.
+pub fn summary(out: &RunOutput, wall_time_s: f64) -> String {
+    let mut s = String::new();
+    let d = &out.diagnostics;
+    let _ = writeln!(s, "reachcast route: {}", out.reach);
+    let _ = writeln!(s, "CAUTION: {CAUTION}");
+    let _ = writeln!(
+        s,
+        "method {}, {} nodes, {} to {}",
+        out.method,
+        out.nodes,
+        time(out.start),
+        time(out.end)
+    );
+    for p in &out.points {
+        let _ = writeln!(s);
+        let _ = writeln!(
+            s,
+            "{} ({}, chainage {:.0} m, bed {:.2} m)",
+            p.name, p.kind, p.chainage, p.bed_elevation
+        );
+        let _ = writeln!(
+            s,
+            "  crest {:.2} m at {}; peak discharge {:.1} m3/s",
+            p.crest_stage,
+            time(p.crest_time),
+            p.peak_discharge
+        );
+        if let (Some(lc), Some(m)) = (p.low_chord, p.low_chord_margin) {
+            let verdict = if m < 0.0 {
+                "WATER REACHES THE LOW CHORD"
+            } else {
+                "clear"
+            };
+            let _ = writeln!(s, "  low chord {lc:.2} m: margin {m:+.2} m ({verdict})");
+        }
+        if let (Some(dk), Some(m)) = (p.deck, p.deck_margin) {
+            let verdict = if m < 0.0 { "DECK OVERTOPPED" } else { "clear" };
+            let _ = writeln!(s, "  deck {dk:.2} m: margin {m:+.2} m ({verdict})");
+        }
+        if p.thresholds.is_empty() {
+            let _ = writeln!(s, "  no thresholds set");
+        }
+        for t in &p.thresholds {
+            if t.exceeded {
+                let first = t
+                    .first_above
+                    .map(|x| {
+                        if t.above_at_start {
+                            format!("already above at {}", time(x))
+                        } else {
+                            format!("first above {}", time(x))
+                        }
+                    })
+                    .unwrap_or_default();
+                let back = t
+                    .back_below
+                    .map(|x| format!("back below {}", time(x)))
+                    .unwrap_or_else(|| "still above at the end".to_owned());
+                let _ = writeln!(
+                    s,
+                    "  threshold \"{}\" {:.2} m: EXCEEDED, {first}, {back}, above for {} (crest {:+.2} m over)",
+                    t.name,
+                    t.elevation,
+                    hours_minutes(t.duration_above_s),
+                    t.margin
+                );
+            } else {
+                let _ = writeln!(
+                    s,
+                    "  threshold \"{}\" {:.2} m: not reached (crest {:.2} m below)",
+                    t.name, t.elevation, -t.margin
+                );
+            }
+        }
+    }
+    let _ = writeln!(s);
+    let _ = writeln!(s, "diagnostics");
+    let _ = writeln!(
+        s,
+        "  mass balance error {:.4} % of inflow volume",
+        d.mass_balance_error_pct
+    );
+    let _ = writeln!(
+        s,
+        "  max Froude number {:.3} at chainage {:.0} m",
+        d.max_froude, d.max_froude_chainage
+    );
+    match d.applicability_number {
+        Some(a) => {
+            let _ = writeln!(
+                s,
+                "  wave-period number {a:.0} (method needs above {:.0}; Ponce, Li & Simons 1978)",
+                d.applicability_threshold
+            );
+        }
+        None => {
+            let _ = writeln!(s, "  wave-period number not defined (no bed slope)");
+        }
+    }
+    let _ = writeln!(
+        s,
+        "  {} steps ({} rejected), time step {:.1} s to {:.1} s, Newton iterations {} (max {} in a step)",
+        d.steps,
+        d.rejected_steps,
+        d.dt_min_used,
+        d.dt_max_used,
+        d.newton_iterations_total,
+        d.max_newton_iterations
+    );
+    if !d.dry_nodes.is_empty() {
+        let _ = writeln!(s, "  {} node(s) ran dry", d.dry_nodes.len());
+    }
+    let _ = writeln!(s, "  wall time {:.1} ms", wall_time_s * 1000.0);
+    if d.warnings.is_empty() {
+        let _ = writeln!(s, "  no warnings");
+    } else {
+        for w in &d.warnings {
+            let _ = writeln!(s, "  WARNING: {w}");
+        }
+    }
+    s
+}
+
+/// Stage and discharge hydrographs at every point, one row per point and
+/// time, after `#` comment lines carrying the caution and provenance.
+pub fn results_csv(out: &RunOutput) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "# {CAUTION}");
+    let _ = writeln!(
+        s,
+        "# reach: {}; method: {}; nodes: {}",
+        out.reach.replace(['\n', '\r'], " "),
+        out.method,
+        out.nodes
+    );
+    let _ = writeln!(s, "point,chainage_m,time,stage_m,discharge_m3s");
+    for p in &out.points {
+        let name = csv_field(&p.name);
+        for ((t, z), q) in p.times.iter().zip(&p.stage).zip(&p.discharge) {
+            let _ = writeln!(
+                s,
+                "{name},{},{},{z:.4},{q:.4}",
+                p.chainage,
+                t.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
+            );
+        }
+    }
+    s
+}
+
+/// RFC 4180 §2: a field with a comma, quote or line break is quoted, quotes
+/// doubled.
+fn csv_field(text: &str) -> String {
+    if text.contains([',', '"', '\n', '\r']) {
+        format!("\"{}\"", text.replace('"', "\"\""))
+    } else {
+        text.to_owned()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn csv_quoting_follows_rfc4180() {
+        assert_eq!(csv_field("Mill Lane"), "Mill Lane");
+        assert_eq!(csv_field("Bridge, old"), "\"Bridge, old\"");
+        assert_eq!(csv_field("the \"new\" one"), "\"the \"\"new\"\" one\"");
+    }
+
+    #[test]
+    fn durations_read_naturally() {
+        assert_eq!(hours_minutes(45.0 * 60.0), "45 min");
+        assert_eq!(hours_minutes(3.0 * 3600.0 + 5.0 * 60.0), "3 h 05 min");
+    }
+}

@@ -1,0 +1,480 @@
+//! The reach description: the JSON document (`REACH.json`) that the offline
+//! `route` command reads and the service stores per reach version.
+//!
+//! It is user input, so it is parsed strictly (unknown fields are errors)
+//! and validated in full by [`ReachSpec::validate`], with every error naming
+//! the field as a JSON path (`points[2].thresholds[0].elevation`) so a
+//! hydrologist can fix the file without reading code. Times inside the
+//! document are RFC 3339 with an explicit offset; quantities are SI.
+
+use chrono::{DateTime, FixedOffset};
+use serde::{Deserialize, Serialize};
+
+use crate::engine::{rating::RatingCurve, section::CrossSection};
+
+/// A reach: surveyed sections, the downstream boundary, tributaries and the
+/// points of interest whose stages the forecast reports.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReachSpec {
+    /// Display name of the reach.
+    pub name: String,
+    /// Free text shown with the reach.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub description: Option<String>,
+    /// Cross-sections, chainage (m) increasing downstream.
+    pub sections: Vec<CrossSection>,
+    /// Largest distance between computational nodes (m); sections are
+    /// interpolated to meet it.
+    #[serde(default = "default_max_node_spacing")]
+    pub max_node_spacing: f64,
+    /// What happens at the downstream end.
+    pub downstream: DownstreamSpec,
+    /// Tributaries and other point inflows.
+    #[serde(default)]
+    pub laterals: Vec<LateralSpec>,
+    /// Places where stage matters.
+    pub points: Vec<PointSpec>,
+    /// Numerical settings.
+    #[serde(default)]
+    pub routing: RoutingSpec,
+}
+
+fn default_max_node_spacing() -> f64 {
+    200.0
+}
+
+/// The downstream boundary condition.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+pub enum DownstreamSpec {
+    /// Normal flow for the given friction slope (place the last section far
+    /// enough below the points of interest that its influence has faded).
+    NormalDepth { friction_slope: f64 },
+    /// A constant water level (m), e.g. a regulated lake.
+    FixedStage { stage: f64 },
+    /// A water level that varies in time (a tide, a lake level).
+    StageSeries { series: Vec<StagePoint> },
+    /// A stage–discharge rating at the downstream control.
+    Rating { rating: RatingCurve },
+}
+
+/// One sample of a stage series.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct StagePoint {
+    pub time: DateTime<FixedOffset>,
+    /// Water-surface elevation (m).
+    pub stage: f64,
+}
+
+/// One sample of a discharge series.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FlowPoint {
+    pub time: DateTime<FixedOffset>,
+    /// Discharge (m³/s).
+    pub discharge: f64,
+}
+
+/// A tributary inflow at a chainage.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LateralSpec {
+    pub name: String,
+    /// Chainage where it joins (m).
+    pub chainage: f64,
+    /// Its hydrograph; held constant before the first and after the last
+    /// sample.
+    pub inflow: Vec<FlowPoint>,
+}
+
+/// What kind of place a point of interest is; it changes what is reported
+/// (a bridge has a low chord and a deck).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum PointKind {
+    Bridge,
+    RoadCrossing,
+    Town,
+    Gauge,
+    Other,
+}
+
+impl std::fmt::Display for PointKind {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            PointKind::Bridge => "bridge",
+            PointKind::RoadCrossing => "road crossing",
+            PointKind::Town => "town",
+            PointKind::Gauge => "gauge",
+            PointKind::Other => "other",
+        })
+    }
+}
+
+/// A place along the reach where the stage matters.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PointSpec {
+    pub name: String,
+    /// Chainage (m); must lie within the first and last section.
+    pub chainage: f64,
+    pub kind: PointKind,
+    /// Elevation of the underside of a bridge deck (m).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub low_chord: Option<f64>,
+    /// Elevation of the top of a bridge deck or road (m).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub deck: Option<f64>,
+    /// The user's own named levels, any number.
+    #[serde(default)]
+    pub thresholds: Vec<ThresholdSpec>,
+}
+
+/// A named water level chosen by the user (m).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ThresholdSpec {
+    pub name: String,
+    pub elevation: f64,
+}
+
+/// Routing method.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum Method {
+    /// Implicit diffusive-wave solver (the default).
+    #[default]
+    Diffusive,
+    /// Variable-parameter Muskingum–Cunge (kinematic; cross-check).
+    Kinematic,
+}
+
+impl std::fmt::Display for Method {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            Method::Diffusive => "diffusive",
+            Method::Kinematic => "kinematic",
+        })
+    }
+}
+
+impl std::str::FromStr for Method {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        match s {
+            "diffusive" => Ok(Method::Diffusive),
+            "kinematic" => Ok(Method::Kinematic),
+            other => Err(format!(
+                "unknown method `{other}`: use diffusive or kinematic"
+            )),
+        }
+    }
+}
+
+/// Numerical settings of a reach.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct RoutingSpec {
+    pub method: Method,
+    /// Spacing of reported results (s).
+    pub output_interval_s: f64,
+    /// Largest time step of the diffusive solver (s).
+    pub dt_max_s: f64,
+    /// Time weighting of the diffusive solver, 0.55..=1.
+    pub theta: f64,
+    /// Time step of the kinematic method (s).
+    pub kinematic_dt_s: f64,
+}
+
+impl Default for RoutingSpec {
+    fn default() -> Self {
+        Self {
+            method: Method::Diffusive,
+            output_interval_s: 900.0,
+            dt_max_s: 600.0,
+            theta: 0.6,
+            kinematic_dt_s: 300.0,
+        }
+    }
+}
+
+/// A field of the reach description that is wrong, and why.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{field}: {message}")]
+pub struct SpecError {
+    /// JSON path of the field, e.g. `points[1].chainage`.
+    pub field: String,
+    pub message: String,
+}
+
+impl SpecError {
+    pub fn new(field: impl Into<String>, message: impl Into<String>) -> Self {
+        Self {
+            field: field.into(),
+            message: message.into(),
+        }
+    }
+}
+
+fn finite(field: &str, v: f64) -> Result<(), SpecError> {
+    if v.is_finite() {
+        Ok(())
+    } else {
+        Err(SpecError::new(
+            field,
+            format!("must be a finite number, got {v}"),
+        ))
+    }
+}
+
+impl ReachSpec {
+    /// Parses a JSON document, reporting the path of a bad field.
+    pub fn from_json(text: &str) -> Result<Self, SpecError> {
+        let de = &mut serde_json::Deserializer::from_str(text);
+        let spec: ReachSpec = serde_path_to_error::deserialize(de).map_err(|e| {
+            let path = e.path().to_string();
+            let field = if path == "." {
+                "(document)".to_owned()
+            } else {
+                path
+            };
+            SpecError::new(field, e.into_inner().to_string())
+        })?;
+        spec.validate()?;
+        Ok(spec)
+    }
+
+    /// Chainage of the first and last section (m).
+    pub fn extent(&self) -> Option<(f64, f64)> {
+        Some((
+            self.sections.first()?.chainage,
+            self.sections.last()?.chainage,
+        ))
+    }
+
+    /// Checks everything the engine does not: names, points, thresholds,
+    /// boundary values and numerical settings. Section geometry is checked by
+    /// the engine, whose errors name the section and field.
+    pub fn validate(&self) -> Result<(), SpecError> {
+        if self.name.trim().is_empty() {
+            return Err(SpecError::new("name", "must not be empty"));
+        }
+        if self.sections.len() < 2 {
+            return Err(SpecError::new(
+                "sections",
+                format!(
+                    "a reach needs at least 2 sections, got {}",
+                    self.sections.len()
+                ),
+            ));
+        }
+        crate::engine::section::validate_reach(&self.sections)
+            .map_err(|e| SpecError::new("sections", e.to_string()))?;
+        let (first, last) = self
+            .extent()
+            .ok_or_else(|| SpecError::new("sections", "must not be empty"))?;
+        if !(self.max_node_spacing.is_finite() && self.max_node_spacing > 0.0) {
+            return Err(SpecError::new(
+                "max_node_spacing",
+                format!("must be positive, got {}", self.max_node_spacing),
+            ));
+        }
+        let within = |field: &str, x: f64| -> Result<(), SpecError> {
+            finite(field, x)?;
+            if x < first || x > last {
+                return Err(SpecError::new(
+                    field,
+                    format!("{x} m lies outside the reach ({first} m to {last} m)"),
+                ));
+            }
+            Ok(())
+        };
+        match &self.downstream {
+            DownstreamSpec::NormalDepth { friction_slope } => {
+                let f = "downstream.friction_slope";
+                finite(f, *friction_slope)?;
+                if *friction_slope <= 0.0 {
+                    return Err(SpecError::new(f, "must be positive"));
+                }
+            }
+            DownstreamSpec::FixedStage { stage } => finite("downstream.stage", *stage)?,
+            DownstreamSpec::StageSeries { series } => {
+                if series.is_empty() {
+                    return Err(SpecError::new("downstream.series", "must not be empty"));
+                }
+                for (i, p) in series.iter().enumerate() {
+                    finite(&format!("downstream.series[{i}].stage"), p.stage)?;
+                    if i > 0 && p.time <= series[i - 1].time {
+                        return Err(SpecError::new(
+                            format!("downstream.series[{i}].time"),
+                            "times must increase strictly",
+                        ));
+                    }
+                }
+            }
+            DownstreamSpec::Rating { rating } => rating
+                .validate()
+                .map_err(|e| SpecError::new("downstream.rating", e.to_string()))?,
+        }
+        for (i, l) in self.laterals.iter().enumerate() {
+            if l.name.trim().is_empty() {
+                return Err(SpecError::new(
+                    format!("laterals[{i}].name"),
+                    "must not be empty",
+                ));
+            }
+            within(&format!("laterals[{i}].chainage"), l.chainage)?;
+            if l.inflow.is_empty() {
+                return Err(SpecError::new(
+                    format!("laterals[{i}].inflow"),
+                    "must not be empty",
+                ));
+            }
+            for (j, p) in l.inflow.iter().enumerate() {
+                let f = format!("laterals[{i}].inflow[{j}].discharge");
+                finite(&f, p.discharge)?;
+                if p.discharge < 0.0 {
+                    return Err(SpecError::new(f, "must not be negative"));
+                }
+                if j > 0 && p.time <= l.inflow[j - 1].time {
+                    return Err(SpecError::new(
+                        format!("laterals[{i}].inflow[{j}].time"),
+                        "times must increase strictly",
+                    ));
+                }
+            }
+        }
+        if self.points.is_empty() {
+            return Err(SpecError::new(
+                "points",
+                "at least one point of interest is needed",
+            ));
+        }
+        for (i, p) in self.points.iter().enumerate() {
+            if p.name.trim().is_empty() {
+                return Err(SpecError::new(
+                    format!("points[{i}].name"),
+                    "must not be empty",
+                ));
+            }
+            if self.points[..i].iter().any(|q| q.name == p.name) {
+                return Err(SpecError::new(
+                    format!("points[{i}].name"),
+                    format!("`{}` is used by an earlier point", p.name),
+                ));
+            }
+            within(&format!("points[{i}].chainage"), p.chainage)?;
+            if let Some(v) = p.low_chord {
+                finite(&format!("points[{i}].low_chord"), v)?;
+            }
+            if let Some(v) = p.deck {
+                finite(&format!("points[{i}].deck"), v)?;
+            }
+            if let (Some(lc), Some(d)) = (p.low_chord, p.deck)
+                && d < lc
+            {
+                return Err(SpecError::new(
+                    format!("points[{i}].deck"),
+                    format!("deck {d} m is below the low chord {lc} m"),
+                ));
+            }
+            for (j, t) in p.thresholds.iter().enumerate() {
+                if t.name.trim().is_empty() {
+                    return Err(SpecError::new(
+                        format!("points[{i}].thresholds[{j}].name"),
+                        "must not be empty",
+                    ));
+                }
+                if p.thresholds[..j].iter().any(|u| u.name == t.name) {
+                    return Err(SpecError::new(
+                        format!("points[{i}].thresholds[{j}].name"),
+                        format!("`{}` is used twice at this point", t.name),
+                    ));
+                }
+                finite(
+                    &format!("points[{i}].thresholds[{j}].elevation"),
+                    t.elevation,
+                )?;
+            }
+        }
+        let r = &self.routing;
+        let positive = |f: &str, v: f64| -> Result<(), SpecError> {
+            finite(f, v)?;
+            if v <= 0.0 {
+                return Err(SpecError::new(f, format!("must be positive, got {v}")));
+            }
+            Ok(())
+        };
+        positive("routing.output_interval_s", r.output_interval_s)?;
+        positive("routing.dt_max_s", r.dt_max_s)?;
+        positive("routing.kinematic_dt_s", r.kinematic_dt_s)?;
+        if !(0.55..=1.0).contains(&r.theta) {
+            return Err(SpecError::new(
+                "routing.theta",
+                format!("must be between 0.55 and 1, got {}", r.theta),
+            ));
+        }
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const MINIMAL: &str = r#"{
+        "name": "Test reach",
+        "sections": [
+            {"name": "A", "chainage": 0, "geometry": {"shape": "trapezoid", "bed_elevation": 10, "bottom_width": 20, "side_slope": 2, "n": 0.03}},
+            {"name": "B", "chainage": 5000, "geometry": {"shape": "trapezoid", "bed_elevation": 8, "bottom_width": 20, "side_slope": 2, "n": 0.03}}
+        ],
+        "downstream": {"kind": "normal_depth", "friction_slope": 0.0004},
+        "points": [{"name": "Footbridge", "chainage": 2500, "kind": "bridge", "low_chord": 13.5, "deck": 14.2,
+                    "thresholds": [{"name": "path closed", "elevation": 12.0}]}]
+    }"#;
+
+    #[test]
+    fn minimal_document_parses_with_defaults() {
+        let spec = ReachSpec::from_json(MINIMAL).expect("valid");
+        assert_eq!(spec.max_node_spacing, 200.0);
+        assert_eq!(spec.routing.method, Method::Diffusive);
+        assert_eq!(spec.extent(), Some((0.0, 5000.0)));
+    }
+
+    fn with(mutate: impl FnOnce(&mut serde_json::Value)) -> Result<ReachSpec, SpecError> {
+        let mut v: serde_json::Value = serde_json::from_str(MINIMAL).expect("json");
+        mutate(&mut v);
+        ReachSpec::from_json(&v.to_string())
+    }
+
+    #[test]
+    fn errors_name_the_field() {
+        let e = with(|v| v["points"][0]["chainage"] = 9000.into()).unwrap_err();
+        assert_eq!(e.field, "points[0].chainage");
+        let e = with(|v| v["points"][0]["deck"] = 13.0.into()).unwrap_err();
+        assert_eq!(e.field, "points[0].deck");
+        let e = with(|v| v["routing"] = serde_json::json!({"theta": 0.5})).unwrap_err();
+        assert_eq!(e.field, "routing.theta");
+        let e = with(|v| v["downstream"]["friction_slope"] = (-1.0).into()).unwrap_err();
+        assert_eq!(e.field, "downstream.friction_slope");
+        let e = with(|v| v["points"][0]["thresholds"][0]["elevation"] = "high".into()).unwrap_err();
+        assert_eq!(e.field, "points[0].thresholds[0].elevation");
+        let e = with(|v| v["points"][0]["colour"] = "red".into()).unwrap_err();
+        assert!(e.message.contains("colour"), "{e}");
+        let e = with(|v| v["sections"][1]["chainage"] = 0.into()).unwrap_err();
+        assert_eq!(e.field, "sections");
+        assert!(e.message.contains('B'), "names the section: {e}");
+    }
+
+    #[test]
+    fn duplicate_names_are_rejected() {
+        let e = with(|v| {
+            let p = v["points"][0].clone();
+            v["points"].as_array_mut().expect("array").push(p);
+        })
+        .unwrap_err();
+        assert_eq!(e.field, "points[1].name");
+    }
+}
