@@ -18,7 +18,7 @@ use crate::engine::{
 
 use super::{
     exceed::{self, Exceedance},
-    spec::{DownstreamSpec, Method, PointKind, ReachSpec, SpecError},
+    spec::{DownstreamSpec, Method, PointKind, ReachSpec, Severity, SpecError, ThresholdSpec},
 };
 
 /// Why a run could not be made.
@@ -37,6 +37,8 @@ pub enum RunError {
 pub struct ThresholdOutcome {
     pub name: String,
     pub elevation: f64,
+    /// Configured or rank-derived CAP severity.
+    pub severity: Severity,
     pub exceeded: bool,
     pub above_at_start: bool,
     pub first_above: Option<DateTime<Utc>>,
@@ -239,14 +241,18 @@ pub fn run_on_nodes(
             .ok_or_else(|| RunError::Routing(format!("non-finite stage at point `{}`", p.name)))?;
         let peak_discharge = discharge.iter().copied().fold(0.0, f64::max);
         let at = |s: f64| t0 + Duration::milliseconds((s * 1000.0).round() as i64);
-        let mut thresholds: Vec<ThresholdOutcome> = p
-            .thresholds
-            .iter()
-            .map(|t| {
+        let mut ranked: Vec<&ThresholdSpec> = p.thresholds.iter().collect();
+        ranked.sort_by(|a, b| a.elevation.total_cmp(&b.elevation));
+        let count = ranked.len();
+        let thresholds: Vec<ThresholdOutcome> = ranked
+            .into_iter()
+            .enumerate()
+            .map(|(rank, t)| {
                 let e: Exceedance = exceed::exceedance(secs, &stage, t.elevation);
                 ThresholdOutcome {
                     name: t.name.clone(),
                     elevation: t.elevation,
+                    severity: t.severity_at_rank(rank, count),
                     exceeded: e.exceeded,
                     above_at_start: e.above_at_start,
                     first_above: e.first_above.map(at),
@@ -256,7 +262,6 @@ pub fn run_on_nodes(
                 }
             })
             .collect();
-        thresholds.sort_by(|a, b| a.elevation.total_cmp(&b.elevation));
         points.push(PointForecast {
             name: p.name.clone(),
             chainage: p.chainage,

@@ -138,6 +138,54 @@ pub struct PointSpec {
 pub struct ThresholdSpec {
     pub name: String,
     pub elevation: f64,
+    /// Severity to state in CAP alerts when this level is forecast to be
+    /// exceeded (the CAP 1.2 `severity` vocabulary). When absent it is
+    /// derived from the threshold's rank at its point; see
+    /// [`ThresholdSpec::severity_at_rank`].
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub severity: Option<Severity>,
+}
+
+/// CAP 1.2 `severity` values that a threshold may carry (OASIS CAP 1.2,
+/// §3.2.2; `Unknown` is not offered: a configured level is never unknown).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Severity {
+    Minor,
+    Moderate,
+    Severe,
+    Extreme,
+}
+
+impl Severity {
+    /// The CAP spelling (`Minor`, `Moderate`, `Severe`, `Extreme`).
+    pub fn cap_value(self) -> &'static str {
+        match self {
+            Severity::Minor => "Minor",
+            Severity::Moderate => "Moderate",
+            Severity::Severe => "Severe",
+            Severity::Extreme => "Extreme",
+        }
+    }
+}
+
+impl ThresholdSpec {
+    /// The configured severity, or one derived from the rank (0 = lowest
+    /// elevation) among `count` thresholds at the point: the lowest is
+    /// `Minor`, the highest `Severe`, those between `Moderate`; a lone
+    /// threshold is `Moderate`. A project convention, documented in the
+    /// README; set `severity` to override it.
+    pub fn severity_at_rank(&self, rank: usize, count: usize) -> Severity {
+        if let Some(s) = self.severity {
+            return s;
+        }
+        match (rank, count) {
+            (_, 0 | 1) => Severity::Moderate,
+            (0, _) => Severity::Minor,
+            (r, n) if r + 1 >= n => Severity::Severe,
+            _ => Severity::Moderate,
+        }
+    }
 }
 
 /// Routing method.
@@ -466,6 +514,23 @@ mod tests {
         let e = with(|v| v["sections"][1]["chainage"] = 0.into()).unwrap_err();
         assert_eq!(e.field, "sections");
         assert!(e.message.contains('B'), "names the section: {e}");
+    }
+
+    #[test]
+    fn severity_by_rank_unless_configured() {
+        let t = |s: Option<Severity>| ThresholdSpec {
+            name: "x".into(),
+            elevation: 1.0,
+            severity: s,
+        };
+        assert_eq!(t(None).severity_at_rank(0, 1), Severity::Moderate);
+        assert_eq!(t(None).severity_at_rank(0, 3), Severity::Minor);
+        assert_eq!(t(None).severity_at_rank(1, 3), Severity::Moderate);
+        assert_eq!(t(None).severity_at_rank(2, 3), Severity::Severe);
+        assert_eq!(
+            t(Some(Severity::Extreme)).severity_at_rank(0, 3),
+            Severity::Extreme
+        );
     }
 
     #[test]
