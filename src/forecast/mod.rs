@@ -3,6 +3,8 @@
 //! the threshold analysis. Pure code; the scheduler and the offline `route`
 //! command add the I/O.
 
+pub mod assemble;
+pub mod cap;
 pub mod exceed;
 pub mod inflow;
 pub mod report;
