@@ -1,6 +1,11 @@
 //! Logging: `tracing` events to standard error, filtered by `log.filter`
 //! (or `RUST_LOG` when set). Each HTTP request gets a span with its id,
-//! method and path (see `http::router`).
+//! method and path (see `http::router`); request and response events are at
+//! DEBUG so a polled API does not flood the log: use
+//! `log.filter = "info,tower_http=debug"` to see every request. Colours only
+//! when standard error is a terminal, so journald and files get plain text.
+
+use std::io::IsTerminal;
 
 use tracing_subscriber::{EnvFilter, fmt, prelude::*};
 
@@ -14,6 +19,11 @@ pub fn init(filter: &str) {
         .unwrap_or_else(|| EnvFilter::new("info"));
     let _ = tracing_subscriber::registry()
         .with(filter)
-        .with(fmt::layer().with_writer(std::io::stderr).with_target(false))
+        .with(
+            fmt::layer()
+                .with_writer(std::io::stderr)
+                .with_ansi(std::io::stderr().is_terminal())
+                .with_target(false),
+        )
         .try_init();
 }
