@@ -5,9 +5,11 @@
 //! nothing above it. See DEVELOPERS.md for the architecture.
 
 pub mod app;
+pub mod auth;
 pub mod cli;
 pub mod config;
 pub mod http;
+pub mod readings;
 pub mod store;
 pub mod telemetry;
 
