@@ -144,8 +144,17 @@ fn parse_csv_rows(body: &[u8]) -> Result<Vec<Result<RawReading, RowError>>, Prob
         .has_headers(true)
         .trim(csv::Trim::All)
         .from_reader(body);
+    // The line is counted from the byte offset: the csv crate's own line
+    // count lags by one after CRLF line ends.
     let syntax = |e: csv::Error| {
-        let line = e.position().map(|p| p.line());
+        let pos = e.position().cloned();
+        let line = pos.as_ref().map(|p| {
+            let end = usize::try_from(p.byte())
+                .unwrap_or(usize::MAX)
+                .saturating_add(1)
+                .min(body.len());
+            body[..end].iter().filter(|b| **b == b'\n').count() + 1
+        });
         let mut p = Problem::malformed(
             "csv",
             match line {
@@ -155,6 +164,9 @@ fn parse_csv_rows(body: &[u8]) -> Result<Vec<Result<RawReading, RowError>>, Prob
         );
         if let Some(l) = line {
             p = p.with("line", l);
+        }
+        if let Some(record) = pos.map(|p| p.record()).filter(|r| *r > 0) {
+            p = p.row(usize::try_from(record).unwrap_or(usize::MAX));
         }
         p
     };
