@@ -2,8 +2,12 @@
 //!
 //! ```sh
 //! cargo run --release --example bench                    # in-process server
-//! cargo run --release --example bench -- --url http://127.0.0.1:8080 --key rck_...
+//! cargo run --release --example bench -- --url http://127.0.0.1:8080 --key rck_... [--prefix run2]
 //! ```
+//!
+//! Against a running server, gauges `<prefix>-1 …` are created (default
+//! prefix `bench`); use a new `--prefix` for each run so the readings are
+//! new rather than duplicates.
 //!
 //! Phase 1 posts `--readings` readings in JSON batches of `--batch` from
 //! `--writers` concurrent clients (one gauge each) and reports readings per
@@ -30,6 +34,7 @@ use serde_json::json;
 struct Args {
     url: Option<String>,
     key: Option<String>,
+    prefix: String,
     readings: usize,
     batch: usize,
     writers: usize,
@@ -41,6 +46,7 @@ fn parse_args() -> Result<Args, String> {
     let mut a = Args {
         url: None,
         key: None,
+        prefix: "bench".into(),
         readings: 1_000_000,
         batch: 5_000,
         writers: 2,
@@ -54,6 +60,7 @@ fn parse_args() -> Result<Args, String> {
         match flag.as_str() {
             "--url" => a.url = Some(value()?),
             "--key" => a.key = Some(value()?),
+            "--prefix" => a.prefix = value()?,
             "--readings" => a.readings = num(value()?)?,
             "--batch" => a.batch = num(value()?)?,
             "--writers" => a.writers = num(value()?)?,
@@ -68,8 +75,9 @@ fn parse_args() -> Result<Args, String> {
     Ok(a)
 }
 
-/// 2025-01-01T00:00:00Z in Unix ms; readings are one minute apart.
-const T0: i64 = 1_735_689_600_000;
+/// 2020-01-01T00:00:00Z in Unix ms; readings are one minute apart, so a
+/// million readings end in late 2021, well in the past.
+const T0: i64 = 1_577_836_800_000;
 
 fn body(first: usize, n: usize) -> Vec<u8> {
     let readings: Vec<_> = (first..first + n)
@@ -147,7 +155,7 @@ async fn run(args: Args, url: String, key: String) -> anyhow::Result<()> {
         .build()?;
     for w in 1..=args.writers {
         let res = client
-            .put(format!("{url}/api/gauges/bench-{w}"))
+            .put(format!("{url}/api/gauges/{}-{w}", args.prefix))
             .bearer_auth(&key)
             .json(&json!({"name": format!("Bench {w}"), "measures": "stage",
                 "stage_min_m": 0.0, "stage_max_m": 20.0, "max_rise_m_per_h": 50.0}))
@@ -159,7 +167,7 @@ async fn run(args: Args, url: String, key: String) -> anyhow::Result<()> {
     // Phase 1: ingest. Bodies are built before the clock starts.
     let per_writer = args.readings / args.writers;
     let batches_per_writer = per_writer.div_ceil(args.batch);
-    let offset = (chrono::Utc::now().timestamp_millis() % 1_000_000) as usize * 1000;
+    let offset = 0;
     let mut bodies: Vec<Vec<(usize, Vec<u8>)>> = Vec::new();
     for _ in 0..args.writers {
         let mut mine = Vec::new();
@@ -182,13 +190,14 @@ async fn run(args: Args, url: String, key: String) -> anyhow::Result<()> {
     let mut tasks = Vec::new();
     for (w, mine) in bodies.into_iter().enumerate() {
         let (client, url, key) = (client.clone(), url.clone(), key.clone());
+        let prefix = args.prefix.clone();
         tasks.push(tokio::spawn(async move {
             let mut latencies = Vec::new();
             let mut stored = 0usize;
             for (n, b) in mine {
                 let t = Instant::now();
                 let res = client
-                    .post(format!("{url}/api/gauges/bench-{}/readings", w + 1))
+                    .post(format!("{url}/api/gauges/{prefix}-{}/readings", w + 1))
                     .bearer_auth(&key)
                     .header("content-type", "application/json")
                     .body(b)
@@ -223,7 +232,7 @@ async fn run(args: Args, url: String, key: String) -> anyhow::Result<()> {
     );
 
     // Phase 2: latest 500 readings of one gauge, from many connections.
-    let get_url = Arc::new(format!("{url}/api/gauges/bench-1/readings"));
+    let get_url = Arc::new(format!("{url}/api/gauges/{}-1/readings", args.prefix));
     let probe = client.get(get_url.as_str()).send().await?;
     let probe_len = probe.bytes().await?.len();
     println!(

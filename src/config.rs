@@ -525,6 +525,28 @@ mod tests {
     }
 
     #[test]
+    fn auth_and_ingest_keys_are_checked() {
+        let e = load_str("[auth]\nrate_limit_per_sec = 0.0\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("auth.rate_limit_per_sec"), "{e}");
+        let e = load_str("", &[("REACHCAST_AUTH_RATE_LIMIT_BURST", "0")]).unwrap_err();
+        assert!(e.to_string().contains("auth.rate_limit_burst"), "{e}");
+        let e = load_str("[ingest]\nmax_page_size = 0\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("ingest.max_page_size"), "{e}");
+        let c = load_str(
+            "",
+            &[
+                ("REACHCAST_AUTH_RATE_LIMIT_PER_SEC", "2.5"),
+                ("REACHCAST_AUTH_PUBLIC_READS", "false"),
+                ("REACHCAST_INGEST_MAX_FUTURE_SECS", "60"),
+            ],
+        )
+        .expect("load");
+        assert_eq!(c.auth.rate_limit_per_sec, 2.5);
+        assert!(!c.auth.public_reads);
+        assert_eq!(c.ingest.max_future_secs, 60);
+    }
+
+    #[test]
     fn unknown_env_var_is_rejected() {
         let e = load_str("", &[("REACHCAST_SERVER_BINDD", "x")]).unwrap_err();
         assert!(e.to_string().contains("REACHCAST_SERVER_BINDD"), "{e}");

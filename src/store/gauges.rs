@@ -94,7 +94,7 @@ impl Store {
         key_id: &str,
     ) -> Result<(Gauge, bool), StoreError> {
         let now = Utc::now().to_rfc3339();
-        let mut tx = self.pool.begin_with("BEGIN IMMEDIATE").await?;
+        let (_writer, mut tx) = self.begin_write().await?;
         let existed = find_in(&mut tx, id).await?.is_some();
         sqlx::query(
             "INSERT INTO gauges (id, name, reach_id, chainage_m, measures, rating_curve,

@@ -24,7 +24,7 @@ impl Store {
         gauges: &[String],
     ) -> Result<KeyInfo, StoreError> {
         let now = Utc::now().to_rfc3339();
-        let mut tx = self.pool.begin_with("BEGIN IMMEDIATE").await?;
+        let (_writer, mut tx) = self.begin_write().await?;
         sqlx::query(
             "INSERT INTO api_keys (id, name, role, secret_sha256, created_at)
              VALUES (?1, ?2, ?3, ?4, ?5)",
@@ -117,7 +117,7 @@ impl Store {
     /// Revokes a key; `false` when no such key exists. Revoking twice keeps
     /// the first time.
     pub async fn revoke_key(&self, id: &str) -> Result<bool, StoreError> {
-        let mut tx = self.pool.begin_with("BEGIN IMMEDIATE").await?;
+        let (_writer, mut tx) = self.begin_write().await?;
         let done =
             sqlx::query("UPDATE api_keys SET revoked_at = coalesce(revoked_at, ?2) WHERE id = ?1")
                 .bind(id)

@@ -79,6 +79,10 @@ impl MigrationStatus {
 #[derive(Clone, Debug)]
 pub struct Store {
     pool: SqlitePool,
+    /// Serialises this process's write transactions. SQLite admits one
+    /// writer at a time anyway; waiting here is a wake-up when the lock
+    /// frees, where waiting in SQLite is its busy handler's sleep-and-retry.
+    write_lock: std::sync::Arc<tokio::sync::Mutex<()>>,
 }
 
 impl Store {
@@ -110,7 +114,27 @@ impl Store {
             .connect_with(options)
             .await?;
         MIGRATOR.run(&pool).await?;
-        Ok(Self { pool })
+        Ok(Self {
+            pool,
+            write_lock: std::sync::Arc::default(),
+        })
+    }
+
+    /// Begins a write transaction (`BEGIN IMMEDIATE`, so the write lock is
+    /// taken at the start and a read-then-write never fails midway), after
+    /// taking this process's writer lock. Keep the guard until commit.
+    async fn begin_write(
+        &self,
+    ) -> Result<
+        (
+            tokio::sync::OwnedMutexGuard<()>,
+            sqlx::Transaction<'static, sqlx::Sqlite>,
+        ),
+        StoreError,
+    > {
+        let guard = self.write_lock.clone().lock_owned().await;
+        let tx = self.pool.begin_with("BEGIN IMMEDIATE").await?;
+        Ok((guard, tx))
     }
 
     /// The pool, for the few callers (tests, maintenance) that need it.

@@ -102,7 +102,7 @@ impl Store {
         audit_extra: serde_json::Value,
         in_batch_duplicates: usize,
     ) -> Result<Option<IngestOutcome>, StoreError> {
-        let mut tx = self.pool.begin_with("BEGIN IMMEDIATE").await?;
+        let (_writer, mut tx) = self.begin_write().await?;
         let Some(gauge) = gauges::find_in(&mut tx, gauge_id).await? else {
             return Ok(None);
         };
@@ -254,7 +254,7 @@ impl Store {
         time_ms: i64,
         key_id: &str,
     ) -> Result<Option<StoredReading>, StoreError> {
-        let mut tx = self.pool.begin_with("BEGIN IMMEDIATE").await?;
+        let (_writer, mut tx) = self.begin_write().await?;
         let changed = sqlx::query(
             "UPDATE readings SET rate_check = 'confirmed', confirmed_by = ?3, confirmed_at_ms = ?4
              WHERE gauge_id = ?1 AND time_ms = ?2 AND rate_check = 'suspect'",
