@@ -97,29 +97,38 @@ impl Application {
 }
 
 /// Completes on Ctrl-C or, on Unix, SIGTERM (what systemd sends on stop).
-pub async fn shutdown_signal() {
-    let ctrl_c = async {
+///
+/// The handlers are installed when this is called, not when the future is
+/// first polled, so a caller that installs them before announcing that it
+/// listens never dies of a SIGTERM that arrives in between.
+pub fn shutdown_signal() -> impl Future<Output = ()> {
+    #[cfg(unix)]
+    let terminate = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate());
+    #[cfg(unix)]
+    let interrupt = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::interrupt());
+    async move {
+        #[cfg(unix)]
+        {
+            let wait = |s: std::io::Result<tokio::signal::unix::Signal>, name: &'static str| async move {
+                match s {
+                    Ok(mut s) => {
+                        s.recv().await;
+                    }
+                    Err(e) => {
+                        tracing::error!(error = %e, "cannot listen for {name}");
+                        std::future::pending::<()>().await;
+                    }
+                }
+            };
+            tokio::select! {
+                () = wait(terminate, "SIGTERM") => {}
+                () = wait(interrupt, "SIGINT") => {}
+            }
+        }
+        #[cfg(not(unix))]
         if let Err(e) = tokio::signal::ctrl_c().await {
             tracing::error!(error = %e, "cannot listen for Ctrl-C");
             std::future::pending::<()>().await;
         }
-    };
-    #[cfg(unix)]
-    let terminate = async {
-        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
-            Ok(mut s) => {
-                s.recv().await;
-            }
-            Err(e) => {
-                tracing::error!(error = %e, "cannot listen for SIGTERM");
-                std::future::pending::<()>().await;
-            }
-        }
-    };
-    #[cfg(not(unix))]
-    let terminate = std::future::pending::<()>();
-    tokio::select! {
-        () = ctrl_c => {}
-        () = terminate => {}
     }
 }

@@ -64,6 +64,9 @@ fn run_keys(command: &reachcast::cli::KeysCommand, config: &Config) -> ExitCode 
 async fn serve(config: Config) -> anyhow::Result<()> {
     let app = Application::build(config).await?;
     let addr = app.local_addr()?;
+    // Signal handlers first, so a SIGTERM right after the announcement
+    // below still stops the service cleanly.
+    let shutdown = shutdown_signal();
     tracing::info!(%addr, "reachcast listening; dashboard at http://{addr}/");
-    app.run_until(shutdown_signal()).await
+    app.run_until(shutdown).await
 }
