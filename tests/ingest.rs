@@ -173,6 +173,16 @@ async fn identical_resend_is_a_duplicate_and_changed_value_a_revision() {
     assert_eq!(revs[0]["replaced_by"], admin_id);
     assert_eq!(revs[0]["sent_by"], logger_id);
     assert!(revs[0]["replaced_at"].is_string());
+    // The same reading addressed with an offset in the path, `+` as is and
+    // percent-encoded.
+    for path in [
+        "/api/gauges/alder-weir/readings/2025-03-01T01:15:00+01:00",
+        "/api/gauges/alder-weir/readings/2025-03-01T01:15:00%2B01:00",
+    ] {
+        let (status, same) = f.app.get_json(path).await;
+        assert_eq!(status, 200, "{path}");
+        assert_eq!(same["reading"]["time"], "2025-03-01T00:15:00.000Z");
+    }
     // A batch contradicting itself: the second row for one time is rejected.
     let contradict = json!({"readings": [reading("2025-03-02T00:00:00Z", 1.0), reading("2025-03-02T00:00:00Z", 1.2)]});
     let r: Value = f
