@@ -2,7 +2,7 @@
 //! listener (port 0 in tests, so the port is read back), `run_until` serves
 //! until a shutdown signal and then drains for a bounded time.
 
-use std::{future::Future, net::SocketAddr, sync::Arc, time::Duration};
+use std::{future::Future, net::SocketAddr, time::Duration};
 
 use anyhow::Context;
 use tokio::net::TcpListener;
@@ -35,10 +35,7 @@ impl Application {
         let grace = config.shutdown_grace();
         Ok(Self {
             listener,
-            state: AppState {
-                config: Arc::new(config),
-                store,
-            },
+            state: AppState::new(config, store),
             grace,
         })
     }

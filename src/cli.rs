@@ -5,6 +5,8 @@ use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand};
 
+use crate::auth::Role;
+
 /// reachcast: advisory flood-stage forecasts for the points of interest
 /// along a river reach.
 ///
@@ -45,6 +47,8 @@ pub enum Command {
     /// For what-if runs and checks; uses no database. See the README for
     /// the REACH.json and INFLOW.csv formats.
     Route(RouteArgs),
+    /// Manage API keys in the database of the data directory.
+    Keys(KeysArgs),
 }
 
 #[derive(Debug, Args, Clone)]
@@ -65,6 +69,104 @@ pub struct RouteArgs {
     pub out: Option<PathBuf>,
 }
 
+#[derive(Debug, Args, Clone)]
+pub struct KeysArgs {
+    /// Folder of the SQLite database [overrides storage.data_dir].
+    #[arg(long, value_name = "DIR", global = true)]
+    pub data_dir: Option<PathBuf>,
+
+    #[command(subcommand)]
+    pub command: KeysCommand,
+}
+
+#[derive(Debug, Subcommand, Clone)]
+pub enum KeysCommand {
+    /// Create a key and print it once (only its hash is stored).
+    Create {
+        /// A name saying whose key it is, e.g. "upper-weir logger".
+        #[arg(long)]
+        name: String,
+        /// gauge (posts readings for the gauges given), forecaster or admin.
+        #[arg(long, value_parser = parse_role)]
+        role: Role,
+        /// A gauge this key may post readings for (role gauge); repeatable.
+        #[arg(long = "gauge", value_name = "ID")]
+        gauges: Vec<String>,
+    },
+    /// List keys (id, name, role, gauges, created, revoked); no secrets.
+    List,
+    /// Revoke a key by id; it stops working at once.
+    Revoke {
+        /// The key id (the part after `rck_`, before the second `_`).
+        id: String,
+    },
+}
+
+fn parse_role(s: &str) -> Result<Role, String> {
+    s.parse()
+}
+
+/// Runs a `keys` subcommand against the database; returns what to print.
+pub async fn run_keys(
+    command: &KeysCommand,
+    storage: &crate::config::StorageConfig,
+) -> anyhow::Result<String> {
+    use anyhow::Context;
+    use std::fmt::Write;
+    let store = crate::store::Store::open_for_maintenance(storage)
+        .await
+        .with_context(|| format!("opening database in {}", storage.data_dir.display()))?;
+    let out = match command {
+        KeysCommand::Create { name, role, gauges } => {
+            if name.trim().is_empty() {
+                anyhow::bail!("--name must not be empty");
+            }
+            if *role == Role::Gauge && gauges.is_empty() {
+                anyhow::bail!("a key with role gauge needs at least one --gauge ID");
+            }
+            if *role != Role::Gauge && !gauges.is_empty() {
+                anyhow::bail!("--gauge applies only to keys with role gauge");
+            }
+            if let Some(bad) = gauges.iter().find(|g| !crate::readings::valid_slug(g)) {
+                anyhow::bail!("--gauge `{bad}` is not a gauge id (a-z, 0-9, -)");
+            }
+            let key = crate::auth::generate_key()
+                .map_err(|e| anyhow::anyhow!("reading the random source: {e}"))?;
+            let info = store.create_key(&key, name.trim(), *role, gauges).await?;
+            format!(
+                "{}\n# key id {} ({}, role {}); shown once: store it now\n",
+                key.token, info.id, info.name, info.role
+            )
+        }
+        KeysCommand::List => {
+            let mut out = String::from("id\trole\tname\tgauges\tcreated\trevoked\n");
+            for k in store.list_keys().await? {
+                let _ = writeln!(
+                    out,
+                    "{}\t{}\t{}\t{}\t{}\t{}",
+                    k.id,
+                    k.role,
+                    k.name,
+                    k.gauges.join(","),
+                    k.created_at,
+                    k.revoked_at.as_deref().unwrap_or("-")
+                );
+            }
+            out
+        }
+        KeysCommand::Revoke { id } => {
+            if store.revoke_key(id).await? {
+                format!("revoked {id}\n")
+            } else {
+                store.close().await;
+                anyhow::bail!("no key with id {id}");
+            }
+        }
+    };
+    store.close().await;
+    Ok(out)
+}
+
 #[derive(Debug, Args, Clone, Default)]
 pub struct ServeArgs {
     /// Address to listen on, e.g. 127.0.0.1:8080 or 0.0.0.0:80
@@ -83,7 +185,12 @@ impl Cli {
     pub fn serve_args(&self) -> ServeArgs {
         match &self.command {
             Some(Command::Serve(args)) => args.clone(),
-            _ => self.serve.clone(),
+            Some(Command::Keys(k)) => ServeArgs {
+                bind: None,
+                data_dir: k.data_dir.clone(),
+            },
+            None => self.serve.clone(),
+            Some(Command::Route(_)) => self.serve.clone(),
         }
     }
 }
@@ -132,6 +239,57 @@ mod tests {
             ])
             .is_err()
         );
+    }
+
+    #[test]
+    fn keys_subcommands_parse() {
+        let c = Cli::try_parse_from([
+            "reachcast",
+            "keys",
+            "create",
+            "--name",
+            "logger",
+            "--role",
+            "gauge",
+            "--gauge",
+            "alder-weir",
+            "--gauge",
+            "brook-end",
+            "--data-dir",
+            "/tmp/d",
+        ])
+        .expect("parse");
+        match c.command {
+            Some(Command::Keys(KeysArgs {
+                data_dir,
+                command: KeysCommand::Create { role, gauges, .. },
+            })) => {
+                assert_eq!(role, Role::Gauge);
+                assert_eq!(gauges, ["alder-weir", "brook-end"]);
+                assert_eq!(data_dir, Some(PathBuf::from("/tmp/d")));
+            }
+            other => panic!("{other:?}"),
+        }
+        assert!(
+            Cli::try_parse_from([
+                "reachcast",
+                "keys",
+                "create",
+                "--name",
+                "x",
+                "--role",
+                "boss"
+            ])
+            .is_err()
+        );
+        let r = Cli::try_parse_from(["reachcast", "keys", "revoke", "abc"]).expect("parse");
+        assert!(matches!(
+            r.command,
+            Some(Command::Keys(KeysArgs {
+                command: KeysCommand::Revoke { .. },
+                ..
+            }))
+        ));
     }
 
     #[test]

@@ -55,6 +55,8 @@ pub struct Config {
     pub storage: StorageConfig,
     pub log: LogConfig,
     pub demo: DemoConfig,
+    pub auth: AuthConfig,
+    pub ingest: IngestConfig,
 }
 
 /// `[server]`: the HTTP listener.
@@ -98,6 +100,50 @@ pub struct LogConfig {
 pub struct DemoConfig {
     /// Seed the invented demo reach and replay its synthetic storm.
     pub enabled: bool,
+}
+
+/// `[auth]`: API keys and their limits.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct AuthConfig {
+    /// Whether `GET` endpoints answer without a key.
+    pub public_reads: bool,
+    /// Sustained requests per second allowed for one key (token refill rate).
+    pub rate_limit_per_sec: f64,
+    /// Requests one key may send in a burst (token bucket size).
+    pub rate_limit_burst: u32,
+}
+
+/// `[ingest]`: checks on incoming readings and paging of answers.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct IngestConfig {
+    /// How far ahead of the server clock a reading's time may lie.
+    pub max_future_secs: u64,
+    /// Most readings accepted in one request.
+    pub max_rows_per_request: usize,
+    /// Most readings returned in one page of `GET .../readings`.
+    pub max_page_size: usize,
+}
+
+impl Default for AuthConfig {
+    fn default() -> Self {
+        Self {
+            public_reads: true,
+            rate_limit_per_sec: 50.0,
+            rate_limit_burst: 100,
+        }
+    }
+}
+
+impl Default for IngestConfig {
+    fn default() -> Self {
+        Self {
+            max_future_secs: 600,
+            max_rows_per_request: 50_000,
+            max_page_size: 10_000,
+        }
+    }
 }
 
 impl Default for ServerConfig {
@@ -153,6 +199,12 @@ pub const KEYS: &[&str] = &[
     "storage.max_connections",
     "log.filter",
     "demo.enabled",
+    "auth.public_reads",
+    "auth.rate_limit_per_sec",
+    "auth.rate_limit_burst",
+    "ingest.max_future_secs",
+    "ingest.max_rows_per_request",
+    "ingest.max_page_size",
 ];
 
 impl Config {
@@ -292,6 +344,48 @@ impl Config {
                 ),
             ));
         }
+        if !(self.auth.rate_limit_per_sec.is_finite()
+            && self.auth.rate_limit_per_sec > 0.0
+            && self.auth.rate_limit_per_sec <= 1_000_000.0)
+        {
+            return Err(bad(
+                "auth.rate_limit_per_sec",
+                format!(
+                    "must be a number above 0 and at most 1000000, got {}",
+                    self.auth.rate_limit_per_sec
+                ),
+            ));
+        }
+        if self.auth.rate_limit_burst == 0 {
+            return Err(bad(
+                "auth.rate_limit_burst",
+                "must be at least 1".to_owned(),
+            ));
+        }
+        if self.ingest.max_future_secs > 86_400 {
+            return Err(bad(
+                "ingest.max_future_secs",
+                format!(
+                    "must be at most 86400 seconds, got {}",
+                    self.ingest.max_future_secs
+                ),
+            ));
+        }
+        if self.ingest.max_rows_per_request == 0 {
+            return Err(bad(
+                "ingest.max_rows_per_request",
+                "must be at least 1".to_owned(),
+            ));
+        }
+        if self.ingest.max_page_size == 0 || self.ingest.max_page_size > 1_000_000 {
+            return Err(bad(
+                "ingest.max_page_size",
+                format!(
+                    "must be between 1 and 1000000, got {}",
+                    self.ingest.max_page_size
+                ),
+            ));
+        }
         if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {
             return Err(bad("log.filter", format!("not a valid log filter: {e}")));
         }
@@ -329,6 +423,12 @@ fn env_value(raw: &str) -> toml::Value {
     let t = raw.trim();
     if let Ok(i) = t.parse::<i64>() {
         return toml::Value::Integer(i);
+    }
+    if let Ok(f) = t.parse::<f64>()
+        && f.is_finite()
+        && t.contains('.')
+    {
+        return toml::Value::Float(f);
     }
     match t {
         "true" => toml::Value::Boolean(true),
@@ -422,6 +522,28 @@ mod tests {
         assert!(e.to_string().contains("storage.max_connections"), "{e}");
         let e = load_str("[log]\nfilter = \"=[\"\n", &[]).unwrap_err();
         assert!(e.to_string().contains("log.filter"), "{e}");
+    }
+
+    #[test]
+    fn auth_and_ingest_keys_are_checked() {
+        let e = load_str("[auth]\nrate_limit_per_sec = 0.0\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("auth.rate_limit_per_sec"), "{e}");
+        let e = load_str("", &[("REACHCAST_AUTH_RATE_LIMIT_BURST", "0")]).unwrap_err();
+        assert!(e.to_string().contains("auth.rate_limit_burst"), "{e}");
+        let e = load_str("[ingest]\nmax_page_size = 0\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("ingest.max_page_size"), "{e}");
+        let c = load_str(
+            "",
+            &[
+                ("REACHCAST_AUTH_RATE_LIMIT_PER_SEC", "2.5"),
+                ("REACHCAST_AUTH_PUBLIC_READS", "false"),
+                ("REACHCAST_INGEST_MAX_FUTURE_SECS", "60"),
+            ],
+        )
+        .expect("load");
+        assert_eq!(c.auth.rate_limit_per_sec, 2.5);
+        assert!(!c.auth.public_reads);
+        assert_eq!(c.ingest.max_future_secs, 60);
     }
 
     #[test]

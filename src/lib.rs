@@ -5,12 +5,14 @@
 //! nothing above it. See DEVELOPERS.md for the architecture.
 
 pub mod app;
+pub mod auth;
 pub mod cli;
 pub mod config;
 pub mod engine;
 pub mod forecast;
 pub mod http;
 pub mod offline;
+pub mod readings;
 pub mod store;
 pub mod telemetry;
 

@@ -36,6 +36,9 @@ fn main() -> ExitCode {
             return ExitCode::from(2);
         }
     };
+    if let Some(Command::Keys(keys)) = &cli.command {
+        return run_keys(&keys.command, &config);
+    }
     telemetry::init(&config.log.filter);
     let runtime = match tokio::runtime::Runtime::new() {
         Ok(r) => r,
@@ -48,6 +51,23 @@ fn main() -> ExitCode {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {
             eprintln!("reachcast: {e:#}");
+            ExitCode::FAILURE
+        }
+    }
+}
+
+/// `reachcast keys ...`: key management on the configured data directory.
+fn run_keys(command: &reachcast::cli::KeysCommand, config: &Config) -> ExitCode {
+    let result = tokio::runtime::Runtime::new()
+        .map_err(anyhow::Error::from)
+        .and_then(|rt| rt.block_on(reachcast::cli::run_keys(command, &config.storage)));
+    match result {
+        Ok(out) => {
+            print!("{out}");
+            ExitCode::SUCCESS
+        }
+        Err(e) => {
+            eprintln!("reachcast keys: {e:#}");
             ExitCode::FAILURE
         }
     }

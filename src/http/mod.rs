@@ -6,8 +6,12 @@
 //! layer, and shape the answer.
 
 pub mod assets;
+pub mod auth;
+pub mod cache;
 pub mod error;
+pub mod gauges;
 pub mod health;
+pub mod readings;
 
 use std::{
     sync::{
@@ -31,13 +35,30 @@ use tower_http::{
     trace::TraceLayer,
 };
 
-use crate::{config::Config, store::Store};
+use crate::{auth::RateLimiter, config::Config, store::Store};
 
 /// Shared by every handler. Cheap to clone.
 #[derive(Clone)]
 pub struct AppState {
     pub config: Arc<Config>,
     pub store: Store,
+    /// Per-key request budget (`auth.rate_limit_*`).
+    pub limiter: Arc<RateLimiter>,
+    /// Latest-readings answers, invalidated on write.
+    pub cache: Arc<cache::ReadingsCache>,
+}
+
+impl AppState {
+    pub fn new(config: Config, store: Store) -> Self {
+        let limiter =
+            RateLimiter::new(config.auth.rate_limit_per_sec, config.auth.rate_limit_burst);
+        Self {
+            config: Arc::new(config),
+            store,
+            limiter: Arc::new(limiter),
+            cache: Arc::new(cache::ReadingsCache::default()),
+        }
+    }
 }
 
 const REQUEST_ID: HeaderName = HeaderName::from_static("x-request-id");
@@ -73,7 +94,10 @@ pub fn router(state: AppState) -> Router {
         next: Arc::new(AtomicU64::new(1)),
     };
 
-    let api = Router::new().fallback(any(error::not_found));
+    let api = Router::new()
+        .merge(gauges::router())
+        .merge(readings::router())
+        .fallback(any(error::not_found));
 
     Router::new()
         .merge(health::router())
@@ -99,6 +123,7 @@ pub fn router(state: AppState) -> Router {
                     }),
                 )
                 .layer(PropagateRequestIdLayer::new(REQUEST_ID))
+                .layer(axum::middleware::map_response(error::problemize))
                 .layer(TimeoutLayer::with_status_code(
                     StatusCode::SERVICE_UNAVAILABLE,
                     timeout,

@@ -21,6 +21,15 @@ use sqlx::{
 
 use crate::config::StorageConfig;
 
+mod audit;
+mod gauges;
+mod keys;
+mod readings;
+
+pub use audit::{Audit, AuditEntry};
+pub use gauges::GaugeUpsert;
+pub use readings::{IngestOutcome, ReadingsQuery};
+
 /// The schema, compiled into the binary from `migrations/`.
 pub static MIGRATOR: Migrator = sqlx::migrate!("./migrations");
 
@@ -36,6 +45,8 @@ pub enum StoreError {
     Sqlx(#[from] sqlx::Error),
     #[error("migration error: {0}")]
     Migrate(#[from] sqlx::migrate::MigrateError),
+    #[error("stored value does not decode: {0}")]
+    Corrupt(String),
 }
 
 /// Identity of the database, kept across restarts.
@@ -68,12 +79,24 @@ impl MigrationStatus {
 #[derive(Clone, Debug)]
 pub struct Store {
     pool: SqlitePool,
+    /// Serialises this process's write transactions. SQLite admits one
+    /// writer at a time anyway; waiting here is a wake-up when the lock
+    /// frees, where waiting in SQLite is its busy handler's sleep-and-retry.
+    write_lock: std::sync::Arc<tokio::sync::Mutex<()>>,
 }
 
 impl Store {
     /// Opens (creating if needed) the database in `cfg.data_dir`, applies
     /// migrations and records this start.
     pub async fn open(cfg: &StorageConfig) -> Result<Self, StoreError> {
+        let store = Self::open_for_maintenance(cfg).await?;
+        store.record_start().await?;
+        Ok(store)
+    }
+
+    /// Opens and migrates the database without counting a service start
+    /// (the `keys` command line uses this).
+    pub async fn open_for_maintenance(cfg: &StorageConfig) -> Result<Self, StoreError> {
         std::fs::create_dir_all(&cfg.data_dir).map_err(|source| StoreError::DataDir {
             path: cfg.data_dir.display().to_string(),
             source,
@@ -91,9 +114,27 @@ impl Store {
             .connect_with(options)
             .await?;
         MIGRATOR.run(&pool).await?;
-        let store = Self { pool };
-        store.record_start().await?;
-        Ok(store)
+        Ok(Self {
+            pool,
+            write_lock: std::sync::Arc::default(),
+        })
+    }
+
+    /// Begins a write transaction (`BEGIN IMMEDIATE`, so the write lock is
+    /// taken at the start and a read-then-write never fails midway), after
+    /// taking this process's writer lock. Keep the guard until commit.
+    async fn begin_write(
+        &self,
+    ) -> Result<
+        (
+            tokio::sync::OwnedMutexGuard<()>,
+            sqlx::Transaction<'static, sqlx::Sqlite>,
+        ),
+        StoreError,
+    > {
+        let guard = self.write_lock.clone().lock_owned().await;
+        let tx = self.pool.begin_with("BEGIN IMMEDIATE").await?;
+        Ok((guard, tx))
     }
 
     /// The pool, for the few callers (tests, maintenance) that need it.

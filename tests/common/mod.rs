@@ -64,3 +64,87 @@ pub async fn spawn_app_with(config: Config) -> TestApp {
         task: Some(task),
     }
 }
+
+/// Creates an API key in the database of `data_dir` the way
+/// `reachcast keys create` does, and returns the full token.
+pub async fn make_key(data_dir: &Path, role: &str, gauges: &[&str]) -> String {
+    use reachcast::{auth, store::Store};
+    let config = test_config(data_dir);
+    let store = Store::open_for_maintenance(&config.storage)
+        .await
+        .expect("open store");
+    let key = auth::generate_key().expect("random");
+    let gauges: Vec<String> = gauges.iter().map(|g| g.to_string()).collect();
+    store
+        .create_key(
+            &key,
+            &format!("test {role}"),
+            role.parse().expect("role"),
+            &gauges,
+        )
+        .await
+        .expect("create key");
+    store.close().await;
+    key.token
+}
+
+/// A gauge description for tests: stage 0..10 m, 1 m/h, both quantities.
+pub fn gauge_body(name: &str) -> serde_json::Value {
+    serde_json::json!({
+        "name": name,
+        "measures": "both",
+        "stage_min_m": 0.0,
+        "stage_max_m": 10.0,
+        "max_rise_m_per_h": 1.0,
+        "discharge_max_m3s": 500.0,
+    })
+}
+
+impl TestApp {
+    pub async fn put_gauge(
+        &self,
+        key: &str,
+        id: &str,
+        body: &serde_json::Value,
+    ) -> reqwest::Response {
+        self.client
+            .put(self.url(&format!("/api/gauges/{id}")))
+            .bearer_auth(key)
+            .json(body)
+            .send()
+            .await
+            .expect("PUT gauge")
+    }
+
+    pub async fn post_readings(
+        &self,
+        key: &str,
+        gauge: &str,
+        body: &serde_json::Value,
+    ) -> reqwest::Response {
+        self.client
+            .post(self.url(&format!("/api/gauges/{gauge}/readings")))
+            .bearer_auth(key)
+            .json(body)
+            .send()
+            .await
+            .expect("POST readings")
+    }
+
+    pub async fn post_csv(&self, key: &str, gauge: &str, body: &str) -> reqwest::Response {
+        self.client
+            .post(self.url(&format!("/api/gauges/{gauge}/readings")))
+            .bearer_auth(key)
+            .header("content-type", "text/csv")
+            .body(body.to_owned())
+            .send()
+            .await
+            .expect("POST csv")
+    }
+
+    pub async fn get_json(&self, path: &str) -> (u16, serde_json::Value) {
+        let res = self.client.get(self.url(path)).send().await.expect("GET");
+        let status = res.status().as_u16();
+        (status, res.json().await.expect("json body"))
+    }
+}

@@ -1,0 +1,574 @@
+//! Gauge readings as the domain sees them: the checks an incoming reading
+//! must pass, and the plan for a batch (insert, duplicate, revision, and the
+//! rate-of-rise flag). Pure functions; no I/O, no SQL, no HTTP.
+
+use std::collections::BTreeMap;
+
+use chrono::{DateTime, NaiveDateTime, SecondsFormat, Utc};
+use serde::{Deserialize, Serialize};
+
+/// Quality of a reading, from the WaterML 2.0 quality vocabulary
+/// (`good`, `suspect`, `estimate`, `unchecked`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Quality {
+    Good,
+    Suspect,
+    Estimate,
+    Unchecked,
+}
+
+impl Quality {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Quality::Good => "good",
+            Quality::Suspect => "suspect",
+            Quality::Estimate => "estimate",
+            Quality::Unchecked => "unchecked",
+        }
+    }
+
+    pub fn parse(s: &str) -> Option<Self> {
+        match s {
+            "good" => Some(Quality::Good),
+            "suspect" => Some(Quality::Suspect),
+            "estimate" => Some(Quality::Estimate),
+            "unchecked" => Some(Quality::Unchecked),
+            _ => None,
+        }
+    }
+}
+
+/// Outcome of the rate-of-rise check.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum RateCheck {
+    /// Within the gauge's plausible rate.
+    Ok,
+    /// Changed faster than plausible: stored, but not used for forecasting
+    /// until confirmed.
+    Suspect,
+    /// Was suspect; a forecaster confirmed it.
+    Confirmed,
+}
+
+impl RateCheck {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            RateCheck::Ok => "ok",
+            RateCheck::Suspect => "suspect",
+            RateCheck::Confirmed => "confirmed",
+        }
+    }
+
+    pub fn parse(s: &str) -> Option<Self> {
+        match s {
+            "ok" => Some(RateCheck::Ok),
+            "suspect" => Some(RateCheck::Suspect),
+            "confirmed" => Some(RateCheck::Confirmed),
+            _ => None,
+        }
+    }
+
+    /// Whether a reading with this check feeds forecasts.
+    pub fn usable(self) -> bool {
+        self != RateCheck::Suspect
+    }
+}
+
+/// What a gauge measures.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Measures {
+    Stage,
+    Discharge,
+    Both,
+}
+
+impl Measures {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Measures::Stage => "stage",
+            Measures::Discharge => "discharge",
+            Measures::Both => "both",
+        }
+    }
+
+    pub fn parse(s: &str) -> Option<Self> {
+        match s {
+            "stage" => Some(Measures::Stage),
+            "discharge" => Some(Measures::Discharge),
+            "both" => Some(Measures::Both),
+            _ => None,
+        }
+    }
+}
+
+/// A gauge and the plausibility limits its readings are checked against.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Gauge {
+    pub id: String,
+    pub name: String,
+    pub reach: Option<String>,
+    pub chainage_m: Option<f64>,
+    pub measures: Measures,
+    pub rating_curve: Option<serde_json::Value>,
+    pub stage_min_m: f64,
+    pub stage_max_m: f64,
+    pub max_rise_m_per_h: f64,
+    pub discharge_min_m3s: Option<f64>,
+    pub discharge_max_m3s: Option<f64>,
+    pub created_at: String,
+    pub updated_at: String,
+}
+
+/// Whether `id` is a gauge slug: 1 to 64 of `a-z`, `0-9`, `-`, starting
+/// with a letter or digit.
+pub fn valid_slug(id: &str) -> bool {
+    !id.is_empty()
+        && id.len() <= 64
+        && id
+            .bytes()
+            .all(|b| b.is_ascii_lowercase() || b.is_ascii_digit() || b == b'-')
+        && !id.starts_with('-')
+}
+
+/// A reading that passed the checks, ready to store. Times are Unix
+/// milliseconds, UTC.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct NewReading {
+    pub time_ms: i64,
+    pub stage_m: Option<f64>,
+    pub discharge_m3s: Option<f64>,
+    pub quality: Quality,
+}
+
+impl NewReading {
+    fn same_values(&self, other: &StoredReading) -> bool {
+        self.stage_m == other.stage_m
+            && self.discharge_m3s == other.discharge_m3s
+            && self.quality == other.quality
+    }
+}
+
+/// A reading as stored.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct StoredReading {
+    pub time_ms: i64,
+    pub stage_m: Option<f64>,
+    pub discharge_m3s: Option<f64>,
+    pub quality: Quality,
+    pub rate_check: RateCheck,
+    pub revision: i64,
+    pub received_at_ms: i64,
+    pub key_id: String,
+}
+
+/// One input field as the body carried it.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Field<T> {
+    Absent,
+    Value(T),
+    /// Present but of the wrong kind; the text says what was expected.
+    Invalid(String),
+}
+
+/// One input row before checking, whatever its format.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RawReading {
+    pub time: Field<String>,
+    pub stage: Field<f64>,
+    pub discharge: Field<f64>,
+    pub quality: Field<String>,
+}
+
+/// Why a row was rejected: its 1-based row number, the field and a reason.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RowError {
+    pub row: usize,
+    pub field: String,
+    pub reason: String,
+}
+
+/// Limits that do not come from the gauge.
+#[derive(Debug, Clone, Copy)]
+pub struct Limits {
+    /// Server time now, Unix ms.
+    pub now_ms: i64,
+    /// How far ahead of `now_ms` a reading may lie.
+    pub max_future_ms: i64,
+}
+
+/// Parses an RFC 3339 date-time (RFC 3339 §5.6: the offset, `Z` or
+/// `±hh:mm`, is required) to Unix milliseconds. Digits below the
+/// millisecond are truncated.
+pub fn parse_time(text: &str) -> Result<i64, String> {
+    match DateTime::parse_from_rfc3339(text.trim()) {
+        Ok(t) => Ok(t.timestamp_millis()),
+        Err(_) => {
+            let naive = ["%Y-%m-%dT%H:%M:%S%.f", "%Y-%m-%d %H:%M:%S%.f"]
+                .iter()
+                .any(|f| NaiveDateTime::parse_from_str(text.trim(), f).is_ok());
+            if naive {
+                Err(format!(
+                    "`{text}` has no UTC offset; RFC 3339 requires `Z` or `±hh:mm`, e.g. 2026-03-01T04:15:00+01:00"
+                ))
+            } else {
+                Err(format!(
+                    "`{text}` is not an RFC 3339 date-time such as 2026-03-01T04:15:00+01:00"
+                ))
+            }
+        }
+    }
+}
+
+/// Formats Unix milliseconds as RFC 3339 in UTC with milliseconds.
+pub fn format_time(ms: i64) -> String {
+    DateTime::<Utc>::from_timestamp_millis(ms)
+        .map(|t| t.to_rfc3339_opts(SecondsFormat::Millis, true))
+        .unwrap_or_else(|| ms.to_string())
+}
+
+/// Checks one row against the gauge and the limits.
+pub fn check(
+    row: usize,
+    raw: &RawReading,
+    gauge: &Gauge,
+    limits: Limits,
+) -> Result<NewReading, RowError> {
+    let err = |field: &str, reason: String| RowError {
+        row,
+        field: field.to_owned(),
+        reason,
+    };
+    let time_ms = match &raw.time {
+        Field::Absent => return Err(err("time", "is required".to_owned())),
+        Field::Invalid(why) => return Err(err("time", why.clone())),
+        Field::Value(t) => parse_time(t).map_err(|why| err("time", why))?,
+    };
+    if time_ms > limits.now_ms.saturating_add(limits.max_future_ms) {
+        return Err(err(
+            "time",
+            format!(
+                "{} is more than {} s ahead of the server clock ({})",
+                format_time(time_ms),
+                limits.max_future_ms / 1000,
+                format_time(limits.now_ms)
+            ),
+        ));
+    }
+    let number = |name: &str, f: &Field<f64>| -> Result<Option<f64>, RowError> {
+        match f {
+            Field::Absent => Ok(None),
+            Field::Invalid(why) => Err(err(name, why.clone())),
+            Field::Value(v) if !v.is_finite() => {
+                Err(err(name, format!("must be a finite number, got {v}")))
+            }
+            Field::Value(v) => Ok(Some(*v)),
+        }
+    };
+    let stage_m = number("stage", &raw.stage)?;
+    let discharge_m3s = number("discharge", &raw.discharge)?;
+    let quality = match &raw.quality {
+        Field::Absent => Quality::Unchecked,
+        Field::Invalid(why) => return Err(err("quality", why.clone())),
+        Field::Value(q) => Quality::parse(q).ok_or_else(|| {
+            err(
+                "quality",
+                format!("`{q}` is not one of good, suspect, estimate, unchecked"),
+            )
+        })?,
+    };
+    if stage_m.is_none() && discharge_m3s.is_none() {
+        return Err(err(
+            "stage",
+            "stage or discharge (or both) is required".to_owned(),
+        ));
+    }
+    if stage_m.is_some() && gauge.measures == Measures::Discharge {
+        return Err(err(
+            "stage",
+            format!("gauge `{}` measures discharge only", gauge.id),
+        ));
+    }
+    if discharge_m3s.is_some() && gauge.measures == Measures::Stage {
+        return Err(err(
+            "discharge",
+            format!("gauge `{}` measures stage only", gauge.id),
+        ));
+    }
+    if let Some(s) = stage_m
+        && (s < gauge.stage_min_m || s > gauge.stage_max_m)
+    {
+        return Err(err(
+            "stage",
+            format!(
+                "{s} m is outside the gauge's plausible range {} to {} m",
+                gauge.stage_min_m, gauge.stage_max_m
+            ),
+        ));
+    }
+    if let Some(q) = discharge_m3s {
+        if q < 0.0 {
+            return Err(err(
+                "discharge",
+                format!("must not be negative, got {q} m³/s"),
+            ));
+        }
+        if gauge.discharge_min_m3s.is_some_and(|m| q < m)
+            || gauge.discharge_max_m3s.is_some_and(|m| q > m)
+        {
+            return Err(err(
+                "discharge",
+                format!(
+                    "{q} m³/s is outside the gauge's plausible range {} to {} m³/s",
+                    gauge
+                        .discharge_min_m3s
+                        .map_or("-".to_owned(), |v| v.to_string()),
+                    gauge
+                        .discharge_max_m3s
+                        .map_or("-".to_owned(), |v| v.to_string())
+                ),
+            ));
+        }
+    }
+    Ok(NewReading {
+        time_ms,
+        stage_m,
+        discharge_m3s,
+        quality,
+    })
+}
+
+/// Removes repeats of the same time inside one batch: an identical repeat
+/// counts as a duplicate; a repeat with other values is rejected (a batch
+/// must not contradict itself). Returns the rows sorted by time, the number
+/// of in-batch duplicates and the rejections.
+pub fn dedupe_batch(rows: Vec<(usize, NewReading)>) -> (Vec<NewReading>, usize, Vec<RowError>) {
+    let mut by_time: BTreeMap<i64, (usize, NewReading)> = BTreeMap::new();
+    let mut duplicates = 0;
+    let mut errors = Vec::new();
+    for (row, r) in rows {
+        match by_time.get(&r.time_ms) {
+            None => {
+                by_time.insert(r.time_ms, (row, r));
+            }
+            Some((_, first)) if first == &r => duplicates += 1,
+            Some((first_row, _)) => errors.push(RowError {
+                row,
+                field: "time".to_owned(),
+                reason: format!(
+                    "{} appears earlier in this batch (row {first_row}) with other values",
+                    format_time(r.time_ms)
+                ),
+            }),
+        }
+    }
+    (
+        by_time.into_values().map(|(_, r)| r).collect(),
+        duplicates,
+        errors,
+    )
+}
+
+/// Whether the change between two stages is faster than `max_m_per_h`.
+pub fn too_fast(a: (i64, f64), b: (i64, f64), max_m_per_h: f64) -> bool {
+    let hours = (b.0 - a.0).unsigned_abs() as f64 / 3_600_000.0;
+    if hours == 0.0 {
+        return false;
+    }
+    (b.1 - a.1).abs() / hours > max_m_per_h
+}
+
+/// What to do with one incoming reading.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Action {
+    Insert(NewReading, RateCheck),
+    Duplicate,
+    Revise {
+        new: NewReading,
+        check: RateCheck,
+        old: StoredReading,
+    },
+}
+
+/// Plans a batch against what is stored. `existing` holds the stored
+/// readings in the batch's time span; `before` and `after` are the nearest
+/// usable stored stages outside it. Each new or revised stage is compared
+/// with its nearest usable neighbours in time (stored, or earlier in this
+/// batch); a change (rise or fall) faster than the gauge's plausible rate
+/// marks it suspect.
+pub fn plan(
+    gauge: &Gauge,
+    rows: &[NewReading],
+    existing: &BTreeMap<i64, StoredReading>,
+    before: Option<(i64, f64)>,
+    after: Option<(i64, f64)>,
+) -> Vec<Action> {
+    let mut anchors: BTreeMap<i64, f64> = existing
+        .values()
+        .filter(|r| r.rate_check.usable())
+        .filter_map(|r| r.stage_m.map(|s| (r.time_ms, s)))
+        .collect();
+    anchors.extend(before);
+    anchors.extend(after);
+    let mut actions = Vec::with_capacity(rows.len());
+    for r in rows {
+        let old = existing.get(&r.time_ms);
+        if let Some(old) = old
+            && r.same_values(old)
+        {
+            actions.push(Action::Duplicate);
+            continue;
+        }
+        let check = match r.stage_m {
+            None => RateCheck::Ok,
+            Some(s) => {
+                let here = (r.time_ms, s);
+                let prev = anchors.range(..r.time_ms).next_back();
+                let next = anchors.range(r.time_ms + 1..).next();
+                let fast = prev
+                    .is_some_and(|(t, v)| too_fast((*t, *v), here, gauge.max_rise_m_per_h))
+                    || next.is_some_and(|(t, v)| too_fast(here, (*t, *v), gauge.max_rise_m_per_h));
+                if fast {
+                    RateCheck::Suspect
+                } else {
+                    RateCheck::Ok
+                }
+            }
+        };
+        match (check, r.stage_m) {
+            (RateCheck::Ok, Some(s)) => {
+                anchors.insert(r.time_ms, s);
+            }
+            _ => {
+                anchors.remove(&r.time_ms);
+            }
+        }
+        actions.push(match old {
+            None => Action::Insert(*r, check),
+            Some(old) => Action::Revise {
+                new: *r,
+                check,
+                old: old.clone(),
+            },
+        });
+    }
+    actions
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn gauge() -> Gauge {
+        Gauge {
+            id: "g".into(),
+            name: "G".into(),
+            reach: None,
+            chainage_m: None,
+            measures: Measures::Both,
+            rating_curve: None,
+            stage_min_m: 0.0,
+            stage_max_m: 10.0,
+            max_rise_m_per_h: 1.0,
+            discharge_min_m3s: None,
+            discharge_max_m3s: None,
+            created_at: String::new(),
+            updated_at: String::new(),
+        }
+    }
+
+    fn raw(time: &str, stage: Option<f64>) -> RawReading {
+        RawReading {
+            time: Field::Value(time.to_owned()),
+            stage: stage.map_or(Field::Absent, Field::Value),
+            discharge: Field::Absent,
+            quality: Field::Absent,
+        }
+    }
+
+    const LIMITS: Limits = Limits {
+        now_ms: 1_900_000_000_000,
+        max_future_ms: 600_000,
+    };
+
+    /// RFC 3339 §5.6: time-offset is required ("Z" / time-numoffset);
+    /// §5.8 examples: 1996-12-19T16:39:57-08:00 is 1996-12-20T00:39:57Z.
+    #[test]
+    fn rfc3339_offsets() {
+        assert_eq!(
+            parse_time("1996-12-19T16:39:57-08:00"),
+            parse_time("1996-12-20T00:39:57Z")
+        );
+        // 1996-12-20T00:39:57Z = 851042397 s after the Unix epoch (computed
+        // by hand: 9484 days × 86400 + 2397 s).
+        assert_eq!(parse_time("1996-12-20T00:39:57Z"), Ok(851_042_397_000));
+        let e = parse_time("2026-03-01T04:15:00").unwrap_err();
+        assert!(e.contains("no UTC offset"), "{e}");
+        let e = parse_time("yesterday").unwrap_err();
+        assert!(e.contains("not an RFC 3339"), "{e}");
+    }
+
+    #[test]
+    fn checks_name_the_field() {
+        let g = gauge();
+        let ok = check(1, &raw("2026-03-01T04:15:00+01:00", Some(1.0)), &g, LIMITS).expect("ok");
+        assert_eq!(ok.quality, Quality::Unchecked);
+        let e = check(
+            2,
+            &raw("2026-03-01T04:15:00+01:00", Some(f64::NAN)),
+            &g,
+            LIMITS,
+        )
+        .unwrap_err();
+        assert_eq!((e.row, e.field.as_str()), (2, "stage"));
+        let e = check(3, &raw("2026-03-01T04:15:00+01:00", Some(11.0)), &g, LIMITS).unwrap_err();
+        assert_eq!(e.field, "stage");
+        assert!(e.reason.contains("plausible range"), "{}", e.reason);
+        let mut neg = raw("2026-03-01T04:15:00Z", None);
+        neg.discharge = Field::Value(-1.0);
+        assert_eq!(check(4, &neg, &g, LIMITS).unwrap_err().field, "discharge");
+        let e = check(5, &raw("2031-03-01T04:15:00Z", Some(1.0)), &g, LIMITS).unwrap_err();
+        assert_eq!(e.field, "time");
+        let e = check(6, &raw("2026-03-01T04:15:00Z", None), &g, LIMITS).unwrap_err();
+        assert!(e.reason.contains("required"));
+    }
+
+    #[test]
+    fn rate_is_per_hour() {
+        // 0.5 m in 15 min = 2 m/h.
+        assert!(too_fast((0, 1.0), (900_000, 1.5), 1.9));
+        assert!(!too_fast((0, 1.0), (900_000, 1.5), 2.1));
+        assert!(too_fast((0, 1.5), (900_000, 1.0), 1.9), "falls count too");
+    }
+
+    #[test]
+    fn plan_flags_a_jump_and_recovers() {
+        let g = gauge();
+        let r = |t: i64, s: f64| NewReading {
+            time_ms: t * 900_000,
+            stage_m: Some(s),
+            discharge_m3s: None,
+            quality: Quality::Good,
+        };
+        let rows = [r(0, 1.0), r(1, 1.1), r(2, 5.0), r(3, 1.2)];
+        let actions = plan(&g, &rows, &BTreeMap::new(), None, None);
+        let checks: Vec<RateCheck> = actions
+            .iter()
+            .map(|a| match a {
+                Action::Insert(_, c) => *c,
+                other => panic!("{other:?}"),
+            })
+            .collect();
+        assert_eq!(
+            checks,
+            [
+                RateCheck::Ok,
+                RateCheck::Ok,
+                RateCheck::Suspect,
+                RateCheck::Ok
+            ]
+        );
+    }
+}

@@ -1,0 +1,149 @@
+//! Gauges: create or replace, look up, list.
+
+use chrono::Utc;
+use sqlx::sqlite::SqliteRow;
+use sqlx::{Row, SqliteConnection};
+
+use super::{Audit, Store, StoreError, audit};
+use crate::readings::{Gauge, Measures};
+
+/// The fields a client sets on a gauge.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GaugeUpsert {
+    pub name: String,
+    pub reach: Option<String>,
+    pub chainage_m: Option<f64>,
+    pub measures: Measures,
+    pub rating_curve: Option<serde_json::Value>,
+    pub stage_min_m: f64,
+    pub stage_max_m: f64,
+    pub max_rise_m_per_h: f64,
+    pub discharge_min_m3s: Option<f64>,
+    pub discharge_max_m3s: Option<f64>,
+}
+
+const COLUMNS: &str = "id, name, reach_id, chainage_m, measures, rating_curve, stage_min_m, \
+stage_max_m, max_rise_m_per_h, discharge_min_m3s, discharge_max_m3s, created_at, updated_at";
+
+fn gauge_from_row(row: &SqliteRow) -> Result<Gauge, StoreError> {
+    let measures: String = row.try_get("measures")?;
+    let curve: Option<String> = row.try_get("rating_curve")?;
+    Ok(Gauge {
+        id: row.try_get("id")?,
+        name: row.try_get("name")?,
+        reach: row.try_get("reach_id")?,
+        chainage_m: row.try_get("chainage_m")?,
+        measures: Measures::parse(&measures)
+            .ok_or_else(|| StoreError::Corrupt(format!("gauges.measures = {measures}")))?,
+        rating_curve: curve
+            .map(|c| serde_json::from_str(&c))
+            .transpose()
+            .map_err(|e| StoreError::Corrupt(format!("gauges.rating_curve: {e}")))?,
+        stage_min_m: row.try_get("stage_min_m")?,
+        stage_max_m: row.try_get("stage_max_m")?,
+        max_rise_m_per_h: row.try_get("max_rise_m_per_h")?,
+        discharge_min_m3s: row.try_get("discharge_min_m3s")?,
+        discharge_max_m3s: row.try_get("discharge_max_m3s")?,
+        created_at: row.try_get("created_at")?,
+        updated_at: row.try_get("updated_at")?,
+    })
+}
+
+pub(super) async fn find_in(
+    conn: &mut SqliteConnection,
+    id: &str,
+) -> Result<Option<Gauge>, StoreError> {
+    let sql = format!("SELECT {COLUMNS} FROM gauges WHERE id = ?1");
+    let row = sqlx::query(sqlx::AssertSqlSafe(sql))
+        .bind(id)
+        .fetch_optional(conn)
+        .await?;
+    row.as_ref().map(gauge_from_row).transpose()
+}
+
+impl Store {
+    /// The gauge with this id.
+    pub async fn gauge(&self, id: &str) -> Result<Option<Gauge>, StoreError> {
+        let mut conn = self.pool.acquire().await?;
+        find_in(&mut conn, id).await
+    }
+
+    /// Every gauge, by id.
+    pub async fn gauges(&self) -> Result<Vec<Gauge>, StoreError> {
+        let sql = format!("SELECT {COLUMNS} FROM gauges ORDER BY id");
+        let rows = sqlx::query(sqlx::AssertSqlSafe(sql))
+            .fetch_all(&self.pool)
+            .await?;
+        rows.iter().map(gauge_from_row).collect()
+    }
+
+    /// Whether a reach with this id exists.
+    pub async fn reach_exists(&self, id: &str) -> Result<bool, StoreError> {
+        let found: Option<(i64,)> = sqlx::query_as("SELECT 1 FROM reaches WHERE id = ?1")
+            .bind(id)
+            .fetch_optional(&self.pool)
+            .await?;
+        Ok(found.is_some())
+    }
+
+    /// Creates or replaces a gauge; `true` when it was created.
+    pub async fn put_gauge(
+        &self,
+        id: &str,
+        g: &GaugeUpsert,
+        key_id: &str,
+    ) -> Result<(Gauge, bool), StoreError> {
+        let now = Utc::now().to_rfc3339();
+        let (_writer, mut tx) = self.begin_write().await?;
+        let existed = find_in(&mut tx, id).await?.is_some();
+        sqlx::query(
+            "INSERT INTO gauges (id, name, reach_id, chainage_m, measures, rating_curve,
+                 stage_min_m, stage_max_m, max_rise_m_per_h, discharge_min_m3s,
+                 discharge_max_m3s, created_at, updated_at)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?12)
+             ON CONFLICT (id) DO UPDATE SET
+                 name = excluded.name, reach_id = excluded.reach_id,
+                 chainage_m = excluded.chainage_m, measures = excluded.measures,
+                 rating_curve = excluded.rating_curve, stage_min_m = excluded.stage_min_m,
+                 stage_max_m = excluded.stage_max_m,
+                 max_rise_m_per_h = excluded.max_rise_m_per_h,
+                 discharge_min_m3s = excluded.discharge_min_m3s,
+                 discharge_max_m3s = excluded.discharge_max_m3s,
+                 updated_at = excluded.updated_at",
+        )
+        .bind(id)
+        .bind(&g.name)
+        .bind(&g.reach)
+        .bind(g.chainage_m)
+        .bind(g.measures.as_str())
+        .bind(g.rating_curve.as_ref().map(|c| c.to_string()))
+        .bind(g.stage_min_m)
+        .bind(g.stage_max_m)
+        .bind(g.max_rise_m_per_h)
+        .bind(g.discharge_min_m3s)
+        .bind(g.discharge_max_m3s)
+        .bind(&now)
+        .execute(&mut *tx)
+        .await?;
+        audit::record(
+            &mut tx,
+            &Audit {
+                key_id: Some(key_id.to_owned()),
+                action: if existed {
+                    "gauge.update"
+                } else {
+                    "gauge.create"
+                }
+                .to_owned(),
+                target: format!("gauge:{id}"),
+                summary: serde_json::json!({"name": g.name, "measures": g.measures.as_str()}),
+            },
+        )
+        .await?;
+        let gauge = find_in(&mut tx, id)
+            .await?
+            .ok_or_else(|| StoreError::Corrupt(format!("gauge {id} vanished")))?;
+        tx.commit().await?;
+        Ok((gauge, !existed))
+    }
+}
