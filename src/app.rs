@@ -10,6 +10,7 @@ use tokio::net::TcpListener;
 use crate::{
     config::Config,
     http::{self, AppState},
+    scheduler::Forecaster,
     store::Store,
 };
 
@@ -18,6 +19,7 @@ pub struct Application {
     listener: TcpListener,
     state: AppState,
     grace: Duration,
+    stop_workers: tokio::sync::watch::Sender<bool>,
 }
 
 impl Application {
@@ -33,10 +35,30 @@ impl Application {
             .await
             .with_context(|| format!("binding {addr}"))?;
         let grace = config.shutdown_grace();
+        let (stop_workers, stop_rx) = tokio::sync::watch::channel(false);
+        let forecaster = Forecaster::new(store.clone(), config.forecast.clone(), stop_rx.clone());
+        if config.demo.enabled {
+            crate::demo::seed(&store)
+                .await
+                .context("seeding the demo reach")?;
+        }
+        forecaster
+            .start()
+            .await
+            .context("starting the forecast cycle")?;
+        if config.demo.enabled {
+            crate::demo::spawn_replay(
+                store.clone(),
+                forecaster.clone(),
+                Duration::from_secs(config.demo.replay_secs),
+                stop_rx,
+            );
+        }
         Ok(Self {
             listener,
-            state: AppState::new(config, store),
+            state: AppState::new(config, store, forecaster),
             grace,
+            stop_workers,
         })
     }
 
@@ -57,6 +79,7 @@ impl Application {
             listener,
             state,
             grace,
+            stop_workers,
         } = self;
         let store = state.store.clone();
         let router = http::router(state);
@@ -80,6 +103,7 @@ impl Application {
             grace_secs = grace.as_secs(),
             "shutdown requested; draining requests in flight"
         );
+        let _ = stop_workers.send(true);
         let _ = stop_tx.send(());
         match tokio::time::timeout(grace, &mut server).await {
             Ok(ended) => ended

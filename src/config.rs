@@ -57,6 +57,52 @@ pub struct Config {
     pub demo: DemoConfig,
     pub auth: AuthConfig,
     pub ingest: IngestConfig,
+    pub forecast: ForecastConfig,
+}
+
+/// `[forecast]`: the forecast cycle.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct ForecastConfig {
+    /// Every reach is forecast at least this often.
+    pub interval_minutes: u64,
+    /// After new readings or an upload, wait this long for more before
+    /// running, so a burst of posts causes one run.
+    pub debounce_ms: u64,
+    /// How far back observed inflow is used.
+    pub lookback_hours: u64,
+    /// How far ahead of now the forecast reaches.
+    pub horizon_hours: u64,
+    /// Gaps in the readings up to this long are interpolated.
+    pub max_gap_minutes: u64,
+    /// The upstream gauge silent longer than this marks forecasts stale.
+    pub stale_after_minutes: u64,
+    /// Spacing of extrapolated and interpolated inflow samples.
+    pub step_minutes: u64,
+    /// Beyond the last reading with no upload: `persistence` (hold the last
+    /// discharge) or `recession` (exponential decay to `base_flow_m3s`).
+    pub extrapolation: String,
+    /// Recession time constant.
+    pub recession_hours: f64,
+    /// Base flow the recession decays to.
+    pub base_flow_m3s: f64,
+}
+
+impl Default for ForecastConfig {
+    fn default() -> Self {
+        Self {
+            interval_minutes: 15,
+            debounce_ms: 2_000,
+            lookback_hours: 24,
+            horizon_hours: 48,
+            max_gap_minutes: 60,
+            stale_after_minutes: 60,
+            step_minutes: 15,
+            extrapolation: "persistence".to_owned(),
+            recession_hours: 24.0,
+            base_flow_m3s: 0.0,
+        }
+    }
 }
 
 /// `[server]`: the HTTP listener.
@@ -100,6 +146,8 @@ pub struct LogConfig {
 pub struct DemoConfig {
     /// Seed the invented demo reach and replay its synthetic storm.
     pub enabled: bool,
+    /// Seconds between replayed demo readings.
+    pub replay_secs: u64,
 }
 
 /// `[auth]`: API keys and their limits.
@@ -177,7 +225,10 @@ impl Default for LogConfig {
 
 impl Default for DemoConfig {
     fn default() -> Self {
-        Self { enabled: true }
+        Self {
+            enabled: true,
+            replay_secs: 10,
+        }
     }
 }
 
@@ -199,12 +250,23 @@ pub const KEYS: &[&str] = &[
     "storage.max_connections",
     "log.filter",
     "demo.enabled",
+    "demo.replay_secs",
     "auth.public_reads",
     "auth.rate_limit_per_sec",
     "auth.rate_limit_burst",
     "ingest.max_future_secs",
     "ingest.max_rows_per_request",
     "ingest.max_page_size",
+    "forecast.interval_minutes",
+    "forecast.debounce_ms",
+    "forecast.lookback_hours",
+    "forecast.horizon_hours",
+    "forecast.max_gap_minutes",
+    "forecast.stale_after_minutes",
+    "forecast.step_minutes",
+    "forecast.extrapolation",
+    "forecast.recession_hours",
+    "forecast.base_flow_m3s",
 ];
 
 impl Config {
@@ -384,6 +446,47 @@ impl Config {
                     "must be between 1 and 1000000, got {}",
                     self.ingest.max_page_size
                 ),
+            ));
+        }
+        let f = &self.forecast;
+        let range = |key: &str, v: u64, lo: u64, hi: u64| -> Result<(), ConfigError> {
+            if v < lo || v > hi {
+                return Err(bad(key, format!("must be between {lo} and {hi}, got {v}")));
+            }
+            Ok(())
+        };
+        range("forecast.interval_minutes", f.interval_minutes, 1, 1_440)?;
+        range("forecast.debounce_ms", f.debounce_ms, 0, 600_000)?;
+        range("forecast.lookback_hours", f.lookback_hours, 1, 720)?;
+        range("forecast.horizon_hours", f.horizon_hours, 1, 720)?;
+        range("forecast.max_gap_minutes", f.max_gap_minutes, 0, 10_080)?;
+        range(
+            "forecast.stale_after_minutes",
+            f.stale_after_minutes,
+            1,
+            10_080,
+        )?;
+        range("forecast.step_minutes", f.step_minutes, 1, 1_440)?;
+        range("demo.replay_secs", self.demo.replay_secs, 1, 3_600)?;
+        if !matches!(f.extrapolation.as_str(), "persistence" | "recession") {
+            return Err(bad(
+                "forecast.extrapolation",
+                format!(
+                    "must be `persistence` or `recession`, got `{}`",
+                    f.extrapolation
+                ),
+            ));
+        }
+        if !(f.recession_hours.is_finite() && f.recession_hours > 0.0) {
+            return Err(bad(
+                "forecast.recession_hours",
+                format!("must be positive, got {}", f.recession_hours),
+            ));
+        }
+        if !(f.base_flow_m3s.is_finite() && f.base_flow_m3s >= 0.0) {
+            return Err(bad(
+                "forecast.base_flow_m3s",
+                format!("must be zero or positive, got {}", f.base_flow_m3s),
             ));
         }
         if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {

@@ -8,11 +8,13 @@ pub mod app;
 pub mod auth;
 pub mod cli;
 pub mod config;
+pub mod demo;
 pub mod engine;
 pub mod forecast;
 pub mod http;
 pub mod offline;
 pub mod readings;
+pub mod scheduler;
 pub mod store;
 pub mod telemetry;
 

@@ -313,22 +313,8 @@ impl Situation {
             .iter()
             .map(|t| (*t - now).num_milliseconds() as f64 / 1000.0)
             .collect();
-        let stage = &point.stage[..n];
-        // The series from `now` on, with a sample interpolated at `now`.
-        let (mut ts, mut zs, covers_now) = (Vec::new(), Vec::new(), secs[0] <= 0.0);
-        if secs[0] >= 0.0 {
-            ts.extend_from_slice(&secs);
-            zs.extend_from_slice(stage);
-        } else if let Some(i) = secs.iter().position(|&s| s > 0.0) {
-            let (s0, s1, z0, z1) = (secs[i - 1], secs[i], stage[i - 1], stage[i]);
-            ts.push(0.0);
-            zs.push(z0 + (z1 - z0) * (0.0 - s0) / (s1 - s0));
-            ts.extend_from_slice(&secs[i..]);
-            zs.extend_from_slice(&stage[i..]);
-        } else {
-            ts.push(0.0);
-            zs.push(stage[n - 1]);
-        }
+        let (ts, zs) = exceed::from_now(&secs, &point.stage[..n]);
+        let covers_now = secs[0] <= 0.0;
         let crest = exceed::crest(&ts, &zs).ok_or_else(|| CapError::NonFinite {
             key: point.name.clone(),
             field: "stage",

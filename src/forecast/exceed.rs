@@ -107,6 +107,32 @@ pub fn exceedance(times: &[f64], stages: &[f64], threshold: f64) -> Exceedance {
     out
 }
 
+/// The part of a series from time 0 ("now") on, with a sample
+/// interpolated at 0. `secs` are seconds relative to now, increasing. After
+/// the last sample the last stage is carried forward; before the first the
+/// series is read from its start.
+pub fn from_now(secs: &[f64], stage: &[f64]) -> (Vec<f64>, Vec<f64>) {
+    let n = secs.len().min(stage.len());
+    let (mut ts, mut zs) = (Vec::with_capacity(n + 1), Vec::with_capacity(n + 1));
+    if n == 0 {
+        return (ts, zs);
+    }
+    if secs[0] >= 0.0 {
+        ts.extend_from_slice(&secs[..n]);
+        zs.extend_from_slice(&stage[..n]);
+    } else if let Some(i) = secs[..n].iter().position(|&s| s > 0.0) {
+        let (s0, s1, z0, z1) = (secs[i - 1], secs[i], stage[i - 1], stage[i]);
+        ts.push(0.0);
+        zs.push(z0 + (z1 - z0) * (0.0 - s0) / (s1 - s0));
+        ts.extend_from_slice(&secs[i..n]);
+        zs.extend_from_slice(&stage[i..n]);
+    } else {
+        ts.push(0.0);
+        zs.push(stage[n - 1]);
+    }
+    (ts, zs)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -174,6 +200,17 @@ mod tests {
         assert_eq!(e.first_above, Some(5.0));
         assert_eq!(e.back_below, Some(15.0));
         assert!((e.duration_above - 20.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn from_now_interpolates_the_present() {
+        let (t, z) = from_now(&[-20.0, -10.0, 10.0, 20.0], &[0.0, 1.0, 3.0, 4.0]);
+        assert_eq!(t, vec![0.0, 10.0, 20.0]);
+        assert_eq!(z, vec![2.0, 3.0, 4.0]);
+        let (t, z) = from_now(&[-20.0, -10.0], &[0.0, 1.0]);
+        assert_eq!((t, z), (vec![0.0], vec![1.0]));
+        let (t, _) = from_now(&[5.0, 6.0], &[0.0, 1.0]);
+        assert_eq!(t, vec![5.0, 6.0]);
     }
 
     #[test]

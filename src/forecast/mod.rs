@@ -10,3 +10,4 @@ pub mod inflow;
 pub mod report;
 pub mod run;
 pub mod spec;
+pub mod view;

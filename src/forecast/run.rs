@@ -6,7 +6,7 @@
 //! `route` command, the scheduler and the tests share it.
 
 use chrono::{DateTime, Duration, Utc};
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use crate::engine::{
     diffusive::{self, Diagnostics, DownstreamBoundary, InitialState, Lateral, Options, Reach},
@@ -33,7 +33,7 @@ pub enum RunError {
 }
 
 /// A threshold and how the forecast stage relates to it.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ThresholdOutcome {
     pub name: String,
     pub elevation: f64,
@@ -49,7 +49,7 @@ pub struct ThresholdOutcome {
 }
 
 /// Forecast at one point of interest.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct PointForecast {
     pub name: String,
     pub chainage: f64,
@@ -97,8 +97,14 @@ pub fn nodes_for(spec: &ReachSpec) -> Result<Vec<Node>, RunError> {
         .map_err(|e| RunError::Spec(SpecError::new("sections", e.to_string())))
 }
 
+/// Seconds from `t0`, keeping sub-millisecond differences so that samples
+/// that are distinct in time stay distinct (and increasing) for the engine.
 fn seconds(t: DateTime<Utc>, t0: DateTime<Utc>) -> f64 {
-    (t - t0).num_milliseconds() as f64 / 1000.0
+    let d = t - t0;
+    d.num_nanoseconds().map_or_else(
+        || d.num_milliseconds() as f64 / 1000.0,
+        |ns| ns as f64 / 1e9,
+    )
 }
 
 /// Routes `inflow` (time, discharge m³/s; times strictly increasing) through
@@ -291,6 +297,17 @@ pub fn run_on_nodes(
         diagnostics: result.diagnostics,
         final_state: result.final_state,
     })
+}
+
+/// Bed elevation at a chainage, interpolated between nodes; `None` outside
+/// the reach or with fewer than two nodes.
+pub fn bed_at(nodes: &[Node], chainage: f64) -> Option<f64> {
+    let c: Vec<f64> = nodes.iter().map(|n| n.chainage).collect();
+    if c.len() < 2 || !(chainage >= c[0] && chainage <= c[c.len() - 1]) {
+        return None;
+    }
+    let (i, w) = bracket(&c, chainage);
+    Some(nodes[i].bed_elevation() * (1.0 - w) + nodes[i + 1].bed_elevation() * w)
 }
 
 /// Index `i` and weight `w` such that `x = (1−w)·c[i] + w·c[i+1]`.

@@ -38,6 +38,45 @@ pub struct ReachSpec {
     /// Numerical settings.
     #[serde(default)]
     pub routing: RoutingSpec,
+    /// How the service uses the reach (ignored by the offline command).
+    #[serde(default)]
+    pub service: ServiceSpec,
+}
+
+/// Units a reach is displayed in. Storage and computation are always SI.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum Units {
+    /// Metres and m³/s.
+    #[default]
+    Si,
+    /// Feet and ft³/s (US customary).
+    Us,
+}
+
+/// Service settings of a reach.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct ServiceSpec {
+    /// Gauge whose readings give the observed inflow at the upstream end
+    /// (its stage is converted with the gauge's rating curve unless it
+    /// reports discharge). Without one, forecasts use uploaded inflows only.
+    pub upstream_gauge: Option<String>,
+    /// Time zone for display: an IANA name (`UTC`) or a fixed offset
+    /// (`+01:00`). Stored times are always UTC.
+    pub time_zone: String,
+    /// Display units.
+    pub units: Units,
+}
+
+impl Default for ServiceSpec {
+    fn default() -> Self {
+        Self {
+            upstream_gauge: None,
+            time_zone: "UTC".to_owned(),
+            units: Units::Si,
+        }
+    }
 }
 
 fn default_max_node_spacing() -> f64 {
@@ -130,6 +169,10 @@ pub struct PointSpec {
     /// The user's own named levels, any number.
     #[serde(default)]
     pub thresholds: Vec<ThresholdSpec>,
+    /// A gauge at this point whose stage readings are shown beside the
+    /// forecast as observations (optional).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub gauge: Option<String>,
 }
 
 /// A named water level chosen by the user (m).
@@ -446,6 +489,18 @@ impl ReachSpec {
                     t.elevation,
                 )?;
             }
+        }
+        let tz = &self.service.time_zone;
+        if tz.is_empty()
+            || tz.len() > 64
+            || !tz
+                .chars()
+                .all(|c| c.is_ascii_alphanumeric() || "_/+-:".contains(c))
+        {
+            return Err(SpecError::new(
+                "service.time_zone",
+                format!("`{tz}` is not an IANA time-zone name or a ±hh:mm offset"),
+            ));
         }
         let r = &self.routing;
         let positive = |f: &str, v: f64| -> Result<(), SpecError> {

@@ -9,8 +9,10 @@ pub mod assets;
 pub mod auth;
 pub mod cache;
 pub mod error;
+pub mod forecasts;
 pub mod gauges;
 pub mod health;
+pub mod inflows;
 pub mod readings;
 
 use std::{
@@ -46,10 +48,14 @@ pub struct AppState {
     pub limiter: Arc<RateLimiter>,
     /// Latest-readings answers, invalidated on write.
     pub cache: Arc<cache::ReadingsCache>,
+    /// The forecast cycle: triggers, the exceedance board.
+    pub forecaster: crate::scheduler::Forecaster,
+    /// Serialized exceedance answers per board version.
+    pub exceedance_cache: Arc<forecasts::ExceedanceCache>,
 }
 
 impl AppState {
-    pub fn new(config: Config, store: Store) -> Self {
+    pub fn new(config: Config, store: Store, forecaster: crate::scheduler::Forecaster) -> Self {
         let limiter =
             RateLimiter::new(config.auth.rate_limit_per_sec, config.auth.rate_limit_burst);
         Self {
@@ -57,6 +63,8 @@ impl AppState {
             store,
             limiter: Arc::new(limiter),
             cache: Arc::new(cache::ReadingsCache::default()),
+            forecaster,
+            exceedance_cache: Arc::default(),
         }
     }
 }
@@ -97,6 +105,8 @@ pub fn router(state: AppState) -> Router {
     let api = Router::new()
         .merge(gauges::router())
         .merge(readings::router())
+        .merge(forecasts::router())
+        .merge(inflows::router())
         .fallback(any(error::not_found));
 
     Router::new()

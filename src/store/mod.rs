@@ -22,6 +22,8 @@ use sqlx::{
 use crate::config::StorageConfig;
 
 mod audit;
+mod forecasts;
+pub use forecasts::{InflowUpload, ReachVersion, StoredRun};
 mod gauges;
 mod keys;
 mod readings;
