@@ -308,6 +308,7 @@ async fn ingest(
             .ok_or_else(|| Problem::invalid("gauge", "the gauge was removed"))?;
         if outcome.accepted + outcome.revised > 0 {
             state.cache.invalidate(&gauge_id);
+            wake_forecasts(&state, &gauge_id);
         }
         outcome
     };
@@ -633,6 +634,7 @@ async fn confirm(
         .await?
         .ok_or_else(|| no_reading(&gauge_id, time_ms))?;
     state.cache.invalidate(&gauge_id);
+    wake_forecasts(&state, &gauge_id);
     if reading.rate_check == RateCheck::Ok {
         return Err(Problem::new(
             StatusCode::CONFLICT,
@@ -647,4 +649,12 @@ async fn confirm(
         "gauge": gauge_id,
         "reading": ReadingOut::from(&reading),
     })))
+}
+
+/// New usable data: the reaches that read this gauge run again soon
+/// (debounced by the scheduler). Done off the request path.
+fn wake_forecasts(state: &AppState, gauge_id: &str) {
+    let forecaster = state.forecaster.clone();
+    let gauge = gauge_id.to_owned();
+    tokio::spawn(async move { forecaster.gauge_updated(&gauge).await });
 }

@@ -13,6 +13,8 @@ use tokio::{sync::oneshot, task::JoinHandle};
 pub struct TestApp {
     pub addr: SocketAddr,
     pub client: reqwest::Client,
+    /// The running app's store, for creating keys and inspecting writes.
+    pub store: reachcast::store::Store,
     stop: Option<oneshot::Sender<()>>,
     task: Option<JoinHandle<anyhow::Result<()>>>,
 }
@@ -20,6 +22,18 @@ pub struct TestApp {
 impl TestApp {
     pub fn url(&self, path: &str) -> String {
         format!("http://{}{}", self.addr, path)
+    }
+
+    /// Creates an API key with `role` (and `gauges` for a gauge key) and
+    /// returns the bearer token.
+    pub async fn key(&self, role: reachcast::auth::Role, gauges: &[&str]) -> String {
+        let key = reachcast::auth::generate_key().expect("random key");
+        let gauges: Vec<String> = gauges.iter().map(|g| g.to_string()).collect();
+        self.store
+            .create_key(&key, "test", role, &gauges)
+            .await
+            .expect("create key");
+        key.token
     }
 
     /// Asks for a graceful shutdown and waits until the server has stopped
@@ -53,6 +67,7 @@ pub async fn spawn_app(data_dir: &Path) -> TestApp {
 pub async fn spawn_app_with(config: Config) -> TestApp {
     let app = Application::build(config).await.expect("build app");
     let addr = app.local_addr().expect("local addr");
+    let store = app.store().clone();
     let (tx, rx) = oneshot::channel::<()>();
     let task = tokio::spawn(app.run_until(async move {
         let _ = rx.await;
@@ -60,6 +75,7 @@ pub async fn spawn_app_with(config: Config) -> TestApp {
     TestApp {
         addr,
         client: reqwest::Client::new(),
+        store,
         stop: Some(tx),
         task: Some(task),
     }

@@ -1,0 +1,620 @@
+//! The forecast cycle end to end, through the real HTTP server on a real
+//! SQLite file: readings in, scheduled and triggered runs, uploads,
+//! staleness, failures, exceedances and validators.
+
+mod common;
+
+use std::time::{Duration, Instant};
+
+use chrono::{DateTime, Utc};
+use common::{TestApp, spawn_app_with, test_config};
+use reachcast::auth::Role;
+use serde_json::{Value, json};
+
+const REACH: &str = "test-reach";
+const GAUGE: &str = "test-gauge";
+
+/// An invented 10 km trapezoidal reach (bed slope 0.001) with a bridge at
+/// mid-reach and two thresholds.
+fn reach_doc() -> Value {
+    json!({
+        "name": "Test reach (invented)",
+        "sections": [
+            {"name": "T0", "chainage": 0, "geometry": {"shape": "trapezoid", "bed_elevation": 20.0,
+             "bottom_width": 15.0, "side_slope": 2.0, "n": 0.035}},
+            {"name": "T1", "chainage": 10000, "geometry": {"shape": "trapezoid", "bed_elevation": 10.0,
+             "bottom_width": 15.0, "side_slope": 2.0, "n": 0.035}}
+        ],
+        "max_node_spacing": 250,
+        "downstream": {"kind": "normal_depth", "friction_slope": 0.001},
+        "points": [{"name": "Test Bridge", "chainage": 5000, "kind": "bridge",
+                    "low_chord": 19.5, "deck": 20.5,
+                    "thresholds": [{"name": "low", "elevation": 16.0},
+                                   {"name": "high", "elevation": 17.5}]}],
+        "routing": {"output_interval_s": 600},
+        "service": {"upstream_gauge": GAUGE, "time_zone": "+01:00"}
+    })
+}
+
+struct Setup {
+    app: TestApp,
+    admin: String,
+    gauge_key: String,
+    forecaster: String,
+    _dir: tempfile::TempDir,
+}
+
+async fn setup(stale_after_minutes: u64) -> Setup {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let mut config = test_config(dir.path());
+    config.forecast.debounce_ms = 0;
+    config.forecast.stale_after_minutes = stale_after_minutes;
+    let app = spawn_app_with(config).await;
+    let admin = app.key(Role::Admin, &[]).await;
+    let gauge_key = app.key(Role::Gauge, &[GAUGE]).await;
+    let forecaster = app.key(Role::Forecaster, &[]).await;
+    let res = app
+        .client
+        .put(app.url(&format!("/api/reaches/{REACH}")))
+        .bearer_auth(&admin)
+        .json(&reach_doc())
+        .send()
+        .await
+        .expect("PUT reach");
+    assert_eq!(
+        res.status(),
+        201,
+        "{}",
+        res.text().await.unwrap_or_default()
+    );
+    let res = app
+        .client
+        .put(app.url(&format!("/api/gauges/{GAUGE}")))
+        .bearer_auth(&admin)
+        .json(
+            &json!({"name": "Test gauge", "reach": REACH, "chainage_m": 0.0,
+                      "measures": "discharge", "stage_min_m": 19.0, "stage_max_m": 30.0,
+                      "max_rise_m_per_h": 2.0}),
+        )
+        .send()
+        .await
+        .expect("PUT gauge");
+    assert!(
+        res.status().is_success(),
+        "{}",
+        res.text().await.unwrap_or_default()
+    );
+    Setup {
+        app,
+        admin,
+        gauge_key,
+        forecaster,
+        _dir: dir,
+    }
+}
+
+/// Discharge readings every 15 minutes over `hours` up to `end`, rising
+/// linearly from `q0` to `q1`.
+fn rising(end: DateTime<Utc>, hours: i64, q0: f64, q1: f64) -> Value {
+    let n = hours * 4;
+    let readings: Vec<Value> = (0..=n)
+        .map(|k| {
+            let t = end - chrono::Duration::minutes(15 * (n - k));
+            let q = q0 + (q1 - q0) * k as f64 / n as f64;
+            json!({"time": t.to_rfc3339(), "discharge": q, "quality": "good"})
+        })
+        .collect();
+    json!({ "readings": readings })
+}
+
+async fn post_readings(s: &Setup, body: &Value) {
+    let res = s
+        .app
+        .client
+        .post(s.app.url(&format!("/api/gauges/{GAUGE}/readings")))
+        .bearer_auth(&s.gauge_key)
+        .json(body)
+        .send()
+        .await
+        .expect("POST readings");
+    assert!(
+        res.status().is_success(),
+        "{}",
+        res.text().await.unwrap_or_default()
+    );
+}
+
+async fn get_json(app: &TestApp, path: &str) -> (u16, Value) {
+    let res = app.client.get(app.url(path)).send().await.expect("GET");
+    let status = res.status().as_u16();
+    (status, res.json().await.unwrap_or(Value::Null))
+}
+
+/// Waits (with a deadline) until the latest forecast satisfies `ok`.
+async fn forecast_when(app: &TestApp, ok: impl Fn(&Value) -> bool) -> Value {
+    let deadline = Instant::now() + Duration::from_secs(30);
+    loop {
+        let (status, body) = get_json(app, &format!("/api/reaches/{REACH}/forecast")).await;
+        if status == 200 && ok(&body) {
+            return body;
+        }
+        assert!(
+            Instant::now() < deadline,
+            "forecast never satisfied the condition: {body}"
+        );
+        tokio::time::sleep(Duration::from_millis(50)).await;
+    }
+}
+
+async fn run_now(s: &Setup) -> Value {
+    let res = s
+        .app
+        .client
+        .post(s.app.url(&format!("/api/reaches/{REACH}/runs?wait=true")))
+        .bearer_auth(&s.forecaster)
+        .send()
+        .await
+        .expect("trigger");
+    assert_eq!(res.status(), 200);
+    res.json().await.expect("json")
+}
+
+async fn upload(s: &Setup, series: &[(DateTime<Utc>, f64)], reason: &str) -> i64 {
+    let body = json!({
+        "reason": reason,
+        "series": series.iter().map(|(t, q)| json!({"time": t.to_rfc3339(), "discharge": q})).collect::<Vec<_>>(),
+    });
+    let res = s
+        .app
+        .client
+        .post(s.app.url(&format!("/api/reaches/{REACH}/inflows")))
+        .bearer_auth(&s.forecaster)
+        .json(&body)
+        .send()
+        .await
+        .expect("upload");
+    assert_eq!(
+        res.status(),
+        201,
+        "{}",
+        res.text().await.unwrap_or_default()
+    );
+    res.json::<Value>().await.expect("json")["version"]
+        .as_i64()
+        .expect("version")
+}
+
+fn time(v: &Value) -> DateTime<Utc> {
+    DateTime::parse_from_rfc3339(v.as_str().expect("time string"))
+        .expect("RFC 3339")
+        .with_timezone(&Utc)
+}
+
+/// Readings posted by a gauge lead, through the scheduler, to a forecast;
+/// the reported first crossing of each threshold matches a crossing found
+/// independently here by linear interpolation of the served stage
+/// hydrograph from "now" on (the convention stated in the API docs).
+#[tokio::test]
+async fn readings_lead_to_a_forecast_with_consistent_crossings() {
+    let s = setup(60).await;
+    let now = Utc::now();
+    post_readings(&s, &rising(now, 6, 20.0, 180.0)).await;
+    let f = forecast_when(&s.app, |f| {
+        f["run"]["inflow"]["source_beyond_now"] == "persistence"
+            && f["points"][0]["thresholds"][0]["exceeded"] == true
+    })
+    .await;
+    assert!(
+        f["caution"]
+            .as_str()
+            .is_some_and(|c| c.contains("not an official warning"))
+    );
+    let p = &f["points"][0];
+    assert_eq!(p["name"], "Test Bridge");
+    let served_now = time(&f["now"]);
+    let times: Vec<DateTime<Utc>> = p["times"]
+        .as_array()
+        .expect("times")
+        .iter()
+        .map(time)
+        .collect();
+    let stage: Vec<f64> = p["stage"]
+        .as_array()
+        .expect("stage")
+        .iter()
+        .filter_map(Value::as_f64)
+        .collect();
+    assert_eq!(times.len(), stage.len());
+    for t in p["thresholds"].as_array().expect("thresholds") {
+        let z = t["elevation"].as_f64().expect("elevation");
+        // Independent: first upward crossing at or after now, by linear
+        // interpolation between samples.
+        let mut expected: Option<DateTime<Utc>> = None;
+        let at_now = {
+            let i = times
+                .iter()
+                .position(|x| *x > served_now)
+                .unwrap_or(times.len() - 1);
+            let (t0, t1) = (times[i - 1], times[i]);
+            let w =
+                (served_now - t0).num_milliseconds() as f64 / (t1 - t0).num_milliseconds() as f64;
+            stage[i - 1] + (stage[i] - stage[i - 1]) * w
+        };
+        if at_now > z {
+            expected = Some(served_now);
+        } else {
+            for i in 1..times.len() {
+                if times[i] <= served_now {
+                    continue;
+                }
+                let (z0, z1) = (
+                    if times[i - 1] < served_now {
+                        at_now
+                    } else {
+                        stage[i - 1]
+                    },
+                    stage[i],
+                );
+                let t0 = if times[i - 1] < served_now {
+                    served_now
+                } else {
+                    times[i - 1]
+                };
+                if z0 <= z && z1 > z {
+                    let ms = (times[i] - t0).num_milliseconds() as f64 * (z - z0) / (z1 - z0);
+                    expected = Some(t0 + chrono::Duration::milliseconds(ms.round() as i64));
+                    break;
+                }
+            }
+        }
+        match (expected, t["first_above"].as_str()) {
+            (Some(e), Some(_)) => {
+                let got = time(&t["first_above"]);
+                assert!(
+                    (got - e).num_milliseconds().abs() <= 1000,
+                    "{}: {got} vs {e}",
+                    t["name"]
+                );
+            }
+            (None, None) => {}
+            (e, g) => panic!("{}: expected {e:?}, served {g:?}", t["name"]),
+        }
+    }
+    // The bridge margins are consistent with the crest.
+    let crest = p["crest_stage"].as_f64().expect("crest");
+    let lc = p["low_chord_margin"].as_f64().expect("margin");
+    assert!((lc - (19.5 - crest)).abs() < 1e-9);
+    s.app.stop().await;
+}
+
+/// An upload supersedes the extrapolation and is superseded by a newer one;
+/// withdrawing the newer brings the older back.
+#[tokio::test]
+async fn uploads_supersede_extrapolation_and_each_other() {
+    let s = setup(60).await;
+    let now = Utc::now();
+    post_readings(&s, &rising(now, 3, 20.0, 40.0)).await;
+    let r = run_now(&s).await;
+    assert_eq!(r["status"], "ok", "{r}");
+    let (_, f0) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    assert_eq!(f0["run"]["inflow"]["source_beyond_now"], "persistence");
+    // A triangular flood: 40 m³/s now, the peak 6 h ahead, back to 40 m³/s
+    // at 18 h, then steady.
+    let flood = |peak: f64| -> Vec<(DateTime<Utc>, f64)> {
+        (0..=24)
+            .map(|h| {
+                let h = f64::from(h);
+                let q = if h <= 6.0 {
+                    40.0 + (peak - 40.0) * h / 6.0
+                } else if h <= 18.0 {
+                    peak - (peak - 40.0) * (h - 6.0) / 12.0
+                } else {
+                    40.0
+                };
+                (now + chrono::Duration::minutes((h * 60.0) as i64), q)
+            })
+            .collect()
+    };
+    let v1 = upload(&s, &flood(150.0), "first revision").await;
+    assert_eq!(run_now(&s).await["status"], "ok");
+    let (_, f1) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    assert_eq!(f1["run"]["inflow"]["source_beyond_now"], "upload");
+    assert_eq!(f1["run"]["inflow"]["upload_version"], v1);
+    let v2 = upload(&s, &flood(300.0), "second revision: bigger").await;
+    assert_eq!(v2, v1 + 1);
+    assert_eq!(run_now(&s).await["status"], "ok");
+    let (_, f2) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    assert_eq!(f2["run"]["inflow"]["upload_version"], v2);
+    let crest = |f: &Value| f["points"][0]["crest_stage"].as_f64().expect("crest");
+    assert!(
+        crest(&f2) > crest(&f1) + 0.2,
+        "bigger flood, higher crest: {} vs {}",
+        crest(&f2),
+        crest(&f1)
+    );
+    assert!(crest(&f1) > crest(&f0));
+    // Withdraw v2: v1 is in force again.
+    let res = s
+        .app
+        .client
+        .post(
+            s.app
+                .url(&format!("/api/reaches/{REACH}/inflows/{v2}/withdraw")),
+        )
+        .bearer_auth(&s.forecaster)
+        .send()
+        .await
+        .expect("withdraw");
+    assert_eq!(res.status(), 200);
+    assert_eq!(run_now(&s).await["status"], "ok");
+    let (_, f3) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    assert_eq!(f3["run"]["inflow"]["upload_version"], v1);
+    assert!((crest(&f3) - crest(&f1)).abs() < 0.05);
+    // Both uploads are kept for audit.
+    let (_, list) = get_json(&s.app, &format!("/api/reaches/{REACH}/inflows")).await;
+    let uploads = list["uploads"].as_array().expect("uploads");
+    assert_eq!(uploads.len(), 2);
+    assert_eq!(uploads[0]["withdrawn"], true);
+    // A gauge key may not upload (role forecaster needed).
+    let res = s
+        .app
+        .client
+        .post(s.app.url(&format!("/api/reaches/{REACH}/inflows")))
+        .bearer_auth(&s.gauge_key)
+        .json(&json!({"reason": "x", "series": []}))
+        .send()
+        .await
+        .expect("upload");
+    assert_eq!(res.status(), 403);
+    s.app.stop().await;
+}
+
+/// A bad upload is refused whole, with every bad row listed.
+#[tokio::test]
+async fn bad_upload_lists_every_bad_row() {
+    let s = setup(60).await;
+    let res = s
+        .app
+        .client
+        .post(s.app.url(&format!("/api/reaches/{REACH}/inflows?reason=storm+update")))
+        .bearer_auth(&s.forecaster)
+        .header("content-type", "text/csv")
+        .body("time,discharge\n2026-03-01T00:00:00Z,10\n2026-03-01T01:00:00,20\n2026-03-01T02:00:00Z,-5\n")
+        .send()
+        .await
+        .expect("upload");
+    assert_eq!(res.status(), 422);
+    assert_eq!(res.headers()["content-type"], "application/problem+json");
+    let p: Value = res.json().await.expect("json");
+    assert_eq!(p["field"], "time");
+    assert_eq!(p["row"], 2);
+    let errors = p["errors"].as_array().expect("errors");
+    assert_eq!(errors.len(), 2);
+    assert_eq!(errors[1]["row"], 3);
+    assert_eq!(errors[1]["field"], "discharge");
+    let (_, list) = get_json(&s.app, &format!("/api/reaches/{REACH}/inflows")).await;
+    assert_eq!(
+        list["uploads"].as_array().map(Vec::len),
+        Some(0),
+        "nothing stored"
+    );
+    s.app.stop().await;
+}
+
+/// A gauge silent longer than `forecast.stale_after_minutes` marks the
+/// forecast stale; a fresh reading clears it.
+#[tokio::test]
+async fn silent_gauge_marks_the_forecast_stale() {
+    let s = setup(60).await;
+    let now = Utc::now();
+    post_readings(&s, &rising(now - chrono::Duration::hours(3), 4, 20.0, 60.0)).await;
+    assert_eq!(run_now(&s).await["status"], "ok");
+    let (_, f) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    assert_eq!(f["freshness"]["stale"], true, "{}", f["freshness"]);
+    assert!(
+        f["freshness"]["reasons"][0]
+            .as_str()
+            .is_some_and(|r| r.contains("silent"))
+    );
+    let (_, ex) = get_json(&s.app, "/api/exceedances").await;
+    assert!(
+        ex["items"]
+            .as_array()
+            .expect("items")
+            .iter()
+            .all(|i| i["stale"] == true)
+    );
+    post_readings(
+        &s,
+        &json!({"readings": [{"time": now.to_rfc3339(), "discharge": 60.0}]}),
+    )
+    .await;
+    assert_eq!(run_now(&s).await["status"], "ok");
+    let (_, f) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    assert_eq!(f["freshness"]["stale"], false, "{}", f["freshness"]);
+    s.app.stop().await;
+}
+
+/// A run that fails leaves the last good forecast served, with the failure
+/// reported beside it.
+#[tokio::test]
+async fn failed_run_keeps_the_last_good_forecast() {
+    let s = setup(60).await;
+    post_readings(&s, &rising(Utc::now(), 3, 20.0, 50.0)).await;
+    let good = run_now(&s).await;
+    assert_eq!(good["status"], "ok");
+    // The gauge now reports stage but has no rating: the inflow cannot be
+    // assembled and the run fails.
+    let res = s
+        .app
+        .client
+        .put(s.app.url(&format!("/api/gauges/{GAUGE}")))
+        .bearer_auth(&s.admin)
+        .json(
+            &json!({"name": "Test gauge", "reach": REACH, "chainage_m": 0.0,
+                      "measures": "stage", "stage_min_m": 19.0, "stage_max_m": 30.0,
+                      "max_rise_m_per_h": 2.0}),
+        )
+        .send()
+        .await
+        .expect("PUT gauge");
+    assert!(res.status().is_success());
+    let bad = run_now(&s).await;
+    assert_eq!(bad["status"], "failed");
+    assert!(
+        bad["error"].as_str().is_some_and(|e| e.contains("rating")),
+        "{bad}"
+    );
+    let (status, f) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    assert_eq!(status, 200);
+    assert_eq!(f["run"]["id"], good["run_id"]);
+    assert_eq!(f["last_failure"]["run_id"], bad["run_id"]);
+    let (_, run) = get_json(&s.app, &format!("/api/runs/{}", bad["run_id"])).await;
+    assert_eq!(run["status"], "failed");
+    s.app.stop().await;
+}
+
+/// Validators: an unchanged answer costs a 304 (RFC 9110 §13.1.2
+/// If-None-Match); a new run changes the exceedance answer.
+#[tokio::test]
+async fn etags_give_304_until_something_changes() {
+    let s = setup(60).await;
+    post_readings(&s, &rising(Utc::now(), 6, 20.0, 180.0)).await;
+    assert_eq!(run_now(&s).await["status"], "ok");
+    let first = s
+        .app
+        .client
+        .get(s.app.url("/api/exceedances"))
+        .send()
+        .await
+        .expect("GET");
+    assert_eq!(first.status(), 200);
+    let etag = first.headers()["etag"].to_str().expect("ascii").to_owned();
+    let body: Value = first.json().await.expect("json");
+    assert!(body["caution"].is_string());
+    assert!(!body["items"].as_array().expect("items").is_empty());
+    let again = s
+        .app
+        .client
+        .get(s.app.url("/api/exceedances"))
+        .header("if-none-match", &etag)
+        .send()
+        .await
+        .expect("GET");
+    assert_eq!(again.status(), 304);
+    post_readings(
+        &s,
+        &json!({"readings": [{"time": Utc::now().to_rfc3339(), "discharge": 260.0}]}),
+    )
+    .await;
+    assert_eq!(run_now(&s).await["status"], "ok");
+    let changed = s
+        .app
+        .client
+        .get(s.app.url("/api/exceedances"))
+        .header("if-none-match", &etag)
+        .send()
+        .await
+        .expect("GET");
+    assert_eq!(changed.status(), 200);
+    assert_ne!(changed.headers()["etag"].to_str().expect("ascii"), etag);
+
+    let f = s
+        .app
+        .client
+        .get(s.app.url(&format!("/api/reaches/{REACH}/forecast")))
+        .send()
+        .await
+        .expect("GET");
+    let fe = f.headers()["etag"].to_str().expect("ascii").to_owned();
+    let f2 = s
+        .app
+        .client
+        .get(s.app.url(&format!("/api/reaches/{REACH}/forecast")))
+        .header("if-none-match", &fe)
+        .send()
+        .await
+        .expect("GET");
+    assert_eq!(f2.status(), 304);
+    s.app.stop().await;
+}
+
+/// `units=us` converts lengths with 1 ft = 0.3048 m exactly (NIST SP 811)
+/// and CSV carries the caution first.
+#[tokio::test]
+async fn us_units_and_csv() {
+    let s = setup(60).await;
+    post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
+    assert_eq!(run_now(&s).await["status"], "ok");
+    let (_, si) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    let (_, us) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast?units=us")).await;
+    assert_eq!(us["units"]["stage"], "ft");
+    let a = si["points"][0]["stage"][5].as_f64().expect("si");
+    let b = us["points"][0]["stage"][5].as_f64().expect("us");
+    assert!((b * 0.3048 - a).abs() < 1e-9, "{a} m vs {b} ft");
+    let q = si["points"][0]["discharge"][5].as_f64().expect("si");
+    let qu = us["points"][0]["discharge"][5].as_f64().expect("us");
+    assert!((qu * 0.3048_f64.powi(3) - q).abs() < 1e-9);
+    let csv = s
+        .app
+        .client
+        .get(
+            s.app
+                .url(&format!("/api/reaches/{REACH}/forecast?format=csv")),
+        )
+        .send()
+        .await
+        .expect("GET")
+        .text()
+        .await
+        .expect("text");
+    assert!(csv.starts_with("# Advisory model output"));
+    assert!(csv.contains("point,chainage,time,stage_m,discharge_m3_per_s"));
+    let (status, bad) = get_json(
+        &s.app,
+        &format!("/api/reaches/{REACH}/forecast?units=imperial"),
+    )
+    .await;
+    assert_eq!(status, 422);
+    assert_eq!(bad["field"], "units");
+    s.app.stop().await;
+}
+
+/// A reach description with a bad field is refused naming it.
+#[tokio::test]
+async fn bad_reach_names_the_field() {
+    let s = setup(60).await;
+    let mut doc = reach_doc();
+    doc["points"][0]["thresholds"][1]["elevation"] = json!("high");
+    let res = s
+        .app
+        .client
+        .put(s.app.url("/api/reaches/other"))
+        .bearer_auth(&s.admin)
+        .json(&doc)
+        .send()
+        .await
+        .expect("PUT");
+    assert_eq!(res.status(), 422);
+    let p: Value = res.json().await.expect("json");
+    assert_eq!(p["field"], "points[0].thresholds[1].elevation");
+    // Editing a reach keeps earlier runs readable.
+    post_readings(&s, &rising(Utc::now(), 3, 20.0, 50.0)).await;
+    let r = run_now(&s).await;
+    let mut doc = reach_doc();
+    doc["points"][0]["thresholds"][0]["name"] = json!("renamed");
+    let res = s
+        .app
+        .client
+        .put(s.app.url(&format!("/api/reaches/{REACH}")))
+        .bearer_auth(&s.admin)
+        .json(&doc)
+        .send()
+        .await
+        .expect("PUT");
+    assert_eq!(res.status(), 200);
+    let (_, run) = get_json(&s.app, &format!("/api/runs/{}", r["run_id"])).await;
+    assert_eq!(run["reach_version"], 1);
+    assert_eq!(run["results"]["points"][0]["thresholds"][0]["name"], "low");
+    s.app.stop().await;
+}
