@@ -36,7 +36,12 @@ impl Application {
             .with_context(|| format!("binding {addr}"))?;
         let grace = config.shutdown_grace();
         let (stop_workers, stop_rx) = tokio::sync::watch::channel(false);
-        let forecaster = Forecaster::new(store.clone(), config.forecast.clone(), stop_rx.clone());
+        let forecaster = Forecaster::new(
+            store.clone(),
+            config.forecast.clone(),
+            &config.alerts,
+            stop_rx.clone(),
+        );
         if config.demo.enabled {
             crate::demo::seed(&store)
                 .await

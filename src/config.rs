@@ -58,6 +58,55 @@ pub struct Config {
     pub auth: AuthConfig,
     pub ingest: IngestConfig,
     pub forecast: ForecastConfig,
+    pub alerts: AlertsConfig,
+}
+
+/// `[alerts]`: CAP 1.2 messages issued after forecast runs and their Atom
+/// index.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct AlertsConfig {
+    /// CAP `sender`: identifies this service to consumers; no spaces,
+    /// commas, `<` or `&` (CAP 1.2 §3.2.1).
+    pub sender: String,
+    /// CAP `status` of every message: `Actual`, `Exercise`, `System`,
+    /// `Test` or `Draft`.
+    pub cap_status: String,
+    /// Absolute `http(s)://` URL under which the service is reached, used
+    /// for CAP `web` and the links of the Atom index. Empty: CAP messages
+    /// carry no `web`, and the index links are built from the request's
+    /// `Host` header.
+    pub base_url: String,
+}
+
+impl Default for AlertsConfig {
+    fn default() -> Self {
+        Self {
+            sender: "reachcast@localhost".to_owned(),
+            cap_status: "Actual".to_owned(),
+            base_url: String::new(),
+        }
+    }
+}
+
+impl AlertsConfig {
+    /// The configured CAP status (validated at load; `Actual` otherwise).
+    pub fn status(&self) -> crate::forecast::cap::Status {
+        use crate::forecast::cap::Status;
+        match self.cap_status.as_str() {
+            "Exercise" => Status::Exercise,
+            "System" => Status::System,
+            "Test" => Status::Test,
+            "Draft" => Status::Draft,
+            _ => Status::Actual,
+        }
+    }
+
+    /// `base_url` without a trailing `/`, or `None` when not set.
+    pub fn base_url(&self) -> Option<&str> {
+        let b = self.base_url.trim_end_matches('/');
+        (!b.is_empty()).then_some(b)
+    }
 }
 
 /// `[forecast]`: the forecast cycle.
@@ -267,6 +316,9 @@ pub const KEYS: &[&str] = &[
     "forecast.extrapolation",
     "forecast.recession_hours",
     "forecast.base_flow_m3s",
+    "alerts.sender",
+    "alerts.cap_status",
+    "alerts.base_url",
 ];
 
 impl Config {
@@ -489,6 +541,38 @@ impl Config {
                 format!("must be zero or positive, got {}", f.base_flow_m3s),
             ));
         }
+        let a = &self.alerts;
+        if !crate::forecast::cap::is_cap_token(&a.sender) {
+            return Err(bad(
+                "alerts.sender",
+                format!(
+                    "`{}`: must be non-empty without spaces, commas, `<` or `&` (CAP 1.2 §3.2.1)",
+                    a.sender
+                ),
+            ));
+        }
+        if !matches!(
+            a.cap_status.as_str(),
+            "Actual" | "Exercise" | "System" | "Test" | "Draft"
+        ) {
+            return Err(bad(
+                "alerts.cap_status",
+                format!(
+                    "must be Actual, Exercise, System, Test or Draft (CAP 1.2 §3.2.1), got `{}`",
+                    a.cap_status
+                ),
+            ));
+        }
+        if !a.base_url.is_empty() && !is_base_url(&a.base_url) {
+            return Err(bad(
+                "alerts.base_url",
+                format!(
+                    "`{}`: must be empty or an absolute http:// or https:// URL without \
+                     spaces, query or fragment",
+                    a.base_url
+                ),
+            ));
+        }
         if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {
             return Err(bad("log.filter", format!("not a valid log filter: {e}")));
         }
@@ -509,6 +593,24 @@ impl Config {
     pub fn database_path(&self) -> PathBuf {
         self.storage.data_dir.join("reachcast.sqlite3")
     }
+}
+
+/// An absolute `http`/`https` URL with a host, no whitespace, query or
+/// fragment, and none of the characters XML escapes (it is written into
+/// CAP and Atom documents as it is).
+fn is_base_url(s: &str) -> bool {
+    let rest = s
+        .strip_prefix("https://")
+        .or_else(|| s.strip_prefix("http://"));
+    rest.is_some_and(|r| {
+        !r.is_empty()
+            && !r.starts_with('/')
+            && !s.chars().any(|c| {
+                c.is_whitespace()
+                    || c.is_control()
+                    || matches!(c, '?' | '#' | '<' | '>' | '&' | '"' | '\'')
+            })
+    })
 }
 
 /// `server.bind` → `REACHCAST_SERVER_BIND`.
@@ -676,6 +778,40 @@ mod tests {
                 "{key} not in example"
             );
         }
+    }
+
+    #[test]
+    fn alerts_keys_are_checked() {
+        let e = load_str("[alerts]\nsender = \"two words\"\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("alerts.sender"), "{e}");
+        let e = load_str("[alerts]\nsender = \"a,b\"\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("alerts.sender"), "{e}");
+        let e = load_str("", &[("REACHCAST_ALERTS_CAP_STATUS", "actual")]).unwrap_err();
+        let msg = e.to_string();
+        assert!(msg.contains("alerts.cap_status"), "{msg}");
+        assert!(msg.contains("REACHCAST_ALERTS_CAP_STATUS"), "{msg}");
+        for bad in [
+            "ftp://x.example",
+            "example.org",
+            "https://",
+            "https://a b",
+            "https://x/?q=1",
+        ] {
+            let e = load_str(&format!("[alerts]\nbase_url = \"{bad}\"\n"), &[]).unwrap_err();
+            assert!(e.to_string().contains("alerts.base_url"), "{bad}: {e}");
+        }
+        let c = load_str(
+            "[alerts]\ncap_status = \"Exercise\"\nbase_url = \"https://cast.fernhollow.example/\"\n",
+            &[],
+        )
+        .expect("load");
+        assert_eq!(c.alerts.status(), crate::forecast::cap::Status::Exercise);
+        assert_eq!(c.alerts.base_url(), Some("https://cast.fernhollow.example"));
+        assert_eq!(Config::default().alerts.base_url(), None);
+        assert_eq!(
+            Config::default().alerts.status(),
+            crate::forecast::cap::Status::Actual
+        );
     }
 
     #[test]

@@ -4,6 +4,7 @@
 //! way: `http` → `store` (and later `forecast`) → `engine`; the engine knows
 //! nothing above it. See DEVELOPERS.md for the architecture.
 
+pub mod alerts;
 pub mod app;
 pub mod auth;
 pub mod cli;

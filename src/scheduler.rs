@@ -5,9 +5,10 @@
 //!
 //! A run: load the newest reach version, assemble the inflow (observed
 //! upstream discharge, then the newest upload or the extrapolation rule),
-//! route it, store results and provenance, and refresh the exceedance
-//! board. A failed run is logged and stored with its error; the last good
-//! forecast stays served.
+//! route it, store results and provenance, refresh the exceedance board and
+//! issue the CAP messages due (`crate::alerts`; never fails the run). A
+//! failed run is logged and stored with its error; the last good forecast
+//! stays served.
 
 use std::{
     collections::HashMap,
@@ -87,6 +88,8 @@ struct Worker {
 struct Inner {
     store: Store,
     config: ForecastConfig,
+    /// Issues CAP messages after each successful run.
+    alerts: crate::alerts::Alerter,
     workers: StdMutex<HashMap<String, Worker>>,
     board: RwLock<Board>,
     /// Incremented whenever the board changes (the exceedance cache key).
@@ -111,11 +114,17 @@ pub enum CycleError {
 
 impl Forecaster {
     /// Creates the cycle; `start` spawns the workers.
-    pub fn new(store: Store, config: ForecastConfig, shutdown: watch::Receiver<bool>) -> Self {
+    pub fn new(
+        store: Store,
+        config: ForecastConfig,
+        alerts: &crate::config::AlertsConfig,
+        shutdown: watch::Receiver<bool>,
+    ) -> Self {
         let (board_version, _) = watch::channel(0);
         Self {
             inner: Arc::new(Inner {
                 store,
+                alerts: crate::alerts::Alerter::new(alerts, &config),
                 config,
                 workers: StdMutex::new(HashMap::new()),
                 board: RwLock::new(Board::default()),
@@ -385,7 +394,11 @@ impl Forecaster {
                 let json = serde_json::to_value(&results).unwrap_or_default();
                 store.finish_run(run_id, Ok(&json), &provenance).await?;
                 if let Some(run) = store.run(run_id).await? {
-                    self.refresh_board(&reach, &run);
+                    let situations = self.refresh_board(&reach, &run);
+                    self.inner
+                        .alerts
+                        .after_run(store, &reach, run_id, &situations)
+                        .await;
                 }
                 tracing::info!(
                     reach = reach_id,
@@ -475,24 +488,29 @@ impl Forecaster {
         Ok((readings, basis, None))
     }
 
-    fn refresh_board(&self, reach: &ReachVersion, run: &StoredRun) {
+    /// Rebuilds the board of `reach` from `run` and returns the run's
+    /// situations (one per point and threshold), which CAP planning uses.
+    fn refresh_board(&self, reach: &ReachVersion, run: &StoredRun) -> Vec<Situation> {
         let Some(results) = run
             .results
             .as_ref()
             .and_then(|r| serde_json::from_value::<StoredResults>(r.clone()).ok())
         else {
-            return;
+            return Vec::new();
         };
         let finished = run
             .finished_at
             .as_deref()
             .and_then(|t| DateTime::parse_from_rfc3339(t).ok())
             .map_or_else(Utc::now, |t| t.with_timezone(&Utc));
-        let stale = run
-            .provenance
-            .pointer("/inflow/stale")
-            .and_then(serde_json::Value::as_bool)
-            .unwrap_or(false);
+        // Only a gauge can fall silent: a reach fed by uploads alone is
+        // never stale for want of readings.
+        let stale = reach.spec.service.upstream_gauge.is_some()
+            && run
+                .provenance
+                .pointer("/inflow/stale")
+                .and_then(serde_json::Value::as_bool)
+                .unwrap_or(false);
         let ctx = RunContext {
             reach_id: reach.reach_id.clone(),
             reach_name: reach.spec.name.clone(),
@@ -500,18 +518,20 @@ impl Forecaster {
             run_finished: finished,
             stale,
         };
-        let mut items = Vec::new();
+        let mut situations = Vec::new();
         for p in &results.points {
             for t in &p.thresholds {
                 if let Ok(s) = Situation::from_forecast(&ctx, p, t, finished) {
-                    items.push(item_from(&s));
+                    situations.push(s);
                 }
             }
         }
+        let items = situations.iter().map(item_from).collect();
         if let Ok(mut board) = self.inner.board.write() {
             board.by_reach.insert(reach.reach_id.clone(), items);
         }
         self.inner.board_version.send_modify(|v| *v += 1);
+        situations
     }
 }
 

@@ -44,10 +44,13 @@ struct Setup {
     _dir: tempfile::TempDir,
 }
 
-async fn setup(stale_after_minutes: u64) -> Setup {
+/// `debounce_ms`: 0 lets new readings run the forecast at once; tests that
+/// drive runs themselves with `wait=true` use a long debounce so no
+/// background run lands between their steps.
+async fn setup(stale_after_minutes: u64, debounce_ms: u64) -> Setup {
     let dir = tempfile::tempdir().expect("temp dir");
     let mut config = test_config(dir.path());
-    config.forecast.debounce_ms = 0;
+    config.forecast.debounce_ms = debounce_ms;
     config.forecast.stale_after_minutes = stale_after_minutes;
     let app = spawn_app_with(config).await;
     let admin = app.key(Role::Admin, &[]).await;
@@ -196,7 +199,7 @@ fn time(v: &Value) -> DateTime<Utc> {
 /// hydrograph from "now" on (the convention stated in the API docs).
 #[tokio::test]
 async fn readings_lead_to_a_forecast_with_consistent_crossings() {
-    let s = setup(60).await;
+    let s = setup(60, 0).await;
     let now = Utc::now();
     post_readings(&s, &rising(now, 6, 20.0, 180.0)).await;
     let f = forecast_when(&s.app, |f| {
@@ -291,7 +294,7 @@ async fn readings_lead_to_a_forecast_with_consistent_crossings() {
 /// withdrawing the newer brings the older back.
 #[tokio::test]
 async fn uploads_supersede_extrapolation_and_each_other() {
-    let s = setup(60).await;
+    let s = setup(60, 600_000).await;
     let now = Utc::now();
     post_readings(&s, &rising(now, 3, 20.0, 40.0)).await;
     let r = run_now(&s).await;
@@ -372,7 +375,7 @@ async fn uploads_supersede_extrapolation_and_each_other() {
 /// A bad upload is refused whole, with every bad row listed.
 #[tokio::test]
 async fn bad_upload_lists_every_bad_row() {
-    let s = setup(60).await;
+    let s = setup(60, 600_000).await;
     let res = s
         .app
         .client
@@ -405,7 +408,7 @@ async fn bad_upload_lists_every_bad_row() {
 /// forecast stale; a fresh reading clears it.
 #[tokio::test]
 async fn silent_gauge_marks_the_forecast_stale() {
-    let s = setup(60).await;
+    let s = setup(60, 600_000).await;
     let now = Utc::now();
     post_readings(&s, &rising(now - chrono::Duration::hours(3), 4, 20.0, 60.0)).await;
     assert_eq!(run_now(&s).await["status"], "ok");
@@ -439,7 +442,7 @@ async fn silent_gauge_marks_the_forecast_stale() {
 /// reported beside it.
 #[tokio::test]
 async fn failed_run_keeps_the_last_good_forecast() {
-    let s = setup(60).await;
+    let s = setup(60, 600_000).await;
     post_readings(&s, &rising(Utc::now(), 3, 20.0, 50.0)).await;
     let good = run_now(&s).await;
     assert_eq!(good["status"], "ok");
@@ -467,7 +470,9 @@ async fn failed_run_keeps_the_last_good_forecast() {
     );
     let (status, f) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
     assert_eq!(status, 200);
-    assert_eq!(f["run"]["id"], good["run_id"]);
+    let served = f["run"]["id"].as_i64().expect("run id");
+    assert!(served >= good["run_id"].as_i64().expect("id"));
+    assert!(served < bad["run_id"].as_i64().expect("id"));
     assert_eq!(f["last_failure"]["run_id"], bad["run_id"]);
     let (_, run) = get_json(&s.app, &format!("/api/runs/{}", bad["run_id"])).await;
     assert_eq!(run["status"], "failed");
@@ -478,7 +483,7 @@ async fn failed_run_keeps_the_last_good_forecast() {
 /// If-None-Match); a new run changes the exceedance answer.
 #[tokio::test]
 async fn etags_give_304_until_something_changes() {
-    let s = setup(60).await;
+    let s = setup(60, 600_000).await;
     post_readings(&s, &rising(Utc::now(), 6, 20.0, 180.0)).await;
     assert_eq!(run_now(&s).await["status"], "ok");
     let first = s
@@ -543,7 +548,7 @@ async fn etags_give_304_until_something_changes() {
 /// and CSV carries the caution first.
 #[tokio::test]
 async fn us_units_and_csv() {
-    let s = setup(60).await;
+    let s = setup(60, 600_000).await;
     post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
     assert_eq!(run_now(&s).await["status"], "ok");
     let (_, si) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
@@ -583,7 +588,7 @@ async fn us_units_and_csv() {
 /// A reach description with a bad field is refused naming it.
 #[tokio::test]
 async fn bad_reach_names_the_field() {
-    let s = setup(60).await;
+    let s = setup(60, 600_000).await;
     let mut doc = reach_doc();
     doc["points"][0]["thresholds"][1]["elevation"] = json!("high");
     let res = s

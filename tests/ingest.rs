@@ -898,7 +898,7 @@ async fn gauges_are_created_updated_and_checked() {
     let f = fixture().await;
     let mut body = gauge_body("Alder Weir (upper)");
     body["chainage_m"] = json!(1250.0);
-    body["rating_curve"] = json!({"points": [[0.0, 0.0], [2.0, 40.0]]});
+    body["rating_curve"] = json!({"kind": "table", "points": [[0.0, 0.0], [2.0, 40.0]]});
     let res = f.app.put_gauge(&f.admin, "alder-weir", &body).await;
     assert_eq!(res.status(), 200, "update answers 200");
     let (_, g) = f.app.get_json("/api/gauges/alder-weir").await;

@@ -502,8 +502,9 @@ impl Planned {
 
 /// CAP §3.2.1: identifier and sender "MUST NOT include spaces, commas or
 /// restricted characters (< and &)" (from memory). Other whitespace is
-/// refused too, since `references` splits on it.
-fn is_cap_token(s: &str) -> bool {
+/// refused too, since `references` splits on it. Public so that
+/// configuration can check `alerts.sender` before the first message.
+pub fn is_cap_token(s: &str) -> bool {
     !s.is_empty()
         && !s
             .chars()

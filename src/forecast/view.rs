@@ -141,7 +141,7 @@ pub fn freshness(f: &FreshnessInput) -> Freshness {
             _ => {}
         }
     }
-    if f.inflow_stale && reasons.is_empty() {
+    if f.has_gauge && f.inflow_stale && reasons.is_empty() {
         reasons.push("the upstream gauge was silent when this forecast was made".to_owned());
     }
     if run_age_s > f.run_overdue_s {

@@ -420,7 +420,7 @@ fn forecast_etag(doc: &ForecastDoc, units: Units, csv: bool) -> String {
     )
 }
 
-fn not_modified(headers: &HeaderMap, etag: &str) -> bool {
+pub(super) fn not_modified(headers: &HeaderMap, etag: &str) -> bool {
     headers
         .get(header::IF_NONE_MATCH)
         .and_then(|v| v.to_str().ok())
@@ -432,7 +432,7 @@ fn not_modified(headers: &HeaderMap, etag: &str) -> bool {
         })
 }
 
-fn with_etag(mut r: Response, etag: &str) -> Response {
+pub(super) fn with_etag(mut r: Response, etag: &str) -> Response {
     if let Ok(v) = HeaderValue::from_str(etag) {
         r.headers_mut().insert(header::ETAG, v);
     }
@@ -701,7 +701,7 @@ async fn exceedances(
 }
 
 /// FNV-1a 64 of the body: a content hash for the strong ETag.
-fn fnv(bytes: &[u8]) -> u64 {
+pub(super) fn fnv(bytes: &[u8]) -> u64 {
     bytes.iter().fold(0xcbf2_9ce4_8422_2325, |h, b| {
         (h ^ u64::from(*b)).wrapping_mul(0x0100_0000_01b3)
     })

@@ -114,13 +114,23 @@ fn check_body(b: GaugeBody) -> Result<GaugeUpsert, Problem> {
             ));
         }
     }
-    if let Some(curve) = &b.rating_curve
-        && !curve.is_object()
-    {
-        return Err(Problem::invalid(
-            "rating_curve",
-            "must be a JSON object (or null)",
-        ));
+    if let Some(curve) = &b.rating_curve {
+        // The same rating format as the reach description's downstream
+        // rating, checked by the engine so a bad curve is refused here and
+        // not discovered by a failing forecast run.
+        let rating: crate::engine::rating::RatingCurve =
+            serde_path_to_error::deserialize(curve.clone()).map_err(|e| {
+                let path = e.path().to_string();
+                let field = if path == "." || path.starts_with('[') {
+                    "rating_curve".to_owned()
+                } else {
+                    format!("rating_curve.{path}")
+                };
+                Problem::invalid(field, e.into_inner().to_string())
+            })?;
+        rating
+            .validate()
+            .map_err(|e| Problem::invalid("rating_curve", e.to_string()))?;
     }
     Ok(GaugeUpsert {
         name,

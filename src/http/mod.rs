@@ -8,11 +8,13 @@
 pub mod assets;
 pub mod auth;
 pub mod cache;
+pub mod cap;
 pub mod error;
 pub mod forecasts;
 pub mod gauges;
 pub mod health;
 pub mod inflows;
+pub mod openapi;
 pub mod readings;
 
 use std::{
@@ -107,6 +109,8 @@ pub fn router(state: AppState) -> Router {
         .merge(readings::router())
         .merge(forecasts::router())
         .merge(inflows::router())
+        .merge(cap::router())
+        .merge(openapi::router())
         .fallback(any(error::not_found));
 
     Router::new()

@@ -21,6 +21,7 @@ use sqlx::{
 
 use crate::config::StorageConfig;
 
+mod alerts;
 mod audit;
 mod forecasts;
 pub use forecasts::{InflowUpload, ReachVersion, StoredRun};
@@ -28,6 +29,7 @@ mod gauges;
 mod keys;
 mod readings;
 
+pub use alerts::{CapEntry, CurrentCap, NewCapMessage, OpenMessage};
 pub use audit::{Audit, AuditEntry};
 pub use gauges::GaugeUpsert;
 pub use readings::{IngestOutcome, ReadingsQuery};

@@ -1,0 +1,650 @@
+//! CAP 1.2 messages and their Atom index through the running service: a real
+//! server on port 0 with a temporary SQLite database, a reach described in
+//! the test, inflows uploaded by a forecaster key and runs triggered with
+//! `?wait=true` (no sleeps).
+//!
+//! Sources: OASIS CAP 1.2 (2010) section numbers; RFC 4287 (Atom) section
+//! numbers; RFC 9110 for conditional requests. Details recalled rather than
+//! re-read are marked "(from memory)". The reach and its places are
+//! invented.
+
+mod common;
+
+use std::collections::HashMap;
+
+use chrono::{DateTime, Duration, Utc};
+use quick_xml::events::Event;
+use quick_xml::name::ResolveResult;
+use quick_xml::reader::NsReader;
+use reachcast::{CAUTION, auth::Role};
+use serde_json::{Value, json};
+
+const CAP_NS: &str = "urn:oasis:names:tc:emergency:cap:1.2";
+const ATOM_NS: &str = "http://www.w3.org/2005/Atom";
+const SENDER: &str = "reachcast@fernhollow.example";
+const BASE: &str = "http://cap.fernhollow.example";
+const REACH: &str = "fernhollow";
+
+// ---------------------------------------------------------------- parsing
+
+/// A parsed element: namespace, local name, attributes, text, children.
+#[derive(Debug, Default)]
+struct El {
+    ns: Option<String>,
+    name: String,
+    attrs: HashMap<String, String>,
+    text: String,
+    children: Vec<El>,
+}
+
+impl El {
+    fn all(&self, name: &str) -> Vec<&El> {
+        self.children.iter().filter(|c| c.name == name).collect()
+    }
+    fn one(&self, name: &str) -> &El {
+        let v = self.all(name);
+        assert_eq!(v.len(), 1, "<{}> must have exactly one <{name}>", self.name);
+        v[0]
+    }
+    fn text_of(&self, name: &str) -> &str {
+        &self.one(name).text
+    }
+    fn opt_text(&self, name: &str) -> Option<&str> {
+        let v = self.all(name);
+        assert!(v.len() <= 1, "<{}> has more than one <{name}>", self.name);
+        v.first().map(|e| e.text.as_str())
+    }
+}
+
+/// Parses a whole document with quick-xml, failing on any well-formedness
+/// error, and returns the root element.
+fn parse(xml: &str) -> El {
+    let mut reader = NsReader::from_str(xml);
+    let mut stack: Vec<El> = vec![El::default()];
+    loop {
+        let (ns, ev) = reader.read_resolved_event().expect("well-formed XML");
+        let ns = match ns {
+            ResolveResult::Bound(n) => Some(n.as_ref().to_owned()),
+            _ => None,
+        };
+        match ev {
+            Event::Start(e) => stack.push(element(ns, &e)),
+            Event::Empty(e) => {
+                let el = element(ns, &e);
+                stack.last_mut().expect("parent").children.push(el);
+            }
+            Event::End(_) => {
+                let el = stack.pop().expect("open element");
+                stack.last_mut().expect("parent").children.push(el);
+            }
+            Event::Text(t) => stack
+                .last_mut()
+                .expect("parent")
+                .text
+                .push_str(&t.xml10_content()),
+            Event::GeneralRef(r) => {
+                let s = if r.is_char_ref() {
+                    r.resolve_char_ref()
+                        .expect("char ref")
+                        .expect("char")
+                        .to_string()
+                } else {
+                    let name = r.xml10_content();
+                    quick_xml::escape::resolve_predefined_entity(&name)
+                        .expect("only predefined entities")
+                        .to_owned()
+                };
+                stack.last_mut().expect("parent").text.push_str(&s);
+            }
+            Event::Eof => break,
+            _ => {}
+        }
+    }
+    let mut doc = stack.pop().expect("document");
+    assert!(stack.is_empty(), "unclosed elements");
+    assert_eq!(doc.children.len(), 1, "exactly one root element");
+    doc.children.remove(0)
+}
+
+fn element(ns: Option<String>, e: &quick_xml::events::BytesStart<'_>) -> El {
+    let mut attrs = HashMap::new();
+    for a in e.attributes() {
+        let a = a.expect("attribute");
+        let key = a.key.as_ref().to_owned();
+        let value = a
+            .normalized_value(quick_xml::XmlVersion::Explicit1_0)
+            .expect("attribute value")
+            .into_owned();
+        attrs.insert(key, value);
+    }
+    El {
+        ns,
+        name: e.local_name().as_ref().to_owned(),
+        attrs,
+        ..El::default()
+    }
+}
+
+/// OASIS CAP 1.2 §3.3.2: `YYYY-MM-DDThh:mm:ssXzh:zm`, no `Z`, no fraction
+/// (this project never emits fractions).
+fn is_cap_time(s: &str) -> bool {
+    let b = s.as_bytes();
+    b.len() == 25
+        && (b[19] == b'+' || b[19] == b'-')
+        && b[10] == b'T'
+        && DateTime::parse_from_rfc3339(s).is_ok()
+}
+
+fn time_of(s: &str) -> DateTime<Utc> {
+    DateTime::parse_from_rfc3339(s)
+        .expect("RFC 3339 time")
+        .with_timezone(&Utc)
+}
+
+/// OASIS CAP 1.2 §3.2.1: identifier and sender "MUST NOT include spaces,
+/// commas or restricted characters (< and &)" (from memory).
+fn is_cap_token(s: &str) -> bool {
+    !s.is_empty()
+        && !s
+            .chars()
+            .any(|c| c.is_whitespace() || matches!(c, ',' | '<' | '&'))
+}
+
+// ------------------------------------------------------------ the reach
+
+/// An invented 2 km trapezoidal channel (bottom 10 m, sides 1:2, n 0.035,
+/// bed falling 1 m) with one footbridge at mid-reach. Normal depth is about
+/// 0.8 m at 5 m³/s, 3 m at 50 m³/s and 4.5 m at 120 m³/s, so with the bed
+/// at 9.5 m there: "Towpath" (11.0) and "Lock gate" (12.0) are exceeded by
+/// the flood, "Mill lane" (13.4) only by the bigger flood, "Mill yard"
+/// (17.0) by neither.
+fn reach_json() -> Value {
+    let section = |name: &str, chainage: f64, bed: f64| {
+        json!({"name": name, "chainage": chainage, "geometry": {
+            "shape": "trapezoid", "bed_elevation": bed, "bottom_width": 10.0,
+            "side_slope": 2.0, "n": 0.035, "height": 10.0
+        }})
+    };
+    json!({
+        "name": "Fernhollow Water: Quillby to Marrowdown (invented test reach)",
+        "sections": [section("FH-00", 0.0, 10.0), section("FH-20", 2000.0, 9.0)],
+        "max_node_spacing": 100.0,
+        "downstream": {"kind": "normal_depth", "friction_slope": 0.0005},
+        "points": [{
+            "name": "Quillby Footbridge", "chainage": 1000.0, "kind": "bridge",
+            "thresholds": [
+                {"name": "Towpath", "elevation": 11.0},
+                {"name": "Lock gate", "elevation": 12.0},
+                {"name": "Mill lane", "elevation": 13.4},
+                {"name": "Mill yard", "elevation": 17.0, "severity": "extreme"}
+            ]
+        }]
+    })
+}
+
+/// A hydrograph around `now`: `base` until an hour before now, rising to
+/// `peak` two hours after, holding to ten hours after, back to `base` at
+/// sixteen hours; covering the whole run window [now − 24 h, now + 48 h].
+fn hydrograph(now: DateTime<Utc>, base: f64, peak: f64) -> Value {
+    let at = |h: i64| (now + Duration::hours(h)).to_rfc3339();
+    json!({
+        "reason": "test storm",
+        "series": [
+            {"time": at(-30), "discharge": base},
+            {"time": at(-1), "discharge": base},
+            {"time": at(2), "discharge": peak},
+            {"time": at(10), "discharge": peak},
+            {"time": at(16), "discharge": base},
+            {"time": at(60), "discharge": base},
+        ]
+    })
+}
+
+// ------------------------------------------------------------ helpers
+
+struct Service {
+    app: common::TestApp,
+    forecaster: String,
+    storm_start: DateTime<Utc>,
+}
+
+impl Service {
+    async fn upload(&self, base: f64, peak: f64) {
+        let res = self
+            .app
+            .client
+            .post(self.app.url(&format!("/api/reaches/{REACH}/inflows")))
+            .bearer_auth(&self.forecaster)
+            .json(&hydrograph(self.storm_start, base, peak))
+            .send()
+            .await
+            .expect("POST inflows");
+        assert!(res.status().is_success(), "upload: {}", res.status());
+    }
+
+    /// Triggers a run and waits for it; returns its id.
+    async fn run(&self) -> i64 {
+        let res = self
+            .app
+            .client
+            .post(
+                self.app
+                    .url(&format!("/api/reaches/{REACH}/runs?wait=true")),
+            )
+            .bearer_auth(&self.forecaster)
+            .send()
+            .await
+            .expect("POST run");
+        assert_eq!(res.status(), 200);
+        let body: Value = res.json().await.expect("run summary");
+        assert_eq!(body["status"], "ok", "{body}");
+        body["run_id"].as_i64().expect("run id")
+    }
+
+    async fn get(&self, path: &str, etag: Option<&str>) -> reqwest::Response {
+        let mut req = self.app.client.get(self.app.url(path));
+        if let Some(t) = etag {
+            req = req.header("if-none-match", t);
+        }
+        req.send().await.expect("GET")
+    }
+
+    /// The feed, its ETag, and each entry's CAP document parsed.
+    async fn feed(&self, path: &str) -> (El, String, Vec<Message>) {
+        let res = self.get(path, None).await;
+        assert_eq!(res.status(), 200);
+        // RFC 4287 §7: the Atom media type.
+        assert_eq!(res.headers()["content-type"], "application/atom+xml");
+        let etag = res.headers()["etag"]
+            .to_str()
+            .expect("etag text")
+            .to_owned();
+        let feed = parse(&res.text().await.expect("feed body"));
+        assert_eq!(feed.name, "feed");
+        assert_eq!(feed.ns.as_deref(), Some(ATOM_NS));
+        // RFC 4287 §4.1.1: id, title, updated; an author (no entry has
+        // its own); the self link (§4.2.7.2).
+        assert_eq!(feed.text_of("id"), format!("{BASE}{path}"));
+        assert!(!feed.text_of("title").is_empty());
+        time_of(feed.text_of("updated"));
+        assert_eq!(feed.one("author").text_of("name"), SENDER);
+        let self_link = feed
+            .all("link")
+            .into_iter()
+            .find(|l| l.attrs.get("rel").map(String::as_str) == Some("self"))
+            .expect("rel=self link");
+        assert_eq!(self_link.attrs["href"], format!("{BASE}{path}"));
+        let mut messages = Vec::new();
+        for entry in feed.all("entry") {
+            // RFC 4287 §4.1.2: id, title, updated; without content, a
+            // rel="alternate" link.
+            let link = entry.one("link");
+            assert_eq!(link.attrs["rel"], "alternate");
+            assert_eq!(link.attrs["type"], "application/cap+xml");
+            let href = link.attrs["href"].clone();
+            assert_eq!(entry.text_of("id"), href);
+            assert!(!entry.text_of("title").is_empty());
+            let m = self.message(&href).await;
+            // The entry is as new as the message.
+            assert_eq!(time_of(entry.text_of("updated")), time_of(&m.sent));
+            assert!(entry.text_of("summary").contains(CAUTION));
+            messages.push(m);
+        }
+        (feed, etag, messages)
+    }
+
+    /// Fetches one CAP document by its absolute link (under `BASE`) from
+    /// the test server and checks the elements CAP 1.2 requires.
+    async fn message(&self, href: &str) -> Message {
+        let path = href.strip_prefix(BASE).expect("link under alerts.base_url");
+        let res = self.get(path, None).await;
+        assert_eq!(res.status(), 200, "{href}");
+        assert_eq!(res.headers()["content-type"], "application/cap+xml");
+        let xml = res.text().await.expect("CAP body");
+        let alert = parse(&xml);
+        // CAP §3.2.1: the root `alert` in the CAP 1.2 namespace with
+        // identifier, sender, sent, status, msgType and scope.
+        assert_eq!(alert.name, "alert");
+        assert_eq!(alert.ns.as_deref(), Some(CAP_NS));
+        let identifier = alert.text_of("identifier").to_owned();
+        assert!(is_cap_token(&identifier), "{identifier}");
+        assert_eq!(path, format!("/api/cap/{identifier}"));
+        assert_eq!(alert.text_of("sender"), SENDER);
+        let sent = alert.text_of("sent").to_owned();
+        assert!(is_cap_time(&sent), "CAP §3.3.2 time: {sent}");
+        // `alerts.cap_status = "Exercise"` in this test's configuration.
+        assert_eq!(alert.text_of("status"), "Exercise");
+        let msg_type = alert.text_of("msgType").to_owned();
+        assert!(["Alert", "Update", "Cancel"].contains(&msg_type.as_str()));
+        assert_eq!(alert.text_of("scope"), "Public");
+        // CAP §3.2.1: references are space-separated sender,identifier,sent.
+        let references: Vec<String> = alert
+            .opt_text("references")
+            .map(|r| r.split(' ').map(str::to_owned).collect())
+            .unwrap_or_default();
+        // CAP §3.2.2: info with category, event, urgency, severity,
+        // certainty.
+        let info = alert.one("info");
+        assert!(!info.all("category").is_empty());
+        assert!(info.all("category").iter().any(|c| c.text == "Met"));
+        assert!(!info.text_of("event").is_empty());
+        let urgency = info.text_of("urgency").to_owned();
+        assert!(["Immediate", "Expected", "Future", "Past", "Unknown"].contains(&urgency.as_str()));
+        let severity = info.text_of("severity").to_owned();
+        assert!(["Extreme", "Severe", "Moderate", "Minor", "Unknown"].contains(&severity.as_str()));
+        let certainty = info.text_of("certainty").to_owned();
+        assert!(
+            ["Observed", "Likely", "Possible", "Unlikely", "Unknown"].contains(&certainty.as_str())
+        );
+        assert!(is_cap_time(info.text_of("expires")));
+        assert!(time_of(info.text_of("expires")) > time_of(&sent));
+        // The caution in every message (project rule).
+        assert!(info.text_of("description").contains(CAUTION));
+        // CAP §3.2.2 `web`: the dashboard of the reach under base_url.
+        assert_eq!(info.text_of("web"), format!("{BASE}/#reach={REACH}"));
+        let params: HashMap<String, String> = info
+            .all("parameter")
+            .iter()
+            .map(|p| {
+                (
+                    p.text_of("valueName").to_owned(),
+                    p.text_of("value").to_owned(),
+                )
+            })
+            .collect();
+        // Certainty drops to Possible exactly when the forecast is stale.
+        if params.get("reachcast:forecast_stale").map(String::as_str) == Some("true") {
+            assert_eq!(certainty, "Possible");
+        } else if msg_type != "Cancel" {
+            assert_eq!(certainty, "Likely");
+        }
+        // CAP §3.2.4: area with areaDesc.
+        assert!(
+            info.one("area")
+                .text_of("areaDesc")
+                .contains("Quillby Footbridge")
+        );
+        Message {
+            identifier,
+            sent,
+            msg_type,
+            references,
+            threshold: params["reachcast:threshold_name"].clone(),
+            severity,
+        }
+    }
+}
+
+#[derive(Debug, Clone)]
+struct Message {
+    identifier: String,
+    /// The `sent` text exactly as in the document.
+    sent: String,
+    msg_type: String,
+    references: Vec<String>,
+    threshold: String,
+    severity: String,
+}
+
+impl Message {
+    /// This message as a CAP §3.2.1 reference triple.
+    fn triple(&self) -> String {
+        format!("{SENDER},{},{}", self.identifier, self.sent)
+    }
+}
+
+fn by_threshold(messages: &[Message]) -> HashMap<String, Message> {
+    let mut map = HashMap::new();
+    for m in messages {
+        // One current message per (point, threshold).
+        assert!(
+            map.insert(m.threshold.clone(), m.clone()).is_none(),
+            "two current messages for {}",
+            m.threshold
+        );
+    }
+    map
+}
+
+async fn start(dir: &std::path::Path) -> Service {
+    let mut config = common::test_config(dir);
+    // Runs happen only when the test asks: data-triggered runs wait ten
+    // minutes, longer than the test; the periodic run is an hour away.
+    config.forecast.debounce_ms = 600_000;
+    config.forecast.interval_minutes = 60;
+    config.alerts.sender = SENDER.to_owned();
+    config.alerts.cap_status = "Exercise".to_owned();
+    config.alerts.base_url = format!("{BASE}/");
+    let app = common::spawn_app_with(config).await;
+    let admin = app.key(Role::Admin, &[]).await;
+    let forecaster = app.key(Role::Forecaster, &[]).await;
+    let res = app
+        .client
+        .put(app.url(&format!("/api/reaches/{REACH}")))
+        .bearer_auth(&admin)
+        .json(&reach_json())
+        .send()
+        .await
+        .expect("PUT reach");
+    assert_eq!(
+        res.status(),
+        201,
+        "{}",
+        res.text().await.unwrap_or_default()
+    );
+    Service {
+        app,
+        forecaster,
+        storm_start: Utc::now(),
+    }
+}
+
+// ---------------------------------------------------------------- tests
+
+#[tokio::test]
+async fn alert_update_cancel_chain_through_the_service() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start(dir.path()).await;
+    let feed_path = "/api/cap/feed.atom";
+
+    // Nothing issued yet: a valid, empty feed.
+    let (feed, _, messages) = s.feed(feed_path).await;
+    assert!(messages.is_empty());
+    assert!(feed.all("entry").is_empty());
+
+    // 1. A flood of 50 m³/s: Alerts for the two thresholds it exceeds.
+    s.upload(5.0, 50.0).await;
+    s.run().await;
+    let (_, etag1, messages) = s.feed(feed_path).await;
+    let alerts = by_threshold(&messages);
+    let mut names: Vec<&str> = alerts.keys().map(String::as_str).collect();
+    names.sort_unstable();
+    assert_eq!(names, ["Lock gate", "Towpath"], "{messages:#?}");
+    for m in alerts.values() {
+        assert_eq!(m.msg_type, "Alert");
+        // CAP §3.2.1: an Alert references nothing.
+        assert!(m.references.is_empty());
+    }
+    // Severity from the rank among the point's four thresholds (lowest
+    // Minor, middle Moderate).
+    assert_eq!(alerts["Towpath"].severity, "Minor");
+    assert_eq!(alerts["Lock gate"].severity, "Moderate");
+
+    // 2. The same data again: nothing new, and the feed answers 304 to its
+    // ETag (RFC 9110 §13.1.2).
+    s.run().await;
+    let res = s.get(feed_path, Some(&etag1)).await;
+    assert_eq!(res.status(), 304);
+    assert_eq!(res.headers()["etag"].to_str().expect("etag"), etag1);
+    let (_, etag_again, again) = s.feed(feed_path).await;
+    assert_eq!(etag_again, etag1);
+    let ids = |ms: &[Message]| {
+        let mut v: Vec<String> = ms.iter().map(|m| m.identifier.clone()).collect();
+        v.sort();
+        v
+    };
+    assert_eq!(ids(&again), ids(&messages));
+
+    // 3. A bigger flood (120 m³/s): Updates referencing the Alerts, and an
+    // Alert for the threshold now exceeded too.
+    s.upload(5.0, 120.0).await;
+    s.run().await;
+    let (_, etag2, messages) = s.feed(feed_path).await;
+    assert_ne!(etag2, etag1);
+    let updates = by_threshold(&messages);
+    assert_eq!(updates.len(), 3, "{messages:#?}");
+    for name in ["Towpath", "Lock gate"] {
+        let u = &updates[name];
+        assert_eq!(u.msg_type, "Update", "{name}");
+        // CAP §3.2.1: `references` names the earlier message by sender,
+        // identifier and sent exactly as that message stated them.
+        assert_eq!(u.references, [alerts[name].triple()], "{name}");
+        assert!(time_of(&u.sent) >= time_of(&alerts[name].sent));
+    }
+    assert_eq!(updates["Mill lane"].msg_type, "Alert");
+    assert!(updates["Mill lane"].references.is_empty());
+    // The earlier Alerts stay retrievable by identifier.
+    for a in alerts.values() {
+        let res = s.get(&format!("/api/cap/{}", a.identifier), None).await;
+        assert_eq!(res.status(), 200);
+    }
+
+    // 4. Back to low flow: Cancels referencing each whole chain, oldest
+    // first.
+    s.upload(5.0, 5.0).await;
+    s.run().await;
+    let (_, etag3, messages) = s.feed(feed_path).await;
+    assert_ne!(etag3, etag2);
+    let cancels = by_threshold(&messages);
+    assert_eq!(cancels.len(), 3, "{messages:#?}");
+    for name in ["Towpath", "Lock gate"] {
+        let c = &cancels[name];
+        assert_eq!(c.msg_type, "Cancel", "{name}");
+        assert_eq!(
+            c.references,
+            [alerts[name].triple(), updates[name].triple()],
+            "{name}"
+        );
+    }
+    assert_eq!(cancels["Mill lane"].msg_type, "Cancel");
+    assert_eq!(
+        cancels["Mill lane"].references,
+        [updates["Mill lane"].triple()]
+    );
+
+    // 5. Low flow again: nothing new.
+    s.run().await;
+    assert_eq!(s.get(feed_path, Some(&etag3)).await.status(), 304);
+
+    // The reach's own feed lists the same messages.
+    let reach_path = format!("/api/reaches/{REACH}/cap/feed.atom");
+    let (_, _, own) = s.feed(&reach_path).await;
+    assert_eq!(ids(&own), ids(&messages));
+
+    s.app.stop().await;
+}
+
+#[tokio::test]
+async fn unknown_message_and_reach_are_404_problems() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start(dir.path()).await;
+    for path in [
+        "/api/cap/reachcast-nowhere-r1-0000000000000000".to_owned(),
+        "/api/reaches/nowhere/cap/feed.atom".to_owned(),
+    ] {
+        let res = s.get(&path, None).await;
+        assert_eq!(res.status(), 404, "{path}");
+        // RFC 9457 problem details.
+        assert_eq!(
+            res.headers()["content-type"],
+            "application/problem+json",
+            "{path}"
+        );
+        let body: Value = res.json().await.expect("problem");
+        assert_eq!(body["status"], 404);
+    }
+    s.app.stop().await;
+}
+
+#[tokio::test]
+async fn messages_survive_a_restart_and_chains_continue() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start(dir.path()).await;
+    s.upload(5.0, 50.0).await;
+    s.run().await;
+    let (_, etag, before) = s.feed("/api/cap/feed.atom").await;
+    assert_eq!(before.len(), 2);
+    let alerts = by_threshold(&before);
+    let forecaster = s.forecaster.clone();
+    let storm_start = s.storm_start;
+    s.app.stop().await;
+
+    // Same data directory, new process state.
+    let mut config = common::test_config(dir.path());
+    config.forecast.debounce_ms = 600_000;
+    config.forecast.interval_minutes = 60;
+    config.alerts.sender = SENDER.to_owned();
+    config.alerts.cap_status = "Exercise".to_owned();
+    config.alerts.base_url = BASE.to_owned();
+    let s = Service {
+        app: common::spawn_app_with(config).await,
+        forecaster,
+        storm_start,
+    };
+    // The stored messages are served as before (same bytes, same ETag)…
+    assert_eq!(s.get("/api/cap/feed.atom", Some(&etag)).await.status(), 304);
+    // …and the next plan continues their chains from the stored `sent`
+    // text: a Cancel references the Alerts exactly.
+    s.upload(5.0, 5.0).await;
+    s.run().await;
+    let (_, _, after) = s.feed("/api/cap/feed.atom").await;
+    let cancels = by_threshold(&after);
+    assert_eq!(cancels.len(), 2);
+    for (name, c) in &cancels {
+        assert_eq!(c.msg_type, "Cancel");
+        assert_eq!(c.references, [alerts[name].triple()], "{name}");
+    }
+    s.app.stop().await;
+}
+
+#[tokio::test]
+async fn removing_a_threshold_withdraws_its_chain_only() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start(dir.path()).await;
+    s.upload(5.0, 50.0).await;
+    s.run().await;
+    let (_, _, before) = s.feed("/api/cap/feed.atom").await;
+    let alerts = by_threshold(&before);
+    assert_eq!(alerts.len(), 2);
+
+    // A new reach version without "Lock gate".
+    let admin = s.app.key(Role::Admin, &[]).await;
+    let mut reach = reach_json();
+    let thresholds = reach["points"][0]["thresholds"]
+        .as_array_mut()
+        .expect("thresholds");
+    thresholds.retain(|t| t["name"] != "Lock gate");
+    let res = s
+        .app
+        .client
+        .put(s.app.url(&format!("/api/reaches/{REACH}")))
+        .bearer_auth(&admin)
+        .json(&reach)
+        .send()
+        .await
+        .expect("PUT reach");
+    assert_eq!(res.status(), 200);
+    s.run().await;
+
+    let (_, _, after) = s.feed("/api/cap/feed.atom").await;
+    let now = by_threshold(&after);
+    assert_eq!(now.len(), 2, "{after:#?}");
+    // The removed threshold's chain ends with a Cancel referencing it
+    // (CAP §3.2.1 msgType Cancel, references).
+    let gone = &now["Lock gate"];
+    assert_eq!(gone.msg_type, "Cancel");
+    assert_eq!(gone.references, [alerts["Lock gate"].triple()]);
+    // The other chain is untouched: its Alert is still the current message.
+    assert_eq!(now["Towpath"].identifier, alerts["Towpath"].identifier);
+    s.app.stop().await;
+}
