@@ -1,24 +1,577 @@
-// reachcast dashboard entry point: small modules, no framework, no build step.
-const text = (id, value) => {
-  const el = document.getElementById(id);
-  if (el) el.textContent = value;
+// reachcast dashboard: small modules, no framework, no build step.
+// Reads the forecast API, polls it with If-None-Match, and redraws only
+// when an answer changed.
+
+import { renderChart } from "./js/chart.js";
+import { formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
+import { clearance, pointStatus, thresholdNamed } from "./js/status.js";
+
+const $ = (id) => document.getElementById(id);
+const params = new URLSearchParams(location.search);
+const POLL_MS = Math.max(1000, Number(params.get("poll")) || 30_000);
+const KEY_SLOT = "reachcast.key";
+
+const state = {
+  reaches: [],
+  reachId: null,
+  units: null, // null: the reach's preference
+  forecast: null,
+  forecastUrl: null,
+  fetchedAt: 0, // local clock when `forecast` arrived
+  etags: new Map(), // url -> { etag, body }
+  timer: null,
+  lastOk: 0,
 };
 
-async function refreshService() {
-  try {
-    const res = await fetch("/ready", { headers: { Accept: "application/json" } });
-    const body = await res.json();
-    if (res.ok) {
-      text("svc-status", "✔ ready");
-      text("svc-db", body.database);
-      text("svc-schema", `${body.migrations.applied} of ${body.migrations.known} migrations applied`);
-    } else {
-      text("svc-status", `✖ not ready: ${body.detail ?? res.status}`);
-    }
-  } catch (err) {
-    text("svc-status", `✖ unreachable (${err.message})`);
+function h(tag, attrs = {}, ...children) {
+  const e = document.createElement(tag);
+  for (const [k, v] of Object.entries(attrs)) {
+    if (v == null || v === false) continue;
+    if (k === "class") e.className = v;
+    else if (k === "text") e.textContent = v;
+    else e.setAttribute(k, v === true ? "" : String(v));
+  }
+  for (const c of children) if (c != null) e.append(c);
+  return e;
+}
+
+class HttpError extends Error {
+  constructor(status, problem) {
+    super(problem?.detail || problem?.title || `HTTP ${status}`);
+    this.status = status;
+    this.problem = problem;
   }
 }
 
-refreshService();
-setInterval(refreshService, 30000);
+/** GET with If-None-Match; returns { body, changed, at (local ms the body arrived) }. */
+async function getJson(url) {
+  const cached = state.etags.get(url);
+  const headers = { Accept: "application/json" };
+  if (cached) headers["If-None-Match"] = cached.etag;
+  const res = await fetch(url, { headers, cache: "no-store" });
+  if (res.status === 304 && cached) return { body: cached.body, changed: false, at: cached.at };
+  const body = await readBody(res);
+  if (!res.ok) throw new HttpError(res.status, body);
+  const etag = res.headers.get("ETag");
+  const at = Date.now();
+  if (etag) state.etags.set(url, { etag, body, at });
+  return { body, changed: true, at };
+}
+
+async function readBody(res) {
+  const type = res.headers.get("Content-Type") || "";
+  if (type.includes("json")) {
+    try {
+      return await res.json();
+    } catch {
+      return null;
+    }
+  }
+  const text = await res.text();
+  return text ? { detail: text } : null;
+}
+
+function currentReach() {
+  return state.reaches.find((r) => r.id === state.reachId) || null;
+}
+
+function unitsWanted() {
+  return state.units || currentReach()?.units || "si";
+}
+
+function forecastUrl() {
+  // Always explicit: without it the server answers in the reach's own units.
+  return `/api/reaches/${encodeURIComponent(state.reachId)}/forecast?units=${unitsWanted() === "us" ? "us" : "si"}`;
+}
+
+// ---------------------------------------------------------------- polling
+
+async function refresh() {
+  clearTimeout(state.timer);
+  try {
+    const { body } = await getJson("/api/reaches");
+    state.reaches = body.reaches || [];
+    renderReachPicker();
+    if (!state.reachId || !currentReach()) {
+      const wanted = new URLSearchParams(location.hash.slice(1)).get("reach");
+      state.reachId = (state.reaches.find((r) => r.id === wanted) || state.reaches[0] || {}).id || null;
+      renderReachPicker();
+    }
+    if (!state.reachId) {
+      showNoForecast("No reach is configured on this server yet.");
+    } else {
+      await refreshForecast();
+    }
+    state.lastOk = Date.now();
+    setConn(`Checked ${formatClock(Date.now(), currentReach()?.time_zone)} (${offsetLabel(offsetMinutes(currentReach()?.time_zone, Date.now()))}); checks again every ${Math.round(POLL_MS / 1000)} s.`, false);
+  } catch (err) {
+    const since = state.lastOk ? ` Last successful check ${formatDuration((Date.now() - state.lastOk) / 1000)} ago; the figures below may be old.` : "";
+    setConn(`Could not reach the server (${err.message}).${since}`, true);
+  } finally {
+    clearTimeout(state.timer); // an overlapping refresh may have set one
+    state.timer = setTimeout(refresh, POLL_MS);
+  }
+}
+
+async function refreshForecast() {
+  const url = forecastUrl();
+  let res;
+  try {
+    res = await getJson(url);
+  } catch (err) {
+    if (err instanceof HttpError && err.status === 404) {
+      state.forecast = null;
+      showNoForecast(`No forecast yet for this reach: ${err.message}`);
+      return;
+    }
+    throw err;
+  }
+  // A 304 for another URL (the other units, another reach) still means
+  // the page must show that URL's cached answer.
+  if (res.changed || !state.forecast || state.forecastUrl !== url) {
+    state.forecast = res.body;
+    state.forecastUrl = url;
+    state.fetchedAt = res.at;
+    renderForecast();
+  } else {
+    renderFreshness(); // ages move on even when the forecast did not
+  }
+}
+
+function setConn(text, bad) {
+  const c = $("conn");
+  c.textContent = text;
+  c.classList.toggle("bad", bad);
+  // Announce losing the server, not every routine check.
+  if (bad) c.setAttribute("role", "alert");
+  else c.removeAttribute("role");
+}
+
+function showNoForecast(text) {
+  const p = $("no-forecast");
+  p.textContent = text;
+  p.hidden = false;
+  $("overview-body").replaceChildren();
+  $("summary").textContent = "";
+  $("charts").replaceChildren();
+  $("stale").hidden = true;
+}
+
+// ---------------------------------------------------------------- rendering
+
+function renderReachPicker() {
+  const sel = $("reach-select");
+  const ids = state.reaches.map((r) => r.id).join("\n");
+  if (sel.dataset.ids !== ids) {
+    sel.replaceChildren(...state.reaches.map((r) => h("option", { value: r.id, text: r.name })));
+    sel.dataset.ids = ids;
+  }
+  if (state.reachId) sel.value = state.reachId;
+  $("reach-pick").hidden = state.reaches.length < 2;
+  const r = currentReach();
+  $("reach-title").textContent = r ? r.name : "";
+  const u = unitsWanted();
+  $("units-si").checked = u === "si";
+  $("units-us").checked = u === "us";
+}
+
+function renderForecast() {
+  const f = state.forecast;
+  const zone = f.reach.time_zone;
+  $("no-forecast").hidden = true;
+  $("reach-title").textContent = f.reach.name;
+  document.title = `${f.reach.name} · reachcast`;
+  renderOverview(f, zone);
+  renderFreshness();
+  renderCharts(f, zone);
+}
+
+function renderOverview(f, zone) {
+  const u = f.units;
+  const rows = f.points.map((p, i) => {
+    const st = pointStatus(p, f.now);
+    const status = h(
+      "span",
+      { class: `status status-${st.state}` },
+      h("span", { class: "icon", "aria-hidden": "true", text: st.icon }),
+      ` ${st.text}`,
+    );
+    if (st.severity) status.append(h("span", { class: "sev", text: ` (${st.severity})` }));
+    const top = p.highest_exceeded ? thresholdNamed(p, p.highest_exceeded) : null;
+    const highest = top
+      ? h("span", {}, `${top.name} `, h("span", { class: "muted", text: `${formatLevel(top.elevation, u.elevation)}, ${top.severity}` }))
+      : h("span", { class: "muted", text: p.thresholds?.length ? "none" : "–" });
+    let crossing;
+    if (st.next) {
+      crossing = h("span", {}, h("strong", { text: `in ${formatDuration(st.next.inSeconds)}` }), h("br"), `${st.next.name}, ${formatTime(st.next.at, zone)}`);
+    } else if (st.state === "over") {
+      crossing = h("span", { text: "already over" });
+    } else {
+      crossing = h("span", { class: "muted", text: "none expected" });
+    }
+    const clear = [];
+    const lc = clearance(p.low_chord_margin, u.elevation);
+    const dk = clearance(p.deck_margin, u.elevation);
+    if (lc) clear.push(h("span", { class: lc.flag ? "flag" : "" }, lc.flag ? h("span", { "aria-hidden": "true", text: "▲ " }) : null, `low chord: ${lc.text}`));
+    if (dk) clear.push(h("span", { class: dk.flag ? "flag" : "" }, dk.flag ? h("span", { "aria-hidden": "true", text: "▲ " }) : null, `deck: ${dk.text}`));
+    const clearCell = clear.length ? h("span", {}, ...clear.flatMap((c, k) => (k ? [h("br"), c] : [c]))) : h("span", { class: "muted", text: "–" });
+    const kind = p.kind.replace("_", " ");
+    return h(
+      "tr",
+      { "data-point": p.name, class: `row-${st.state}` },
+      h("th", { scope: "row", "data-label": "Point" }, h("a", { href: `#chart-${i}`, text: p.name }), h("br"), h("span", { class: "muted", text: `${kind} · km ${(p.chainage / 1000).toFixed(1)}` })),
+      h("td", { "data-label": "Status" }, status),
+      h("td", { "data-label": "Stage now", class: "num", text: formatLevel(p.current_stage, u.stage) }),
+      h("td", { "data-label": "Forecast crest" }, h("span", { class: "num", text: formatLevel(p.crest_stage, u.stage) }), h("br"), h("span", { class: "muted", text: formatTime(p.crest_time, zone) })),
+      h("td", { "data-label": "Highest threshold reached" }, highest),
+      h("td", { "data-label": "First crossing" }, crossing),
+      h("td", { "data-label": "Bridge clearance" }, clearCell),
+    );
+  });
+  $("overview-body").replaceChildren(...rows);
+  renderSummary(f, zone);
+  $("overview-caption").textContent = `Points of interest on ${f.reach.name}, upstream first. Times in ${zone}.`;
+}
+
+/** One sentence for a glance: what is over now, and the next crossing. */
+function renderSummary(f, zone) {
+  const st = f.points.map((p) => [p, pointStatus(p, f.now)]);
+  const over = st.filter(([, s]) => s.state === "over").map(([p]) => p.name);
+  let next = null;
+  for (const [p, s] of st) if (s.next && (!next || s.next.at < next.at)) next = { ...s.next, point: p.name };
+  const parts = [];
+  if (over.length) parts.push(`Over a threshold now: ${over.length} of ${f.points.length} points (${over.join(", ")}).`);
+  if (next) parts.push(`Next crossing: ${next.name} at ${next.point} in ${formatDuration(next.inSeconds)}, ${formatTime(next.at, zone)}.`);
+  if (!parts.length) parts.push("All points clear: the forecast crosses no threshold.");
+  const box = $("summary");
+  box.textContent = parts.join(" ");
+  box.className = `summary ${over.length ? "summary-over" : next ? "summary-rising" : "summary-clear"}`;
+}
+
+function renderFreshness() {
+  const f = state.forecast;
+  if (!f) return;
+  const zone = f.reach.time_zone;
+  const drift = (Date.now() - state.fetchedAt) / 1000;
+  const run = f.run;
+  const fr = f.freshness;
+  $("f-run").replaceChildren(
+    h("span", { id: "run-id", "data-run": run.id, text: `#${run.id}` }),
+    `, finished ${formatTime(run.finished_at, zone)} (${formatDuration(fr.run_age_s + drift)} ago)`,
+  );
+  $("f-reading").textContent = fr.last_reading_at
+    ? `${formatTime(fr.last_reading_at, zone)} (${formatDuration((fr.last_reading_age_s ?? 0) + drift)} old; counted stale after ${formatDuration(fr.stale_after_s)})`
+    : "no reading from the upstream gauge";
+  $("f-method").textContent = `${run.method} routing, reach version ${run.reach_version}`;
+  const inf = run.inflow || {};
+  const src = {
+    upload: `uploaded inflow, version ${inf.upload_version ?? "?"}`,
+    persistence: "last reading held steady (persistence)",
+    recession: "recession from the last reading",
+  }[inf.source_beyond_now] || inf.source_beyond_now || "–";
+  $("f-inputs").textContent = inf.observed_to ? `${src}; observed to ${formatTime(inf.observed_to, zone)}` : src;
+  const notes = [...(inf.warnings || []), ...(run.diagnostics?.warnings || [])];
+  $("f-notes").replaceChildren(...(notes.length ? [h("ul", {}, ...notes.map((n) => h("li", { text: n })))] : ["none"]));
+
+  const stale = $("stale");
+  stale.hidden = !fr.stale;
+  $("stale-reasons").replaceChildren(...(fr.reasons || []).map((r) => h("li", { text: r })));
+  const fail = f.last_failure;
+  $("failure").hidden = !fail;
+  if (fail) $("failure-text").textContent = `Run #${fail.run_id} at ${formatTime(fail.at, zone)}: ${fail.error}`;
+}
+
+function renderCharts(f, zone) {
+  const box = $("charts");
+  const width = Math.min(Math.max((box.clientWidth || 720) - 2, 280), 1400);
+  const sections = f.points.map((p, i) => {
+    const titleId = `chart-title-${i}`;
+    const st = pointStatus(p, f.now);
+    const svg = renderChart(document, p, {
+      zone,
+      units: f.units,
+      now: f.now,
+      width,
+      titleId,
+      title: `Stage at ${p.name}: now ${formatLevel(p.current_stage, f.units.stage)}, forecast crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)}; ${st.text}.`,
+    });
+    return h(
+      "section",
+      { class: "point", id: `chart-${i}`, "aria-labelledby": `chart-h-${i}` },
+      h("h3", { id: `chart-h-${i}`, text: p.name }),
+      h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)}; peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}.` }),
+      h("div", { class: "chart-box" }, svg),
+      legend(p),
+      dataTable(p, f, zone),
+    );
+  });
+  box.replaceChildren(...sections);
+}
+
+function swatch(kind) {
+  const ns = "http://www.w3.org/2000/svg";
+  const s = document.createElementNS(ns, "svg");
+  s.setAttribute("width", "28");
+  s.setAttribute("height", "12");
+  s.setAttribute("aria-hidden", "true");
+  const add = (name, attrs) => {
+    const e = document.createElementNS(ns, name);
+    for (const [k, v] of Object.entries(attrs)) e.setAttribute(k, v);
+    s.append(e);
+  };
+  if (kind === "observed") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#1d2733", "stroke-width": 2.5 });
+  if (kind === "forecast") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5" });
+  if (kind === "threshold") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#8a5a00", "stroke-width": 1.25 });
+  if (kind === "structure") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#4d5b6a", "stroke-width": 2 });
+  if (kind === "now") add("line", { x1: 14, x2: 14, y1: 0, y2: 12, stroke: "#1f4f8a", "stroke-width": 2 });
+  if (kind === "crest") add("path", { d: "M14,0l6,6l-6,6l-6,-6z", fill: "#b03a12" });
+  return s;
+}
+
+function legend(p) {
+  const items = [
+    (p.observed || []).length ? ["observed", "observed stage (solid)"] : null,
+    ["forecast", "model stage (dashed)"],
+    (p.thresholds || []).length ? ["threshold", "threshold"] : null,
+    p.low_chord != null || p.deck != null ? ["structure", "low chord / deck"] : null,
+    ["now", "now"],
+    ["crest", "forecast crest"],
+  ].filter(Boolean);
+  return h("ul", { class: "legend", "aria-label": "Chart key" }, ...items.map(([k, t]) => h("li", {}, swatch(k), ` ${t}`)));
+}
+
+function dataTable(p, f, zone) {
+  const u = f.units;
+  const rows = new Map();
+  (p.times || []).forEach((t, k) => rows.set(toMs(t), { t, stage: p.stage[k], q: p.discharge?.[k], obs: null }));
+  for (const o of p.observed || []) {
+    const ms = toMs(o.time);
+    const r = rows.get(ms) || { t: o.time, stage: null, q: null, obs: null };
+    r.obs = o.stage;
+    rows.set(ms, r);
+  }
+  const nowMs = toMs(f.now);
+  const body = [...rows.entries()]
+    .sort((a, b) => a[0] - b[0])
+    .map(([ms, r]) =>
+      h(
+        "tr",
+        { class: ms > nowMs ? "future" : null },
+        h("td", { text: formatTime(r.t, zone) }),
+        h("td", { class: "num", text: r.obs == null ? "–" : r.obs.toFixed(2) }),
+        h("td", { class: "num", text: r.stage == null ? "–" : r.stage.toFixed(2) }),
+        h("td", { class: "num", text: r.q == null ? "–" : formatFlow(r.q, u.discharge).split(" ")[0] }),
+        h("td", { text: ms > nowMs ? "forecast" : "past" }),
+      ),
+    );
+  return h(
+    "details",
+    { class: "data" },
+    h("summary", { text: `Data table for ${p.name} (${rows.size} times)` }),
+    h(
+      "div",
+      { class: "table-wrap" },
+      h(
+        "table",
+        {},
+        h("caption", { text: `Stage and discharge at ${p.name}; times in ${zone}` }),
+        h(
+          "thead",
+          {},
+          h("tr", {}, ...[`Time`, `Observed (${u.stage})`, `Model (${u.stage})`, `Discharge (${u.discharge.replace("3/s", "³/s")})`, "Part"].map((c) => h("th", { scope: "col", text: c }))),
+        ),
+        h("tbody", {}, ...body),
+      ),
+    ),
+  );
+}
+
+// ---------------------------------------------------------------- forecaster
+
+function key() {
+  return sessionStorage.getItem(KEY_SLOT) || "";
+}
+
+function showKeyState() {
+  $("key-state").textContent = key() ? "A key is set for this tab." : "No key set.";
+}
+
+async function call(method, url, { body, type } = {}) {
+  const headers = { Accept: "application/json" };
+  if (key()) headers.Authorization = `Bearer ${key()}`;
+  if (type) headers["Content-Type"] = type;
+  const res = await fetch(url, { method, headers, body, cache: "no-store" });
+  const data = await readBody(res);
+  if (!res.ok) throw new HttpError(res.status, data);
+  return data;
+}
+
+function problemText(err) {
+  if (err instanceof HttpError) {
+    if (err.status === 401) return "The server did not accept the key (missing or unknown). Enter a forecaster key above.";
+    if (err.status === 403) return "This key is not allowed to do that (a forecaster key is needed).";
+    return `${err.message} (HTTP ${err.status})`;
+  }
+  return `Could not reach the server: ${err.message}`;
+}
+
+function busy(button, on) {
+  button.disabled = on;
+  button.setAttribute("aria-busy", on ? "true" : "false");
+}
+
+async function upload(ev) {
+  ev.preventDefault();
+  const btn = $("up-send");
+  const out = $("up-result");
+  $("up-errors").hidden = true;
+  const reason = $("up-reason").value.trim();
+  const csv = $("up-csv").value;
+  if (!reason) {
+    out.textContent = "Give a reason for the upload.";
+    $("up-reason").focus();
+    return;
+  }
+  busy(btn, true);
+  out.textContent = "Uploading…";
+  try {
+    const url = `/api/reaches/${encodeURIComponent(state.reachId)}/inflows?reason=${encodeURIComponent(reason)}`;
+    const r = await call("POST", url, { body: csv, type: "text/csv" });
+    out.textContent = `Accepted: inflow version ${r.version} (${r.points} rows).`;
+    loadUploads();
+    if ($("up-run").checked) await runNow();
+  } catch (err) {
+    out.textContent = `Not accepted: ${problemText(err)}`;
+    const errors = err instanceof HttpError ? err.problem?.errors : null;
+    if (Array.isArray(errors) && errors.length) {
+      $("up-errors-body").replaceChildren(
+        ...errors.map((e) => h("tr", {}, h("td", { class: "num", text: e.row ?? "–" }), h("td", { text: e.field ?? "–" }), h("td", { text: e.message ?? "" }))),
+      );
+      $("up-errors").hidden = false;
+    }
+  } finally {
+    busy(btn, false);
+  }
+}
+
+async function runNow() {
+  const btn = $("run-now");
+  const out = $("run-result");
+  busy(btn, true);
+  out.textContent = "Running… (this waits for the run to finish)";
+  try {
+    const r = await call("POST", `/api/reaches/${encodeURIComponent(state.reachId)}/runs?wait=true`);
+    out.textContent = r.status === "ok" ? `Run #${r.run_id} finished; the page now shows it.` : `Run #${r.run_id} failed: ${r.error ?? "no detail"}`;
+    await refresh();
+  } catch (err) {
+    out.textContent = `Run not started: ${problemText(err)}`;
+  } finally {
+    busy(btn, false);
+  }
+}
+
+async function loadUploads() {
+  if (!state.reachId) return;
+  const body = $("uploads-body");
+  try {
+    const r = await call("GET", `/api/reaches/${encodeURIComponent(state.reachId)}/inflows`);
+    const zone = currentReach()?.time_zone;
+    const list = r.uploads || [];
+    if (!list.length) {
+      body.replaceChildren(h("tr", {}, h("td", { colspan: 6, class: "muted", text: "No uploads for this reach." })));
+      return;
+    }
+    body.replaceChildren(
+      ...list.map((u) => {
+        const cell = h("td", {});
+        if (u.withdrawn) cell.append("withdrawn");
+        else cell.append(withdrawButton(u.version, cell));
+        return h("tr", { "data-version": u.version }, h("td", { class: "num", text: `v${u.version}` }), h("td", { text: formatTime(u.uploaded_at, zone) }), h("td", { text: u.uploaded_by }), h("td", { text: u.reason }), h("td", { class: "num", text: u.points }), cell);
+      }),
+    );
+  } catch (err) {
+    body.replaceChildren(h("tr", {}, h("td", { colspan: 6, text: problemText(err) })));
+  }
+}
+
+function withdrawButton(version, cell) {
+  const b = h("button", { type: "button", class: "withdraw", text: `Withdraw v${version}…` });
+  b.addEventListener("click", () => {
+    const yes = h("button", { type: "button", class: "danger", text: `Yes, withdraw v${version}` });
+    const no = h("button", { type: "button", text: "Keep it" });
+    no.addEventListener("click", () => {
+      cell.replaceChildren(withdrawButton(version, cell));
+      cell.querySelector("button")?.focus();
+    });
+    yes.addEventListener("click", async () => {
+      busy(yes, true);
+      try {
+        await call("POST", `/api/reaches/${encodeURIComponent(state.reachId)}/inflows/${version}/withdraw`);
+        $("up-result").textContent = `Withdrew inflow version ${version}. Run the forecast to use the change.`;
+        await loadUploads();
+      } catch (err) {
+        cell.replaceChildren(`Not withdrawn: ${problemText(err)}`);
+      }
+    });
+    cell.replaceChildren(yes, " ", no);
+    yes.focus();
+  });
+  return b;
+}
+
+// ---------------------------------------------------------------- wiring
+
+function wire() {
+  $("reach-select").addEventListener("change", (e) => {
+    state.reachId = e.target.value;
+    state.units = null;
+    history.replaceState(null, "", `#reach=${encodeURIComponent(state.reachId)}`);
+    refresh();
+    loadUploads();
+  });
+  for (const id of ["units-si", "units-us"]) {
+    $(id).addEventListener("change", (e) => {
+      state.units = e.target.value;
+      refresh();
+    });
+  }
+  $("controls").addEventListener("submit", (e) => e.preventDefault());
+  $("key-form").addEventListener("submit", (e) => {
+    e.preventDefault();
+    const v = $("key-input").value.trim();
+    if (v) sessionStorage.setItem(KEY_SLOT, v);
+    $("key-input").value = "";
+    showKeyState();
+    loadUploads();
+  });
+  $("key-forget").addEventListener("click", () => {
+    sessionStorage.removeItem(KEY_SLOT);
+    showKeyState();
+  });
+  $("upload-form").addEventListener("submit", upload);
+  $("up-file").addEventListener("change", async (e) => {
+    const file = e.target.files?.[0];
+    if (file) $("up-csv").value = await file.text();
+  });
+  $("run-now").addEventListener("click", runNow);
+  $("uploads-refresh").addEventListener("click", loadUploads);
+  $("forecaster").addEventListener("toggle", (e) => {
+    if (e.target.open) loadUploads();
+  });
+  let resizeTimer = null;
+  let lastWidth = $("charts").clientWidth;
+  window.addEventListener("resize", () => {
+    clearTimeout(resizeTimer);
+    resizeTimer = setTimeout(() => {
+      const w = $("charts").clientWidth;
+      if (state.forecast && w !== lastWidth) {
+        lastWidth = w;
+        renderCharts(state.forecast, state.forecast.reach.time_zone);
+      }
+    }, 150);
+  });
+  showKeyState();
+}
+
+wire();
+refresh();

@@ -405,8 +405,11 @@ async fn build_doc(state: &AppState, l: &Loaded, units: Units) -> Result<Forecas
 /// `now`) but means the same until the run, the stale verdict or the
 /// newest reading changes (RFC 9110 §8.8.1).
 fn forecast_etag(doc: &ForecastDoc, units: Units, csv: bool) -> String {
+    // The stale reasons quote ages in whole minutes, so they are part of
+    // the validator: a page polling with If-None-Match sees them change.
+    let reasons = fnv(doc.freshness.reasons.join("|").as_bytes());
     format!(
-        "W/\"run{}-{}-{}-{}-{}\"",
+        "W/\"run{}-{}-{}-{}-{}-{reasons:x}\"",
         doc.run
             .get("id")
             .and_then(serde_json::Value::as_i64)

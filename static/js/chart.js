@@ -1,0 +1,282 @@
+// A small hydrograph chart: scales and ticks (pure, unit tested with
+// node --test) and an inline-SVG renderer that takes the document to draw in.
+
+import { HOUR, formatClock, formatDay, formatLevel, offsetLabel, offsetMinutes, toMs, wallClock } from "./format.js";
+
+/**
+ * A "nice" step for covering `span` with about `target` intervals: 1, 2 or
+ * 5 times a power of ten, the smallest such step giving at most `target`
+ * intervals.
+ */
+export function niceStep(span, target = 5) {
+  if (!(span > 0) || !Number.isFinite(span)) return 1;
+  const raw = span / Math.max(1, target);
+  const mag = 10 ** Math.floor(Math.log10(raw));
+  const norm = raw / mag;
+  // A tiny tolerance so 0.2/0.1 does not become 2.0000000000000004 > 2.
+  const f = norm <= 1 + 1e-9 ? 1 : norm <= 2 + 1e-9 ? 2 : norm <= 5 + 1e-9 ? 5 : 10;
+  return f * mag;
+}
+
+/** Decimal places needed to print multiples of `step` exactly. */
+export function stepDecimals(step) {
+  return Math.max(0, -Math.floor(Math.log10(step) + 1e-9));
+}
+
+/**
+ * Ticks for a value axis: the domain [min, max] widened to whole steps and
+ * every multiple of a 1-2-5 step in it. A flat series gets a ±0.5 domain.
+ */
+export function niceTicks(min, max, target = 5) {
+  let lo = Math.min(min, max);
+  let hi = Math.max(min, max);
+  if (!Number.isFinite(lo) || !Number.isFinite(hi)) {
+    lo = 0;
+    hi = 1;
+  }
+  if (hi - lo < 1e-9) {
+    lo -= 0.5;
+    hi += 0.5;
+  }
+  const step = niceStep(hi - lo, target);
+  const dec = stepDecimals(step);
+  const round = (v) => Number(v.toFixed(dec));
+  const start = round(Math.floor(lo / step + 1e-9) * step);
+  const end = round(Math.ceil(hi / step - 1e-9) * step);
+  const ticks = [];
+  for (let i = 0; ; i += 1) {
+    const v = round(start + i * step);
+    if (v > end + step * 1e-6) break;
+    ticks.push(v);
+  }
+  return { min: start, max: end, step, decimals: dec, ticks };
+}
+
+/** A linear map from [d0, d1] to [r0, r1]. */
+export function linearScale(d0, d1, r0, r1) {
+  const k = d1 === d0 ? 0 : (r1 - r0) / (d1 - d0);
+  const f = (v) => r0 + (v - d0) * k;
+  f.invert = (p) => (k === 0 ? d0 : d0 + (p - r0) / k);
+  return f;
+}
+
+/** Hour steps tried for the time axis, smallest first. */
+export const HOUR_STEPS = [1, 2, 3, 6, 12, 24, 48];
+
+/**
+ * Time ticks between t0 and t1 (epoch ms) on whole hours of `zone`'s wall
+ * clock: the smallest step in HOUR_STEPS giving at most `maxTicks` ticks,
+ * placed where the local hour is a multiple of the step (days at local
+ * midnight). Returns { stepHours, ticks: [ms] }.
+ */
+export function timeTicks(t0, t1, zone, maxTicks = 8) {
+  const lo = Math.min(t0, t1);
+  const hi = Math.max(t0, t1);
+  for (const step of HOUR_STEPS) {
+    const ticks = hourTicks(lo, hi, zone, step, maxTicks + 1);
+    if (ticks.length <= maxTicks || step === HOUR_STEPS[HOUR_STEPS.length - 1]) {
+      return { stepHours: step, ticks };
+    }
+  }
+  return { stepHours: 1, ticks: [] };
+}
+
+function hourTicks(lo, hi, zone, step, limit) {
+  const ticks = [];
+  // Walk the local wall clock hour by hour; keep hours that are multiples
+  // of the step and map each back to an instant.
+  const localStart = Math.floor((lo + offsetMinutes(zone, lo) * 60_000) / HOUR) * HOUR;
+  const localEnd = hi + offsetMinutes(zone, hi) * 60_000;
+  for (let local = localStart; local <= localEnd + HOUR; local += HOUR) {
+    const hourIndex = Math.round(local / HOUR);
+    const hourOfDay = ((hourIndex % 24) + 24) % 24;
+    const keep = step <= 24 ? hourOfDay % step === 0 : hourOfDay === 0 && Math.round(hourIndex / 24) % (step / 24) === 0;
+    if (!keep) continue;
+    // Offset at the guessed instant, refined once (enough across DST).
+    let t = local - offsetMinutes(zone, local) * 60_000;
+    t = local - offsetMinutes(zone, t) * 60_000;
+    if (t < lo || t > hi) continue;
+    if (ticks.length && ticks[ticks.length - 1] === t) continue;
+    ticks.push(t);
+    if (ticks.length > limit) break;
+  }
+  return ticks;
+}
+
+/** Spreads label positions (sorted or not) so neighbours are >= gap apart. */
+export function spreadLabels(ys, gap, top, bottom) {
+  const order = ys.map((y, i) => [y, i]).sort((a, b) => a[0] - b[0]);
+  const out = new Array(ys.length);
+  let prev = -Infinity;
+  for (const [y, i] of order) {
+    const v = Math.max(y, prev + gap);
+    out[i] = v;
+    prev = v;
+  }
+  // If pushed past the bottom, shift the whole run back up.
+  const over = Math.max(0, prev - bottom);
+  if (over > 0) for (let i = 0; i < out.length; i += 1) out[i] = Math.max(top, out[i] - over);
+  return out;
+}
+
+const SVGNS = "http://www.w3.org/2000/svg";
+
+function el(doc, name, attrs, parent, text) {
+  const e = doc.createElementNS(SVGNS, name);
+  for (const [k, v] of Object.entries(attrs)) e.setAttribute(k, String(v));
+  if (text != null) e.textContent = text;
+  if (parent) parent.appendChild(e);
+  return e;
+}
+
+function pathOf(xs, ys, x, y) {
+  let d = "";
+  let pen = false;
+  for (let i = 0; i < xs.length; i += 1) {
+    const v = ys[i];
+    if (v == null || !Number.isFinite(v) || !Number.isFinite(xs[i])) {
+      pen = false;
+      continue;
+    }
+    d += `${pen ? "L" : "M"}${x(xs[i]).toFixed(1)},${y(v).toFixed(1)}`;
+    pen = true;
+  }
+  return d;
+}
+
+/**
+ * Draws one point's hydrograph as an SVG element.
+ * point: the API's point; ctx: { zone, units, now, width, titleId }.
+ */
+export function renderChart(doc, point, ctx) {
+  const width = Math.max(280, Math.round(ctx.width || 720));
+  const narrow = width < 520;
+  const height = narrow ? 260 : 320;
+  const m = { top: 14, right: narrow ? 8 : 16, bottom: 52, left: 58 };
+  const unit = ctx.units.stage;
+  const nowMs = toMs(ctx.now);
+
+  const times = (point.times || []).map(toMs);
+  const stage = point.stage || [];
+  const obs = (point.observed || []).map((o) => [toMs(o.time), o.stage]);
+  const levels = [];
+  for (const th of point.thresholds || []) levels.push({ kind: "threshold", label: th.name, value: th.elevation, severity: th.severity });
+  if (point.low_chord != null) levels.push({ kind: "structure", label: "low chord", value: point.low_chord });
+  if (point.deck != null) levels.push({ kind: "structure", label: "deck", value: point.deck });
+
+  const allT = times.concat(obs.map((o) => o[0])).filter(Number.isFinite);
+  if (Number.isFinite(nowMs)) allT.push(nowMs);
+  const t0 = Math.min(...allT);
+  const t1 = Math.max(...allT);
+  const vals = stage.concat(obs.map((o) => o[1]), levels.map((l) => l.value)).filter((v) => v != null && Number.isFinite(v));
+  const yt = niceTicks(Math.min(...vals), Math.max(...vals), narrow ? 4 : 6);
+
+  const x = linearScale(t0, t1, m.left, width - m.right);
+  const y = linearScale(yt.min, yt.max, height - m.bottom, m.top);
+
+  const svg = el(doc, "svg", {
+    class: "chart",
+    viewBox: `0 0 ${width} ${height}`,
+    width,
+    height,
+    role: "img",
+    "aria-labelledby": ctx.titleId,
+    "data-point": point.name,
+  });
+  el(doc, "title", { id: ctx.titleId }, svg, ctx.title || `Stage at ${point.name}`);
+
+  // Horizontal grid and stage labels.
+  const grid = el(doc, "g", { class: "grid" }, svg);
+  for (const v of yt.ticks) {
+    const py = y(v).toFixed(1);
+    el(doc, "line", { x1: m.left, x2: width - m.right, y1: py, y2: py, stroke: "#d9dde2", "stroke-width": 1 }, grid);
+    el(doc, "text", { x: m.left - 6, y: py, dy: "0.32em", "text-anchor": "end", class: "tick" }, grid, v.toFixed(yt.decimals));
+  }
+  el(doc, "text", { x: 12, y: (m.top + height - m.bottom) / 2, transform: `rotate(-90 12 ${(m.top + height - m.bottom) / 2})`, "text-anchor": "middle", class: "axis-title" }, svg, `Stage (${unit})`);
+
+  // Time axis: ticks on whole hours of the reach's clock.
+  const maxTicks = Math.max(2, Math.floor((width - m.left - m.right) / 64));
+  const tt = timeTicks(t0, t1, ctx.zone, maxTicks);
+  const axis = el(doc, "g", { class: "x-axis" }, svg);
+  let lastDay = "";
+  for (const t of tt.ticks) {
+    const px = x(t).toFixed(1);
+    el(doc, "line", { x1: px, x2: px, y1: m.top, y2: height - m.bottom, stroke: "#eceef1", "stroke-width": 1 }, axis);
+    el(doc, "line", { x1: px, x2: px, y1: height - m.bottom, y2: height - m.bottom + 5, stroke: "#4d5b6a" }, axis);
+    const label = el(doc, "text", { x: px, y: height - m.bottom + 17, "text-anchor": "middle", class: "tick" }, axis, formatClock(t, ctx.zone));
+    const day = formatDay(t, ctx.zone);
+    if (day !== lastDay) {
+      const w = wallClock(t, ctx.zone);
+      const tspan = el(doc, "tspan", { x: px, dy: "1.2em" }, label, tt.stepHours >= 24 || w.hour === 0 || !lastDay ? day : "");
+      tspan.setAttribute("class", "tick-day");
+      lastDay = day;
+    }
+  }
+  el(doc, "line", { x1: m.left, x2: width - m.right, y1: height - m.bottom, y2: height - m.bottom, stroke: "#4d5b6a" }, axis);
+  el(doc, "text", { x: width - m.right, y: height - 4, "text-anchor": "end", class: "axis-title" }, axis, `Time (${zoneLabel(ctx.zone, nowMs)})`);
+
+  // Threshold and structure lines, labelled at the right.
+  const lv = el(doc, "g", { class: "levels" }, svg);
+  const labelYs = spreadLabels(levels.map((l) => y(l.value) - 4), 12, m.top + 10, height - m.bottom - 2);
+  const labelBoxes = [];
+  levels.forEach((l, i) => {
+    const text = `${l.label} ${formatLevel(l.value, unit)}`;
+    const right = width - m.right - 4;
+    labelBoxes.push({ x0: right - textWidth(text), x1: right, y0: labelYs[i] - 11, y1: labelYs[i] + 3 });
+    const py = y(l.value).toFixed(1);
+    const colour = l.kind === "structure" ? "#4d5b6a" : "#8a5a00";
+    el(doc, "line", { x1: m.left, x2: width - m.right, y1: py, y2: py, stroke: colour, "stroke-width": l.kind === "structure" ? 2 : 1.25, class: `level level-${l.kind}` }, lv);
+    el(doc, "text", { x: width - m.right - 4, y: labelYs[i].toFixed(1), "text-anchor": "end", class: "level-label", "paint-order": "stroke", stroke: "#ffffff", "stroke-width": 3 }, lv, text);
+  });
+
+  // Series: model stage dashed, observed solid on top of it.
+  const fcPath = pathOf(times, stage, x, y);
+  if (fcPath) el(doc, "path", { d: fcPath, fill: "none", stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5", class: "series-forecast" }, svg);
+  const obsPath = pathOf(obs.map((o) => o[0]), obs.map((o) => o[1]), x, y);
+  if (obsPath) el(doc, "path", { d: obsPath, fill: "none", stroke: "#1d2733", "stroke-width": 2.5, class: "series-observed" }, svg);
+
+  // Now line.
+  if (Number.isFinite(nowMs)) {
+    const px = x(nowMs).toFixed(1);
+    el(doc, "line", { x1: px, x2: px, y1: m.top, y2: height - m.bottom, stroke: "#1f4f8a", "stroke-width": 2, class: "now-line" }, svg);
+    el(doc, "text", { x: Number(px) + 4, y: m.top + 10, class: "now-label" }, svg, "now");
+  }
+
+  // Crest marker.
+  const ct = toMs(point.crest_time);
+  if (Number.isFinite(ct) && point.crest_stage != null) {
+    const cx = x(ct);
+    const cy = y(point.crest_stage);
+    el(doc, "path", { d: `M${cx.toFixed(1)},${(cy - 7).toFixed(1)}l6,7l-6,7l-6,-7z`, fill: "#b03a12", stroke: "#ffffff", "stroke-width": 1.5, class: "crest" }, svg);
+    const text = `crest ${formatLevel(point.crest_stage, unit)}`;
+    const w = textWidth(text);
+    const right = cx > width - m.right - w - 12;
+    const x0 = right ? cx - 9 - w : cx + 9;
+    // Above the marker unless that hits a level label or line; then below
+    // it, or further out. With no free place the label is left out: the
+    // text above the chart states the crest.
+    const lines = levels.map((l) => ({ x0: m.left, x1: width - m.right, y0: y(l.value) - 2, y1: y(l.value) + 2 }));
+    const blocked = labelBoxes.concat(lines);
+    const candidates = [cy - 9, cy + 20, cy - 22, cy + 33, cy - 35, cy + 46];
+    const fits = (ly) => ly - 11 > m.top && ly < height - m.bottom && !blocked.some((b) => overlaps(b, { x0, x1: x0 + w, y0: ly - 11, y1: ly + 3 }));
+    const ly = candidates.find(fits);
+    if (ly !== undefined) el(doc, "text", { x: (right ? cx - 9 : cx + 9).toFixed(1), y: ly.toFixed(1), "text-anchor": right ? "end" : "start", class: "crest-label", "paint-order": "stroke", stroke: "#ffffff", "stroke-width": 3 }, svg, text);
+  }
+  return svg;
+}
+
+/** Rough width in px of a 12 px label, for placing labels apart. */
+export function textWidth(text) {
+  return text.length * 6.6;
+}
+
+function overlaps(a, b) {
+  return a.x0 < b.x1 && b.x0 < a.x1 && a.y0 < b.y1 && b.y0 < a.y1;
+}
+
+/** "+01:00", or "Europe/Dublin, +01:00" for a named zone. */
+export function zoneLabel(zone, at) {
+  const off = offsetLabel(offsetMinutes(zone, Number.isFinite(at) ? at : Date.now()));
+  if (!zone || /^[+-]\d{2}:?\d{2}$/.test(zone) || zone === "UTC" || zone === "Z") return off === "+00:00" && zone ? `UTC ${off}` : off;
+  return `${zone}, ${off}`;
+}

@@ -1,0 +1,1259 @@
+//! Browser tests of the dashboard: the real server (demo reach on, port 0,
+//! temporary data directory) driven through Debian's headless Chromium by
+//! chromedriver over the W3C WebDriver protocol, spoken with the `reqwest`
+//! client the other tests already use.
+//!
+//! Ignored by default because they need `chromium` and `chromium-driver`:
+//!
+//! ```sh
+//! apt-get install -y --no-install-recommends chromium chromium-driver
+//! cargo test --test dashboard -- --include-ignored
+//! ```
+//!
+//! Nothing here sleeps to synchronise: every wait polls the page (or the
+//! API) for a condition and fails with a message at a deadline. Screenshots
+//! land in `target/dashboard-artifacts/`.
+
+mod common;
+
+use std::{
+    path::{Path, PathBuf},
+    process::{Child, Command, Stdio},
+    time::{Duration, Instant},
+};
+
+use base64::Engine as _;
+use common::{TestApp, make_key, spawn_app_with, test_config};
+use serde_json::{Value, json};
+
+const INSTALL_HINT: &str = "install them with: apt-get install -y --no-install-recommends chromium chromium-driver \
+     (or point CHROMIUM and CHROMEDRIVER at the binaries)";
+
+/// One browser at a time: the machine has two cores.
+static BROWSER: tokio::sync::Mutex<()> = tokio::sync::Mutex::const_new(());
+
+const W3C_ELEMENT: &str = "element-6066-11e4-a52e-4f735466cecf";
+
+/// Records uncaught errors, rejected promises and console.error calls from
+/// the first script on, for `Browser::page_errors`.
+const ERROR_HOOK: &str = r#"
+window.__testErrors = [];
+window.addEventListener('error', e => window.__testErrors.push('error: ' + (e.message || e.type) + ' ' + (e.filename || (e.target && (e.target.src || e.target.href)) || '')), true);
+window.addEventListener('unhandledrejection', e => window.__testErrors.push('unhandled rejection: ' + (e.reason && (e.reason.stack || e.reason.message) || e.reason)));
+document.addEventListener('securitypolicyviolation', e => window.__testErrors.push('CSP violation: ' + e.violatedDirective + ' ' + e.blockedURI));
+(function () { const orig = console.error; console.error = function (...a) { window.__testErrors.push('console.error: ' + a.join(' ')); return orig.apply(this, a); }; })();
+"#;
+
+fn find_program(env: &str, names: &[&str]) -> PathBuf {
+    if let Some(p) = std::env::var_os(env) {
+        return PathBuf::from(p);
+    }
+    let path = std::env::var_os("PATH").unwrap_or_default();
+    for dir in std::env::split_paths(&path) {
+        for name in names {
+            let candidate = dir.join(name);
+            if candidate.is_file() {
+                return candidate;
+            }
+        }
+    }
+    panic!(
+        "{} not found on the PATH (looked for {}); {INSTALL_HINT}",
+        names[0],
+        names.join(", ")
+    );
+}
+
+/// A chromedriver process and one headless Chromium session.
+struct Browser {
+    driver: Child,
+    http: reqwest::Client,
+    base: String,
+    session: String,
+    _profile: tempfile::TempDir,
+}
+
+impl Browser {
+    async fn start() -> Browser {
+        let chromium = find_program(
+            "CHROMIUM",
+            &["chromium", "chromium-browser", "google-chrome"],
+        );
+        let chromedriver = find_program("CHROMEDRIVER", &["chromedriver"]);
+        let port = {
+            let l = std::net::TcpListener::bind("127.0.0.1:0").expect("free port");
+            l.local_addr().expect("port").port()
+        };
+        let driver = Command::new(&chromedriver)
+            .arg(format!("--port={port}"))
+            .stdout(Stdio::null())
+            .stderr(Stdio::null())
+            .spawn()
+            .unwrap_or_else(|e| panic!("start {}: {e}; {INSTALL_HINT}", chromedriver.display()));
+        let http = reqwest::Client::new();
+        let base = format!("http://127.0.0.1:{port}");
+        let profile = tempfile::tempdir().expect("browser profile dir");
+        let mut browser = Browser {
+            driver,
+            http,
+            base,
+            session: String::new(),
+            _profile: profile,
+        };
+        // Wait for chromedriver to answer /status.
+        let deadline = Instant::now() + Duration::from_secs(30);
+        loop {
+            let ready = match browser
+                .http
+                .get(format!("{}/status", browser.base))
+                .send()
+                .await
+            {
+                Ok(r) => r
+                    .json::<Value>()
+                    .await
+                    .map(|v| v["value"]["ready"] == true)
+                    .unwrap_or(false),
+                Err(_) => false,
+            };
+            if ready {
+                break;
+            }
+            assert!(
+                Instant::now() < deadline,
+                "chromedriver did not become ready in 30 s"
+            );
+            tokio::time::sleep(Duration::from_millis(50)).await; // poll interval
+        }
+        let args = vec![
+            "--headless".to_owned(),
+            "--disable-gpu".to_owned(),
+            "--no-sandbox".to_owned(),
+            "--disable-background-networking".to_owned(),
+            "--disable-component-update".to_owned(),
+            "--disable-sync".to_owned(),
+            "--no-first-run".to_owned(),
+            "--disable-quic".to_owned(),
+            "--disable-dev-shm-usage".to_owned(),
+            "--window-size=1280,1000".to_owned(),
+            format!("--user-data-dir={}", browser._profile.path().display()),
+        ];
+        let caps = json!({"capabilities": {"alwaysMatch": {
+            "browserName": "chrome",
+            "goog:chromeOptions": {"binary": chromium.to_string_lossy(), "args": args},
+            "goog:loggingPrefs": {"browser": "ALL"},
+        }}});
+        let v = browser.raw("POST", "/session", Some(caps)).await;
+        browser.session = v["sessionId"]
+            .as_str()
+            .unwrap_or_else(|| panic!("no session id in {v}"))
+            .to_owned();
+        browser
+            .cdp(
+                "Page.addScriptToEvaluateOnNewDocument",
+                json!({"source": ERROR_HOOK}),
+            )
+            .await;
+        browser
+    }
+
+    async fn raw(&self, method: &str, path: &str, body: Option<Value>) -> Value {
+        let url = format!("{}{}", self.base, path);
+        let req = match method {
+            "GET" => self.http.get(&url),
+            "DELETE" => self.http.delete(&url),
+            _ => self
+                .http
+                .post(&url)
+                .json(&body.unwrap_or_else(|| json!({}))),
+        };
+        let res = req
+            .send()
+            .await
+            .unwrap_or_else(|e| panic!("WebDriver {path}: {e}"));
+        let status = res.status();
+        let v: Value = res.json().await.expect("WebDriver answers JSON");
+        assert!(
+            status.is_success(),
+            "WebDriver {method} {path} failed ({status}): {}",
+            v["value"]
+        );
+        v["value"].clone()
+    }
+
+    async fn cmd(&self, method: &str, path: &str, body: Option<Value>) -> Value {
+        let p = format!("/session/{}{}", self.session, path);
+        self.raw(method, &p, body).await
+    }
+
+    async fn cdp(&self, cmd: &str, params: Value) -> Value {
+        self.cmd(
+            "POST",
+            "/goog/cdp/execute",
+            Some(json!({"cmd": cmd, "params": params})),
+        )
+        .await
+    }
+
+    async fn goto(&self, url: &str) {
+        self.cmd("POST", "/url", Some(json!({"url": url}))).await;
+    }
+
+    /// Runs `script` (a function body; `arguments` holds `args`) in the page.
+    async fn js(&self, script: &str, args: Value) -> Value {
+        self.cmd(
+            "POST",
+            "/execute/sync",
+            Some(json!({"script": script, "args": args})),
+        )
+        .await
+    }
+
+    async fn find(&self, css: &str) -> String {
+        let v = self
+            .cmd(
+                "POST",
+                "/element",
+                Some(json!({"using": "css selector", "value": css})),
+            )
+            .await;
+        v[W3C_ELEMENT]
+            .as_str()
+            .unwrap_or_else(|| panic!("no element id for {css}: {v}"))
+            .to_owned()
+    }
+
+    async fn click(&self, css: &str) {
+        let id = self.find(css).await;
+        self.cmd("POST", &format!("/element/{id}/click"), None)
+            .await;
+    }
+
+    async fn type_into(&self, css: &str, text: &str) {
+        let id = self.find(css).await;
+        self.cmd("POST", &format!("/element/{id}/clear"), None)
+            .await;
+        self.cmd(
+            "POST",
+            &format!("/element/{id}/value"),
+            Some(json!({"text": text})),
+        )
+        .await;
+    }
+
+    /// Sends key presses to whatever has focus (e.g. "\u{E004}" is Tab).
+    async fn keys(&self, text: &str) {
+        let actions: Vec<Value> = text
+            .chars()
+            .flat_map(|c| {
+                [
+                    json!({"type": "keyDown", "value": c.to_string()}),
+                    json!({"type": "keyUp", "value": c.to_string()}),
+                ]
+            })
+            .collect();
+        self.cmd(
+            "POST",
+            "/actions",
+            Some(json!({"actions": [{"type": "key", "id": "kbd", "actions": actions}]})),
+        )
+        .await;
+    }
+
+    async fn resize(&self, width: u32, height: u32) {
+        self.cmd(
+            "POST",
+            "/window/rect",
+            Some(json!({"width": width, "height": height})),
+        )
+        .await;
+    }
+
+    /// Polls `script` until it returns a truthy value; returns that value.
+    async fn wait_for(&self, what: &str, script: &str, secs: u64) -> Value {
+        let deadline = Instant::now() + Duration::from_secs(secs);
+        loop {
+            let v = self.js(script, json!([])).await;
+            let truthy = match &v {
+                Value::Null => false,
+                Value::Bool(b) => *b,
+                Value::String(s) => !s.is_empty(),
+                Value::Number(n) => n.as_f64() != Some(0.0),
+                _ => true,
+            };
+            if truthy {
+                return v;
+            }
+            if Instant::now() > deadline {
+                let body = self
+                    .js(
+                        "return document.body ? document.body.innerText.slice(0, 3000) : ''",
+                        json!([]),
+                    )
+                    .await;
+                panic!(
+                    "timed out after {secs} s waiting for {what}; page text:\n{}",
+                    body.as_str().unwrap_or("")
+                );
+            }
+            tokio::time::sleep(Duration::from_millis(100)).await; // poll interval
+        }
+    }
+
+    async fn screenshot(&self, name: &str, element: Option<&str>) -> PathBuf {
+        let v = match element {
+            Some(css) => {
+                // Element screenshots are clipped to the viewport: make the
+                // window tall enough and put the element just under the
+                // sticky caution banner so the banner does not cover it.
+                let need = self
+                    .js(
+                        "const e = document.querySelector(arguments[0]); return Math.ceil(e.getBoundingClientRect().height + document.getElementById('caution').offsetHeight + 40)",
+                        json!([css]),
+                    )
+                    .await
+                    .as_u64()
+                    .unwrap_or(800);
+                let width = self
+                    .js("return window.outerWidth", json!([]))
+                    .await
+                    .as_u64()
+                    .unwrap_or(1280);
+                let height = self
+                    .js("return window.outerHeight", json!([]))
+                    .await
+                    .as_u64()
+                    .unwrap_or(1000);
+                if need + 120 > height {
+                    self.resize(width as u32, (need + 160) as u32).await;
+                }
+                self.js(
+                    "const e = document.querySelector(arguments[0]); window.scrollTo(0, e.getBoundingClientRect().top + window.scrollY - document.getElementById('caution').offsetHeight - 8)",
+                    json!([css]),
+                )
+                .await;
+                let id = self.find(css).await;
+                self.cmd("GET", &format!("/element/{id}/screenshot"), None)
+                    .await
+            }
+            None => self.cmd("GET", "/screenshot", None).await,
+        };
+        let png = base64::engine::general_purpose::STANDARD
+            .decode(v.as_str().expect("base64 screenshot"))
+            .expect("valid base64");
+        assert!(png.starts_with(b"\x89PNG"), "a PNG screenshot");
+        let dir = artifacts_dir();
+        std::fs::create_dir_all(&dir).expect("artifacts dir");
+        let path = dir.join(name);
+        std::fs::write(&path, png).expect("write screenshot");
+        path
+    }
+
+    /// Errors the page recorded plus SEVERE browser-log entries, except
+    /// those matching one of `allowed` (expected, e.g. a 422 the test caused).
+    async fn page_errors(&self, allowed: &[&str]) -> Vec<String> {
+        let mut out: Vec<String> = Vec::new();
+        let hooked = self.js("return window.__testErrors || []", json!([])).await;
+        for e in hooked.as_array().into_iter().flatten() {
+            out.push(e.as_str().unwrap_or_default().to_owned());
+        }
+        let logs = self
+            .cmd("POST", "/se/log", Some(json!({"type": "browser"})))
+            .await;
+        for entry in logs.as_array().into_iter().flatten() {
+            if entry["level"] == "SEVERE" {
+                out.push(format!(
+                    "log: {}",
+                    entry["message"].as_str().unwrap_or_default()
+                ));
+            }
+        }
+        out.retain(|m| !allowed.iter().any(|a| m.contains(a)));
+        out
+    }
+}
+
+impl Drop for Browser {
+    fn drop(&mut self) {
+        // Closing the session ends Chromium; then end the driver we started.
+        if !self.session.is_empty() {
+            let url = format!("{}/session/{}", self.base, self.session);
+            let _ = std::thread::spawn(move || {
+                let rt = tokio::runtime::Builder::new_current_thread()
+                    .enable_all()
+                    .build();
+                if let Ok(rt) = rt {
+                    rt.block_on(async {
+                        let _ = reqwest::Client::new()
+                            .delete(url)
+                            .timeout(Duration::from_secs(10))
+                            .send()
+                            .await;
+                    });
+                }
+            })
+            .join();
+        }
+        let _ = self.driver.kill();
+        let _ = self.driver.wait();
+    }
+}
+
+fn artifacts_dir() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("target")
+        .join("dashboard-artifacts")
+}
+
+/// The demo app with the given tweaks, plus a forecaster key.
+async fn demo_app(
+    dir: &Path,
+    tweak: impl FnOnce(&mut reachcast::config::Config),
+) -> (TestApp, String) {
+    let key = make_key(dir, "forecaster", &[]).await;
+    let mut config = test_config(dir);
+    config.demo.enabled = true;
+    tweak(&mut config);
+    (spawn_app_with(config).await, key)
+}
+
+/// Replays a demo reading only hourly, so no new run changes the figures
+/// while a test compares the page with the API.
+fn quiet_replay(c: &mut reachcast::config::Config) {
+    c.demo.replay_secs = 3600;
+}
+
+/// Waits until the API serves a forecast for the demo reach, asking for a
+/// run if none has appeared yet. Returns the forecast.
+async fn wait_for_forecast(app: &TestApp, key: &str) -> Value {
+    let deadline = Instant::now() + Duration::from_secs(180);
+    let mut asked = false;
+    loop {
+        let res = app
+            .client
+            .get(app.url("/api/reaches/brindlemoor/forecast"))
+            .send()
+            .await
+            .expect("GET forecast");
+        if res.status() == 200 {
+            return res.json().await.expect("forecast JSON");
+        }
+        if !asked {
+            let run = app
+                .client
+                .post(app.url("/api/reaches/brindlemoor/runs?wait=true"))
+                .bearer_auth(key)
+                .send()
+                .await
+                .expect("POST run");
+            asked = run.status().is_success();
+        }
+        assert!(
+            Instant::now() < deadline,
+            "the demo reach has no forecast after 180 s (last status {})",
+            res.status()
+        );
+        tokio::time::sleep(Duration::from_millis(250)).await; // poll interval
+    }
+}
+
+/// The API's current forecast at `path`, once the page shows the same run.
+async fn settle_on_latest_run(app: &TestApp, b: &Browser, path: &str) -> Value {
+    let deadline = Instant::now() + Duration::from_secs(60);
+    loop {
+        let (status, f) = app.get_json(path).await;
+        assert_eq!(status, 200, "{f}");
+        let id = f["run"]["id"].as_i64().expect("run id");
+        let shown = b
+            .wait_for(
+                "the page to show a run",
+                "const r = document.getElementById('run-id'); return r ? Number(r.dataset.run) : null",
+                30,
+            )
+            .await;
+        if shown.as_i64() == Some(id) {
+            return f;
+        }
+        assert!(
+            Instant::now() < deadline,
+            "page shows run {shown}, API serves run {id}"
+        );
+        tokio::time::sleep(Duration::from_millis(200)).await; // poll interval
+    }
+}
+
+fn point_names(forecast: &Value) -> Vec<String> {
+    forecast["points"]
+        .as_array()
+        .expect("points")
+        .iter()
+        .map(|p| p["name"].as_str().expect("point name").to_owned())
+        .collect()
+}
+
+/// WCAG 2.1 contrast ratio (success criterion 1.4.3 and its definitions of
+/// relative luminance and contrast ratio) for every visible text element,
+/// against the first opaque background behind it. Returns failures.
+const CONTRAST_SCRIPT: &str = r#"
+const lin = c => { c /= 255; return c <= 0.03928 ? c / 12.92 : Math.pow((c + 0.055) / 1.055, 2.4); };
+const lum = ([r, g, b]) => 0.2126 * lin(r) + 0.7152 * lin(g) + 0.0722 * lin(b);
+const rgba = s => { const m = s.match(/[\d.]+/g).map(Number); return [m[0], m[1], m[2], m.length > 3 ? m[3] : 1]; };
+const bgOf = el => { for (let e = el; e; e = e.parentElement) { const c = rgba(getComputedStyle(e).backgroundColor); if (c[3] >= 0.99) return c; } return [255, 255, 255, 1]; };
+const bad = []; let checked = 0;
+for (const el of document.querySelectorAll('body *')) {
+  if (el.closest('svg') || el.closest('details:not([open]) > :not(summary)')) continue;
+  const own = [...el.childNodes].some(n => n.nodeType === 3 && n.textContent.trim());
+  if (!own) continue;
+  const r = el.getBoundingClientRect(); if (r.width === 0 || r.height === 0) continue;
+  const st = getComputedStyle(el); if (st.visibility === 'hidden') continue;
+  const fg = rgba(st.color); const bg = bgOf(el);
+  const mix = fg.slice(0, 3).map((c, i) => c * fg[3] * Number(st.opacity) + bg[i] * (1 - fg[3] * Number(st.opacity)));
+  const L1 = lum(mix), L2 = lum(bg); const ratio = (Math.max(L1, L2) + 0.05) / (Math.min(L1, L2) + 0.05);
+  checked++;
+  if (ratio < 4.5) bad.push(`${ratio.toFixed(2)}:1 "${el.textContent.trim().slice(0, 40)}" (${el.tagName.toLowerCase()}.${el.className})`);
+}
+return {checked, bad};
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (app, key) = demo_app(dir.path(), quiet_replay).await;
+    let first = wait_for_forecast(&app, &key).await;
+    let names = point_names(&first);
+    assert!(names.len() >= 3, "the demo reach has its points: {names:?}");
+
+    let b = Browser::start().await;
+    b.goto(&app.url("/?poll=2000")).await;
+    // Compare the page with the run it shows: wait until it shows the run
+    // the API serves now (a scheduled run may have landed since `first`).
+    let forecast = settle_on_latest_run(&app, &b, "/api/reaches/brindlemoor/forecast").await;
+    let rows = b
+        .wait_for(
+            "one overview row per point",
+            &format!(
+                "const r = [...document.querySelectorAll('#overview-body tr')].map(t => t.dataset.point); return r.length === {} ? r : null",
+                names.len()
+            ),
+            30,
+        )
+        .await;
+    // Rows in the API's downstream order, each with a status in words and an icon.
+    assert_eq!(
+        rows,
+        json!(names),
+        "rows ordered as the API orders points (downstream)"
+    );
+    let statuses = b
+        .js(
+            "return [...document.querySelectorAll('#overview-body tr')].map(t => { const s = t.querySelector('.status'); return {text: s.textContent.trim(), icon: s.querySelector('.icon').textContent, cls: s.className}; })",
+            json!([]),
+        )
+        .await;
+    for s in statuses.as_array().expect("statuses") {
+        let text = s["text"].as_str().unwrap_or_default();
+        assert!(
+            ["clear", "rising to", "over ", "no thresholds"]
+                .iter()
+                .any(|w| text.contains(w)),
+            "status in words: {s}"
+        );
+        assert!(
+            !s["icon"].as_str().unwrap_or_default().trim().is_empty(),
+            "status icon: {s}"
+        );
+    }
+    // The one-line summary counts the points over a threshold now.
+    let over_now = forecast["points"]
+        .as_array()
+        .expect("points")
+        .iter()
+        .filter(|p| {
+            p["thresholds"]
+                .as_array()
+                .is_some_and(|t| t.iter().any(|t| t["above_now"] == true))
+        })
+        .count();
+    let summary = b
+        .js(
+            "return document.getElementById('summary').textContent",
+            json!([]),
+        )
+        .await;
+    let summary = summary.as_str().unwrap_or_default();
+    if over_now > 0 {
+        assert!(
+            summary.contains(&format!("{over_now} of {} points", names.len())),
+            "summary counts {over_now} points over: {summary}"
+        );
+    } else {
+        assert!(!summary.contains("Over a threshold now"), "{summary}");
+    }
+    // The first point's crest as the API gives it appears in its row.
+    let crest = forecast["points"][0]["crest_stage"]
+        .as_f64()
+        .expect("crest");
+    let row0 = b
+        .js(
+            "return document.querySelector('#overview-body tr').innerText",
+            json!([]),
+        )
+        .await;
+    assert!(
+        row0.as_str()
+            .unwrap_or_default()
+            .contains(&format!("{crest:.2} m")),
+        "crest {crest:.2} m in {row0}"
+    );
+
+    // One chart per point, each with the observed and forecast series, a
+    // now line, a crest marker and one labelled line per threshold.
+    let charts = b
+        .js(
+            "return [...document.querySelectorAll('svg.chart')].map(s => ({point: s.dataset.point, observed: !!s.querySelector('.series-observed'), forecast: s.querySelector('.series-forecast')?.getAttribute('stroke-dasharray'), now: !!s.querySelector('.now-line'), crest: !!s.querySelector('.crest'), levels: s.querySelectorAll('.level-label').length, ticks: s.querySelectorAll('.x-axis text.tick').length, title: s.querySelector('title').textContent}))",
+            json!([]),
+        )
+        .await;
+    let charts = charts.as_array().expect("charts");
+    assert_eq!(charts.len(), names.len(), "one chart per point: {charts:?}");
+    for (c, p) in charts
+        .iter()
+        .zip(forecast["points"].as_array().expect("points"))
+    {
+        assert_eq!(c["point"], p["name"]);
+        assert!(c["forecast"].is_string(), "forecast drawn dashed: {c}");
+        assert_eq!(c["now"], true, "now line: {c}");
+        assert_eq!(c["crest"], true, "crest marker: {c}");
+        let structures = usize::from(!p["low_chord"].is_null()) + usize::from(!p["deck"].is_null());
+        let thresholds = p["thresholds"].as_array().map_or(0, Vec::len);
+        assert_eq!(
+            c["levels"].as_u64(),
+            Some((thresholds + structures) as u64),
+            "labelled level lines: {c}"
+        );
+        assert!(c["ticks"].as_u64().unwrap_or(0) >= 2, "time ticks: {c}");
+        if p["observed"].as_array().is_some_and(|o| !o.is_empty()) {
+            assert_eq!(c["observed"], true, "observed series: {c}");
+        }
+    }
+    // The data table behind each chart has one row per distinct time.
+    let table_rows = b
+        .js(
+            "return document.querySelectorAll('#chart-0 details.data tbody tr').length",
+            json!([]),
+        )
+        .await;
+    let n_times = forecast["points"][0]["times"]
+        .as_array()
+        .map_or(0, Vec::len) as u64;
+    assert!(
+        table_rows.as_u64().unwrap_or(0) >= n_times,
+        "data table rows {table_rows} >= {n_times}"
+    );
+
+    // Freshness: the run id and method are shown.
+    let run_id = forecast["run"]["id"].as_i64().expect("run id");
+    let shown = b
+        .js(
+            "return document.getElementById('run-id').dataset.run",
+            json!([]),
+        )
+        .await;
+    assert_eq!(shown.as_str(), Some(run_id.to_string().as_str()));
+    let method = b
+        .js(
+            "return document.getElementById('f-method').textContent",
+            json!([]),
+        )
+        .await;
+    assert!(
+        method
+            .as_str()
+            .unwrap_or_default()
+            .contains(forecast["run"]["method"].as_str().unwrap_or("?"))
+    );
+
+    // Times carry the reach's offset (e.g. "(+01:00)").
+    let zone = forecast["reach"]["time_zone"]
+        .as_str()
+        .unwrap_or_default()
+        .to_owned();
+    if zone.starts_with('+') || zone.starts_with('-') {
+        assert!(
+            row0.as_str()
+                .unwrap_or_default()
+                .contains(&format!("({zone})")),
+            "offset {zone} shown in {row0}"
+        );
+    }
+
+    // The caution banner stays in view after scrolling to the bottom.
+    let caution_top = b
+        .js(
+            "window.scrollTo(0, document.body.scrollHeight); const r = document.getElementById('caution').getBoundingClientRect(); return r.top >= 0 && r.bottom <= window.innerHeight && r.height > 0 ? document.getElementById('caution').textContent : null",
+            json!([]),
+        )
+        .await;
+    let caution_text = caution_top
+        .as_str()
+        .expect("caution banner visible after scrolling");
+    assert!(caution_text.contains("Advisory model output only"));
+    assert!(caution_text.contains("not an official warning"));
+    b.js("window.scrollTo(0, 0)", json!([])).await;
+
+    // WCAG 2.1 AA: text contrast at least 4.5:1.
+    let contrast = b.js(CONTRAST_SCRIPT, json!([])).await;
+    assert!(
+        contrast["checked"].as_u64().unwrap_or(0) > 30,
+        "contrast checked on the page: {contrast}"
+    );
+    assert_eq!(
+        contrast["bad"],
+        json!([]),
+        "text below 4.5:1 contrast (WCAG 2.1 SC 1.4.3)"
+    );
+
+    // Keyboard: Tab reaches real controls and focus is visibly outlined.
+    b.js(
+        "document.activeElement && document.activeElement.blur(); document.body.focus();",
+        json!([]),
+    )
+    .await;
+    let mut seen: Vec<String> = Vec::new();
+    for _ in 0..6 {
+        b.keys("\u{E004}").await;
+        let f = b
+            .js(
+                "const e = document.activeElement; const s = getComputedStyle(e); return {tag: e.tagName.toLowerCase(), id: e.id, text: (e.textContent || '').trim().slice(0, 30), outline: s.outlineStyle, width: s.outlineWidth}",
+                json!([]),
+            )
+            .await;
+        assert_ne!(f["tag"], "body", "Tab moves focus to a control: {f}");
+        assert_eq!(
+            f["outline"], "solid",
+            "focused control has a visible outline: {f}"
+        );
+        seen.push(format!(
+            "{}#{}",
+            f["tag"].as_str().unwrap_or(""),
+            f["id"].as_str().unwrap_or("")
+        ));
+    }
+    assert!(
+        seen.iter().any(|s| s.starts_with("input#units")),
+        "units reachable by keyboard: {seen:?}"
+    );
+
+    b.js(
+        "document.activeElement && document.activeElement.blur(); window.scrollTo(0, 0)",
+        json!([]),
+    )
+    .await;
+    b.screenshot("overview.png", None).await;
+    let bridge = names
+        .iter()
+        .position(|n| n == "Sallowgate Bridge")
+        .unwrap_or(0);
+    b.screenshot(
+        "chart-sallowgate-bridge.png",
+        Some(&format!("#chart-{bridge}")),
+    )
+    .await;
+    b.resize(1280, 1000).await;
+
+    // The units toggle asks for US units and the rows follow the API's figures.
+    let (status, us) = app
+        .get_json("/api/reaches/brindlemoor/forecast?units=us")
+        .await;
+    assert_eq!(status, 200);
+    let crest_ft = us["points"][0]["crest_stage"]
+        .as_f64()
+        .expect("crest in ft");
+    b.js("window.scrollTo(0, 0)", json!([])).await;
+    b.click("#units-us").await;
+    b.wait_for(
+        "the overview in feet",
+        &format!(
+            "const t = document.querySelector('#overview-body tr').innerText; return t.includes('{crest_ft:.2} ft') ? t : null"
+        ),
+        30,
+    )
+    .await;
+    let axis = b
+        .js("return [...document.querySelectorAll('svg.chart .axis-title')].map(t => t.textContent)", json!([]))
+        .await;
+    assert!(
+        axis.to_string().contains("Stage (ft)"),
+        "chart axis in feet: {axis}"
+    );
+    b.click("#units-si").await;
+    b.wait_for(
+        "the overview back in metres",
+        &format!(
+            "const t = document.querySelector('#overview-body tr').innerText; return t.includes('{crest:.2} m') ? t : null"
+        ),
+        30,
+    )
+    .await;
+
+    // 360 px wide: no sideways scrolling of the page; rows become cards.
+    b.resize(360, 780).await;
+    let fits = b
+        .wait_for(
+            "the page to fit 360 px",
+            "return document.documentElement.clientWidth <= 360 && document.querySelector('svg.chart').getAttribute('width') <= document.documentElement.clientWidth ? {scroll: document.documentElement.scrollWidth, client: document.documentElement.clientWidth} : null",
+            10,
+        )
+        .await;
+    assert!(
+        fits["scroll"].as_u64() <= fits["client"].as_u64(),
+        "no horizontal overflow at 360 px: {fits}"
+    );
+    b.js("window.scrollTo(0, 0)", json!([])).await;
+    b.screenshot("overview-360.png", None).await;
+    b.screenshot("chart-360.png", Some(&format!("#chart-{bridge}")))
+        .await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+
+    // The server goes away: the page says so, loudly, and keeps the last
+    // figures on screen.
+    app.stop().await;
+    let conn = b
+        .wait_for(
+            "the lost-server notice",
+            "const c = document.getElementById('conn'); return c.classList.contains('bad') && c.getAttribute('role') === 'alert' ? c.textContent : null",
+            30,
+        )
+        .await;
+    assert!(
+        conn.as_str()
+            .unwrap_or_default()
+            .contains("Could not reach the server"),
+        "{conn}"
+    );
+    let rows_left = b
+        .js(
+            "return document.querySelectorAll('#overview-body tr').length",
+            json!([]),
+        )
+        .await;
+    assert_eq!(
+        rows_left.as_u64(),
+        Some(names.len() as u64),
+        "last figures kept"
+    );
+    // Only the refused connections may be logged.
+    let errors = b.page_errors(&["net::ERR_CONNECTION_REFUSED"]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn stale_forecast_shows_the_warning() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    // The upstream gauge goes quiet (replay every hour) and counts as
+    // stale after one minute; the reach is forecast every minute.
+    let (app, key) = demo_app(dir.path(), |c| {
+        c.demo.replay_secs = 3600;
+        c.forecast.stale_after_minutes = 1;
+        c.forecast.interval_minutes = 1;
+    })
+    .await;
+    wait_for_forecast(&app, &key).await;
+    let b = Browser::start().await;
+    b.goto(&app.url("/?poll=2000")).await;
+    b.wait_for(
+        "the overview",
+        "return document.querySelectorAll('#overview-body tr').length",
+        30,
+    )
+    .await;
+    let reasons = b
+        .wait_for(
+            "the stale warning",
+            "const s = document.getElementById('stale'); return !s.hidden && s.getBoundingClientRect().height > 0 ? [...s.querySelectorAll('li')].map(l => l.textContent) : null",
+            240,
+        )
+        .await;
+    assert!(
+        reasons.as_array().is_some_and(|r| !r.is_empty()),
+        "the warning lists why: {reasons}"
+    );
+    // The page and the API agree.
+    let (status, f) = app.get_json("/api/reaches/brindlemoor/forecast").await;
+    assert_eq!(status, 200);
+    assert_eq!(f["freshness"]["stale"], true, "API says stale too");
+    // Same reasons, numbers aside: the ages in them move on between the
+    // page's poll and this request.
+    let shape = |v: &Value| -> Vec<String> {
+        let mut out: Vec<String> = v
+            .as_array()
+            .into_iter()
+            .flatten()
+            .map(|r| {
+                let text = r.as_str().unwrap_or_default();
+                let mut o = String::new();
+                for c in text.chars() {
+                    if c.is_ascii_digit() {
+                        if !o.ends_with('#') {
+                            o.push('#');
+                        }
+                    } else {
+                        o.push(c);
+                    }
+                }
+                o
+            })
+            .collect();
+        out.sort();
+        out
+    };
+    assert_eq!(
+        shape(&reasons),
+        shape(&f["freshness"]["reasons"]),
+        "the page lists the API's reasons"
+    );
+    b.screenshot("stale.png", None).await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    app.stop().await;
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (app, key) = demo_app(dir.path(), quiet_replay).await;
+    let before = wait_for_forecast(&app, &key).await;
+    let run_before = before["run"]["id"].as_i64().expect("run id");
+    let crest_before = before["points"][0]["crest_stage"].as_f64().expect("crest");
+    let now = chrono::DateTime::parse_from_rfc3339(before["now"].as_str().expect("now"))
+        .expect("RFC 3339 now")
+        .with_timezone(&chrono::Utc);
+
+    let b = Browser::start().await;
+    b.goto(&app.url("/?poll=2000")).await;
+    b.wait_for(
+        "the overview",
+        "return document.querySelectorAll('#overview-body tr').length",
+        30,
+    )
+    .await;
+    // A marker that a full page reload would wipe.
+    b.js("window.__noReload = 'still here'", json!([])).await;
+
+    b.click("#forecaster > summary").await;
+    b.type_into("#key-input", &key).await;
+    b.click("#key-save").await;
+    b.wait_for(
+        "the key to be kept for the tab",
+        "return sessionStorage.getItem('reachcast.key') ? true : null",
+        5,
+    )
+    .await;
+
+    // A CSV with two bad rows: every bad row is listed.
+    let t = |h: i64| {
+        (now + chrono::Duration::hours(h)).to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
+    };
+    let bad = format!("time,discharge\n{},40\nnot-a-time,50\n{},-5\n", t(0), t(2));
+    b.js(
+        "document.getElementById('up-csv').value = arguments[0]",
+        json!([bad]),
+    )
+    .await;
+    b.type_into("#up-reason", "test: malformed rows").await;
+    b.click("#up-send").await;
+    let errs = b
+        .wait_for(
+            "validation errors listed row by row",
+            "const box = document.getElementById('up-errors'); return box.hidden ? null : [...box.querySelectorAll('tbody tr')].map(r => [...r.cells].map(c => c.textContent))",
+            30,
+        )
+        .await;
+    let errs = errs.as_array().expect("error rows");
+    assert!(errs.len() >= 2, "both bad rows listed: {errs:?}");
+    b.screenshot("upload-errors.png", Some("#forecaster")).await;
+
+    // A much larger inflow from now on: the forecast crest must rise.
+    let mut csv = String::from("time,discharge\n");
+    for h in -1..=48 {
+        let q = if (2..=30).contains(&h) { 450.0 } else { 60.0 };
+        csv.push_str(&format!("{},{q}\n", t(h)));
+    }
+    b.js(
+        "document.getElementById('up-csv').value = arguments[0]",
+        json!([csv]),
+    )
+    .await;
+    b.type_into("#up-reason", "test: revised upstream storm")
+        .await;
+    b.click("#up-send").await;
+    let new_run = b
+        .wait_for(
+            "the next forecast run on the page",
+            &format!(
+                "const r = document.getElementById('run-id'); return r && Number(r.dataset.run) > {run_before} ? Number(r.dataset.run) : null"
+            ),
+            180,
+        )
+        .await;
+    let (_, after) = app.get_json("/api/reaches/brindlemoor/forecast").await;
+    assert_eq!(
+        after["run"]["id"].as_i64(),
+        new_run.as_i64(),
+        "page shows the API's latest run"
+    );
+    assert_eq!(after["run"]["inflow"]["source_beyond_now"], "upload");
+    let crest_after = after["points"][0]["crest_stage"]
+        .as_f64()
+        .expect("crest after");
+    assert!(
+        crest_after > crest_before + 0.05,
+        "the uploaded storm raises the crest: {crest_before} -> {crest_after}"
+    );
+    let row0 = b
+        .wait_for(
+            "the new crest in the first row",
+            &format!(
+                "const t = document.querySelector('#overview-body tr').innerText; return t.includes('{crest_after:.2} m') ? t : null"
+            ),
+            30,
+        )
+        .await;
+    assert!(row0.as_str().is_some());
+    let inputs = b
+        .js(
+            "return document.getElementById('f-inputs').textContent",
+            json!([]),
+        )
+        .await;
+    assert!(
+        inputs
+            .as_str()
+            .unwrap_or_default()
+            .contains("uploaded inflow"),
+        "{inputs}"
+    );
+
+    // The upload appears in the list, with a withdraw button.
+    let listed = b
+        .wait_for(
+            "the upload in the list",
+            "const r = [...document.querySelectorAll('#uploads-body tr[data-version]')]; return r.length ? r.map(x => x.innerText) : null",
+            30,
+        )
+        .await;
+    assert!(
+        listed.to_string().contains("revised upstream storm"),
+        "{listed}"
+    );
+
+    // A run started elsewhere reaches the open page by polling, with no reload.
+    let latest = after["run"]["id"].as_i64().expect("run id");
+    let run = app
+        .client
+        .post(app.url("/api/reaches/brindlemoor/runs?wait=true"))
+        .bearer_auth(&key)
+        .send()
+        .await
+        .expect("POST run");
+    assert_eq!(run.status(), 200);
+    b.wait_for(
+        "the page to pick up the newer run by polling",
+        &format!(
+            "const r = document.getElementById('run-id'); return Number(r.dataset.run) > {latest}"
+        ),
+        60,
+    )
+    .await;
+    let marker = b.js("return window.__noReload || null", json!([])).await;
+    assert_eq!(marker, "still here", "updated in place, not reloaded");
+    // Polls of an unchanged forecast are answered 304 (If-None-Match sent).
+    b.wait_for(
+        "a 304 answer to a forecast poll",
+        "return performance.getEntriesByType('resource').some(e => e.name.includes('/forecast') && e.responseStatus === 304)",
+        30,
+    )
+    .await;
+
+    b.screenshot("forecaster-panel.png", Some("#forecaster"))
+        .await;
+
+    // Withdraw the upload through the panel (with its confirm step).
+    let version = b
+        .js("return document.querySelector('#uploads-body tr[data-version]:first-child').dataset.version", json!([]))
+        .await;
+    let version: i64 = version
+        .as_str()
+        .and_then(|v| v.parse().ok())
+        .expect("upload version");
+    b.click(&format!(
+        "#uploads-body tr[data-version='{version}'] button.withdraw"
+    ))
+    .await;
+    b.click(&format!(
+        "#uploads-body tr[data-version='{version}'] button.danger"
+    ))
+    .await;
+    b.wait_for(
+        "the upload shown as withdrawn",
+        &format!("const r = document.querySelector(\"#uploads-body tr[data-version='{version}']\"); return r && r.innerText.includes('withdrawn')"),
+        30,
+    )
+    .await;
+    let (_, uploads) = app.get_json("/api/reaches/brindlemoor/inflows").await;
+    let withdrawn = uploads["uploads"]
+        .as_array()
+        .expect("uploads")
+        .iter()
+        .find(|u| u["version"].as_i64() == Some(version))
+        .map(|u| u["withdrawn"].clone());
+    assert_eq!(
+        withdrawn,
+        Some(json!(true)),
+        "API lists v{version} withdrawn: {uploads}"
+    );
+    // The 422 answer to the malformed upload is expected in the browser's
+    // log (Chromium logs every non-2xx fetch); nothing else is.
+    let errors = b
+        .page_errors(&["inflows?reason=test%3A%20malformed%20rows - Failed to load resource: the server responded with a status of 422"])
+        .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    app.stop().await;
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn empty_server_shows_the_caution_and_says_there_is_no_reach() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let app = spawn_app_with(test_config(dir.path())).await; // demo off
+    let b = Browser::start().await;
+    b.goto(&app.url("/")).await;
+    let notice = b
+        .wait_for(
+            "the no-reach notice",
+            "const p = document.getElementById('no-forecast'); return p.hidden ? null : p.textContent",
+            30,
+        )
+        .await;
+    assert!(
+        notice.as_str().unwrap_or_default().contains("No reach"),
+        "{notice}"
+    );
+    let caution = b
+        .js(
+            "const c = document.getElementById('caution'); const r = c.getBoundingClientRect(); return r.height > 0 && r.top >= 0 ? c.textContent : null",
+            json!([]),
+        )
+        .await;
+    assert!(
+        caution
+            .as_str()
+            .unwrap_or_default()
+            .contains("not an official warning")
+    );
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    app.stop().await;
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn reach_picker_switches_reach_with_its_own_units_and_time_zone() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let admin = make_key(dir.path(), "admin", &[]).await;
+    let (app, key) = demo_app(dir.path(), quiet_replay).await;
+    wait_for_forecast(&app, &key).await;
+
+    // A second invented reach: the demo geometry, shown in US units on a
+    // -05:00 clock.
+    let mut spec: Value = serde_json::from_str(include_str!("../src/demo/brindlemoor-reach.json"))
+        .expect("demo reach JSON");
+    spec["name"] = json!("Tansy Beck test copy (invented)");
+    spec["service"]["units"] = json!("us");
+    spec["service"]["time_zone"] = json!("-05:00");
+    let put = app
+        .client
+        .put(app.url("/api/reaches/tansy-test"))
+        .bearer_auth(&admin)
+        .json(&spec)
+        .send()
+        .await
+        .expect("PUT reach");
+    assert!(put.status().is_success(), "PUT reach: {}", put.status());
+    let run = app
+        .client
+        .post(app.url("/api/reaches/tansy-test/runs?wait=true"))
+        .bearer_auth(&key)
+        .send()
+        .await
+        .expect("POST run");
+    assert_eq!(run.status(), 200);
+    let b = Browser::start().await;
+    b.goto(&app.url("/?poll=2000")).await;
+    b.wait_for(
+        "the reach picker with both reaches",
+        "const p = document.getElementById('reach-pick'); return !p.hidden && document.querySelectorAll('#reach-select option').length === 2",
+        30,
+    )
+    .await;
+    b.click("#reach-select option[value='tansy-test']").await;
+    b.wait_for(
+        "the second reach's title",
+        "return document.getElementById('reach-title').textContent.startsWith('Tansy')",
+        30,
+    )
+    .await;
+    let us = settle_on_latest_run(&app, &b, "/api/reaches/tansy-test/forecast").await;
+    assert_eq!(
+        us["units"]["stage"], "ft",
+        "the reach's own units by default"
+    );
+    let crest_ft = us["points"][0]["crest_stage"]
+        .as_f64()
+        .expect("crest in ft");
+    let row0 = b
+        .wait_for(
+            "the second reach's overview in feet",
+            &format!(
+                "const t = document.querySelector('#overview-body tr')?.innerText || ''; return t.includes('{crest_ft:.2} ft') ? t : null"
+            ),
+            30,
+        )
+        .await;
+    assert!(
+        row0.as_str().unwrap_or_default().contains("(-05:00)"),
+        "times on the reach's -05:00 clock: {row0}"
+    );
+    assert!(
+        b.js(
+            "return document.getElementById('units-us').checked",
+            json!([])
+        )
+        .await
+            == json!(true)
+    );
+    let title = b
+        .js(
+            "return document.getElementById('reach-title').textContent",
+            json!([]),
+        )
+        .await;
+    assert_eq!(title, "Tansy Beck test copy (invented)");
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    app.stop().await;
+}

@@ -1,0 +1,56 @@
+// Unit tests for the overview's status wording (static/js/status.js).
+import { test } from "node:test";
+import assert from "node:assert/strict";
+
+import { clearance, pointStatus } from "../../static/js/status.js";
+
+const now = "2026-03-14T12:00:00Z";
+const th = (name, elevation, o = {}) => ({
+  name, elevation, severity: "minor", exceeded: false, above_now: false,
+  first_above: null, back_below: null, duration_above_s: 0, margin: 1, ...o,
+});
+
+test("no thresholds says so", () => {
+  assert.equal(pointStatus({ thresholds: [] }, now).state, "none");
+});
+
+test("a forecast below every threshold is clear", () => {
+  const s = pointStatus({ thresholds: [th("a", 10), th("b", 11)] }, now);
+  assert.equal(s.state, "clear");
+  assert.equal(s.icon, "✓");
+  assert.equal(s.next, null);
+});
+
+test("a crossing ahead names the highest threshold reached and the first crossing time", () => {
+  const s = pointStatus({
+    thresholds: [
+      th("road awash", 10, { exceeded: true, first_above: "2026-03-14T15:00:00Z", severity: "minor" }),
+      th("close the lane", 11, { exceeded: true, first_above: "2026-03-14T18:30:00Z", severity: "moderate" }),
+      th("never", 12),
+    ],
+  }, now);
+  assert.equal(s.state, "rising");
+  assert.equal(s.text, "rising to close the lane");
+  assert.equal(s.severity, "moderate");
+  assert.equal(s.next.name, "road awash");
+  assert.equal(s.next.inSeconds, 3 * 3600);
+});
+
+test("above a threshold now, and rising to a higher one", () => {
+  const s = pointStatus({
+    thresholds: [
+      th("toe wet", 10, { exceeded: true, above_now: true, first_above: "2026-03-14T09:00:00Z" }),
+      th("half height", 11, { exceeded: true, first_above: "2026-03-14T13:00:00Z", severity: "severe" }),
+    ],
+  }, now);
+  assert.equal(s.state, "over");
+  assert.equal(s.text, "over toe wet, rising to half height");
+  assert.equal(s.severity, "severe");
+  assert.equal(s.next.name, "half height");
+});
+
+test("clearance wording flags a crest above a low chord", () => {
+  assert.deepEqual(clearance(0.42, "m"), { flag: false, text: "0.42 m to spare" });
+  assert.deepEqual(clearance(-0.3, "ft"), { flag: true, text: "crest 0.30 ft above" });
+  assert.equal(clearance(null, "m"), null);
+});
