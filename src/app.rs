@@ -47,6 +47,7 @@ impl Application {
                 .await
                 .context("seeding the demo reach")?;
         }
+        load_reach_dir(&store, &config.forecast.reach_dir).await?;
         forecaster
             .start()
             .await
@@ -123,6 +124,49 @@ impl Application {
         tracing::info!("stopped");
         Ok(())
     }
+}
+
+/// Loads every `NAME.json` in `dir` as the reach `NAME`, storing a new
+/// version only when the description differs from the stored one, so a
+/// restart with unchanged files adds nothing. A bad file stops the start
+/// with an error naming the file and the field.
+pub async fn load_reach_dir(store: &Store, dir: &std::path::Path) -> anyhow::Result<usize> {
+    if dir.as_os_str().is_empty() {
+        return Ok(0);
+    }
+    let entries = std::fs::read_dir(dir)
+        .with_context(|| format!("forecast.reach_dir: cannot read {}", dir.display()))?;
+    let mut paths: Vec<std::path::PathBuf> = entries
+        .filter_map(Result::ok)
+        .map(|e| e.path())
+        .filter(|p| p.extension().is_some_and(|x| x == "json"))
+        .collect();
+    paths.sort();
+    let mut stored = 0;
+    for path in paths {
+        let id = path
+            .file_stem()
+            .and_then(|s| s.to_str())
+            .unwrap_or_default()
+            .to_owned();
+        anyhow::ensure!(
+            crate::readings::valid_slug(&id),
+            "{}: the file name must be a reach id (a-z, 0-9, -) followed by .json",
+            path.display()
+        );
+        let text = std::fs::read_to_string(&path)
+            .with_context(|| format!("reading {}", path.display()))?;
+        let spec = crate::forecast::spec::ReachSpec::from_json(&text)
+            .with_context(|| format!("in {}", path.display()))?;
+        crate::forecast::run::nodes_for(&spec).with_context(|| format!("in {}", path.display()))?;
+        let current = store.latest_reach(&id).await?;
+        if current.as_ref().is_none_or(|c| c.spec != spec) {
+            let version = store.put_reach(&id, &spec, None).await?;
+            tracing::info!(reach = %id, version, file = %path.display(), "reach loaded from file");
+            stored += 1;
+        }
+    }
+    Ok(stored)
 }
 
 /// Registers for SIGINT (Ctrl-C) and SIGTERM (what systemd sends on stop)

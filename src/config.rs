@@ -135,6 +135,10 @@ pub struct ForecastConfig {
     pub recession_hours: f64,
     /// Base flow the recession decays to.
     pub base_flow_m3s: f64,
+    /// Folder of reach descriptions loaded at start: every `NAME.json` in
+    /// it is the reach `NAME`, stored as a new version when it differs from
+    /// the stored one. Empty: none.
+    pub reach_dir: PathBuf,
 }
 
 impl Default for ForecastConfig {
@@ -150,6 +154,7 @@ impl Default for ForecastConfig {
             extrapolation: "persistence".to_owned(),
             recession_hours: 24.0,
             base_flow_m3s: 0.0,
+            reach_dir: PathBuf::new(),
         }
     }
 }
@@ -316,6 +321,7 @@ pub const KEYS: &[&str] = &[
     "forecast.extrapolation",
     "forecast.recession_hours",
     "forecast.base_flow_m3s",
+    "forecast.reach_dir",
     "alerts.sender",
     "alerts.cap_status",
     "alerts.base_url",

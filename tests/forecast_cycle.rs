@@ -623,3 +623,54 @@ async fn bad_reach_names_the_field() {
     assert_eq!(run["results"]["points"][0]["thresholds"][0]["name"], "low");
     s.app.stop().await;
 }
+
+/// Reaches can come from files at start: a new version only when a file
+/// changed, and a bad file stops the start naming the file and the field.
+#[tokio::test]
+async fn reaches_load_from_a_folder_at_start() {
+    let data = tempfile::tempdir().expect("data dir");
+    let reaches = tempfile::tempdir().expect("reach dir");
+    let file = reaches.path().join("from-file.json");
+    std::fs::write(&file, reach_doc().to_string()).expect("write reach");
+    let config = || {
+        let mut c = test_config(data.path());
+        c.forecast.reach_dir = reaches.path().to_owned();
+        c.forecast.debounce_ms = 600_000;
+        c
+    };
+    let version = |v: &Value| {
+        v["reaches"]
+            .as_array()
+            .and_then(|r| r.iter().find(|r| r["id"] == "from-file"))
+            .map(|r| r["version"].clone())
+    };
+    let app = spawn_app_with(config()).await;
+    let (_, list) = get_json(&app, "/api/reaches").await;
+    assert_eq!(version(&list), Some(json!(1)));
+    app.stop().await;
+    // Unchanged file: no new version on restart.
+    let app = spawn_app_with(config()).await;
+    let (_, list) = get_json(&app, "/api/reaches").await;
+    assert_eq!(version(&list), Some(json!(1)));
+    app.stop().await;
+    // Changed file: a new version.
+    let mut doc = reach_doc();
+    doc["points"][0]["thresholds"][0]["elevation"] = json!(16.2);
+    std::fs::write(&file, doc.to_string()).expect("write reach");
+    let app = spawn_app_with(config()).await;
+    let (_, list) = get_json(&app, "/api/reaches").await;
+    assert_eq!(version(&list), Some(json!(2)));
+    app.stop().await;
+    // A bad file stops the start.
+    doc["points"][0]["chainage"] = json!(99_999);
+    std::fs::write(&file, doc.to_string()).expect("write reach");
+    let err = reachcast::app::Application::build(config())
+        .await
+        .err()
+        .expect("start refused");
+    let msg = format!("{err:#}");
+    assert!(
+        msg.contains("from-file.json") && msg.contains("points[0].chainage"),
+        "{msg}"
+    );
+}
