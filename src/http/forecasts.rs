@@ -62,7 +62,8 @@ fn not_found(what: &str, detail: String, field: &str) -> ApiError {
         .into()
 }
 
-async fn find_reach(state: &AppState, id: &str) -> Result<ReachVersion, ApiError> {
+/// The newest version of a reach, or a 404 problem naming it.
+pub(super) async fn find_reach(state: &AppState, id: &str) -> Result<ReachVersion, ApiError> {
     state.store.latest_reach(id).await?.ok_or_else(|| {
         not_found(
             "Unknown reach",

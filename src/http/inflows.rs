@@ -221,14 +221,7 @@ async fn upload(
     uri: axum::http::Uri,
     body: Bytes,
 ) -> Result<Response, ApiError> {
-    if state.store.latest_reach(&reach).await?.is_none() {
-        return Err(
-            Problem::new(StatusCode::NOT_FOUND, "not-found", "Unknown reach")
-                .detail(format!("there is no reach `{reach}`"))
-                .field("reach")
-                .into(),
-        );
-    }
+    super::forecasts::find_reach(&state, &reach).await?;
     let media = headers
         .get(header::CONTENT_TYPE)
         .and_then(|v| v.to_str().ok())
@@ -296,6 +289,7 @@ async fn list(
     State(state): State<AppState>,
     Path(reach): Path<String>,
 ) -> Result<Response, ApiError> {
+    super::forecasts::find_reach(&state, &reach).await?;
     let uploads = state.store.uploads(&reach).await?;
     Ok(
         Json(serde_json::json!({"caution": CAUTION, "reach": reach, "uploads": uploads}))
