@@ -13,9 +13,7 @@ mod common;
 use std::collections::HashMap;
 
 use chrono::{DateTime, Duration, Utc};
-use quick_xml::events::Event;
-use quick_xml::name::ResolveResult;
-use quick_xml::reader::NsReader;
+use common::xml::{El, cap_time_value as time_of, is_cap_time, is_cap_token, parse};
 use reachcast::{CAUTION, auth::Role};
 use serde_json::{Value, json};
 
@@ -24,131 +22,6 @@ const ATOM_NS: &str = "http://www.w3.org/2005/Atom";
 const SENDER: &str = "reachcast@fernhollow.example";
 const BASE: &str = "http://cap.fernhollow.example";
 const REACH: &str = "fernhollow";
-
-// ---------------------------------------------------------------- parsing
-
-/// A parsed element: namespace, local name, attributes, text, children.
-#[derive(Debug, Default)]
-struct El {
-    ns: Option<String>,
-    name: String,
-    attrs: HashMap<String, String>,
-    text: String,
-    children: Vec<El>,
-}
-
-impl El {
-    fn all(&self, name: &str) -> Vec<&El> {
-        self.children.iter().filter(|c| c.name == name).collect()
-    }
-    fn one(&self, name: &str) -> &El {
-        let v = self.all(name);
-        assert_eq!(v.len(), 1, "<{}> must have exactly one <{name}>", self.name);
-        v[0]
-    }
-    fn text_of(&self, name: &str) -> &str {
-        &self.one(name).text
-    }
-    fn opt_text(&self, name: &str) -> Option<&str> {
-        let v = self.all(name);
-        assert!(v.len() <= 1, "<{}> has more than one <{name}>", self.name);
-        v.first().map(|e| e.text.as_str())
-    }
-}
-
-/// Parses a whole document with quick-xml, failing on any well-formedness
-/// error, and returns the root element.
-fn parse(xml: &str) -> El {
-    let mut reader = NsReader::from_str(xml);
-    let mut stack: Vec<El> = vec![El::default()];
-    loop {
-        let (ns, ev) = reader.read_resolved_event().expect("well-formed XML");
-        let ns = match ns {
-            ResolveResult::Bound(n) => Some(n.as_ref().to_owned()),
-            _ => None,
-        };
-        match ev {
-            Event::Start(e) => stack.push(element(ns, &e)),
-            Event::Empty(e) => {
-                let el = element(ns, &e);
-                stack.last_mut().expect("parent").children.push(el);
-            }
-            Event::End(_) => {
-                let el = stack.pop().expect("open element");
-                stack.last_mut().expect("parent").children.push(el);
-            }
-            Event::Text(t) => stack
-                .last_mut()
-                .expect("parent")
-                .text
-                .push_str(&t.xml10_content()),
-            Event::GeneralRef(r) => {
-                let s = if r.is_char_ref() {
-                    r.resolve_char_ref()
-                        .expect("char ref")
-                        .expect("char")
-                        .to_string()
-                } else {
-                    let name = r.xml10_content();
-                    quick_xml::escape::resolve_predefined_entity(&name)
-                        .expect("only predefined entities")
-                        .to_owned()
-                };
-                stack.last_mut().expect("parent").text.push_str(&s);
-            }
-            Event::Eof => break,
-            _ => {}
-        }
-    }
-    let mut doc = stack.pop().expect("document");
-    assert!(stack.is_empty(), "unclosed elements");
-    assert_eq!(doc.children.len(), 1, "exactly one root element");
-    doc.children.remove(0)
-}
-
-fn element(ns: Option<String>, e: &quick_xml::events::BytesStart<'_>) -> El {
-    let mut attrs = HashMap::new();
-    for a in e.attributes() {
-        let a = a.expect("attribute");
-        let key = a.key.as_ref().to_owned();
-        let value = a
-            .normalized_value(quick_xml::XmlVersion::Explicit1_0)
-            .expect("attribute value")
-            .into_owned();
-        attrs.insert(key, value);
-    }
-    El {
-        ns,
-        name: e.local_name().as_ref().to_owned(),
-        attrs,
-        ..El::default()
-    }
-}
-
-/// OASIS CAP 1.2 §3.3.2: `YYYY-MM-DDThh:mm:ssXzh:zm`, no `Z`, no fraction
-/// (this project never emits fractions).
-fn is_cap_time(s: &str) -> bool {
-    let b = s.as_bytes();
-    b.len() == 25
-        && (b[19] == b'+' || b[19] == b'-')
-        && b[10] == b'T'
-        && DateTime::parse_from_rfc3339(s).is_ok()
-}
-
-fn time_of(s: &str) -> DateTime<Utc> {
-    DateTime::parse_from_rfc3339(s)
-        .expect("RFC 3339 time")
-        .with_timezone(&Utc)
-}
-
-/// OASIS CAP 1.2 §3.2.1: identifier and sender "MUST NOT include spaces,
-/// commas or restricted characters (< and &)" (from memory).
-fn is_cap_token(s: &str) -> bool {
-    !s.is_empty()
-        && !s
-            .chars()
-            .any(|c| c.is_whitespace() || matches!(c, ',' | '<' | '&'))
-}
 
 // ------------------------------------------------------------ the reach
 

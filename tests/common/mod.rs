@@ -2,6 +2,8 @@
 //! 0 with a data directory of the test's choosing and quiet logs.
 #![allow(dead_code)]
 
+pub mod xml;
+
 use std::{net::SocketAddr, path::Path};
 
 use reachcast::{
