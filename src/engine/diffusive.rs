@@ -73,8 +73,10 @@
 //! The implicit scheme is stable at any step, so the step is chosen for
 //! Newton convergence: it is halved and the step retried when Newton fails or
 //! produces a non-finite state, and grown by 1.5 after easy convergences,
-//! within [`Options::dt_min`], [`Options::dt_max`]. Steps land exactly on the
-//! requested output times. Accuracy is set by `dt_max` (numerical diffusion of
+//! within [`Options::dt_min`], [`Options::dt_max`]. Steps land exactly on
+//! output times that are at least a step apart; outputs closer together than
+//! the step are interpolated linearly in time inside it (dense output), so
+//! minute-by-minute output does not force minute-long steps. Accuracy is set by `dt_max` (numerical diffusion of
 //! the θ-scheme is about (θ − ½) c² Δt, common practice) and the Newton
 //! tolerance.
 //!
