@@ -76,9 +76,9 @@
 //! within [`Options::dt_min`], [`Options::dt_max`]. Steps land exactly on
 //! output times that are at least a step apart; outputs closer together than
 //! the step are interpolated linearly in time inside it (dense output), so
-//! minute-by-minute output does not force minute-long steps. Accuracy is set by `dt_max` (numerical diffusion of
-//! the θ-scheme is about (θ − ½) c² Δt, common practice) and the Newton
-//! tolerance.
+//! minute-by-minute output does not force minute-long steps. Accuracy is
+//! set by `dt_max` (numerical diffusion of the θ-scheme is about
+//! (θ − ½) c² Δt, common practice) and the Newton tolerance.
 //!
 //! # Inputs outside their range
 //!
