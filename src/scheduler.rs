@@ -162,9 +162,9 @@ impl Forecaster {
         (items, version)
     }
 
-    /// A receiver that changes whenever the board does.
-    pub fn board_changes(&self) -> watch::Receiver<u64> {
-        self.inner.board_version.subscribe()
+    /// The board's current version (changes whenever a run lands).
+    pub fn board_version(&self) -> u64 {
+        *self.inner.board_version.borrow()
     }
 
     /// The forecast configuration in force.

@@ -294,11 +294,15 @@ struct ForecastDoc {
     points: Vec<PointView>,
 }
 
-async fn build_doc(state: &AppState, l: &Loaded, units: Units) -> Result<ForecastDoc, ApiError> {
-    let now = Utc::now();
-    let spec = &l.reach.spec;
-    let gauge = spec.service.upstream_gauge.clone();
-    let last_reading_at = match &gauge {
+/// The freshness verdict of a loaded run: cheap (one indexed query), so it
+/// is computed before the validator and a 304 costs no more than this.
+async fn freshness_of(
+    state: &AppState,
+    l: &Loaded,
+    now: DateTime<Utc>,
+) -> Result<view::Freshness, ApiError> {
+    let gauge = l.reach.spec.service.upstream_gauge.as_deref();
+    let last_reading_at = match gauge {
         Some(g) => state
             .store
             .last_usable_reading_ms(g)
@@ -313,7 +317,7 @@ async fn build_doc(state: &AppState, l: &Loaded, units: Units) -> Result<Forecas
         .as_deref()
         .and_then(parse_utc)
         .unwrap_or(now);
-    let fresh = view::freshness(&FreshnessInput {
+    Ok(view::freshness(&FreshnessInput {
         now,
         run_finished: finished,
         inflow_stale: l
@@ -326,7 +330,17 @@ async fn build_doc(state: &AppState, l: &Loaded, units: Units) -> Result<Forecas
         has_gauge: gauge.is_some(),
         stale_after_s: i64::try_from(cfg.stale_after_minutes * 60).unwrap_or(i64::MAX),
         run_overdue_s: i64::try_from(cfg.interval_minutes * 120 + 300).unwrap_or(i64::MAX),
-    });
+    }))
+}
+
+async fn build_doc(
+    state: &AppState,
+    l: &Loaded,
+    units: Units,
+    now: DateTime<Utc>,
+    fresh: view::Freshness,
+) -> Result<ForecastDoc, ApiError> {
+    let spec = &l.reach.spec;
     // Observations of point gauges over the run's window.
     let mut observed: std::collections::HashMap<String, Vec<ObservedStage>> = Default::default();
     for p in &spec.points {
@@ -405,22 +419,16 @@ async fn build_doc(state: &AppState, l: &Loaded, units: Units) -> Result<Forecas
 /// A weak validator: the representation changes with every request (ages,
 /// `now`) but means the same until the run, the stale verdict or the
 /// newest reading changes (RFC 9110 §8.8.1).
-fn forecast_etag(doc: &ForecastDoc, units: Units, csv: bool) -> String {
+fn forecast_etag(run_id: i64, fresh: &view::Freshness, units: Units, csv: bool) -> String {
     // The stale reasons quote ages in whole minutes, so they are part of
     // the validator: a page polling with If-None-Match sees them change.
-    let reasons = fnv(doc.freshness.reasons.join("|").as_bytes());
+    let reasons = fnv(fresh.reasons.join("|").as_bytes());
     format!(
-        "W/\"run{}-{}-{}-{}-{}-{reasons:x}\"",
-        doc.run
-            .get("id")
-            .and_then(serde_json::Value::as_i64)
-            .unwrap_or(0),
+        "W/\"run{run_id}-{}-{}-{}-{}-{reasons:x}\"",
         if units == Units::Us { "us" } else { "si" },
         if csv { "csv" } else { "json" },
-        u8::from(doc.freshness.stale),
-        doc.freshness
-            .last_reading_at
-            .map_or(0, |t| t.timestamp_millis())
+        u8::from(fresh.stale),
+        fresh.last_reading_at.map_or(0, |t| t.timestamp_millis())
     )
 }
 
@@ -507,11 +515,13 @@ async fn forecast(
     let l = load_latest(&state, &id).await?;
     let units = units_of(&params, Some(&l.reach.spec))?;
     let csv = wants_csv(&params, &headers)?;
-    let doc = build_doc(&state, &l, units).await?;
-    let etag = forecast_etag(&doc, units, csv);
+    let now = Utc::now();
+    let fresh = freshness_of(&state, &l, now).await?;
+    let etag = forecast_etag(l.run.id, &fresh, units, csv);
     if not_modified(&headers, &etag) {
         return Ok(with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag));
     }
+    let doc = build_doc(&state, &l, units, now, fresh).await?;
     let response = if csv {
         let pts: Vec<&PointView> = doc.points.iter().collect();
         csv_response(forecast_csv(&doc, &pts))
@@ -532,7 +542,9 @@ async fn point_forecast(
     let l = load_latest(&state, &id).await?;
     let units = units_of(&params, Some(&l.reach.spec))?;
     let csv = wants_csv(&params, &headers)?;
-    let doc = build_doc(&state, &l, units).await?;
+    let now = Utc::now();
+    let fresh = freshness_of(&state, &l, now).await?;
+    let doc = build_doc(&state, &l, units, now, fresh).await?;
     let Some(p) = doc.points.iter().find(|p| p.name == point) else {
         return Err(not_found(
             "Unknown point",
@@ -655,7 +667,7 @@ async fn exceedances(
 ) -> Result<Response, ApiError> {
     let params = parse_query(uri.query())?;
     let units = units_of(&params, None)?;
-    let version = *state.forecaster.board_changes().borrow();
+    let version = state.forecaster.board_version();
     let cached = state.exceedance_cache.entries.read().ok().and_then(|e| {
         e.iter()
             .find(|(v, u, _, _)| *v == version && *u == units)
