@@ -18,6 +18,7 @@ pub mod readings;
 pub mod scheduler;
 pub mod store;
 pub mod telemetry;
+pub mod wire_time;
 
 /// The caution every forecast output carries.
 pub const CAUTION: &str = "Advisory model output only. This is not an official warning. \
