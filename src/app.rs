@@ -10,7 +10,7 @@ use tokio::net::TcpListener;
 use crate::{
     config::Config,
     http::{self, AppState},
-    scheduler::Forecaster,
+    service::Forecaster,
     store::Store,
 };
 

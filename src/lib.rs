@@ -4,7 +4,6 @@
 //! way: `http` → `store` (and later `forecast`) → `engine`; the engine knows
 //! nothing above it. See DEVELOPERS.md for the architecture.
 
-pub mod alerts;
 pub mod app;
 pub mod auth;
 pub mod cli;
@@ -15,7 +14,7 @@ pub mod forecast;
 pub mod http;
 pub mod offline;
 pub mod readings;
-pub mod scheduler;
+pub mod service;
 pub mod store;
 pub mod telemetry;
 pub mod wire_time;

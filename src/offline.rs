@@ -7,7 +7,7 @@ use anyhow::Context;
 
 use crate::{
     cli::RouteArgs,
-    forecast::{inflow::parse_inflow_csv, report, run, spec::ReachSpec},
+    forecast::{inflow, report, run, spec::ReachSpec},
 };
 
 /// Runs `reachcast route`; returns the summary text.
@@ -16,10 +16,10 @@ pub fn route(args: &RouteArgs) -> anyhow::Result<String> {
         .with_context(|| format!("reading {}", args.reach.display()))?;
     let spec = ReachSpec::from_json(&reach_text)
         .with_context(|| format!("in {}", args.reach.display()))?;
-    let inflow_text = std::fs::read_to_string(&args.inflow)
+    let inflow_text = std::fs::read(&args.inflow)
         .with_context(|| format!("reading {}", args.inflow.display()))?;
     let inflow =
-        parse_inflow_csv(&inflow_text).with_context(|| format!("in {}", args.inflow.display()))?;
+        inflow::parse_csv(&inflow_text).with_context(|| format!("in {}", args.inflow.display()))?;
     let method = args
         .method
         .as_deref()
@@ -31,7 +31,7 @@ pub fn route(args: &RouteArgs) -> anyhow::Result<String> {
     let wall = started.elapsed().as_secs_f64();
     out.diagnostics.wall_time_s = Some(wall);
     if let Some(path) = &args.out {
-        std::fs::write(path, report::results_csv(&out))
+        std::fs::write(path, report::results_csv(&out)?)
             .with_context(|| format!("writing {}", path.display()))?;
     }
     Ok(report::summary(&out, wall))

@@ -3,8 +3,7 @@
 
 use std::{path::PathBuf, process::Command};
 
-use chrono::{DateTime, Utc};
-use reachcast::forecast::{inflow::parse_inflow_csv, run, spec::ReachSpec};
+use reachcast::forecast::{hydrograph::Hydrograph, inflow, run, spec::ReachSpec};
 
 fn demo(file: &str) -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
@@ -12,14 +11,13 @@ fn demo(file: &str) -> PathBuf {
         .join(file)
 }
 
-fn demo_inputs() -> (ReachSpec, Vec<(DateTime<Utc>, f64)>) {
+fn demo_inputs() -> (ReachSpec, Hydrograph) {
     let spec = ReachSpec::from_json(
         &std::fs::read_to_string(demo("brindlemoor-reach.json")).expect("reach"),
     )
     .expect("demo reach is valid");
-    let inflow =
-        parse_inflow_csv(&std::fs::read_to_string(demo("brindlemoor-inflow.csv")).expect("inflow"))
-            .expect("demo inflow is valid");
+    let inflow = inflow::parse_csv(&std::fs::read(demo("brindlemoor-inflow.csv")).expect("inflow"))
+        .expect("demo inflow is valid");
     (spec, inflow)
 }
 

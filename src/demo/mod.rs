@@ -16,9 +16,9 @@ use tokio::sync::watch;
 use crate::{
     auth::{NewKey, Role, generate_key, hash_secret},
     engine::{manning::normal_depth, rating::RatingCurve, section::PropertyTable},
-    forecast::{inflow::parse_inflow_csv, spec::ReachSpec},
+    forecast::{hydrograph::Hydrograph, inflow, spec::ReachSpec},
     readings::{Measures, NewReading, Quality},
-    scheduler::Forecaster,
+    service::Forecaster,
     store::{GaugeUpsert, Store, StoreError},
 };
 
@@ -53,10 +53,13 @@ pub fn reach() -> Result<ReachSpec, DemoError> {
 
 /// The storm as (hours from its start, discharge m³/s).
 fn storm() -> Result<Vec<(f64, f64)>, DemoError> {
-    let rows = parse_inflow_csv(STORM_CSV).map_err(|e| DemoError::Data(e.to_string()))?;
-    let t0 = rows[0].0;
+    let rows =
+        inflow::parse_csv(STORM_CSV.as_bytes()).map_err(|e| DemoError::Data(e.to_string()))?;
+    let t0 = rows.start();
     Ok(rows
-        .into_iter()
+        .samples()
+        .iter()
+        .copied()
         .map(|(t, q)| ((t - t0).num_seconds() as f64 / 3600.0, q))
         .collect())
 }
@@ -165,10 +168,13 @@ pub async fn seed(store: &Store) -> Result<(), DemoError> {
             )
             .await?;
         if store.newest_upload(REACH_ID).await?.is_none() {
-            let series: Vec<(DateTime<Utc>, f64)> = storm
-                .iter()
-                .map(|&(h, q)| (start + chrono::Duration::seconds((h * 3600.0) as i64), q))
-                .collect();
+            let series = Hydrograph::parse(
+                storm
+                    .iter()
+                    .map(|&(h, q)| (start + chrono::Duration::seconds((h * 3600.0) as i64), q))
+                    .collect(),
+            )
+            .map_err(|e| DemoError::Data(format!("demo storm: {}", e[0])))?;
             store
                 .insert_upload(
                     REACH_ID,

@@ -82,6 +82,7 @@
 use chrono::{DateTime, Duration, Utc};
 use serde::{Deserialize, Serialize};
 
+use super::hydrograph::Hydrograph;
 use crate::engine::rating::{RatingCurve, RatingError};
 
 /// Relative difference between the last observation and the upload where
@@ -138,9 +139,8 @@ pub struct Upload {
     pub issued_at: DateTime<Utc>,
     /// Who issued it.
     pub issued_by: String,
-    /// (time, discharge m³/s): at least one sample, times strictly
-    /// increasing, discharges finite and non-negative.
-    pub series: Vec<(DateTime<Utc>, f64)>,
+    /// The forecaster's hydrograph.
+    pub series: Hydrograph,
 }
 
 /// What happens beyond the last observation when no upload is used.
@@ -333,10 +333,8 @@ pub struct Provenance {
 /// The assembled inflow and how it was made.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Assembled {
-    /// (time, discharge m³/s): at least two samples, times strictly
-    /// increasing, discharges finite and non-negative, ending at
-    /// `now + horizon`.
-    pub series: Vec<(DateTime<Utc>, f64)>,
+    /// The forecast inflow, ending at `now + horizon`.
+    pub series: Hydrograph,
     /// Where it came from.
     pub provenance: Provenance,
 }
@@ -362,16 +360,6 @@ pub enum AssembleError {
         field: &'static str,
         /// The rating's own error (it names the rating field).
         source: RatingError,
-    },
-    /// The upload's series is invalid.
-    #[error("upload version {version}, `{field}`: {message}")]
-    InvalidUpload {
-        /// Upload version.
-        version: i64,
-        /// Field path, e.g. `series[3].discharge`.
-        field: String,
-        /// What is wrong.
-        message: String,
     },
     /// No observations and the upload does not overlap the window.
     #[error(
@@ -432,9 +420,6 @@ pub fn assemble(
                 source,
             })?;
     }
-    if let Some(u) = upload {
-        validate_upload(u)?;
-    }
 
     let mut prov = Provenance {
         observed_from: None,
@@ -475,41 +460,10 @@ pub fn assemble(
         }
     };
 
-    check_output(&series)?;
     Ok(Assembled {
-        series,
+        series: check_output(series)?,
         provenance: prov,
     })
-}
-
-fn validate_upload(u: &Upload) -> Result<(), AssembleError> {
-    let err = |field: String, message: String| AssembleError::InvalidUpload {
-        version: u.version,
-        field,
-        message,
-    };
-    if u.series.is_empty() {
-        return Err(err("series".to_owned(), "has no samples".to_owned()));
-    }
-    let mut prev: Option<DateTime<Utc>> = None;
-    for (i, &(t, q)) in u.series.iter().enumerate() {
-        if !(q.is_finite() && q >= 0.0) {
-            return Err(err(
-                format!("series[{i}].discharge"),
-                format!("must be finite and non-negative, got {q}"),
-            ));
-        }
-        if let Some(p) = prev
-            && t <= p
-        {
-            return Err(err(
-                format!("series[{i}].time"),
-                format!("times must increase strictly: {t} does not follow {p}"),
-            ));
-        }
-        prev = Some(t);
-    }
-    Ok(())
 }
 
 /// Discharge of one reading under the basis, or why there is none.
@@ -823,13 +777,15 @@ fn forecast_part(
     prov: &mut Provenance,
 ) {
     if let Some(u) = upload {
-        let after: Vec<Sample> = clip(&u.series, last.0, end)
+        let after: Vec<Sample> = clip(u.series.samples(), last.0, end)
             .into_iter()
             .filter(|p| p.0 > last.0)
             .collect();
-        if let (Some(&first_used), Some(&(u_first, _))) = (after.first(), u.series.first()) {
+        if let (Some(&first_used), Some(&(u_first, _))) =
+            (after.first(), u.series.samples().first())
+        {
             record_upload(prov, u);
-            let meets = value_at(&u.series, last.0).unwrap_or(first_used.1);
+            let meets = value_at(u.series.samples(), last.0).unwrap_or(first_used.1);
             if differs_a_lot(last.1, meets) {
                 prov.warnings.push(format!(
                     "upload version {} gives {meets:.3} m³/s where it meets the last observation ({:.3} m³/s at {}); both are kept as they are, not blended",
@@ -855,7 +811,7 @@ fn forecast_part(
             extend_upload_end(series, u, end, rules, prov);
             return;
         }
-        let why = match u.series.last() {
+        let why = match u.series.samples().last() {
             Some(&(u_last, _)) if u_last <= last.0 => format!(
                 "ends at {u_last}, not after the last observation at {}",
                 last.0
@@ -893,11 +849,11 @@ fn upload_alone(
     rules: &Rules,
     prov: &mut Provenance,
 ) -> Result<Vec<Sample>, AssembleError> {
-    let mut series = clip(&u.series, window_start, end);
+    let mut series = clip(u.series.samples(), window_start, end);
     let outside = || AssembleError::UploadOutsideWindow {
         version: u.version,
-        first: u.series.first().map_or(window_start, |s| s.0),
-        last: u.series.last().map_or(window_start, |s| s.0),
+        first: u.series.samples().first().map_or(window_start, |s| s.0),
+        last: u.series.samples().last().map_or(window_start, |s| s.0),
         window_start,
         end,
     };
@@ -920,31 +876,15 @@ fn upload_alone(
     Ok(series)
 }
 
-/// Enforces the contract of [`crate::forecast::run::run`].
-fn check_output(series: &[Sample]) -> Result<(), AssembleError> {
-    if series.len() < 2 {
-        return Err(AssembleError::InvalidOutput {
-            index: series.len(),
-            message: "fewer than two samples".to_owned(),
-        });
-    }
-    let mut prev: Option<DateTime<Utc>> = None;
-    for (index, &(t, q)) in series.iter().enumerate() {
-        if !(q.is_finite() && q >= 0.0) {
-            return Err(AssembleError::InvalidOutput {
-                index,
-                message: format!("discharge {q} is not finite and non-negative"),
-            });
+/// The assembly's own contract (a failure is a bug, not bad input).
+fn check_output(series: Vec<Sample>) -> Result<Hydrograph, AssembleError> {
+    Hydrograph::parse(series).map_err(|errors| {
+        let first = &errors[0];
+        AssembleError::InvalidOutput {
+            index: first.row.saturating_sub(1),
+            message: format!("{}: {}", first.field, first.message),
         }
-        if prev.is_some_and(|p| t <= p) {
-            return Err(AssembleError::InvalidOutput {
-                index,
-                message: format!("time {t} does not increase"),
-            });
-        }
-        prev = Some(t);
-    }
-    Ok(())
+    })
 }
 
 #[cfg(test)]
@@ -987,7 +927,8 @@ mod tests {
             version,
             issued_at: at(-30),
             issued_by: "forecaster.alder".to_owned(),
-            series: points.iter().map(|&(m, v)| (at(m), v)).collect(),
+            series: Hydrograph::parse(points.iter().map(|&(m, v)| (at(m), v)).collect())
+                .expect("test upload"),
         }
     }
 
@@ -1616,20 +1557,6 @@ mod tests {
                 ..base.clone()
             }),
             "extrapolation.base_flow"
-        );
-        let upload_field =
-            |u: Upload| match assemble(now(), &readings, &GaugeBasis::Discharge, Some(&u), &base) {
-                Err(AssembleError::InvalidUpload { field, .. }) => field,
-                other => panic!("{other:?}"),
-            };
-        assert_eq!(upload_field(upload(1, &[])), "series");
-        assert_eq!(
-            upload_field(upload(1, &[(0, 1.0), (0, 2.0)])),
-            "series[1].time"
-        );
-        assert_eq!(
-            upload_field(upload(1, &[(0, 1.0), (60, -2.0)])),
-            "series[1].discharge"
         );
     }
 

@@ -38,8 +38,8 @@ use std::fmt::Write as _;
 use chrono::{DateTime, Duration, SecondsFormat, Timelike, Utc};
 use serde::{Deserialize, Serialize};
 
-use super::exceed;
-use super::run::{PointForecast, ThresholdOutcome};
+use super::level::{LevelOutlook, Trace};
+use super::run::PointForecast;
 use super::spec::{PointKind, Severity};
 use crate::CAUTION;
 
@@ -302,45 +302,34 @@ impl Situation {
     pub fn from_forecast(
         ctx: &RunContext,
         point: &PointForecast,
-        threshold: &ThresholdOutcome,
+        threshold: &LevelOutlook,
         now: DateTime<Utc>,
     ) -> Result<Situation, CapError> {
-        let n = point.times.len().min(point.stage.len());
-        if n == 0 {
+        let trace = Trace::new(&point.times, &point.stage);
+        if trace.times.is_empty() {
             return Err(CapError::EmptyForecast(point.name.clone()));
         }
-        let secs: Vec<f64> = point.times[..n]
-            .iter()
-            .map(|t| (*t - now).num_milliseconds() as f64 / 1000.0)
-            .collect();
-        let (ts, zs) = exceed::from_now(&secs, &point.stage[..n]);
-        let covers_now = secs[0] <= 0.0;
-        let crest = exceed::crest(&ts, &zs).ok_or_else(|| CapError::NonFinite {
+        let crest = trace.crest_from(now).ok_or_else(|| CapError::NonFinite {
             key: point.name.clone(),
             field: "stage",
         })?;
-        let e = exceed::exceedance(&ts, &zs, threshold.elevation);
-        let at = |s: f64| -> Result<DateTime<Utc>, CapError> {
-            Duration::try_milliseconds((s * 1000.0).round() as i64)
-                .and_then(|d| now.checked_add_signed(d))
-                .ok_or(CapError::TimeOutOfRange)
-        };
+        let level = threshold.seen_from(&trace, now);
         Ok(Situation {
             reach_id: ctx.reach_id.clone(),
             reach_name: ctx.reach_name.clone(),
             point_name: point.name.clone(),
             point_kind: point.kind,
             chainage: point.chainage,
-            threshold_name: threshold.name.clone(),
-            elevation: threshold.elevation,
-            severity: threshold.severity,
-            exceeded: e.exceeded,
-            above_now: covers_now && e.above_at_start,
-            first_above: e.first_above.map(at).transpose()?,
-            back_below: e.back_below.map(at).transpose()?,
+            threshold_name: level.name,
+            elevation: level.elevation,
+            severity: level.severity,
+            exceeded: level.exceeded,
+            above_now: level.above_now,
+            first_above: level.first_above,
+            back_below: level.back_below,
             crest_stage: crest.stage,
-            crest_time: at(crest.time)?,
-            margin: e.margin,
+            crest_time: crest.time,
+            margin: level.margin,
             run_id: ctx.run_id,
             run_finished: ctx.run_finished,
             stale: ctx.stale,
@@ -1644,7 +1633,7 @@ mod tests {
         assert_eq!(categories(&p[0]), vec!["Met"]);
     }
 
-    fn point(times: Vec<DateTime<Utc>>, stage: Vec<f64>) -> (PointForecast, ThresholdOutcome) {
+    fn point(times: Vec<DateTime<Utc>>, stage: Vec<f64>) -> (PointForecast, LevelOutlook) {
         let point = PointForecast {
             name: "Sallowgate Bridge".into(),
             chainage: 4200.0,
@@ -1662,12 +1651,12 @@ mod tests {
             deck_margin: None,
             thresholds: vec![],
         };
-        let th = ThresholdOutcome {
+        let th = LevelOutlook {
             name: "Road closed".into(),
             elevation: 12.0,
             severity: Severity::Moderate,
             exceeded: true,
-            above_at_start: false,
+            above_now: false,
             first_above: None,
             back_below: None,
             duration_above_s: 0.0,

@@ -5,8 +5,13 @@
 
 pub mod assemble;
 pub mod cap;
+pub mod document;
 pub mod exceed;
+pub mod export;
+pub mod hydrograph;
 pub mod inflow;
+pub mod level;
+pub mod record;
 pub mod report;
 pub mod run;
 pub mod spec;

@@ -5,7 +5,11 @@ use std::fmt::Write as _;
 
 use chrono::{DateTime, Utc};
 
-use super::run::RunOutput;
+use super::{
+    export::{Rows, TableContext, table},
+    run::RunOutput,
+    spec::Units,
+};
 use crate::CAUTION;
 
 fn hours_minutes(seconds: f64) -> String {
@@ -72,7 +76,7 @@ pub fn summary(out: &RunOutput, wall_time_s: f64) -> String {
                 let first = t
                     .first_above
                     .map(|x| {
-                        if t.above_at_start {
+                        if t.above_now {
                             format!("already above at {}", time(x))
                         } else {
                             format!("first above {}", time(x))
@@ -148,53 +152,28 @@ pub fn summary(out: &RunOutput, wall_time_s: f64) -> String {
     s
 }
 
-/// Stage and discharge hydrographs at every point, one row per point and
-/// time, after `#` comment lines carrying the caution and provenance.
-pub fn results_csv(out: &RunOutput) -> String {
-    let mut s = String::new();
-    let _ = writeln!(s, "# {CAUTION}");
-    let _ = writeln!(
-        s,
-        "# reach: {}; method: {}; nodes: {}",
-        out.reach.replace(['\n', '\r'], " "),
-        out.method,
-        out.nodes
-    );
-    let _ = writeln!(s, "point,chainage_m,time,stage_m,discharge_m3s");
-    for p in &out.points {
-        let name = csv_field(&p.name);
-        for ((t, z), q) in p.times.iter().zip(&p.stage).zip(&p.discharge) {
-            let _ = writeln!(
-                s,
-                "{name},{},{},{z:.4},{q:.4}",
-                p.chainage,
-                t.to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
-            );
-        }
-    }
-    s
-}
-
-/// RFC 4180 §2: a field with a comma, quote or line break is quoted, quotes
-/// doubled.
-fn csv_field(text: &str) -> String {
-    if text.contains([',', '"', '\n', '\r']) {
-        format!("\"{}\"", text.replace('"', "\"\""))
-    } else {
-        text.to_owned()
-    }
+/// Stage and discharge hydrographs at every point, in the one CSV table
+/// of forecast values ([`super::export`]; SI units, no run id offline).
+pub fn results_csv(out: &RunOutput) -> Result<String, csv::Error> {
+    let ctx = TableContext {
+        reach: &out.reach,
+        run: None,
+        units: Units::Si,
+        caution: CAUTION.to_owned(),
+    };
+    let rows = out.points.iter().map(|p| Rows {
+        point: &p.name,
+        chainage: p.chainage,
+        times: &p.times,
+        stage: &p.stage,
+        discharge: &p.discharge,
+    });
+    table(&ctx, rows)
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn csv_quoting_follows_rfc4180() {
-        assert_eq!(csv_field("Mill Lane"), "Mill Lane");
-        assert_eq!(csv_field("Bridge, old"), "\"Bridge, old\"");
-        assert_eq!(csv_field("the \"new\" one"), "\"the \"\"new\"\" one\"");
-    }
 
     #[test]
     fn durations_read_naturally() {

@@ -17,8 +17,9 @@ use crate::engine::{
 };
 
 use super::{
-    exceed::{self, Exceedance},
-    spec::{DownstreamSpec, Method, PointKind, ReachSpec, Severity, SpecError, ThresholdSpec},
+    hydrograph::{Hydrograph, seconds},
+    level::{LevelOutlook, Trace},
+    spec::{DownstreamSpec, Method, PointKind, PointSpec, ReachSpec, SpecError, ThresholdSpec},
 };
 
 /// Why a run could not be made.
@@ -32,22 +33,6 @@ pub enum RunError {
     Routing(String),
 }
 
-/// A threshold and how the forecast stage relates to it.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct ThresholdOutcome {
-    pub name: String,
-    pub elevation: f64,
-    /// Configured or rank-derived CAP severity.
-    pub severity: Severity,
-    pub exceeded: bool,
-    pub above_at_start: bool,
-    pub first_above: Option<DateTime<Utc>>,
-    pub back_below: Option<DateTime<Utc>>,
-    pub duration_above_s: f64,
-    /// Crest stage minus the threshold (m); positive when exceeded.
-    pub margin: f64,
-}
-
 /// Forecast at one point of interest.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct PointForecast {
@@ -58,12 +43,14 @@ pub struct PointForecast {
     pub bed_elevation: f64,
     pub low_chord: Option<f64>,
     pub deck: Option<f64>,
+    #[serde(with = "crate::wire_time::vec")]
     pub times: Vec<DateTime<Utc>>,
     /// Water-surface elevation (m).
     pub stage: Vec<f64>,
     /// Discharge (m³/s).
     pub discharge: Vec<f64>,
     pub crest_stage: f64,
+    #[serde(with = "crate::wire_time")]
     pub crest_time: DateTime<Utc>,
     pub peak_discharge: f64,
     /// Low chord minus crest stage (m): negative means the water reaches the
@@ -71,8 +58,8 @@ pub struct PointForecast {
     pub low_chord_margin: Option<f64>,
     /// Deck minus crest stage (m): negative means overtopping.
     pub deck_margin: Option<f64>,
-    /// Ranked by elevation, lowest first.
-    pub thresholds: Vec<ThresholdOutcome>,
+    /// Ranked by elevation, lowest first; seen from the run's start.
+    pub thresholds: Vec<LevelOutlook>,
 }
 
 /// Result of one run.
@@ -80,7 +67,9 @@ pub struct PointForecast {
 pub struct RunOutput {
     pub reach: String,
     pub method: Method,
+    #[serde(with = "crate::wire_time")]
     pub start: DateTime<Utc>,
+    #[serde(with = "crate::wire_time")]
     pub end: DateTime<Utc>,
     pub nodes: usize,
     /// Ordered downstream.
@@ -97,21 +86,11 @@ pub fn nodes_for(spec: &ReachSpec) -> Result<Vec<Node>, RunError> {
         .map_err(|e| RunError::Spec(SpecError::new("sections", e.to_string())))
 }
 
-/// Seconds from `t0`, keeping sub-millisecond differences so that samples
-/// that are distinct in time stay distinct (and increasing) for the engine.
-fn seconds(t: DateTime<Utc>, t0: DateTime<Utc>) -> f64 {
-    let d = t - t0;
-    d.num_nanoseconds().map_or_else(
-        || d.num_milliseconds() as f64 / 1000.0,
-        |ns| ns as f64 / 1e9,
-    )
-}
-
-/// Routes `inflow` (time, discharge m³/s; times strictly increasing) through
-/// the reach with the method of `method` (or the reach's own).
+/// Routes `inflow` through the reach with the method of `method` (or the
+/// reach's own).
 pub fn run(
     spec: &ReachSpec,
-    inflow: &[(DateTime<Utc>, f64)],
+    inflow: &Hydrograph,
     method: Option<Method>,
 ) -> Result<RunOutput, RunError> {
     let nodes = nodes_for(spec)?;
@@ -122,38 +101,12 @@ pub fn run(
 pub fn run_on_nodes(
     spec: &ReachSpec,
     nodes: &[Node],
-    inflow: &[(DateTime<Utc>, f64)],
+    inflow: &Hydrograph,
     method: Option<Method>,
 ) -> Result<RunOutput, RunError> {
     let method = method.unwrap_or(spec.routing.method);
-    let (t0, t_end) = match (inflow.first(), inflow.last()) {
-        (Some(a), Some(b)) if inflow.len() >= 2 => (a.0, b.0),
-        _ => {
-            return Err(RunError::Inflow(
-                "at least two (time, discharge) samples are needed".to_owned(),
-            ));
-        }
-    };
-    for (i, (t, q)) in inflow.iter().enumerate() {
-        if !q.is_finite() || *q < 0.0 {
-            return Err(RunError::Inflow(format!(
-                "row {}: discharge must be finite and not negative, got {q}",
-                i + 1
-            )));
-        }
-        if i > 0 && *t <= inflow[i - 1].0 {
-            return Err(RunError::Inflow(format!(
-                "row {}: times must increase strictly ({t} follows {})",
-                i + 1,
-                inflow[i - 1].0
-            )));
-        }
-    }
-    let upstream = Series::new(
-        inflow.iter().map(|(t, _)| seconds(*t, t0)).collect(),
-        inflow.iter().map(|(_, q)| *q).collect(),
-    )
-    .map_err(|e| RunError::Inflow(e.to_string()))?;
+    let (t0, t_end) = (inflow.start(), inflow.end());
+    let upstream = inflow.to_series(t0);
 
     // Output every interval from the start, plus the end itself.
     let horizon = seconds(t_end, t0);
@@ -232,60 +185,21 @@ pub fn run_on_nodes(
         .iter()
         .map(|s| t0 + Duration::milliseconds((s * 1000.0).round() as i64))
         .collect();
-    let mut points = Vec::with_capacity(spec.points.len());
-    let mut order: Vec<usize> = (0..spec.points.len()).collect();
-    order.sort_by(|&a, &b| spec.points[a].chainage.total_cmp(&spec.points[b].chainage));
-    for idx in order {
-        let p = &spec.points[idx];
-        let (i, w) = bracket(&chainage, p.chainage);
-        let lerp = |row: &Vec<f64>| row[i] * (1.0 - w) + row[i + 1] * w;
-        let stage: Vec<f64> = result.stage.iter().map(lerp).collect();
-        let discharge: Vec<f64> = result.discharge.iter().map(lerp).collect();
-        let bed = nodes[i].bed_elevation() * (1.0 - w) + nodes[i + 1].bed_elevation() * w;
-        let secs = &result.output_times;
-        let crest = exceed::crest(secs, &stage)
-            .ok_or_else(|| RunError::Routing(format!("non-finite stage at point `{}`", p.name)))?;
-        let peak_discharge = discharge.iter().copied().fold(0.0, f64::max);
-        let at = |s: f64| t0 + Duration::milliseconds((s * 1000.0).round() as i64);
-        let mut ranked: Vec<&ThresholdSpec> = p.thresholds.iter().collect();
-        ranked.sort_by(|a, b| a.elevation.total_cmp(&b.elevation));
-        let count = ranked.len();
-        let thresholds: Vec<ThresholdOutcome> = ranked
-            .into_iter()
-            .enumerate()
-            .map(|(rank, t)| {
-                let e: Exceedance = exceed::exceedance(secs, &stage, t.elevation);
-                ThresholdOutcome {
-                    name: t.name.clone(),
-                    elevation: t.elevation,
-                    severity: t.severity_at_rank(rank, count),
-                    exceeded: e.exceeded,
-                    above_at_start: e.above_at_start,
-                    first_above: e.first_above.map(at),
-                    back_below: e.back_below.map(at),
-                    duration_above_s: e.duration_above,
-                    margin: e.margin,
-                }
-            })
-            .collect();
-        points.push(PointForecast {
-            name: p.name.clone(),
-            chainage: p.chainage,
-            kind: p.kind,
-            bed_elevation: bed,
-            low_chord: p.low_chord,
-            deck: p.deck,
-            times: times.clone(),
-            stage,
-            discharge,
-            crest_stage: crest.stage,
-            crest_time: at(crest.time),
-            peak_discharge,
-            low_chord_margin: p.low_chord.map(|lc| lc - crest.stage),
-            deck_margin: p.deck.map(|d| d - crest.stage),
-            thresholds,
-        });
-    }
+    let mut order: Vec<&PointSpec> = spec.points.iter().collect();
+    order.sort_by(|a, b| a.chainage.total_cmp(&b.chainage));
+    let points = order
+        .into_iter()
+        .map(|p| {
+            point_forecast(
+                p,
+                nodes,
+                &chainage,
+                &times,
+                &result.stage,
+                &result.discharge,
+            )
+        })
+        .collect::<Result<Vec<_>, _>>()?;
 
     Ok(RunOutput {
         reach: spec.name.clone(),
@@ -296,6 +210,57 @@ pub fn run_on_nodes(
         points,
         diagnostics: result.diagnostics,
         final_state: result.final_state,
+    })
+}
+
+/// The forecast at one point: node results interpolated to its chainage,
+/// the crest, and each threshold ranked by elevation and seen from the
+/// run's start.
+fn point_forecast(
+    p: &PointSpec,
+    nodes: &[Node],
+    chainage: &[f64],
+    times: &[DateTime<Utc>],
+    stage_rows: &[Vec<f64>],
+    discharge_rows: &[Vec<f64>],
+) -> Result<PointForecast, RunError> {
+    let (i, w) = bracket(chainage, p.chainage);
+    let lerp = |row: &Vec<f64>| row[i] * (1.0 - w) + row[i + 1] * w;
+    let stage: Vec<f64> = stage_rows.iter().map(lerp).collect();
+    let discharge: Vec<f64> = discharge_rows.iter().map(lerp).collect();
+    let bed = nodes[i].bed_elevation() * (1.0 - w) + nodes[i + 1].bed_elevation() * w;
+    let trace = Trace::new(times, &stage);
+    let t0 = times[0];
+    let crest = trace
+        .crest_from(t0)
+        .ok_or_else(|| RunError::Routing(format!("non-finite stage at point `{}`", p.name)))?;
+    let peak_discharge = discharge.iter().copied().fold(0.0, f64::max);
+    let mut ranked: Vec<&ThresholdSpec> = p.thresholds.iter().collect();
+    ranked.sort_by(|a, b| a.elevation.total_cmp(&b.elevation));
+    let count = ranked.len();
+    let thresholds = ranked
+        .into_iter()
+        .enumerate()
+        .map(|(rank, t)| {
+            trace.level_from(&t.name, t.elevation, t.severity_at_rank(rank, count), t0)
+        })
+        .collect();
+    Ok(PointForecast {
+        name: p.name.clone(),
+        chainage: p.chainage,
+        kind: p.kind,
+        bed_elevation: bed,
+        low_chord: p.low_chord,
+        deck: p.deck,
+        times: times.to_vec(),
+        stage,
+        discharge,
+        crest_stage: crest.stage,
+        crest_time: crest.time,
+        peak_discharge,
+        low_chord_margin: p.low_chord.map(|lc| lc - crest.stage),
+        deck_margin: p.deck.map(|d| d - crest.stage),
+        thresholds,
     })
 }
 

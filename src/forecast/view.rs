@@ -4,13 +4,13 @@
 //! units. Pure: the handler passes `now` and what it loaded.
 
 use chrono::{DateTime, Utc};
-use serde::{Deserialize, Serialize};
+use serde::Serialize;
 
 use super::{
-    cap::{RunContext, Situation},
-    exceed,
+    level::{LevelOutlook, Trace},
+    record::StoredResults,
     run::PointForecast,
-    spec::{Method, PointKind, ReachSpec, Severity, Units},
+    spec::{PointKind, ReachSpec, Units},
 };
 
 /// Feet per metre: the international foot is exactly 0.3048 m (NIST
@@ -18,17 +18,6 @@ use super::{
 pub const FT_PER_M: f64 = 1.0 / 0.3048;
 /// Cubic feet per cubic metre.
 pub const FT3_PER_M3: f64 = FT_PER_M * FT_PER_M * FT_PER_M;
-
-/// A run's results as stored.
-#[derive(Debug, Clone, Serialize, Deserialize)]
-pub struct StoredResults {
-    pub method: Method,
-    pub start: DateTime<Utc>,
-    pub end: DateTime<Utc>,
-    pub nodes: usize,
-    pub points: Vec<PointForecast>,
-    pub diagnostics: serde_json::Value,
-}
 
 #[derive(Debug, Clone, Serialize, PartialEq)]
 pub struct UnitNames {
@@ -55,22 +44,8 @@ impl UnitNames {
 }
 
 #[derive(Debug, Clone, Serialize, PartialEq)]
-pub struct ThresholdView {
-    pub name: String,
-    pub elevation: f64,
-    pub severity: Severity,
-    /// Above the threshold at some time from now on.
-    pub exceeded: bool,
-    pub above_now: bool,
-    pub first_above: Option<DateTime<Utc>>,
-    pub back_below: Option<DateTime<Utc>>,
-    pub duration_above_s: f64,
-    /// Crest ahead minus threshold.
-    pub margin: f64,
-}
-
-#[derive(Debug, Clone, Serialize, PartialEq)]
 pub struct ObservedStage {
+    #[serde(with = "crate::wire_time")]
     pub time: DateTime<Utc>,
     pub stage: f64,
 }
@@ -87,16 +62,18 @@ pub struct PointView {
     pub current_stage: f64,
     /// Highest forecast stage from now on, and when.
     pub crest_stage: f64,
+    #[serde(with = "crate::wire_time")]
     pub crest_time: DateTime<Utc>,
     pub peak_discharge: f64,
     pub low_chord_margin: Option<f64>,
     pub deck_margin: Option<f64>,
+    #[serde(with = "crate::wire_time::vec")]
     pub times: Vec<DateTime<Utc>>,
     pub stage: Vec<f64>,
     pub discharge: Vec<f64>,
     pub observed: Vec<ObservedStage>,
-    /// Ranked by elevation, lowest first.
-    pub thresholds: Vec<ThresholdView>,
+    /// Ranked by elevation, lowest first; seen from now on.
+    pub thresholds: Vec<LevelOutlook>,
     /// Name of the highest threshold exceeded from now on.
     pub highest_exceeded: Option<String>,
 }
@@ -105,6 +82,7 @@ pub struct PointView {
 pub struct Freshness {
     pub stale: bool,
     pub reasons: Vec<String>,
+    #[serde(with = "crate::wire_time::option")]
     pub last_reading_at: Option<DateTime<Utc>>,
     pub last_reading_age_s: Option<i64>,
     pub run_age_s: i64,
@@ -160,103 +138,63 @@ pub fn freshness(f: &FreshnessInput) -> Freshness {
     }
 }
 
-/// Builds the view of every point of a stored run.
+/// The view of one point of a stored run from `now` on. A point whose
+/// trace has no finite crest ahead keeps the run's own crest.
+pub fn point(p: &PointForecast, observed: Vec<ObservedStage>, now: DateTime<Utc>) -> PointView {
+    let trace = Trace::new(&p.times, &p.stage);
+    let (crest_stage, crest_time) = trace
+        .crest_from(now)
+        .map_or((p.crest_stage, p.crest_time), |c| (c.stage, c.time));
+    let thresholds: Vec<LevelOutlook> = p
+        .thresholds
+        .iter()
+        .map(|t| t.seen_from(&trace, now))
+        .collect();
+    let highest_exceeded = thresholds
+        .iter()
+        .rev()
+        .find(|t| t.exceeded)
+        .map(|t| t.name.clone());
+    PointView {
+        name: p.name.clone(),
+        chainage: p.chainage,
+        kind: p.kind,
+        bed_elevation: p.bed_elevation,
+        low_chord: p.low_chord,
+        deck: p.deck,
+        current_stage: trace.stage_at(now),
+        crest_stage,
+        crest_time,
+        peak_discharge: p.peak_discharge,
+        low_chord_margin: p.low_chord.map(|lc| lc - crest_stage),
+        deck_margin: p.deck.map(|d| d - crest_stage),
+        times: p.times.clone(),
+        stage: p.stage.clone(),
+        discharge: p.discharge.clone(),
+        observed,
+        thresholds,
+        highest_exceeded,
+    }
+}
+
+/// The view of every point of a stored run; `observed` gives the readings
+/// of a point's gauge.
 pub fn points(
     spec: &ReachSpec,
-    reach_id: &str,
-    run_id: i64,
     results: &StoredResults,
     observed: &dyn Fn(&str) -> Vec<ObservedStage>,
     now: DateTime<Utc>,
-    stale: bool,
 ) -> Vec<PointView> {
-    let ctx = RunContext {
-        reach_id: reach_id.to_owned(),
-        reach_name: spec.name.clone(),
-        run_id,
-        run_finished: now,
-        stale,
-    };
     results
         .points
         .iter()
         .map(|p| {
-            let secs: Vec<f64> = p
-                .times
-                .iter()
-                .map(|t| (*t - now).num_milliseconds() as f64 / 1000.0)
-                .collect();
-            let (ts, zs) = exceed::from_now(&secs, &p.stage);
-            let current = zs.first().copied().unwrap_or(f64::NAN);
-            let crest = exceed::crest(&ts, &zs);
-            let (crest_stage, crest_time) = match crest {
-                Some(c) => (
-                    c.stage,
-                    now + chrono::Duration::milliseconds((c.time * 1000.0).round() as i64),
-                ),
-                None => (p.crest_stage, p.crest_time),
-            };
-            let thresholds: Vec<ThresholdView> = p
-                .thresholds
-                .iter()
-                .map(|t| match Situation::from_forecast(&ctx, p, t, now) {
-                    Ok(s) => {
-                        let e = exceed::exceedance(&ts, &zs, t.elevation);
-                        ThresholdView {
-                            name: t.name.clone(),
-                            elevation: t.elevation,
-                            severity: t.severity,
-                            exceeded: s.exceeded,
-                            above_now: s.above_now,
-                            first_above: s.first_above,
-                            back_below: s.back_below,
-                            duration_above_s: e.duration_above,
-                            margin: s.margin,
-                        }
-                    }
-                    Err(_) => ThresholdView {
-                        name: t.name.clone(),
-                        elevation: t.elevation,
-                        severity: t.severity,
-                        exceeded: t.exceeded,
-                        above_now: false,
-                        first_above: t.first_above,
-                        back_below: t.back_below,
-                        duration_above_s: t.duration_above_s,
-                        margin: t.margin,
-                    },
-                })
-                .collect();
-            let highest_exceeded = thresholds
-                .iter()
-                .rev()
-                .find(|t| t.exceeded)
-                .map(|t| t.name.clone());
             let gauge = spec
                 .points
                 .iter()
                 .find(|s| s.name == p.name)
-                .and_then(|s| s.gauge.clone());
-            PointView {
-                name: p.name.clone(),
-                chainage: p.chainage,
-                kind: p.kind,
-                bed_elevation: p.bed_elevation,
-                low_chord: p.low_chord,
-                deck: p.deck,
-                current_stage: current,
-                crest_stage,
-                crest_time,
-                peak_discharge: p.peak_discharge,
-                low_chord_margin: p.low_chord.map(|lc| lc - crest_stage),
-                deck_margin: p.deck.map(|d| d - crest_stage),
-                times: p.times.clone(),
-                stage: p.stage.clone(),
-                discharge: p.discharge.clone(),
-                observed: gauge.map(|g| observed(&g)).unwrap_or_default(),
-                thresholds,
-                highest_exceeded,
-            }
+                .and_then(|s| s.gauge.as_deref());
+            point(p, gauge.map(observed).unwrap_or_default(), now)
         })
         .collect()
 }

@@ -1,4 +1,4 @@
-//! CAP 1.2 messages and their Atom index (see `crate::alerts`):
+//! CAP 1.2 messages and their Atom index (see `crate::service::alerts`):
 //!
 //! - `GET /api/cap/feed.atom`: the current messages of every reach
 //!   (`application/atom+xml`, `ETag`, `If-None-Match` → 304)
@@ -22,12 +22,12 @@ use chrono::Utc;
 use super::{
     AppState,
     auth::ReadAccess,
+    conditional::{fnv, not_modified, with_etag},
     error::{ApiError, Problem},
-    forecasts::{fnv, not_modified, with_etag},
 };
 use crate::{
-    alerts,
     forecast::cap::{ATOM_MEDIA_TYPE, CAP_MEDIA_TYPE},
+    service::alerts,
 };
 
 pub fn router() -> Router<AppState> {

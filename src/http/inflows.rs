@@ -14,12 +14,11 @@
 use axum::{
     Json, Router,
     body::Bytes,
-    extract::{Path, State},
+    extract::{Path, Query, State},
     http::{HeaderMap, StatusCode, header},
     response::{IntoResponse, Response},
     routing::{get, post},
 };
-use chrono::{DateTime, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::{
@@ -27,7 +26,14 @@ use super::{
     auth::{Forecasting, ReadAccess, RequireRole},
     error::{ApiError, Problem, parse_json},
 };
-use crate::CAUTION;
+use crate::{
+    CAUTION,
+    forecast::{
+        hydrograph::{Hydrograph, RowError},
+        inflow::{self, InflowError},
+    },
+    store::InflowUpload,
+};
 
 pub fn router() -> Router<AppState> {
     Router::new()
@@ -48,169 +54,60 @@ struct UploadBody {
     series: Vec<serde_json::Value>,
 }
 
-/// One parsed row: its 1-based number and the sample or why it is bad.
-type Row = (usize, Result<(DateTime<Utc>, f64), RowError>);
-
-#[derive(Debug, Serialize)]
-struct RowError {
-    row: usize,
-    field: String,
-    message: String,
+/// Query parameters of an upload: a CSV body carries its reason here.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct UploadParams {
+    reason: Option<String>,
 }
 
-fn check_rows(rows: Vec<Row>) -> Result<Vec<(DateTime<Utc>, f64)>, Vec<RowError>> {
-    let mut errors = Vec::new();
-    let mut out: Vec<(DateTime<Utc>, f64)> = Vec::new();
-    for (row, r) in rows {
-        match r {
-            Ok((t, q)) => {
-                if let Some((prev, _)) = out.last()
-                    && t <= *prev
-                {
-                    errors.push(RowError {
-                        row,
-                        field: "time".into(),
-                        message: format!("times must increase: {t} does not follow {prev}"),
-                    });
-                    continue;
-                }
-                out.push((t, q));
+/// The one problem for an upload refused row by row: every bad row listed
+/// (`row`, `field`, `message`), nothing stored.
+fn rows_refused(errors: &[RowError]) -> Problem {
+    let first = &errors[0];
+    let mut p = Problem::invalid(first.field.clone(), first.message.clone()).detail(format!(
+        "{} row(s) rejected; nothing was stored. First: row {}, {}: {}",
+        errors.len(),
+        first.row,
+        first.field,
+        first.message
+    ));
+    if first.row > 0 {
+        p = p.row(first.row);
+    }
+    p.with("errors", errors)
+}
+
+/// The reason and hydrograph of an upload body.
+fn parse_body(
+    media: &str,
+    body: &[u8],
+    query_reason: Option<String>,
+) -> Result<(String, Hydrograph), Problem> {
+    match media {
+        "application/json" => {
+            let b: UploadBody = parse_json(body)?;
+            if b.series.len() > MAX_POINTS {
+                return Err(Problem::invalid(
+                    "series",
+                    format!("at most {MAX_POINTS} samples"),
+                ));
             }
-            Err(e) => errors.push(e),
+            let h = inflow::parse_json_samples(&b.series).map_err(|e| rows_refused(&e))?;
+            Ok((b.reason, h))
         }
+        "text/csv" => match inflow::parse_csv(body) {
+            Ok(h) => Ok((query_reason.unwrap_or_default(), h)),
+            Err(InflowError::Malformed(m)) => Err(Problem::malformed("csv", m)),
+            Err(InflowError::Rows(e)) => Err(rows_refused(&e)),
+        },
+        other => Err(Problem::new(
+            StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            "unsupported-media-type",
+            "Unsupported media type",
+        )
+        .detail(format!("`{other}`: send application/json or text/csv"))),
     }
-    if out.len() < 2 && errors.is_empty() {
-        errors.push(RowError {
-            row: 0,
-            field: "series".into(),
-            message: "at least two samples are needed".into(),
-        });
-    }
-    if errors.is_empty() {
-        Ok(out)
-    } else {
-        Err(errors)
-    }
-}
-
-fn parse_sample(
-    row: usize,
-    time: &str,
-    q: Result<f64, String>,
-) -> Result<(DateTime<Utc>, f64), RowError> {
-    let t = DateTime::parse_from_rfc3339(time.trim()).map_err(|e| RowError {
-        row,
-        field: "time".into(),
-        message: format!("`{time}` is not an RFC 3339 time with an offset ({e})"),
-    })?;
-    let q = q.map_err(|m| RowError {
-        row,
-        field: "discharge".into(),
-        message: m,
-    })?;
-    if !q.is_finite() {
-        return Err(RowError {
-            row,
-            field: "discharge".into(),
-            message: "must be a finite number".into(),
-        });
-    }
-    if q < 0.0 {
-        return Err(RowError {
-            row,
-            field: "discharge".into(),
-            message: format!("must not be negative, got {q}"),
-        });
-    }
-    Ok((t.with_timezone(&Utc), q))
-}
-
-fn from_json(body: &[u8]) -> Result<(String, Vec<Row>), Problem> {
-    let b: UploadBody = parse_json(body)?;
-    let rows = b
-        .series
-        .iter()
-        .enumerate()
-        .map(|(i, v)| {
-            let row = i + 1;
-            let time = v.get("time").and_then(|t| t.as_str()).unwrap_or("");
-            let q = match v.get("discharge") {
-                Some(serde_json::Value::Number(n)) => {
-                    n.as_f64().ok_or_else(|| "not a number".to_owned())
-                }
-                Some(other) => Err(format!("`{other}` is not a number")),
-                None => Err("missing".to_owned()),
-            };
-            (row, parse_sample(row, time, q))
-        })
-        .collect();
-    Ok((b.reason, rows))
-}
-
-fn from_csv(body: &[u8]) -> Result<Vec<Row>, Problem> {
-    let mut reader = csv::ReaderBuilder::new()
-        .trim(csv::Trim::All)
-        .comment(Some(b'#'))
-        .from_reader(body);
-    let headers = reader
-        .headers()
-        .map_err(|e| Problem::malformed("csv", format!("not valid CSV (RFC 4180): {e}")))?
-        .clone();
-    let col = |n: &str| headers.iter().position(|h| h.eq_ignore_ascii_case(n));
-    let (Some(ti), Some(qi)) = (col("time"), col("discharge")) else {
-        return Err(Problem::malformed(
-            "csv",
-            "the first line must be the header `time,discharge`".to_owned(),
-        ));
-    };
-    let mut rows = Vec::new();
-    for (i, rec) in reader.records().enumerate() {
-        let rec =
-            rec.map_err(|e| Problem::malformed("csv", format!("not valid CSV (RFC 4180): {e}")))?;
-        // Row numbers count data rows from 1, as in the JSON form.
-        let row = i + 1;
-        let q = rec
-            .get(qi)
-            .unwrap_or("")
-            .parse::<f64>()
-            .map_err(|_| format!("`{}` is not a number", rec.get(qi).unwrap_or("")));
-        rows.push((row, parse_sample(row, rec.get(ti).unwrap_or(""), q)));
-    }
-    Ok(rows)
-}
-
-fn reason_from_query(uri: &axum::http::Uri) -> Option<String> {
-    uri.query()?
-        .split('&')
-        .find_map(|p| p.strip_prefix("reason="))
-        .map(percent_decode)
-}
-
-/// Decodes `%XX` and `+` in a query value.
-fn percent_decode(s: &str) -> String {
-    let bytes = s.as_bytes();
-    let mut out = Vec::with_capacity(bytes.len());
-    let mut i = 0;
-    while i < bytes.len() {
-        match bytes[i] {
-            b'+' => out.push(b' '),
-            b'%' if i + 2 < bytes.len() => {
-                match std::str::from_utf8(&bytes[i + 1..i + 3])
-                    .ok()
-                    .and_then(|h| u8::from_str_radix(h, 16).ok())
-                {
-                    Some(b) => {
-                        out.push(b);
-                        i += 2;
-                    }
-                    None => out.push(b'%'),
-                }
-            }
-            b => out.push(b),
-        }
-        i += 1;
-    }
-    String::from_utf8_lossy(&out).into_owned()
 }
 
 async fn upload(
@@ -218,10 +115,10 @@ async fn upload(
     State(state): State<AppState>,
     Path(reach): Path<String>,
     headers: HeaderMap,
-    uri: axum::http::Uri,
+    Query(params): Query<UploadParams>,
     body: Bytes,
 ) -> Result<Response, ApiError> {
-    super::forecasts::find_reach(&state, &reach).await?;
+    super::reaches::find_reach(&state, &reach).await?;
     let media = headers
         .get(header::CONTENT_TYPE)
         .and_then(|v| v.to_str().ok())
@@ -231,47 +128,14 @@ async fn upload(
         .unwrap_or("")
         .trim()
         .to_ascii_lowercase();
-    let (reason, rows) = match media.as_str() {
-        "application/json" => from_json(&body)?,
-        "text/csv" => (
-            reason_from_query(&uri).unwrap_or_default(),
-            from_csv(&body)?,
-        ),
-        other => {
-            return Err(Problem::new(
-                StatusCode::UNSUPPORTED_MEDIA_TYPE,
-                "unsupported-media-type",
-                "Unsupported media type",
-            )
-            .detail(format!("`{other}`: send application/json or text/csv"))
-            .into());
-        }
-    };
+    let (reason, series) = parse_body(&media, &body, params.reason)?;
     let reason = reason.trim().to_owned();
     if reason.is_empty() || reason.chars().count() > 500 {
         return Err(Problem::invalid("reason", "say why in 1 to 500 characters").into());
     }
-    if rows.len() > MAX_POINTS {
+    if series.len() > MAX_POINTS {
         return Err(Problem::invalid("series", format!("at most {MAX_POINTS} samples")).into());
     }
-    let series = match check_rows(rows) {
-        Ok(s) => s,
-        Err(errors) => {
-            let first = &errors[0];
-            let mut p =
-                Problem::invalid(first.field.clone(), first.message.clone()).detail(format!(
-                    "{} row(s) rejected; nothing was stored. First: row {}, {}: {}",
-                    errors.len(),
-                    first.row,
-                    first.field,
-                    first.message
-                ));
-            if first.row > 0 {
-                p = p.row(first.row);
-            }
-            return Err(p.with("errors", &errors).into());
-        }
-    };
     let version = state
         .store
         .insert_upload(&reach, &series, &reason, auth.caller().key_id())
@@ -284,13 +148,42 @@ async fn upload(
         .into_response())
 }
 
+/// An upload as the list shows it (without its series).
+#[derive(Debug, Serialize)]
+struct UploadView<'a> {
+    version: i64,
+    #[serde(with = "crate::wire_time")]
+    uploaded_at: chrono::DateTime<chrono::Utc>,
+    uploaded_by: &'a str,
+    reason: &'a str,
+    withdrawn: bool,
+    #[serde(with = "crate::wire_time::option")]
+    withdrawn_at: Option<chrono::DateTime<chrono::Utc>>,
+    points: usize,
+}
+
+impl<'a> UploadView<'a> {
+    fn of(u: &'a InflowUpload) -> Self {
+        Self {
+            version: u.version,
+            uploaded_at: u.uploaded_at,
+            uploaded_by: &u.uploaded_by,
+            reason: &u.reason,
+            withdrawn: u.withdrawn,
+            withdrawn_at: u.withdrawn_at,
+            points: u.series.len(),
+        }
+    }
+}
+
 async fn list(
     _: ReadAccess,
     State(state): State<AppState>,
     Path(reach): Path<String>,
 ) -> Result<Response, ApiError> {
-    super::forecasts::find_reach(&state, &reach).await?;
-    let uploads = state.store.uploads(&reach).await?;
+    super::reaches::find_reach(&state, &reach).await?;
+    let stored = state.store.uploads(&reach).await?;
+    let uploads: Vec<UploadView> = stored.iter().map(UploadView::of).collect();
     Ok(
         Json(serde_json::json!({"caution": CAUTION, "reach": reach, "uploads": uploads}))
             .into_response(),
@@ -326,20 +219,17 @@ mod tests {
     use super::*;
 
     #[test]
-    fn percent_decoding_of_reasons() {
-        assert_eq!(percent_decode("storm+update%2C+v2"), "storm update, v2");
-        assert_eq!(percent_decode("100%"), "100%");
-    }
-
-    #[test]
     fn all_bad_rows_are_listed() {
-        let rows = from_csv(
+        let e = parse_body(
+            "text/csv",
             b"time,discharge\n2026-03-01T00:00:00Z,1\nyesterday,2\n2026-03-01T02:00:00Z,-3\n",
+            Some("storm".into()),
         )
-        .expect("csv");
-        let errors = check_rows(rows).unwrap_err();
-        assert_eq!(errors.len(), 2);
-        assert_eq!((errors[0].row, errors[0].field.as_str()), (2, "time"));
-        assert_eq!((errors[1].row, errors[1].field.as_str()), (3, "discharge"));
+        .unwrap_err();
+        let errors = e.extensions.get("errors").expect("errors listed");
+        assert_eq!(errors.as_array().map(Vec::len), Some(2));
+        assert_eq!(errors[0]["row"], 2);
+        assert_eq!(errors[0]["field"], "time");
+        assert_eq!(errors[1]["field"], "discharge");
     }
 }

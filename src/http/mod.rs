@@ -9,13 +9,17 @@ pub mod assets;
 pub mod auth;
 pub mod cache;
 pub mod cap;
+pub mod conditional;
 pub mod error;
-pub mod forecasts;
+pub mod exceedances;
+pub mod forecast;
 pub mod gauges;
 pub mod health;
 pub mod inflows;
 pub mod openapi;
+pub mod reaches;
 pub mod readings;
+pub mod runs;
 
 use std::{
     sync::{
@@ -51,13 +55,13 @@ pub struct AppState {
     /// Latest-readings answers, invalidated on write.
     pub cache: Arc<cache::ReadingsCache>,
     /// The forecast cycle: triggers, the exceedance board.
-    pub forecaster: crate::scheduler::Forecaster,
+    pub forecaster: crate::service::Forecaster,
     /// Serialized exceedance answers per board version.
-    pub exceedance_cache: Arc<forecasts::ExceedanceCache>,
+    pub exceedance_cache: Arc<exceedances::ExceedanceCache>,
 }
 
 impl AppState {
-    pub fn new(config: Config, store: Store, forecaster: crate::scheduler::Forecaster) -> Self {
+    pub fn new(config: Config, store: Store, forecaster: crate::service::Forecaster) -> Self {
         let limiter =
             RateLimiter::new(config.auth.rate_limit_per_sec, config.auth.rate_limit_burst);
         Self {
@@ -107,7 +111,10 @@ pub fn router(state: AppState) -> Router {
     let api = Router::new()
         .merge(gauges::router())
         .merge(readings::router())
-        .merge(forecasts::router())
+        .merge(reaches::router())
+        .merge(forecast::router())
+        .merge(runs::router())
+        .merge(exceedances::router())
         .merge(inflows::router())
         .merge(cap::router())
         .merge(openapi::router())

@@ -50,6 +50,27 @@ pub(super) async fn record(conn: &mut SqliteConnection, audit: &Audit) -> Result
     Ok(())
 }
 
+/// Records a write the service made on its own (a forecast run, a CAP
+/// message), with the actor `system`.
+pub(super) async fn record_system(
+    conn: &mut SqliteConnection,
+    action: &str,
+    target: &str,
+    summary: serde_json::Value,
+) -> Result<(), StoreError> {
+    sqlx::query(
+        "INSERT INTO audit_log (at, key_id, actor, action, target, summary)
+         VALUES (?1, NULL, 'system', ?2, ?3, ?4)",
+    )
+    .bind(crate::wire_time::format(Utc::now()))
+    .bind(action)
+    .bind(target)
+    .bind(summary.to_string())
+    .execute(conn)
+    .await?;
+    Ok(())
+}
+
 impl Store {
     /// The newest audit entries, newest first.
     pub async fn audit_log(&self, limit: i64) -> Result<Vec<AuditEntry>, StoreError> {

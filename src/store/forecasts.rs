@@ -5,7 +5,11 @@ use chrono::{DateTime, Utc};
 use sqlx::Row;
 
 use super::{Audit, Store, StoreError, audit};
-use crate::forecast::spec::ReachSpec;
+use crate::forecast::{
+    hydrograph::Hydrograph,
+    record::{RunProvenance, RunRecord, RunStatus, StoredResults},
+    spec::ReachSpec,
+};
 
 /// One stored version of a reach description.
 #[derive(Debug, Clone, PartialEq)]
@@ -13,65 +17,68 @@ pub struct ReachVersion {
     pub reach_id: String,
     pub version: i64,
     pub spec: ReachSpec,
-    pub created_at: String,
+    pub created_at: DateTime<Utc>,
     pub created_by: Option<String>,
 }
 
 /// An uploaded inflow forecast.
-#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct InflowUpload {
-    #[serde(skip)]
     pub id: i64,
     pub version: i64,
-    pub uploaded_at: String,
+    pub uploaded_at: DateTime<Utc>,
     pub uploaded_by: String,
     pub reason: String,
     pub withdrawn: bool,
-    pub withdrawn_at: Option<String>,
-    pub points: usize,
-    #[serde(skip)]
-    pub series: Vec<(DateTime<Utc>, f64)>,
-}
-
-/// A forecast run as stored.
-#[derive(Debug, Clone, PartialEq)]
-pub struct StoredRun {
-    pub id: i64,
-    pub reach_id: String,
-    pub reach_version: i64,
-    pub inflow_forecast_id: Option<i64>,
-    pub started_at: String,
-    pub finished_at: Option<String>,
-    pub status: String,
-    pub error: Option<String>,
-    pub provenance: serde_json::Value,
-    pub results: Option<serde_json::Value>,
-}
-
-#[derive(serde::Serialize, serde::Deserialize)]
-struct SeriesPoint {
-    time: DateTime<Utc>,
-    discharge: f64,
+    pub withdrawn_at: Option<DateTime<Utc>>,
+    pub series: Hydrograph,
 }
 
 fn corrupt(what: &str, e: impl std::fmt::Display) -> StoreError {
     StoreError::Corrupt(format!("{what}: {e}"))
 }
 
+/// A stored time: RFC 3339 text as written by [`now_text`] (older rows
+/// were written with `+00:00` and nanoseconds; both read).
+fn time(what: &str, text: &str) -> Result<DateTime<Utc>, StoreError> {
+    DateTime::parse_from_rfc3339(text)
+        .map(|t| t.with_timezone(&Utc))
+        .map_err(|e| corrupt(what, e))
+}
+
+fn time_opt(what: &str, text: Option<String>) -> Result<Option<DateTime<Utc>>, StoreError> {
+    text.map(|t| time(what, &t)).transpose()
+}
+
+/// Now, in the stored form of a time.
+fn now_text() -> String {
+    crate::wire_time::format(Utc::now())
+}
+
+fn encode<T: serde::Serialize>(what: &str, value: &T) -> Result<String, StoreError> {
+    serde_json::to_string(value).map_err(|e| corrupt(what, e))
+}
+
 const RUN_COLUMNS: &str = "id, reach_id, reach_version, inflow_forecast_id, started_at, \
 finished_at, status, error, provenance, results";
 
-fn run_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<StoredRun, StoreError> {
+fn run_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<RunRecord, StoreError> {
     let provenance: String = row.try_get("provenance")?;
     let results: Option<String> = row.try_get("results")?;
-    Ok(StoredRun {
+    let status: String = row.try_get("status")?;
+    Ok(RunRecord {
         id: row.try_get("id")?,
         reach_id: row.try_get("reach_id")?,
         reach_version: row.try_get("reach_version")?,
         inflow_forecast_id: row.try_get("inflow_forecast_id")?,
-        started_at: row.try_get("started_at")?,
-        finished_at: row.try_get("finished_at")?,
-        status: row.try_get("status")?,
+        started_at: time(
+            "forecast_runs.started_at",
+            &row.try_get::<String, _>("started_at")?,
+        )?,
+        finished_at: time_opt("forecast_runs.finished_at", row.try_get("finished_at")?)?,
+        status: status
+            .parse::<RunStatus>()
+            .map_err(|e| corrupt("forecast_runs.status", e))?,
         error: row.try_get("error")?,
         provenance: serde_json::from_str(&provenance)
             .map_err(|e| corrupt("forecast_runs.provenance", e))?,
@@ -92,8 +99,8 @@ impl Store {
         spec: &ReachSpec,
         key_id: Option<&str>,
     ) -> Result<i64, StoreError> {
-        let document = serde_json::to_string(spec).map_err(|e| corrupt("reach document", e))?;
-        let now = Utc::now().to_rfc3339();
+        let document = encode("reach document", spec)?;
+        let now = now_text();
         let (_guard, mut tx) = self.begin_write().await?;
         sqlx::query(
             "INSERT INTO reaches (id, name, created_at) VALUES (?1, ?2, ?3)
@@ -121,48 +128,6 @@ impl Store {
         .bind(key_id)
         .execute(&mut *tx)
         .await?;
-        let nodes = crate::forecast::run::nodes_for(spec).ok();
-        for (i, p) in spec.points.iter().enumerate() {
-            let poi_id = format!("p{i}");
-            // Bed elevation at the point, from the computational nodes.
-            let bed = nodes
-                .as_ref()
-                .and_then(|n| crate::forecast::run::bed_at(n, p.chainage))
-                .unwrap_or(f64::NAN);
-            sqlx::query(
-                "INSERT INTO points_of_interest (reach_id, reach_version, poi_id, name, kind,
-                     chainage_m, bed_elevation_m, low_chord_m, deck_elevation_m)
-                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
-            )
-            .bind(id)
-            .bind(version)
-            .bind(&poi_id)
-            .bind(&p.name)
-            .bind(
-                serde_json::to_value(p.kind)
-                    .ok()
-                    .and_then(|v| v.as_str().map(str::to_owned)),
-            )
-            .bind(p.chainage)
-            .bind(if bed.is_finite() { bed } else { 0.0 })
-            .bind(p.low_chord)
-            .bind(p.deck)
-            .execute(&mut *tx)
-            .await?;
-            for t in &p.thresholds {
-                sqlx::query(
-                    "INSERT INTO poi_thresholds (reach_id, reach_version, poi_id, name, elevation_m)
-                     VALUES (?1, ?2, ?3, ?4, ?5)",
-                )
-                .bind(id)
-                .bind(version)
-                .bind(&poi_id)
-                .bind(&t.name)
-                .bind(t.elevation)
-                .execute(&mut *tx)
-                .await?;
-            }
-        }
         audit::record(
             &mut tx,
             &Audit {
@@ -206,17 +171,11 @@ impl Store {
     pub async fn insert_upload(
         &self,
         reach_id: &str,
-        series: &[(DateTime<Utc>, f64)],
+        series: &Hydrograph,
         reason: &str,
         key_id: &str,
     ) -> Result<i64, StoreError> {
-        let json = serde_json::to_string(
-            &series
-                .iter()
-                .map(|&(time, discharge)| SeriesPoint { time, discharge })
-                .collect::<Vec<_>>(),
-        )
-        .map_err(|e| corrupt("inflow series", e))?;
+        let json = encode("inflow series", series)?;
         let (_guard, mut tx) = self.begin_write().await?;
         let (version,): (i64,) = sqlx::query_as(
             "SELECT COALESCE(MAX(version), 0) + 1 FROM inflow_forecasts WHERE reach_id = ?1",
@@ -230,7 +189,7 @@ impl Store {
         )
         .bind(reach_id)
         .bind(version)
-        .bind(Utc::now().to_rfc3339())
+        .bind(now_text())
         .bind(key_id)
         .bind(reason)
         .bind(&json)
@@ -265,7 +224,7 @@ impl Store {
         )
         .bind(reach_id)
         .bind(version)
-        .bind(Utc::now().to_rfc3339())
+        .bind(now_text())
         .bind(key_id)
         .execute(&mut *tx)
         .await?
@@ -318,8 +277,9 @@ impl Store {
         reach_id: &str,
         reach_version: i64,
         inflow_forecast_id: Option<i64>,
-        provenance: &serde_json::Value,
+        provenance: &RunProvenance,
     ) -> Result<i64, StoreError> {
+        let provenance = encode("run provenance", provenance)?;
         let (_guard, mut tx) = self.begin_write().await?;
         let id = sqlx::query(
             "INSERT INTO forecast_runs (reach_id, reach_version, inflow_forecast_id, started_at,
@@ -329,8 +289,8 @@ impl Store {
         .bind(reach_id)
         .bind(reach_version)
         .bind(inflow_forecast_id)
-        .bind(Utc::now().to_rfc3339())
-        .bind(provenance.to_string())
+        .bind(now_text())
+        .bind(provenance)
         .execute(&mut *tx)
         .await?
         .last_insert_rowid();
@@ -338,37 +298,46 @@ impl Store {
         Ok(id)
     }
 
-    /// Records how a run ended: results on success, the error otherwise.
+    /// Records how a run ended: results on success, the error otherwise,
+    /// and an audit entry by the system actor.
     pub async fn finish_run(
         &self,
         run_id: i64,
-        outcome: Result<&serde_json::Value, &str>,
-        provenance: &serde_json::Value,
+        outcome: Result<&StoredResults, &str>,
+        provenance: &RunProvenance,
     ) -> Result<(), StoreError> {
-        let (_guard, mut tx) = self.begin_write().await?;
         let (status, results, error) = match outcome {
-            Ok(r) => ("ok", Some(r.to_string()), None),
-            Err(e) => ("failed", None, Some(e.to_owned())),
+            Ok(r) => (RunStatus::Ok, Some(encode("run results", r)?), None),
+            Err(e) => (RunStatus::Failed, None, Some(e.to_owned())),
         };
-        sqlx::query(
+        let provenance = encode("run provenance", provenance)?;
+        let (_guard, mut tx) = self.begin_write().await?;
+        let (reach_id,): (String,) = sqlx::query_as(
             "UPDATE forecast_runs SET finished_at = ?2, status = ?3, results = ?4, error = ?5,
                  provenance = ?6
-             WHERE id = ?1",
+             WHERE id = ?1 RETURNING reach_id",
         )
         .bind(run_id)
-        .bind(Utc::now().to_rfc3339())
-        .bind(status)
+        .bind(now_text())
+        .bind(status.as_str())
         .bind(results)
-        .bind(error)
-        .bind(provenance.to_string())
-        .execute(&mut *tx)
+        .bind(&error)
+        .bind(provenance)
+        .fetch_one(&mut *tx)
+        .await?;
+        audit::record_system(
+            &mut tx,
+            "forecast.run",
+            &reach_id,
+            serde_json::json!({"run_id": run_id, "status": status.as_str(), "error": error}),
+        )
         .await?;
         tx.commit().await?;
         Ok(())
     }
 
     /// A run by id.
-    pub async fn run(&self, id: i64) -> Result<Option<StoredRun>, StoreError> {
+    pub async fn run(&self, id: i64) -> Result<Option<RunRecord>, StoreError> {
         let sql = format!("SELECT {RUN_COLUMNS} FROM forecast_runs WHERE id = ?1");
         let row = sqlx::query(sqlx::AssertSqlSafe(sql))
             .bind(id)
@@ -381,8 +350,8 @@ impl Store {
     pub async fn latest_run(
         &self,
         reach_id: &str,
-        status: Option<&str>,
-    ) -> Result<Option<StoredRun>, StoreError> {
+        status: Option<RunStatus>,
+    ) -> Result<Option<RunRecord>, StoreError> {
         let sql = format!(
             "SELECT {RUN_COLUMNS} FROM forecast_runs
              WHERE reach_id = ?1 AND (?2 IS NULL OR status = ?2)
@@ -390,14 +359,14 @@ impl Store {
         );
         let row = sqlx::query(sqlx::AssertSqlSafe(sql))
             .bind(reach_id)
-            .bind(status)
+            .bind(status.map(RunStatus::as_str))
             .fetch_optional(&self.pool)
             .await?;
         row.as_ref().map(run_from_row).transpose()
     }
 
     /// Runs of a reach, newest first, without their results.
-    pub async fn runs(&self, reach_id: &str, limit: i64) -> Result<Vec<StoredRun>, StoreError> {
+    pub async fn runs(&self, reach_id: &str, limit: i64) -> Result<Vec<RunRecord>, StoreError> {
         let rows = sqlx::query(
             "SELECT id, reach_id, reach_version, inflow_forecast_id, started_at, finished_at,
                     status, error, provenance, NULL AS results
@@ -455,24 +424,30 @@ fn reach_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<ReachVersion, StoreEr
         reach_id: row.try_get("reach_id")?,
         version: row.try_get("version")?,
         spec: serde_json::from_str(&document).map_err(|e| corrupt("reach_versions.document", e))?,
-        created_at: row.try_get("created_at")?,
+        created_at: time(
+            "reach_versions.created_at",
+            &row.try_get::<String, _>("created_at")?,
+        )?,
         created_by: row.try_get("created_by")?,
     })
 }
 
 fn upload_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<InflowUpload, StoreError> {
     let series: String = row.try_get("series")?;
-    let points: Vec<SeriesPoint> =
-        serde_json::from_str(&series).map_err(|e| corrupt("inflow_forecasts.series", e))?;
     Ok(InflowUpload {
         id: row.try_get("id")?,
         version: row.try_get("version")?,
-        uploaded_at: row.try_get("uploaded_at")?,
+        uploaded_at: time(
+            "inflow_forecasts.uploaded_at",
+            &row.try_get::<String, _>("uploaded_at")?,
+        )?,
         uploaded_by: row.try_get("uploaded_by")?,
         reason: row.try_get("reason")?,
         withdrawn: row.try_get::<i64, _>("withdrawn")? != 0,
-        withdrawn_at: row.try_get("withdrawn_at")?,
-        points: points.len(),
-        series: points.into_iter().map(|p| (p.time, p.discharge)).collect(),
+        withdrawn_at: time_opt(
+            "inflow_forecasts.withdrawn_at",
+            row.try_get("withdrawn_at")?,
+        )?,
+        series: serde_json::from_str(&series).map_err(|e| corrupt("inflow_forecasts.series", e))?,
     })
 }

@@ -24,7 +24,7 @@ use crate::config::StorageConfig;
 mod alerts;
 mod audit;
 mod forecasts;
-pub use forecasts::{InflowUpload, ReachVersion, StoredRun};
+pub use forecasts::{InflowUpload, ReachVersion};
 mod gauges;
 mod keys;
 mod readings;

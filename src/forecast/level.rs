@@ -1,0 +1,236 @@
+//! How a forecast stage trace relates to a level (a threshold), seen from
+//! an instant on: the one answer used by the run output (seen from the
+//! run's start), the forecast view (from the time of the request), the
+//! exceedance board and CAP planning (from the time the run finished).
+//!
+//! Times are instants of the model's own output. Offsets are computed in
+//! whole milliseconds from the viewing instant (itself truncated to the
+//! millisecond), so a crest on a sample is that sample's instant exactly,
+//! not a few tenths of a millisecond before it. A crossing interpolated
+//! between two output instants is given to the second: finer would claim
+//! a precision the model does not have, and it keeps the answer (and the
+//! validators and CAP chains built on it) the same while its meaning is.
+
+use chrono::{DateTime, Duration, DurationRound, Utc};
+use serde::{Deserialize, Serialize};
+
+use super::{exceed, spec::Severity};
+
+/// A stage hydrograph as the model wrote it.
+#[derive(Debug, Clone, Copy)]
+pub struct Trace<'a> {
+    pub times: &'a [DateTime<Utc>],
+    /// Water-surface elevation (m), one per time.
+    pub stage: &'a [f64],
+}
+
+/// The trace from an instant on, in seconds from that instant.
+struct Ahead {
+    from_ms: i64,
+    secs: Vec<f64>,
+    stage: Vec<f64>,
+    /// The trace has a sample at or before the instant.
+    covers_from: bool,
+}
+
+impl Ahead {
+    /// The instant `s` seconds after `from`, to the millisecond.
+    fn instant(&self, s: f64) -> Option<DateTime<Utc>> {
+        DateTime::from_timestamp_millis(self.from_ms + (s * 1000.0).round() as i64)
+    }
+
+    /// An interpolated instant, to the second.
+    fn crossing(&self, s: f64) -> Option<DateTime<Utc>> {
+        let t = self.instant(s)?;
+        t.duration_round(Duration::seconds(1)).ok()
+    }
+}
+
+/// A level's identity and how the trace relates to it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LevelOutlook {
+    pub name: String,
+    /// Elevation of the level (m).
+    pub elevation: f64,
+    /// Configured or rank-derived CAP severity.
+    pub severity: Severity,
+    /// The stage is above the level at some time from the instant on.
+    pub exceeded: bool,
+    /// Above at the instant itself (for a run output: at its start).
+    #[serde(alias = "above_at_start")]
+    pub above_now: bool,
+    /// First rise above the level, or the instant when already above.
+    #[serde(with = "crate::wire_time::option")]
+    pub first_above: Option<DateTime<Utc>>,
+    /// End of that first period above; `None` while still above at the
+    /// end of the forecast.
+    #[serde(with = "crate::wire_time::option")]
+    pub back_below: Option<DateTime<Utc>>,
+    /// Time above the level from the instant on, over every period (s).
+    pub duration_above_s: f64,
+    /// Crest ahead minus the level (m); positive when exceeded.
+    pub margin: f64,
+}
+
+/// The crest ahead: highest stage from the instant on and when.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CrestAhead {
+    pub stage: f64,
+    pub time: DateTime<Utc>,
+}
+
+impl<'a> Trace<'a> {
+    pub fn new(times: &'a [DateTime<Utc>], stage: &'a [f64]) -> Self {
+        let n = times.len().min(stage.len());
+        Self {
+            times: &times[..n],
+            stage: &stage[..n],
+        }
+    }
+
+    fn ahead(&self, from: DateTime<Utc>) -> Ahead {
+        let from_ms = from.timestamp_millis();
+        let secs: Vec<f64> = self
+            .times
+            .iter()
+            .map(|t| (t.timestamp_millis() - from_ms) as f64 / 1000.0)
+            .collect();
+        let covers_from = secs.first().is_some_and(|&s| s <= 0.0);
+        let (secs, stage) = exceed::from_now(&secs, self.stage);
+        Ahead {
+            from_ms,
+            secs,
+            stage,
+            covers_from,
+        }
+    }
+
+    /// The stage at `from` (interpolated; the first stage before the trace
+    /// starts, the last after it ends); NaN for an empty trace.
+    pub fn stage_at(&self, from: DateTime<Utc>) -> f64 {
+        self.ahead(from).stage.first().copied().unwrap_or(f64::NAN)
+    }
+
+    /// The highest stage from `from` on; `None` for an empty or non-finite
+    /// trace.
+    pub fn crest_from(&self, from: DateTime<Utc>) -> Option<CrestAhead> {
+        let a = self.ahead(from);
+        let c = exceed::crest(&a.secs, &a.stage)?;
+        Some(CrestAhead {
+            stage: c.stage,
+            time: a.instant(c.time)?,
+        })
+    }
+
+    /// How the trace relates to a level from `from` on.
+    pub fn level_from(
+        &self,
+        name: &str,
+        elevation: f64,
+        severity: Severity,
+        from: DateTime<Utc>,
+    ) -> LevelOutlook {
+        let a = self.ahead(from);
+        let e = exceed::exceedance(&a.secs, &a.stage, elevation);
+        let above_now = a.covers_from && e.above_at_start;
+        LevelOutlook {
+            name: name.to_owned(),
+            elevation,
+            severity,
+            exceeded: e.exceeded,
+            above_now,
+            first_above: e.first_above.and_then(|s| {
+                if e.above_at_start {
+                    a.instant(s)
+                } else {
+                    a.crossing(s)
+                }
+            }),
+            back_below: e.back_below.and_then(|s| a.crossing(s)),
+            duration_above_s: e.duration_above,
+            margin: e.margin,
+        }
+    }
+}
+
+impl LevelOutlook {
+    /// The same level seen on `trace` from `from` on.
+    pub fn seen_from(&self, trace: &Trace<'_>, from: DateTime<Utc>) -> LevelOutlook {
+        trace.level_from(&self.name, self.elevation, self.severity, from)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn t(s: &str) -> DateTime<Utc> {
+        DateTime::parse_from_rfc3339(s).unwrap().with_timezone(&Utc)
+    }
+
+    /// Hourly samples rising 1 m an hour to a crest at 03:00 then falling.
+    fn hill() -> (Vec<DateTime<Utc>>, Vec<f64>) {
+        let times = (0..7)
+            .map(|h| t("2026-03-01T00:00:00Z") + Duration::hours(h))
+            .collect();
+        (times, vec![0.0, 1.0, 2.0, 3.0, 2.0, 1.0, 0.0])
+    }
+
+    /// The regression this module exists for: seen from an instant with
+    /// sub-millisecond digits, the crest was reported 0.1–0.8 ms before its
+    /// sample (13:50:59.9992 for 13:51), so minute-precision text said the
+    /// minute before. The crest is now the sample itself.
+    #[test]
+    fn crest_is_the_sample_instant_from_any_viewpoint() {
+        let (times, stage) = hill();
+        let trace = Trace::new(&times, &stage);
+        let from = t("2026-03-01T00:17:31.123456789Z");
+        let c = trace.crest_from(from).unwrap();
+        assert_eq!(c.time, t("2026-03-01T03:00:00Z"));
+        assert_eq!(c.stage, 3.0);
+    }
+
+    /// Linear interpolation between samples (how the chart is drawn):
+    /// 2.5 m is crossed half-way between 02:00 and 03:00 rising and between
+    /// 03:00 and 04:00 falling; above for exactly one hour.
+    #[test]
+    fn crossings_by_similar_triangles_to_the_second() {
+        let (times, stage) = hill();
+        let trace = Trace::new(&times, &stage);
+        let from = t("2026-03-01T00:00:00.000400Z");
+        let l = trace.level_from("watch", 2.5, Severity::Moderate, from);
+        assert!(l.exceeded && !l.above_now);
+        assert_eq!(l.first_above, Some(t("2026-03-01T02:30:00Z")));
+        assert_eq!(l.back_below, Some(t("2026-03-01T03:30:00Z")));
+        assert!((l.duration_above_s - 3600.0).abs() < 1e-6);
+        assert!((l.margin - 0.5).abs() < 1e-12);
+    }
+
+    #[test]
+    fn already_above_starts_at_the_viewing_instant() {
+        let (times, stage) = hill();
+        let trace = Trace::new(&times, &stage);
+        let from = t("2026-03-01T03:10:00Z");
+        let l = trace.level_from("watch", 2.5, Severity::Moderate, from);
+        assert!(l.above_now && l.exceeded);
+        assert_eq!(l.first_above, Some(from));
+        assert_eq!(l.back_below, Some(t("2026-03-01T03:30:00Z")));
+        // Before the trace starts, nothing is "above now".
+        let early = trace.level_from("low", -1.0, Severity::Minor, t("2026-02-28T23:00:00Z"));
+        assert!(early.exceeded && !early.above_now);
+    }
+
+    #[test]
+    fn stored_first_release_outcome_reads() {
+        let old = r#"{"name":"watch","elevation":2.5,"severity":"moderate","exceeded":true,
+            "above_at_start":true,"first_above":"2026-03-01T02:30:00.000000123+00:00",
+            "back_below":null,"duration_above_s":10.0,"margin":0.5}"#;
+        let l: LevelOutlook = serde_json::from_str(old).unwrap();
+        assert!(l.above_now);
+        let json = serde_json::to_string(&l).unwrap();
+        assert!(
+            json.contains(r#""first_above":"2026-03-01T02:30:00.000Z""#),
+            "{json}"
+        );
+    }
+}

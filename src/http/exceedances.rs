@@ -1,0 +1,158 @@
+//! `GET /api/exceedances`: every (point, threshold) situation at the latest
+//! good run of each reach, for alerting clients that poll. The answer
+//! changes only when a run lands, so it is serialized once per board
+//! version and unit system and served with a strong `ETag`
+//! (`If-None-Match` → 304).
+
+use std::sync::RwLock;
+
+use axum::{
+    Router,
+    body::{Body, Bytes},
+    extract::{Query, State},
+    http::{HeaderMap, HeaderValue, StatusCode, header},
+    response::{IntoResponse, Response},
+    routing::get,
+};
+use chrono::{DateTime, Utc};
+use serde::{Deserialize, Serialize};
+
+use super::{
+    AppState,
+    auth::ReadAccess,
+    conditional::{fnv, not_modified, with_etag},
+    error::ApiError,
+};
+use crate::{
+    CAUTION,
+    forecast::{
+        cap::Situation,
+        spec::{Severity, Units},
+        view::{FT_PER_M, UnitNames},
+    },
+};
+
+pub fn router() -> Router<AppState> {
+    Router::new().route("/exceedances", get(exceedances))
+}
+
+/// Serialized answers, keyed by board version and units.
+#[derive(Default)]
+pub struct ExceedanceCache {
+    entries: RwLock<Vec<(u64, Units, Bytes, String)>>,
+}
+
+/// One situation as this endpoint names its fields (lengths in the unit
+/// system asked for).
+#[derive(Debug, Serialize)]
+struct Item<'a> {
+    reach: &'a str,
+    reach_name: &'a str,
+    point: &'a str,
+    threshold: &'a str,
+    elevation: f64,
+    severity: Severity,
+    exceeded: bool,
+    above_now: bool,
+    #[serde(with = "crate::wire_time::option")]
+    first_above: Option<DateTime<Utc>>,
+    #[serde(with = "crate::wire_time::option")]
+    back_below: Option<DateTime<Utc>>,
+    crest_stage: f64,
+    #[serde(with = "crate::wire_time")]
+    crest_time: DateTime<Utc>,
+    margin: f64,
+    run_id: i64,
+    #[serde(with = "crate::wire_time")]
+    run_finished: DateTime<Utc>,
+    stale: bool,
+}
+
+impl<'a> Item<'a> {
+    fn of(s: &'a Situation, units: Units) -> Self {
+        let l = if units == Units::Us { FT_PER_M } else { 1.0 };
+        Item {
+            reach: &s.reach_id,
+            reach_name: &s.reach_name,
+            point: &s.point_name,
+            threshold: &s.threshold_name,
+            elevation: s.elevation * l,
+            severity: s.severity,
+            exceeded: s.exceeded,
+            above_now: s.above_now,
+            first_above: s.first_above,
+            back_below: s.back_below,
+            crest_stage: s.crest_stage * l,
+            crest_time: s.crest_time,
+            margin: s.margin * l,
+            run_id: s.run_id,
+            run_finished: s.run_finished,
+            stale: s.stale,
+        }
+    }
+}
+
+#[derive(Serialize)]
+struct Doc<'a> {
+    caution: &'static str,
+    #[serde(with = "crate::wire_time::option")]
+    generated_at: Option<DateTime<Utc>>,
+    units: UnitNames,
+    items: Vec<Item<'a>>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Params {
+    units: Option<Units>,
+}
+
+/// The serialized answer and its validator.
+fn render(state: &AppState, units: Units) -> Result<(Bytes, String), ApiError> {
+    let (situations, version) = state.forecaster.board();
+    let doc = Doc {
+        caution: CAUTION,
+        generated_at: situations.iter().map(|s| s.run_finished).max(),
+        units: UnitNames::of(units),
+        items: situations.iter().map(|s| Item::of(s, units)).collect(),
+    };
+    let body = Bytes::from(serde_json::to_vec(&doc).map_err(|e| ApiError::Internal(e.into()))?);
+    let etag = format!(
+        "\"b{version}-{}-{:016x}\"",
+        if units == Units::Us { "us" } else { "si" },
+        fnv(&body)
+    );
+    if let Ok(mut e) = state.exceedance_cache.entries.write() {
+        e.retain(|(v, _, _, _)| *v == version);
+        e.push((version, units, body.clone(), etag.clone()));
+    }
+    Ok((body, etag))
+}
+
+async fn exceedances(
+    _: ReadAccess,
+    State(state): State<AppState>,
+    Query(params): Query<Params>,
+    headers: HeaderMap,
+) -> Result<Response, ApiError> {
+    let units = params.units.unwrap_or_default();
+    let version = state.forecaster.board_version();
+    let cached = state.exceedance_cache.entries.read().ok().and_then(|e| {
+        e.iter()
+            .find(|(v, u, _, _)| *v == version && *u == units)
+            .map(|(_, _, b, t)| (b.clone(), t.clone()))
+    });
+    let (body, etag) = match cached {
+        Some(hit) => hit,
+        None => render(&state, units)?,
+    };
+    if not_modified(&headers, &etag) {
+        return Ok(with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag));
+    }
+    let mut r = Response::new(Body::from(body));
+    r.headers_mut().insert(
+        header::CONTENT_TYPE,
+        HeaderValue::from_static("application/json"),
+    );
+    Ok(with_etag(r, &etag))
+}

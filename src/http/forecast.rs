@@ -1,0 +1,269 @@
+//! The forecast of a reach: `GET /api/reaches/{reach}/forecast` and
+//! `GET /api/reaches/{reach}/forecast/points/{point}`, as JSON or CSV
+//! (`format=`, else the `Accept` header), in SI or US customary units
+//! (`units=`), with a weak `ETag` that holds while the meaning does.
+
+use std::collections::HashMap;
+
+use axum::{
+    Json, Router,
+    extract::{Path, Query, State},
+    http::{HeaderMap, HeaderValue, StatusCode, header},
+    response::{IntoResponse, Response},
+    routing::get,
+};
+use chrono::{DateTime, Utc};
+use serde::Deserialize;
+
+use super::{
+    AppState,
+    auth::ReadAccess,
+    conditional::{fnv, not_modified, vary_accept, with_etag},
+    error::ApiError,
+    reaches::{find_reach, not_found},
+};
+use crate::{
+    forecast::{
+        document::{self, ForecastDoc, Inputs},
+        record::{RunRecord, RunStatus, StoredResults},
+        spec::Units,
+        view::{self, Freshness, FreshnessInput, ObservedStage},
+    },
+    store::ReachVersion,
+};
+
+pub fn router() -> Router<AppState> {
+    Router::new()
+        .route("/reaches/{reach}/forecast", get(forecast))
+        .route(
+            "/reaches/{reach}/forecast/points/{point}",
+            get(point_forecast),
+        )
+}
+
+/// `format=` of a read.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub(super) enum Format {
+    Json,
+    Csv,
+}
+
+/// Query parameters of the forecast reads.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(super) struct ForecastParams {
+    units: Option<Units>,
+    format: Option<Format>,
+}
+
+/// CSV when asked by `format=csv`, or by `Accept: text/csv` without one.
+fn wants_csv(format: Option<Format>, headers: &HeaderMap) -> bool {
+    match format {
+        Some(f) => f == Format::Csv,
+        None => headers
+            .get(header::ACCEPT)
+            .and_then(|v| v.to_str().ok())
+            .is_some_and(|a| a.contains("text/csv")),
+    }
+}
+
+/// The latest good run of a reach and everything the document needs.
+struct Loaded {
+    reach: ReachVersion,
+    run: RunRecord,
+    last_failure: Option<RunRecord>,
+}
+
+impl Loaded {
+    fn results(&self) -> Result<&StoredResults, ApiError> {
+        self.run.results.as_ref().ok_or_else(|| {
+            ApiError::Internal(anyhow::anyhow!("run {} has no results", self.run.id))
+        })
+    }
+}
+
+async fn load_latest(state: &AppState, id: &str) -> Result<Loaded, ApiError> {
+    let reach = find_reach(state, id).await?;
+    let run = state
+        .store
+        .latest_run(id, Some(RunStatus::Ok))
+        .await?
+        .ok_or_else(|| {
+            not_found(
+                "No forecast yet",
+                format!("reach `{id}` has no successful forecast run yet"),
+                "reach",
+            )
+        })?;
+    let latest_any = state.store.latest_run(id, None).await?;
+    let last_failure = latest_any.filter(|r| r.status == RunStatus::Failed && r.id > run.id);
+    Ok(Loaded {
+        reach,
+        run,
+        last_failure,
+    })
+}
+
+/// The freshness verdict of a loaded run: cheap (one indexed query), so it
+/// is computed before the validator and a 304 costs no more than this.
+async fn freshness_of(
+    state: &AppState,
+    l: &Loaded,
+    now: DateTime<Utc>,
+) -> Result<Freshness, ApiError> {
+    let gauge = l.reach.spec.service.upstream_gauge.as_deref();
+    let last_reading_at = match gauge {
+        Some(g) => state
+            .store
+            .last_usable_reading_ms(g)
+            .await?
+            .and_then(DateTime::from_timestamp_millis),
+        None => None,
+    };
+    let cfg = state.forecaster.config();
+    Ok(view::freshness(&FreshnessInput {
+        now,
+        run_finished: l.run.finished_at.unwrap_or(now),
+        inflow_stale: l.run.provenance.inflow_stale(),
+        last_reading_at,
+        has_gauge: gauge.is_some(),
+        stale_after_s: i64::try_from(cfg.stale_after_minutes * 60).unwrap_or(i64::MAX),
+        run_overdue_s: i64::try_from(cfg.interval_minutes * 120 + 300).unwrap_or(i64::MAX),
+    }))
+}
+
+/// Usable stage readings of every point gauge over the run's window.
+async fn observations(
+    state: &AppState,
+    l: &Loaded,
+    from: DateTime<Utc>,
+    now: DateTime<Utc>,
+) -> Result<HashMap<String, Vec<ObservedStage>>, ApiError> {
+    let mut observed = HashMap::new();
+    for g in l.reach.spec.points.iter().filter_map(|p| p.gauge.as_ref()) {
+        let rows = state
+            .store
+            .readings_for_forecast(g, from.timestamp_millis(), now.timestamp_millis())
+            .await?;
+        let stages = rows
+            .into_iter()
+            .filter(|r| r.3)
+            .filter_map(|(ms, stage, _, _)| {
+                Some(ObservedStage {
+                    time: DateTime::from_timestamp_millis(ms)?,
+                    stage: stage?,
+                })
+            })
+            .collect();
+        observed.insert(g.clone(), stages);
+    }
+    Ok(observed)
+}
+
+async fn build_doc(
+    state: &AppState,
+    l: &Loaded,
+    units: Units,
+    now: DateTime<Utc>,
+    fresh: Freshness,
+) -> Result<ForecastDoc, ApiError> {
+    let results = l.results()?;
+    let observed = observations(state, l, results.start, now).await?;
+    let inputs = Inputs {
+        reach_id: &l.reach.reach_id,
+        reach_version: l.reach.version,
+        spec: &l.reach.spec,
+        run: &l.run,
+        results,
+        last_failure: l.last_failure.as_ref(),
+        observed: &observed,
+        units,
+        now,
+    };
+    Ok(document::build(&inputs, fresh))
+}
+
+/// A weak validator: the representation changes with every request (ages,
+/// `now`) but means the same until the run, the stale verdict or the
+/// newest reading changes (RFC 9110 §8.8.1).
+fn forecast_etag(run_id: i64, fresh: &Freshness, units: Units, csv: bool) -> String {
+    // The stale reasons quote ages in whole minutes, so they are part of
+    // the validator: a page polling with If-None-Match sees them change.
+    let reasons = fnv(fresh.reasons.join("|").as_bytes());
+    format!(
+        "W/\"run{run_id}-{}-{}-{}-{}-{reasons:x}\"",
+        if units == Units::Us { "us" } else { "si" },
+        if csv { "csv" } else { "json" },
+        u8::from(fresh.stale),
+        fresh.last_reading_at.map_or(0, |t| t.timestamp_millis())
+    )
+}
+
+fn csv_response(body: Result<String, csv::Error>) -> Result<Response, ApiError> {
+    let body = body.map_err(|e| ApiError::Internal(anyhow::anyhow!("writing CSV: {e}")))?;
+    Ok((
+        [(
+            header::CONTENT_TYPE,
+            HeaderValue::from_static("text/csv; charset=utf-8; header=present"),
+        )],
+        body,
+    )
+        .into_response())
+}
+
+async fn forecast(
+    _: ReadAccess,
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+    Query(params): Query<ForecastParams>,
+    headers: HeaderMap,
+) -> Result<Response, ApiError> {
+    let l = load_latest(&state, &id).await?;
+    let units = params.units.unwrap_or(l.reach.spec.service.units);
+    let csv = wants_csv(params.format, &headers);
+    let now = Utc::now();
+    let fresh = freshness_of(&state, &l, now).await?;
+    let etag = forecast_etag(l.run.id, &fresh, units, csv);
+    if not_modified(&headers, &etag) {
+        return Ok(vary_accept(with_etag(
+            StatusCode::NOT_MODIFIED.into_response(),
+            &etag,
+        )));
+    }
+    let doc = build_doc(&state, &l, units, now, fresh).await?;
+    let response = if csv {
+        csv_response(doc.csv(None))?
+    } else {
+        Json(&doc).into_response()
+    };
+    Ok(vary_accept(with_etag(response, &etag)))
+}
+
+async fn point_forecast(
+    _: ReadAccess,
+    State(state): State<AppState>,
+    Path((id, point)): Path<(String, String)>,
+    Query(params): Query<ForecastParams>,
+    headers: HeaderMap,
+) -> Result<Response, ApiError> {
+    let l = load_latest(&state, &id).await?;
+    let units = params.units.unwrap_or(l.reach.spec.service.units);
+    let csv = wants_csv(params.format, &headers);
+    let now = Utc::now();
+    let fresh = freshness_of(&state, &l, now).await?;
+    let doc = build_doc(&state, &l, units, now, fresh).await?;
+    let Some(p) = doc.point(&point) else {
+        return Err(not_found(
+            "Unknown point",
+            format!("reach `{id}` has no point of interest named `{point}`"),
+            "point",
+        ));
+    };
+    let response = if csv {
+        csv_response(doc.csv(Some(&point)))?
+    } else {
+        Json(&p).into_response()
+    };
+    Ok(vary_accept(response))
+}

@@ -1,0 +1,154 @@
+//! Forecast runs: `GET /api/reaches/{reach}/runs` (newest first, `limit`),
+//! `GET /api/runs/{id}` (with results), and `POST /api/reaches/{reach}/runs`
+//! (forecaster; `wait=true` answers when the run has finished).
+
+use axum::{
+    Json, Router,
+    extract::{Path, Query, State},
+    http::StatusCode,
+    response::{IntoResponse, Response},
+    routing::get,
+};
+use chrono::{DateTime, Utc};
+use serde::{Deserialize, Serialize};
+
+use super::{
+    AppState,
+    auth::{Forecasting, ReadAccess, RequireRole},
+    error::{ApiError, Problem},
+    reaches::{find_reach, not_found},
+};
+use crate::{
+    CAUTION,
+    forecast::record::{RunProvenance, RunRecord, RunStatus, StoredResults},
+};
+
+pub fn router() -> Router<AppState> {
+    Router::new()
+        .route("/reaches/{reach}/runs", get(list_runs).post(trigger))
+        .route("/runs/{id}", get(run_by_id))
+}
+
+/// A run as the API shows it.
+#[derive(Serialize)]
+struct RunView<'a> {
+    id: i64,
+    reach: &'a str,
+    reach_version: i64,
+    status: RunStatus,
+    #[serde(with = "crate::wire_time")]
+    started_at: DateTime<Utc>,
+    #[serde(with = "crate::wire_time::option")]
+    finished_at: Option<DateTime<Utc>>,
+    error: Option<&'a str>,
+    provenance: &'a RunProvenance,
+    /// Only for a single run.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    results: Option<&'a StoredResults>,
+}
+
+impl<'a> RunView<'a> {
+    fn of(r: &'a RunRecord) -> Self {
+        Self {
+            id: r.id,
+            reach: &r.reach_id,
+            reach_version: r.reach_version,
+            status: r.status,
+            started_at: r.started_at,
+            finished_at: r.finished_at,
+            error: r.error.as_deref(),
+            provenance: &r.provenance,
+            results: None,
+        }
+    }
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ListParams {
+    limit: Option<i64>,
+}
+
+async fn list_runs(
+    _: ReadAccess,
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+    Query(params): Query<ListParams>,
+) -> Result<Response, ApiError> {
+    find_reach(&state, &id).await?;
+    let limit = params.limit.unwrap_or(50);
+    if !(1..=1000).contains(&limit) {
+        return Err(Problem::invalid("limit", "must be between 1 and 1000").into());
+    }
+    let runs = state.store.runs(&id, limit).await?;
+    Ok(Json(serde_json::json!({
+        "caution": CAUTION,
+        "runs": runs.iter().map(RunView::of).collect::<Vec<_>>(),
+    }))
+    .into_response())
+}
+
+#[derive(Serialize)]
+struct RunDoc<'a> {
+    caution: &'static str,
+    #[serde(flatten)]
+    run: RunView<'a>,
+}
+
+async fn run_by_id(
+    _: ReadAccess,
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+) -> Result<Response, ApiError> {
+    let n: i64 = id
+        .parse()
+        .map_err(|_| Problem::invalid("id", format!("`{id}` is not a run id")))?;
+    let run = state
+        .store
+        .run(n)
+        .await?
+        .ok_or_else(|| not_found("Unknown run", format!("there is no run {n}"), "id"))?;
+    let mut view = RunView::of(&run);
+    view.results = run.results.as_ref();
+    Ok(Json(RunDoc {
+        caution: CAUTION,
+        run: view,
+    })
+    .into_response())
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct TriggerParams {
+    #[serde(default)]
+    wait: bool,
+}
+
+async fn trigger(
+    _: RequireRole<Forecasting>,
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+    Query(params): Query<TriggerParams>,
+) -> Result<Response, ApiError> {
+    find_reach(&state, &id).await?;
+    if params.wait {
+        let summary = state
+            .forecaster
+            .run_now(&id)
+            .await
+            .map_err(|e| ApiError::Internal(anyhow::anyhow!(e)))?;
+        return Ok(Json(summary).into_response());
+    }
+    let f = state.forecaster.clone();
+    let reach = id.clone();
+    tokio::spawn(async move {
+        if let Err(e) = f.run_now(&reach).await {
+            tracing::error!(reach, error = %e, "triggered run could not start");
+        }
+    });
+    Ok((
+        StatusCode::ACCEPTED,
+        Json(serde_json::json!({"reach": id, "queued": true})),
+    )
+        .into_response())
+}

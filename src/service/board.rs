@@ -1,0 +1,76 @@
+//! The exceedance board: the situation of every (point, threshold) at the
+//! latest good run of each reach, rebuilt when a run lands. Alerting
+//! clients poll it often; it changes only when a run lands, so the API
+//! serves it from a cache keyed by the board's version.
+
+use std::collections::HashMap;
+
+use chrono::Utc;
+
+use super::Forecaster;
+use crate::{
+    forecast::{
+        cap::{RunContext, Situation},
+        record::RunRecord,
+    },
+    store::ReachVersion,
+};
+
+/// The current situations of every reach.
+#[derive(Debug, Default)]
+pub struct Board {
+    by_reach: HashMap<String, Vec<Situation>>,
+}
+
+impl Board {
+    /// Every situation, by reach id, points in the run's (chainage) order.
+    pub fn situations(&self) -> Vec<Situation> {
+        let mut keys: Vec<&String> = self.by_reach.keys().collect();
+        keys.sort();
+        keys.into_iter()
+            .flat_map(|k| self.by_reach[k].iter().cloned())
+            .collect()
+    }
+}
+
+/// The situations of a good run, seen from the time it finished: one per
+/// point and threshold. A run without results (or a point whose forecast
+/// cannot be read) gives none for it.
+pub fn situations_of(reach: &ReachVersion, run: &RunRecord) -> Vec<Situation> {
+    let Some(results) = &run.results else {
+        return Vec::new();
+    };
+    let finished = run.finished_at.unwrap_or_else(Utc::now);
+    let ctx = RunContext {
+        reach_id: reach.reach_id.clone(),
+        reach_name: reach.spec.name.clone(),
+        run_id: run.id,
+        run_finished: finished,
+        stale: run.provenance.inflow_stale(),
+    };
+    results
+        .points
+        .iter()
+        .flat_map(|p| {
+            p.thresholds
+                .iter()
+                .filter_map(|t| Situation::from_forecast(&ctx, p, t, finished).ok())
+                .collect::<Vec<_>>()
+        })
+        .collect()
+}
+
+impl Forecaster {
+    /// Rebuilds the board of `reach` from `run` and returns the run's
+    /// situations, which CAP planning uses.
+    pub(super) fn refresh_board(&self, reach: &ReachVersion, run: &RunRecord) -> Vec<Situation> {
+        let situations = situations_of(reach, run);
+        if let Ok(mut board) = self.inner.board.write() {
+            board
+                .by_reach
+                .insert(reach.reach_id.clone(), situations.clone());
+        }
+        self.inner.board_version.send_modify(|v| *v += 1);
+        situations
+    }
+}

@@ -1,0 +1,233 @@
+//! One forecast run of a reach: load the newest reach version, assemble
+//! the inflow (observed upstream discharge, then the newest upload or the
+//! extrapolation rule), route it on `spawn_blocking`, store results and
+//! provenance, refresh the board and issue the CAP messages due. A run is
+//! recorded whatever happens; a failed run keeps its error and the last
+//! good forecast stays served.
+
+use std::time::Instant;
+
+use chrono::{DateTime, Utc};
+
+use super::{CycleError, Forecaster, RunSummary};
+use crate::{
+    engine::rating::RatingCurve,
+    forecast::{
+        assemble::{self, Extrapolation, GaugeBasis, Reading, Rules},
+        record::{RuleSettings, RunDiagnostics, RunProvenance, RunStatus, StoredResults},
+        run,
+        spec::ReachSpec,
+    },
+    readings::Measures,
+    store::{ReachVersion, StoreError},
+};
+
+/// The readings of the upstream gauge and how to turn them into
+/// discharge, or why the gauge cannot be used.
+type Observed = Result<(Vec<Reading>, GaugeBasis), String>;
+
+impl Forecaster {
+    fn rules(&self) -> Rules {
+        let c = &self.inner.config;
+        let minutes =
+            |m: u64| chrono::Duration::minutes(i64::try_from(m).unwrap_or(i64::MAX / 60_000));
+        Rules {
+            lookback: minutes(c.lookback_hours * 60),
+            horizon: minutes(c.horizon_hours * 60),
+            max_gap: minutes(c.max_gap_minutes),
+            stale_after: minutes(c.stale_after_minutes),
+            step: minutes(c.step_minutes),
+            extrapolation: if c.extrapolation == "recession" {
+                Extrapolation::Recession {
+                    k_hours: c.recession_hours,
+                    base_flow: c.base_flow_m3s,
+                }
+            } else {
+                Extrapolation::Persistence
+            },
+        }
+    }
+
+    /// What is known of a run before its inflow is assembled.
+    fn provenance(&self, reach: &ReachVersion) -> RunProvenance {
+        let c = &self.inner.config;
+        RunProvenance {
+            reach_version: reach.version,
+            method: reach.spec.routing.method,
+            routing: reach.spec.routing.clone(),
+            upstream_gauge: reach.spec.service.upstream_gauge.clone(),
+            rules: RuleSettings {
+                lookback_hours: c.lookback_hours,
+                horizon_hours: c.horizon_hours,
+                max_gap_minutes: c.max_gap_minutes,
+                stale_after_minutes: c.stale_after_minutes,
+                extrapolation: c.extrapolation.clone(),
+            },
+            engine_version: env!("CARGO_PKG_VERSION").to_owned(),
+            ..RunProvenance::default()
+        }
+    }
+
+    /// One forecast run of a reach, recorded whatever happens.
+    #[tracing::instrument(skip(self), fields(run_id))]
+    pub(super) async fn cycle(&self, reach_id: &str) -> Result<RunSummary, CycleError> {
+        let store = &self.inner.store;
+        let reach = store
+            .latest_reach(reach_id)
+            .await?
+            .ok_or_else(|| CycleError::NoReach(reach_id.to_owned()))?;
+        let now = Utc::now();
+        let rules = self.rules();
+        let observed = self.observed(&reach.spec, now, &rules).await?;
+        let upload = store.newest_upload(reach_id).await?;
+        let upload_input = upload.as_ref().map(|u| assemble::Upload {
+            version: u.version,
+            issued_at: u.uploaded_at,
+            issued_by: u.uploaded_by.clone(),
+            series: u.series.clone(),
+        });
+        let mut provenance = self.provenance(&reach);
+        let upload_id = upload.as_ref().map(|u| u.id);
+        let assembled = observed.and_then(|(readings, basis)| {
+            assemble::assemble(now, &readings, &basis, upload_input.as_ref(), &rules)
+                .map_err(|e| format!("inflow: {e}"))
+        });
+        let assembled = match assembled {
+            Ok(a) => a,
+            Err(e) => {
+                let run_id = store
+                    .start_run(reach_id, reach.version, upload_id, &provenance)
+                    .await?;
+                return self.failed(run_id, e, &provenance).await;
+            }
+        };
+        provenance.inflow = Some(assembled.provenance);
+        let run_id = store
+            .start_run(reach_id, reach.version, upload_id, &provenance)
+            .await?;
+        tracing::Span::current().record("run_id", run_id);
+        let spec = reach.spec.clone();
+        let series = assembled.series;
+        let joined = tokio::task::spawn_blocking(move || {
+            let started = Instant::now();
+            let out = run::run(&spec, &series, None);
+            (out, started.elapsed().as_secs_f64())
+        })
+        .await;
+        let (outcome, wall) = match joined {
+            Ok((out, wall)) => (out.map_err(|e| e.to_string()), wall),
+            Err(e) => (Err(format!("routing task failed: {e}")), 0.0),
+        };
+        provenance.wall_time_s = Some(wall);
+        match outcome {
+            Ok(mut out) => {
+                out.diagnostics.wall_time_s = Some(wall);
+                provenance.diagnostics = Some(RunDiagnostics::of(&out));
+                let results = StoredResults::of(out);
+                self.succeeded(&reach, run_id, &results, &provenance, wall)
+                    .await
+            }
+            Err(e) => self.failed(run_id, e, &provenance).await,
+        }
+    }
+
+    async fn succeeded(
+        &self,
+        reach: &ReachVersion,
+        run_id: i64,
+        results: &StoredResults,
+        provenance: &RunProvenance,
+        wall: f64,
+    ) -> Result<RunSummary, CycleError> {
+        let store = &self.inner.store;
+        store.finish_run(run_id, Ok(results), provenance).await?;
+        if let Some(run) = store.run(run_id).await? {
+            let situations = self.refresh_board(reach, &run);
+            self.inner
+                .alerts
+                .after_run(store, reach, run_id, &situations)
+                .await;
+        }
+        tracing::info!(
+            reach = %reach.reach_id,
+            run_id,
+            wall_ms = wall * 1e3,
+            "forecast run ok"
+        );
+        Ok(RunSummary {
+            run_id,
+            status: RunStatus::Ok,
+            error: None,
+        })
+    }
+
+    async fn failed(
+        &self,
+        run_id: i64,
+        error: String,
+        provenance: &RunProvenance,
+    ) -> Result<RunSummary, CycleError> {
+        self.inner
+            .store
+            .finish_run(run_id, Err(&error), provenance)
+            .await?;
+        tracing::warn!(run_id, error = %error, "forecast run failed; the last good forecast stays served");
+        Ok(RunSummary {
+            run_id,
+            status: RunStatus::Failed,
+            error: Some(error),
+        })
+    }
+
+    /// Observed readings of the upstream gauge and how to turn them into
+    /// discharge; `Err` says why the gauge cannot be used.
+    async fn observed(
+        &self,
+        spec: &ReachSpec,
+        now: DateTime<Utc>,
+        rules: &Rules,
+    ) -> Result<Observed, StoreError> {
+        let Some(gauge_id) = spec.service.upstream_gauge.as_deref() else {
+            return Ok(Ok((Vec::new(), GaugeBasis::Discharge)));
+        };
+        let Some(gauge) = self.inner.store.gauge(gauge_id).await? else {
+            return Ok(Err(format!("upstream gauge `{gauge_id}` does not exist")));
+        };
+        let rating = gauge
+            .rating_curve
+            .as_ref()
+            .map(|v| serde_json::from_value::<RatingCurve>(v.clone()));
+        let basis = match (gauge.measures, rating) {
+            (Measures::Discharge, _) | (Measures::Both, None) => GaugeBasis::Discharge,
+            (_, Some(Ok(r))) => GaugeBasis::Stage(r),
+            (_, Some(Err(e))) => {
+                return Ok(Err(format!(
+                    "rating curve of gauge `{gauge_id}` is invalid: {e}"
+                )));
+            }
+            (Measures::Stage, None) => {
+                return Ok(Err(format!(
+                    "gauge `{gauge_id}` reports stage but has no rating curve"
+                )));
+            }
+        };
+        let from = now - rules.lookback - rules.max_gap;
+        let rows = self
+            .inner
+            .store
+            .readings_for_forecast(gauge_id, from.timestamp_millis(), now.timestamp_millis())
+            .await?;
+        let readings = rows
+            .into_iter()
+            .filter_map(|(ms, stage, discharge, usable)| {
+                Some(Reading {
+                    time: DateTime::from_timestamp_millis(ms)?,
+                    stage,
+                    discharge,
+                    usable,
+                })
+            })
+            .collect();
+        Ok(Ok((readings, basis)))
+    }
+}
