@@ -573,14 +573,27 @@ async fn us_units_and_csv() {
         .text()
         .await
         .expect("text");
-    assert!(csv.starts_with("# Advisory model output"));
-    assert!(csv.contains("point,chainage,time,stage_m,discharge_m3_per_s"));
+    // One header vocabulary with `route --out`; the caution is a column
+    // (RFC 4180: a rectangular table, CRLF line ends).
+    assert!(
+        csv.starts_with("reach,run,point,chainage_m,time,stage_m,discharge_m3_per_s,caution\r\n"),
+        "{}",
+        &csv[..200.min(csv.len())]
+    );
+    let mut reader = csv::Reader::from_reader(csv.as_bytes());
+    let rows: Vec<csv::StringRecord> = reader.records().map(|r| r.expect("row")).collect();
+    assert!(!rows.is_empty());
+    assert!(
+        rows.iter()
+            .all(|r| r.len() == 8 && r[7].starts_with("Advisory model output"))
+    );
     let (status, bad) = get_json(
         &s.app,
         &format!("/api/reaches/{REACH}/forecast?units=imperial"),
     )
     .await;
-    assert_eq!(status, 422);
+    // Bad query parameters are 400 everywhere (README, "Errors").
+    assert_eq!(status, 400);
     assert_eq!(bad["field"], "units");
     s.app.stop().await;
 }
@@ -673,4 +686,62 @@ async fn reaches_load_from_a_folder_at_start() {
         msg.contains("from-file.json") && msg.contains("points[0].chainage"),
         "{msg}"
     );
+}
+
+/// Every time in every JSON answer has one shape, RFC 3339 UTC with
+/// milliseconds and `Z` (README, "Times"; RFC 3339 §5.6 allows it). The
+/// first release wrote four shapes, including nanoseconds and `+00:00`.
+#[tokio::test]
+async fn every_json_time_has_one_shape() {
+    let s = setup(60, 600_000).await;
+    post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
+    let run = run_now(&s).await;
+    assert_eq!(run["status"], "ok");
+    let id = run["run_id"].as_i64().expect("run id");
+    let paths = [
+        format!("/api/reaches/{REACH}/forecast"),
+        format!("/api/reaches/{REACH}/runs"),
+        format!("/api/runs/{id}"),
+        format!("/api/reaches/{REACH}"),
+        "/api/reaches".to_owned(),
+        "/api/exceedances".to_owned(),
+    ];
+    let mut seen = 0;
+    for path in &paths {
+        let (status, doc) = get_json(&s.app, path).await;
+        assert_eq!(status, 200, "{path}");
+        seen += check_times(&doc, path);
+    }
+    assert!(seen > 100, "only {seen} times checked");
+    s.app.stop().await;
+}
+
+/// Counts the strings that look like a time and asserts each has the one
+/// shape `YYYY-MM-DDThh:mm:ss.sssZ`.
+fn check_times(v: &serde_json::Value, path: &str) -> usize {
+    match v {
+        serde_json::Value::String(t)
+            if t.len() >= 19
+                && t.as_bytes()[10] == b'T'
+                && t[..4].bytes().all(|b| b.is_ascii_digit()) =>
+        {
+            let b = t.as_bytes();
+            let shape = t.len() == 24
+                && b[4] == b'-'
+                && b[7] == b'-'
+                && b[13] == b':'
+                && b[16] == b':'
+                && b[19] == b'.'
+                && b[23] == b'Z'
+                && chrono::DateTime::parse_from_rfc3339(t).is_ok();
+            assert!(
+                shape,
+                "{path}: time `{t}` is not RFC 3339 UTC with milliseconds and Z"
+            );
+            1
+        }
+        serde_json::Value::Array(a) => a.iter().map(|x| check_times(x, path)).sum(),
+        serde_json::Value::Object(o) => o.values().map(|x| check_times(x, path)).sum(),
+        _ => 0,
+    }
 }

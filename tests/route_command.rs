@@ -56,21 +56,22 @@ fn route_prints_summary_and_writes_hydrographs() {
     assert!(stdout.contains("mass balance error"));
 
     let csv = std::fs::read_to_string(&out_csv).expect("results written");
+    // The same table as the API's forecast CSV: one header vocabulary, the
+    // caution in a column of its own on every row (RFC 4180, CRLF).
     assert!(
-        csv.starts_with("# Advisory model output"),
-        "caution first in the CSV"
+        csv.starts_with("reach,run,point,chainage_m,time,stage_m,discharge_m3_per_s,caution\r\n"),
+        "one header vocabulary"
     );
-    let mut reader = csv::ReaderBuilder::new()
-        .comment(Some(b'#'))
-        .from_reader(csv.as_bytes());
+    let mut reader = csv::ReaderBuilder::new().from_reader(csv.as_bytes());
     let rows: Vec<csv::StringRecord> = reader.records().map(|r| r.expect("row")).collect();
     // 72 h at 15-minute output, inclusive of both ends: 289 rows per point.
     let span = (inflow[inflow.len() - 1].0 - inflow[0].0).num_seconds() as usize;
     let per_point = span / 900 + 1;
     assert_eq!(rows.len(), spec.points.len() * per_point);
     for r in &rows {
-        let stage: f64 = r[3].parse().expect("stage");
-        let q: f64 = r[4].parse().expect("discharge");
+        let stage: f64 = r[5].parse().expect("stage");
+        let q: f64 = r[6].parse().expect("discharge");
+        assert_eq!(&r[7], reachcast::CAUTION);
         assert!(stage.is_finite() && q.is_finite() && q >= 0.0);
     }
 }
@@ -112,7 +113,7 @@ fn route_names_the_bad_field() {
     assert!(!out.status.success());
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(
-        stderr.contains("line 3") && stderr.contains("time"),
+        stderr.contains("row 2") && stderr.contains("time"),
         "{stderr}"
     );
 }

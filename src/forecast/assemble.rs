@@ -109,6 +109,7 @@ pub const MAX_STEPS: i64 = 200_000;
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Reading {
     /// When the reading was taken.
+    #[serde(with = "crate::wire_time")]
     pub time: DateTime<Utc>,
     /// Stage (m), if the gauge reports one.
     pub stage: Option<f64>,
@@ -136,6 +137,7 @@ pub struct Upload {
     /// Version number, shown to users.
     pub version: i64,
     /// When it was issued.
+    #[serde(with = "crate::wire_time")]
     pub issued_at: DateTime<Utc>,
     /// Who issued it.
     pub issued_by: String,
@@ -279,8 +281,10 @@ pub enum Source {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Gap {
     /// Start (the earlier sample).
+    #[serde(with = "crate::wire_time")]
     pub from: DateTime<Utc>,
     /// End (the later sample).
+    #[serde(with = "crate::wire_time")]
     pub to: DateTime<Utc>,
 }
 
@@ -289,8 +293,10 @@ pub struct Gap {
 pub struct Provenance {
     /// First observation used (after a long-gap restart); `None` without
     /// observations.
+    #[serde(with = "crate::wire_time::option")]
     pub observed_from: Option<DateTime<Utc>>,
     /// Last observation used: the forecast part starts after it.
+    #[serde(with = "crate::wire_time::option")]
     pub observed_to: Option<DateTime<Utc>>,
     /// Number of observations used (interpolated samples not counted).
     pub observed_count: usize,
@@ -315,11 +321,13 @@ pub struct Provenance {
     /// Version of the upload used, if one was.
     pub upload_version: Option<i64>,
     /// When the upload used was issued.
+    #[serde(with = "crate::wire_time::option")]
     pub upload_issued_at: Option<DateTime<Utc>>,
     /// Who issued the upload used.
     pub upload_issued_by: Option<String>,
     /// After this time the series comes from the extrapolation rule (the
     /// last observation, or the end of an upload that ended early).
+    #[serde(with = "crate::wire_time::option")]
     pub extrapolated_from: Option<DateTime<Utc>>,
     /// Seconds from the newest usable reading to `now`; `None` when there is
     /// none.
@@ -1633,7 +1641,7 @@ mod tests {
                 .collect();
             let upload = (g.int(0, 1) == 0).then(|| {
                 let mut t = g.int(-40 * 60, 60 * 60);
-                let points: Vec<(i64, f64)> = (0..g.int(1, 10))
+                let points: Vec<(i64, f64)> = (0..g.int(2, 10))
                     .map(|_| {
                         t += g.int(1, 600);
                         (t, 800.0 * g.unit())
@@ -1653,6 +1661,8 @@ mod tests {
                 }
                 Err(AssembleError::NoData) => assert!(upload.is_none(), "case {case}"),
                 Err(AssembleError::UploadOutsideWindow { .. }) => {}
+                // A random step can ask for more samples than MAX_STEPS.
+                Err(AssembleError::InvalidRule { field: "step", .. }) => {}
                 Err(e) => panic!("case {case}: unexpected {e}"),
             }
         }

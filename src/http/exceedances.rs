@@ -9,7 +9,7 @@ use std::sync::RwLock;
 use axum::{
     Router,
     body::{Body, Bytes},
-    extract::{Query, State},
+    extract::State,
     http::{HeaderMap, HeaderValue, StatusCode, header},
     response::{IntoResponse, Response},
     routing::get,
@@ -22,6 +22,7 @@ use super::{
     auth::ReadAccess,
     conditional::{fnv, not_modified, with_etag},
     error::ApiError,
+    query::Query,
 };
 use crate::{
     CAUTION,
@@ -101,10 +102,20 @@ struct Doc<'a> {
     items: Vec<Item<'a>>,
 }
 
+/// The board is JSON only; `format=json` is accepted for clients that
+/// send it to every endpoint.
+#[derive(Debug, Deserialize)]
+#[serde(rename_all = "lowercase")]
+enum JsonOnly {
+    Json,
+}
+
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct Params {
     units: Option<Units>,
+    #[serde(rename = "format")]
+    _format: Option<JsonOnly>,
 }
 
 /// The serialized answer and its validator.

@@ -7,7 +7,7 @@ use std::collections::HashMap;
 
 use axum::{
     Json, Router,
-    extract::{Path, Query, State},
+    extract::{Path, State},
     http::{HeaderMap, HeaderValue, StatusCode, header},
     response::{IntoResponse, Response},
     routing::get,
@@ -20,6 +20,7 @@ use super::{
     auth::ReadAccess,
     conditional::{fnv, not_modified, vary_accept, with_etag},
     error::ApiError,
+    query::Query,
     reaches::{find_reach, not_found},
 };
 use crate::{

@@ -14,7 +14,7 @@
 use axum::{
     Json, Router,
     body::Bytes,
-    extract::{Path, Query, State},
+    extract::{Path, State},
     http::{HeaderMap, StatusCode, header},
     response::{IntoResponse, Response},
     routing::{get, post},
@@ -25,6 +25,7 @@ use super::{
     AppState,
     auth::{Forecasting, ReadAccess, RequireRole},
     error::{ApiError, Problem, parse_json},
+    query::Query,
 };
 use crate::{
     CAUTION,

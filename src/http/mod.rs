@@ -17,6 +17,7 @@ pub mod gauges;
 pub mod health;
 pub mod inflows;
 pub mod openapi;
+pub mod query;
 pub mod reaches;
 pub mod readings;
 pub mod runs;

@@ -4,7 +4,7 @@
 
 use axum::{
     Json, Router,
-    extract::{Path, Query, State},
+    extract::{Path, State},
     http::StatusCode,
     response::{IntoResponse, Response},
     routing::get,
@@ -16,6 +16,7 @@ use super::{
     AppState,
     auth::{Forecasting, ReadAccess, RequireRole},
     error::{ApiError, Problem},
+    query::Query,
     reaches::{find_reach, not_found},
 };
 use crate::{
