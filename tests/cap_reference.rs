@@ -1,5 +1,6 @@
-//! Rendered CAP 1.2 messages and the Atom index, parsed back with an
-//! independent XML parser (quick-xml) and checked against the standards.
+//! Rendered CAP 1.2 messages and the Atom index, parsed back with
+//! quick-xml's namespace-aware reader (strict about well-formedness) and
+//! checked against the standards, not against how they were written.
 //!
 //! Sources: OASIS CAP 1.2 (2010) section numbers; RFC 4287 (Atom) section
 //! numbers; RFC 3339 for Atom dates. Details recalled rather than re-read are

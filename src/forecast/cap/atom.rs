@@ -1,11 +1,9 @@
 //! The Atom (RFC 4287) index of current CAP messages.
 
-use std::fmt::Write as _;
-
 use chrono::{DateTime, Utc};
 
 use super::lexical::{atom_time, check_uri};
-use super::xml::{element, xml_escape};
+use super::xml::XmlDoc;
 use super::{ATOM_MEDIA_TYPE, ATOM_NAMESPACE, CAP_MEDIA_TYPE, CapError, Planned, headline};
 use crate::CAUTION;
 
@@ -75,36 +73,35 @@ pub fn render_atom(
             return Err(CapError::Empty("entry title"));
         }
     }
-    let mut x = String::new();
-    x.push_str("<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n");
-    let _ = writeln!(x, "<feed xmlns=\"{ATOM_NAMESPACE}\">");
-    let f = "  ";
-    element(&mut x, f, "id", &feed.id);
-    element(&mut x, f, "title", &feed.title);
-    element(&mut x, f, "updated", &atom_time(updated));
-    let _ = writeln!(
-        x,
-        "{f}<link rel=\"self\" type=\"{ATOM_MEDIA_TYPE}\" href=\"{}\"/>",
-        xml_escape(&feed.self_url)
-    );
-    let _ = writeln!(x, "{f}<author>");
-    element(&mut x, "    ", "name", &feed.author_name);
-    let _ = writeln!(x, "{f}</author>");
-    element(&mut x, f, "subtitle", CAUTION);
+    let mut x = XmlDoc::new()?;
+    x.start("feed", &[("xmlns", ATOM_NAMESPACE)])?;
+    x.text("id", &feed.id)?;
+    x.text("title", &feed.title)?;
+    x.text("updated", &atom_time(updated))?;
+    let self_link = [
+        ("rel", "self"),
+        ("type", ATOM_MEDIA_TYPE),
+        ("href", feed.self_url.as_str()),
+    ];
+    x.empty("link", &self_link)?;
+    x.start("author", &[])?;
+    x.text("name", &feed.author_name)?;
+    x.end("author")?;
+    x.text("subtitle", CAUTION)?;
     for e in entries {
-        let n = "    ";
-        let _ = writeln!(x, "{f}<entry>");
-        element(&mut x, n, "id", &e.id);
-        element(&mut x, n, "title", &e.title);
-        element(&mut x, n, "updated", &atom_time(e.updated));
-        let _ = writeln!(
-            x,
-            "{n}<link rel=\"alternate\" type=\"{CAP_MEDIA_TYPE}\" href=\"{}\"/>",
-            xml_escape(&e.cap_url)
-        );
-        element(&mut x, n, "summary", &e.summary);
-        let _ = writeln!(x, "{f}</entry>");
+        x.start("entry", &[])?;
+        x.text("id", &e.id)?;
+        x.text("title", &e.title)?;
+        x.text("updated", &atom_time(e.updated))?;
+        let link = [
+            ("rel", "alternate"),
+            ("type", CAP_MEDIA_TYPE),
+            ("href", e.cap_url.as_str()),
+        ];
+        x.empty("link", &link)?;
+        x.text("summary", &e.summary)?;
+        x.end("entry")?;
     }
-    x.push_str("</feed>\n");
-    Ok(x)
+    x.end("feed")?;
+    x.finish()
 }

@@ -1,12 +1,10 @@
 //! The CAP 1.2 XML document of a planned message.
 
-use std::fmt::Write as _;
-
 use chrono::{DateTime, Duration, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::lexical::{cap_time, check_uri, is_cap_token, truncate_seconds};
-use super::xml::element;
+use super::xml::XmlDoc;
 use super::{
     CAP_NAMESPACE, CapError, Circle, MsgType, Planned, Reference, Subject, categories, certainty,
     description, event, headline, instruction, parameters, response_type, severity, urgency,
@@ -134,101 +132,96 @@ pub fn render_cap(msg: &Planned, opts: &CapOptions) -> Result<String, CapError> 
     if let Some(web) = &opts.web {
         check_uri("web", web)?;
     }
-    let circle = msg.situation().and_then(|s| s.location);
-    if let Some(c) = &circle {
-        check_circle(c)?;
+    if let Some(c) = msg.situation().and_then(|s| s.location) {
+        check_circle(&c)?;
     }
-    let expires = expires(msg, opts.validity)?;
 
-    let mut x = String::new();
-    x.push_str("<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n");
-    let _ = writeln!(x, "<alert xmlns=\"{CAP_NAMESPACE}\">");
-    let a = "  ";
-    element(&mut x, a, "identifier", &msg.identifier);
-    element(&mut x, a, "sender", &msg.sender);
-    element(&mut x, a, "sent", &cap_time(msg.sent));
-    element(&mut x, a, "status", opts.status.cap_value());
-    element(&mut x, a, "msgType", msg.msg_type.cap_value());
-    element(&mut x, a, "scope", "Public");
+    let mut x = XmlDoc::new()?;
+    x.start("alert", &[("xmlns", CAP_NAMESPACE)])?;
+    x.text("identifier", &msg.identifier)?;
+    x.text("sender", &msg.sender)?;
+    x.text("sent", &cap_time(msg.sent))?;
+    x.text("status", opts.status.cap_value())?;
+    x.text("msgType", msg.msg_type.cap_value())?;
+    x.text("scope", "Public")?;
     if !msg.references.is_empty() {
         let refs: Vec<String> = msg.references.iter().map(Reference::triple).collect();
-        element(&mut x, a, "references", &refs.join(" "));
+        x.text("references", &refs.join(" "))?;
     }
-    let _ = writeln!(x, "{a}<info>");
-    let i = "    ";
-    element(&mut x, i, "language", &opts.language);
+    write_info(&mut x, msg, opts)?;
+    x.end("alert")?;
+    x.finish()
+}
+
+/// The `info` block, in schema order (see [`render_cap`]).
+fn write_info(x: &mut XmlDoc, msg: &Planned, opts: &CapOptions) -> Result<(), CapError> {
+    x.start("info", &[])?;
+    x.text("language", &opts.language)?;
     for c in categories(msg) {
-        element(&mut x, i, "category", c);
+        x.text("category", c)?;
     }
-    element(&mut x, i, "event", &event(msg));
+    x.text("event", &event(msg))?;
     if let Some(r) = response_type(msg) {
-        element(&mut x, i, "responseType", r);
+        x.text("responseType", r)?;
     }
-    element(&mut x, i, "urgency", urgency(msg));
-    element(&mut x, i, "severity", severity(msg));
-    element(&mut x, i, "certainty", certainty(msg));
+    x.text("urgency", urgency(msg))?;
+    x.text("severity", severity(msg))?;
+    x.text("certainty", certainty(msg))?;
     if msg.msg_type != MsgType::Cancel
         && let Some(t) = msg.situation().and_then(|s| s.first_above)
     {
-        element(&mut x, i, "onset", &cap_time(t));
+        x.text("onset", &cap_time(t))?;
     }
-    element(&mut x, i, "expires", &cap_time(expires));
+    x.text("expires", &cap_time(expires(msg, opts.validity)?))?;
     if !opts.sender_name.trim().is_empty() {
-        element(&mut x, i, "senderName", &opts.sender_name);
+        x.text("senderName", &opts.sender_name)?;
     }
-    element(&mut x, i, "headline", &headline(msg));
-    element(&mut x, i, "description", &description(msg));
-    element(&mut x, i, "instruction", instruction());
+    x.text("headline", &headline(msg))?;
+    x.text("description", &description(msg))?;
+    x.text("instruction", instruction())?;
     if let Some(web) = &opts.web {
-        element(&mut x, i, "web", web);
+        x.text("web", web)?;
     }
-    let p = "      ";
     for (name, value) in parameters(msg) {
-        let _ = writeln!(x, "{i}<parameter>");
-        element(&mut x, p, "valueName", name);
-        element(&mut x, p, "value", &value);
-        let _ = writeln!(x, "{i}</parameter>");
+        x.start("parameter", &[])?;
+        x.text("valueName", name)?;
+        x.text("value", &value)?;
+        x.end("parameter")?;
     }
-    let _ = writeln!(x, "{i}<area>");
+    x.start("area", &[])?;
     let area_desc = match &msg.subject {
         Subject::Forecast(s) => format!("{}, {}", s.point_name, s.reach_name),
         Subject::Withdrawn { reach_name } => format!("{}, {}", msg.key.point, reach_name),
     };
-    element(&mut x, p, "areaDesc", &area_desc);
-    if let Some(c) = circle {
-        element(
-            &mut x,
-            p,
-            "circle",
-            &format!("{:.6},{:.6} {:.3}", c.lat, c.lon, c.radius_km),
-        );
+    x.text("areaDesc", &area_desc)?;
+    if let Some(c) = msg.situation().and_then(|s| s.location) {
+        let circle = format!("{:.6},{:.6} {:.3}", c.lat, c.lon, c.radius_km);
+        x.text("circle", &circle)?;
     }
-    let _ = writeln!(x, "{i}</area>");
-    let _ = writeln!(x, "{a}</info>");
-    x.push_str("</alert>\n");
-    Ok(x)
+    x.end("area")?;
+    x.end("info")
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
     use crate::forecast::cap::fixtures::{SENDER, situation, t};
-    use crate::forecast::cap::{plan, xml_escape};
+    use crate::forecast::cap::plan;
 
     #[test]
     fn special_characters_in_names_are_escaped() {
-        assert_eq!(
-            xml_escape("a<b & c>d \"e\" 'f'"),
-            "a&lt;b &amp; c&gt;d &quot;e&quot; &apos;f&apos;"
-        );
-        assert_eq!(xml_escape("bell\u{7}"), "bell\u{FFFD}");
         let mut s = situation();
-        s.point_name = "Mill <Lane> & \"Ford\" 'Crossing'".into();
+        s.point_name = "Mill <Lane> & \"Ford\" 'Crossing'\u{7}".into();
         let p = plan(&[], &[s], t(6, 0), SENDER).expect("plan");
         let xml = render_cap(&p[0], &CapOptions::default()).expect("render");
-        assert!(xml.contains("Mill &lt;Lane&gt; &amp; &quot;Ford&quot; &apos;Crossing&apos;"));
+        // XML 1.0 §2.4: `<` and `&` never appear raw in text; §2.2: U+0007
+        // is no XML character, so it is replaced.
+        assert!(
+            xml.contains("Mill &lt;Lane&gt; &amp; &quot;Ford&quot; &apos;Crossing&apos;\u{FFFD}")
+        );
         assert!(!xml.contains("<Lane>"));
         assert!(!xml.contains("& \""));
+        assert!(!xml.contains('\u{7}'));
     }
 
     #[test]

@@ -10,8 +10,8 @@
 //!    statement, so we only send again when something it relies on changed
 //!    materially; sending on every model run would drown the signal.
 //! 2. [`render_cap`] and [`render_atom`] turn planned messages into XML.
-//!    The XML is written by hand (it is small and fixed in shape), escaping
-//!    every text node and attribute, so the crate needs no XML dependency.
+//!    The XML goes through quick-xml's writer, so escaping is the
+//!    library's job (`xml.rs`).
 //!
 //! Files: `situation.rs` (what a run forecasts for one point and threshold),
 //! `plan.rs` (Alert/Update/Cancel chains and identifiers), `wording.rs`
@@ -61,7 +61,6 @@ pub use wording::{
     EXPECTED_WITHIN, categories, certainty, description, event, headline, instruction, parameters,
     response_type, severity, urgency,
 };
-pub use xml::xml_escape;
 
 /// XML namespace of CAP 1.2 documents (CAP §3.2.1, from memory; also in
 /// shared/REFERENCES.md).
@@ -116,4 +115,8 @@ pub enum CapError {
     /// A time computation went outside the representable range.
     #[error("time out of range")]
     TimeOutOfRange,
+    /// The XML writer reported an error (not expected when writing to
+    /// memory).
+    #[error("writing XML: {0}")]
+    Xml(String),
 }
