@@ -23,7 +23,7 @@ use chrono::{DateTime, Duration, Utc};
 use crate::{
     config::{AlertsConfig, ForecastConfig},
     forecast::{
-        cap::{self, CapError, CapOptions, Feed, FeedEntry, Issued, Key, Situation},
+        cap::{self, CapError, CapOptions, Feed, FeedEntry, Issued, Issuer, Key, Situation},
         spec::ReachSpec,
     },
     store::{CurrentCap, NewCapMessage, OpenMessage, ReachVersion, Store, StoreError},
@@ -116,7 +116,14 @@ impl Alerter {
         let open = store.cap_open_chains(reach_id).await?;
         check_complete(&open, situations, &reach.spec)?;
         let previous = with_renewals(&open, now, self.renew_within);
-        let planned = cap::plan(&previous, situations, now, &self.sender)?;
+        // The database's identity goes into every identifier, so that two
+        // installs never issue the same one (see `cap::Issuer`).
+        let meta = store.service_meta().await?;
+        let issuer = Issuer {
+            sender: &self.sender,
+            instance: &meta.instance_id,
+        };
+        let planned = cap::plan(&previous, situations, now, &issuer)?;
         let options = CapOptions {
             web: self
                 .base_url
@@ -235,6 +242,11 @@ mod tests {
     use crate::forecast::{
         cap::{Key, Material, MsgType},
         spec::Severity,
+    };
+
+    const ISSUER: Issuer<'static> = Issuer {
+        sender: "reachcast@localhost",
+        instance: "5eed0f1e2d3c4b5a69788796a5b4c3d2",
     };
 
     fn t(h: u32) -> DateTime<Utc> {
@@ -368,14 +380,13 @@ mod tests {
             stale: false,
             location: None,
         };
-        let planned =
-            cap::plan(&p, std::slice::from_ref(&s), t(7), "reachcast@localhost").expect("plan");
+        let planned = cap::plan(&p, std::slice::from_ref(&s), t(7), &ISSUER).expect("plan");
         assert_eq!(planned.len(), 1);
         assert_eq!(planned[0].msg_type, MsgType::Update);
         assert_eq!(planned[0].references.len(), 1);
         // Without renewal the same forecast is unchanged: nothing is sent.
         let plain: Vec<Issued> = open.iter().map(|m| m.issued.clone()).collect();
-        let planned = cap::plan(&plain, &[s], t(7), "reachcast@localhost").expect("plan");
+        let planned = cap::plan(&plain, &[s], t(7), &ISSUER).expect("plan");
         assert!(planned.is_empty());
     }
 }

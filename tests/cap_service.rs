@@ -279,6 +279,13 @@ fn by_threshold(messages: &[Message]) -> HashMap<String, Message> {
     map
 }
 
+/// The identifiers of `messages`, sorted.
+fn ids(messages: &[Message]) -> Vec<String> {
+    let mut v: Vec<String> = messages.iter().map(|m| m.identifier.clone()).collect();
+    v.sort();
+    v
+}
+
 async fn start(dir: &std::path::Path) -> Service {
     let mut config = common::test_config(dir);
     // Runs happen only when the test asks: data-triggered runs wait ten
@@ -351,11 +358,6 @@ async fn alert_update_cancel_chain_through_the_service() {
     assert_eq!(res.headers()["etag"].to_str().expect("etag"), etag1);
     let (_, etag_again, again) = s.feed(feed_path).await;
     assert_eq!(etag_again, etag1);
-    let ids = |ms: &[Message]| {
-        let mut v: Vec<String> = ms.iter().map(|m| m.identifier.clone()).collect();
-        v.sort();
-        v
-    };
     assert_eq!(ids(&again), ids(&messages));
 
     // 3. A bigger flood (120 m³/s): Updates referencing the Alerts, and an
@@ -520,4 +522,39 @@ async fn removing_a_threshold_withdraws_its_chain_only() {
     // The other chain is untouched: its Alert is still the current message.
     assert_eq!(now["Towpath"].identifier, alerts["Towpath"].identifier);
     s.app.stop().await;
+}
+
+#[tokio::test]
+async fn two_fresh_installs_never_issue_the_same_identifier() {
+    // Same configuration, same reach, same storm, same run number: before
+    // identifiers carried the database identity, both installs issued
+    // `reachcast-fernhollow-r1-…`. CAP §3.2.1: the identifier is unique
+    // for the sender, and both use the same sender here.
+    let (dir_a, dir_b) = (
+        tempfile::tempdir().expect("temp dir"),
+        tempfile::tempdir().expect("temp dir"),
+    );
+    let (mut identifiers, mut runs) = (Vec::new(), Vec::new());
+    for dir in [&dir_a, &dir_b] {
+        let s = start(dir.path()).await;
+        s.upload(5.0, 50.0).await;
+        runs.push(s.run().await);
+        let (_, ready) = s.app.get_json("/ready").await;
+        let instance = ready["instance"]["instance_id"]
+            .as_str()
+            .expect("instance id")
+            .to_owned();
+        let (_, _, messages) = s.feed("/api/cap/feed.atom").await;
+        assert_eq!(messages.len(), 2);
+        for m in &messages {
+            assert!(m.identifier.contains(&instance), "{}", m.identifier);
+        }
+        identifiers.push(ids(&messages));
+        s.app.stop().await;
+    }
+    assert_eq!(runs[0], runs[1], "both installs at the same run number");
+    assert!(
+        identifiers[0].iter().all(|i| !identifiers[1].contains(i)),
+        "{identifiers:?}"
+    );
 }

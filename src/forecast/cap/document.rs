@@ -205,14 +205,14 @@ fn write_info(x: &mut XmlDoc, msg: &Planned, opts: &CapOptions) -> Result<(), Ca
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::forecast::cap::fixtures::{SENDER, situation, t};
+    use crate::forecast::cap::fixtures::{ISSUER, situation, t};
     use crate::forecast::cap::plan;
 
     #[test]
     fn special_characters_in_names_are_escaped() {
         let mut s = situation();
         s.point_name = "Mill <Lane> & \"Ford\" 'Crossing'\u{7}".into();
-        let p = plan(&[], &[s], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[s], t(6, 0), &ISSUER).expect("plan");
         let xml = render_cap(&p[0], &CapOptions::default()).expect("render");
         // XML 1.0 §2.4: `<` and `&` never appear raw in text; §2.2: U+0007
         // is no XML character, so it is replaced.
@@ -226,18 +226,18 @@ mod tests {
 
     #[test]
     fn expires_is_validity_or_back_below_whichever_later() {
-        let p = plan(&[], &[situation()], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan");
         // back_below 14:00 is later than 06:00 + 6 h.
         assert_eq!(expires(&p[0], DEFAULT_VALIDITY).expect("expires"), t(14, 0));
         let mut s = situation();
         s.back_below = Some(t(10, 0));
-        let p = plan(&[], &[s], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[s], t(6, 0), &ISSUER).expect("plan");
         assert_eq!(expires(&p[0], DEFAULT_VALIDITY).expect("expires"), t(12, 0));
     }
 
     #[test]
     fn bad_render_inputs_are_typed_errors() {
-        let p = plan(&[], &[situation()], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan");
         let opts = CapOptions {
             web: Some("not a url".into()),
             ..CapOptions::default()
@@ -252,7 +252,7 @@ mod tests {
             lon: 0.0,
             radius_km: 1.0,
         });
-        let p = plan(&[], &[s], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[s], t(6, 0), &ISSUER).expect("plan");
         assert!(matches!(
             render_cap(&p[0], &CapOptions::default()),
             Err(CapError::InvalidCircle(_))

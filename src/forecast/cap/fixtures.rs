@@ -2,10 +2,19 @@
 
 use chrono::{DateTime, TimeZone, Utc};
 
-use super::{Issued, Planned, Situation};
+use super::{Issued, Issuer, Planned, Situation};
 use crate::forecast::spec::{PointKind, Severity};
 
 pub const SENDER: &str = "reachcast@brindlemoor.example";
+
+/// A database identity of the form `service_meta.instance_id` takes (32
+/// lower-case hex digits; invented).
+pub const INSTANCE: &str = "5eed0f1e2d3c4b5a69788796a5b4c3d2";
+
+pub const ISSUER: Issuer<'static> = Issuer {
+    sender: SENDER,
+    instance: INSTANCE,
+};
 
 pub fn t(h: u32, m: u32) -> DateTime<Utc> {
     Utc.with_ymd_and_hms(2031, 3, 14, h, m, 0)

@@ -53,8 +53,8 @@ pub use atom::{Feed, FeedEntry, render_atom};
 pub use document::{CapOptions, DEFAULT_VALIDITY, Status, expires, render_cap};
 pub use lexical::{atom_time, cap_time, is_cap_token};
 pub use plan::{
-    CREST_CHANGE_M, ELEVATION_CHANGE_M, Issued, Material, MsgType, ONSET_SHIFT, Planned, Reference,
-    Subject, plan,
+    CREST_CHANGE_M, ELEVATION_CHANGE_M, Issued, Issuer, Material, MsgType, ONSET_SHIFT, Planned,
+    Reference, Subject, plan,
 };
 pub use situation::{Circle, Key, RunContext, Situation};
 pub use wording::{
@@ -89,6 +89,10 @@ pub enum CapError {
     /// A number in a situation is NaN or infinite.
     #[error("{key}: {field} must be a finite number")]
     NonFinite { key: String, field: &'static str },
+    /// The database identity that goes into identifiers must be ASCII
+    /// letters and digits.
+    #[error("instance id `{0}`: must be non-empty ASCII letters and digits")]
+    InvalidInstance(String),
     /// Two situations share a key, so the plan would be ambiguous.
     #[error("{0}: the same reach, point and threshold appear twice")]
     DuplicateKey(String),

@@ -199,6 +199,69 @@ fn id_part(s: &str) -> String {
     out
 }
 
+/// Who issues the messages: the CAP `sender`, and the identity of the
+/// database they are stored in (`service_meta.instance_id`). Identifiers
+/// carry the instance because neither the sender (often left at its
+/// default) nor the run id (1 again in every new database) tells two
+/// installs apart, and CAP §3.2.1 asks for an identifier unique to the
+/// sender.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Issuer<'a> {
+    pub sender: &'a str,
+    /// ASCII letters and digits (the database's random hex id).
+    pub instance: &'a str,
+}
+
+/// Mints identifiers `reachcast-{instance}-{reach}-{run part}-{digest}`,
+/// appending `-2`, `-3`… to one already in use.
+struct Identifiers<'a> {
+    instance: &'a str,
+    used: HashSet<String>,
+}
+
+impl Identifiers<'_> {
+    fn mint(&mut self, key: &Key, run_part: &str) -> String {
+        let base = format!(
+            "reachcast-{}-{}-{run_part}-{:016x}",
+            self.instance,
+            id_part(&key.reach),
+            key.digest()
+        );
+        let mut id = base.clone();
+        let mut n = 1u32;
+        while self.used.contains(&id) {
+            n += 1;
+            id = format!("{base}-{n}");
+        }
+        self.used.insert(id.clone());
+        id
+    }
+}
+
+/// Per key, the open chain of `previous`: the messages after its last
+/// `Cancel` or inactive message, ordered by `sent` (stable, so messages
+/// sent in the same second keep the caller's order). Closed keys are left
+/// out.
+fn open_chains(previous: &[Issued]) -> BTreeMap<&Key, Vec<&Issued>> {
+    let mut by_key: BTreeMap<&Key, Vec<&Issued>> = BTreeMap::new();
+    for m in previous {
+        by_key.entry(&m.key).or_default().push(m);
+    }
+    let mut chains = BTreeMap::new();
+    for (key, mut msgs) in by_key {
+        msgs.sort_by_key(|m| m.sent);
+        let start = msgs
+            .iter()
+            .rposition(|m| m.msg_type == MsgType::Cancel || !m.active)
+            .map_or(0, |i| i + 1);
+        let chain: Vec<&Issued> = msgs[start..].to_vec();
+        if !chain.is_empty() {
+            chains.insert(key, chain);
+        }
+    }
+    chains
+}
+
 /// Decides which messages to send now.
 ///
 /// Per key (previous messages ordered by `sent`, the open chain being those
@@ -210,19 +273,25 @@ fn id_part(s: &str) -> String {
 /// - not active, or the key is no longer in `current`, with an open chain
 ///   → `Cancel` referencing the whole chain.
 ///
-/// Identifiers are `reachcast-{reach}-r{run}-{digest}` for forecast
-/// messages and `reachcast-{reach}-w{unix seconds}-{digest}` for
-/// withdrawals, with `-2`, `-3`… appended should one already be in use: a
-/// pure function of the inputs, unique because one run yields at most one
-/// message per key. Output order: `current` order, then withdrawals by key.
+/// Identifiers are `reachcast-{instance}-{reach}-r{run}-{digest}` for
+/// forecast messages and `reachcast-{instance}-{reach}-w{unix
+/// seconds}-{digest}` for withdrawals, with `-2`, `-3`… appended should
+/// one already be in use: a pure function of the inputs, unique because
+/// one run yields at most one message per key and the instance differs
+/// between databases. Output order: `current` order, then withdrawals by
+/// key.
 pub fn plan(
     previous: &[Issued],
     current: &[Situation],
     now: DateTime<Utc>,
-    sender: &str,
+    issuer: &Issuer<'_>,
 ) -> Result<Vec<Planned>, CapError> {
+    let sender = issuer.sender;
     if !is_cap_token(sender) {
         return Err(CapError::InvalidSender(sender.to_owned()));
+    }
+    if issuer.instance.is_empty() || !issuer.instance.chars().all(|c| c.is_ascii_alphanumeric()) {
+        return Err(CapError::InvalidInstance(issuer.instance.to_owned()));
     }
     let sent = truncate_seconds(now);
 
@@ -233,35 +302,10 @@ pub fn plan(
             return Err(CapError::DuplicateKey(s.key().to_string()));
         }
     }
-
-    let mut by_key: BTreeMap<&Key, Vec<&Issued>> = BTreeMap::new();
-    for m in previous {
-        by_key.entry(&m.key).or_default().push(m);
-    }
-    let mut chains: BTreeMap<&Key, Vec<&Issued>> = BTreeMap::new();
-    for (key, mut msgs) in by_key {
-        // Stable: messages sent in the same second keep the caller's order.
-        msgs.sort_by_key(|m| m.sent);
-        let start = msgs
-            .iter()
-            .rposition(|m| m.msg_type == MsgType::Cancel || !m.active)
-            .map_or(0, |i| i + 1);
-        let chain: Vec<&Issued> = msgs[start..].to_vec();
-        if !chain.is_empty() {
-            chains.insert(key, chain);
-        }
-    }
-
-    let mut used: HashSet<String> = previous.iter().map(|m| m.identifier.clone()).collect();
-    let mut unique = |base: String| -> String {
-        let mut id = base.clone();
-        let mut n = 1u32;
-        while used.contains(&id) {
-            n += 1;
-            id = format!("{base}-{n}");
-        }
-        used.insert(id.clone());
-        id
+    let chains = open_chains(previous);
+    let mut ids = Identifiers {
+        instance: issuer.instance,
+        used: previous.iter().map(|m| m.identifier.clone()).collect(),
     };
 
     let mut out = Vec::new();
@@ -284,15 +328,9 @@ pub fn plan(
             (false, None) => continue,
         };
         let references = references_of(chain.map(Vec::as_slice).unwrap_or(&[]), sent)?;
-        let identifier = unique(format!(
-            "reachcast-{}-r{}-{:016x}",
-            id_part(&s.reach_id),
-            s.run_id,
-            key.digest()
-        ));
         out.push(Planned {
+            identifier: ids.mint(&key, &format!("r{}", s.run_id)),
             key,
-            identifier,
             sender: sender.to_owned(),
             sent,
             msg_type,
@@ -309,15 +347,9 @@ pub fn plan(
             .iter()
             .find(|s| s.reach_id == key.reach)
             .map_or_else(|| key.reach.clone(), |s| s.reach_name.clone());
-        let identifier = unique(format!(
-            "reachcast-{}-w{}-{:016x}",
-            id_part(&key.reach),
-            sent.timestamp(),
-            key.digest()
-        ));
         out.push(Planned {
             key: (*key).clone(),
-            identifier,
+            identifier: ids.mint(key, &format!("w{}", sent.timestamp())),
             sender: sender.to_owned(),
             sent,
             msg_type: MsgType::Cancel,
@@ -363,7 +395,7 @@ fn references_of(chain: &[&Issued], sent: DateTime<Utc>) -> Result<Vec<Reference
 mod tests {
     use super::*;
     use crate::CAUTION;
-    use crate::forecast::cap::fixtures::{SENDER, issued, situation, t};
+    use crate::forecast::cap::fixtures::{INSTANCE, ISSUER, SENDER, issued, situation, t};
     use crate::forecast::cap::{
         CapOptions, certainty, description, is_cap_token, render_cap, response_type, severity,
         urgency,
@@ -371,12 +403,15 @@ mod tests {
 
     #[test]
     fn new_exceedance_is_an_alert() {
-        let out = plan(&[], &[situation()], t(6, 0), SENDER).expect("plan");
+        let out = plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan");
         assert_eq!(out.len(), 1);
         let m = &out[0];
         assert_eq!(m.msg_type, MsgType::Alert);
         assert!(m.references.is_empty());
-        assert_eq!(m.identifier, "reachcast-brindlemoor-r7-f255937f9c274c04");
+        assert_eq!(
+            m.identifier,
+            format!("reachcast-{INSTANCE}-brindlemoor-r7-f255937f9c274c04")
+        );
         assert!(is_cap_token(&m.identifier));
         assert_eq!(m.sent, t(6, 0));
     }
@@ -386,28 +421,28 @@ mod tests {
         let mut s = situation();
         s.exceeded = false;
         s.first_above = None;
-        assert!(plan(&[], &[s], t(6, 0), SENDER).expect("plan").is_empty());
+        assert!(plan(&[], &[s], t(6, 0), &ISSUER).expect("plan").is_empty());
     }
 
     #[test]
     fn unchanged_forecast_sends_nothing() {
-        let first = plan(&[], &[situation()], t(6, 0), SENDER).expect("plan");
+        let first = plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan");
         let mut s = situation();
         s.run_id = 8;
         s.crest_stage += 0.04; // below the 5 cm rule
         s.first_above = Some(t(9, 14)); // below the 15 min rule
-        let out = plan(&issued(&first), &[s], t(7, 0), SENDER).expect("plan");
+        let out = plan(&issued(&first), &[s], t(7, 0), &ISSUER).expect("plan");
         assert!(out.is_empty(), "{out:?}");
     }
 
     #[test]
     fn material_changes_update_and_reference_the_whole_chain() {
-        let mut history = issued(&plan(&[], &[situation()], t(6, 0), SENDER).expect("plan"));
+        let mut history = issued(&plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan"));
         // Crest up by exactly 5 cm.
         let mut s = situation();
         s.run_id = 8;
         s.crest_stage = 12.45;
-        let up1 = plan(&history, &[s.clone()], t(7, 0), SENDER).expect("plan");
+        let up1 = plan(&history, &[s.clone()], t(7, 0), &ISSUER).expect("plan");
         assert_eq!(up1.len(), 1);
         assert_eq!(up1[0].msg_type, MsgType::Update);
         assert_eq!(up1[0].references.len(), 1);
@@ -416,7 +451,7 @@ mod tests {
         // Onset 15 min earlier: second update references both earlier messages.
         s.run_id = 9;
         s.first_above = Some(t(8, 45));
-        let up2 = plan(&history, &[s.clone()], t(8, 0), SENDER).expect("plan");
+        let up2 = plan(&history, &[s.clone()], t(8, 0), &ISSUER).expect("plan");
         assert_eq!(up2[0].msg_type, MsgType::Update);
         let refs: Vec<&str> = up2[0]
             .references
@@ -441,24 +476,24 @@ mod tests {
         history.extend(issued(&up2));
         s.run_id = 10;
         s.severity = Severity::Severe;
-        let up3 = plan(&history, &[s], t(9, 0), SENDER).expect("plan");
+        let up3 = plan(&history, &[s], t(9, 0), &ISSUER).expect("plan");
         assert_eq!(up3[0].msg_type, MsgType::Update);
         assert_eq!(up3[0].references.len(), 3);
     }
 
     #[test]
     fn comparison_is_against_the_latest_message_not_the_first() {
-        let mut history = issued(&plan(&[], &[situation()], t(6, 0), SENDER).expect("plan"));
+        let mut history = issued(&plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan"));
         let mut s = situation();
         s.run_id = 8;
         s.crest_stage = 12.50;
         history.extend(issued(
-            &plan(&history, &[s.clone()], t(7, 0), SENDER).expect("plan"),
+            &plan(&history, &[s.clone()], t(7, 0), &ISSUER).expect("plan"),
         ));
         s.run_id = 9;
         s.crest_stage = 12.52; // 12 cm above the Alert, 2 cm above the Update
         assert!(
-            plan(&history, &[s], t(8, 0), SENDER)
+            plan(&history, &[s], t(8, 0), &ISSUER)
                 .expect("plan")
                 .is_empty()
         );
@@ -466,12 +501,12 @@ mod tests {
 
     #[test]
     fn dropping_below_cancels_with_references_and_a_new_chain_starts_after() {
-        let mut history = issued(&plan(&[], &[situation()], t(6, 0), SENDER).expect("plan"));
+        let mut history = issued(&plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan"));
         let mut s = situation();
         s.run_id = 8;
         s.crest_stage = 12.6;
         history.extend(issued(
-            &plan(&history, &[s.clone()], t(7, 0), SENDER).expect("plan"),
+            &plan(&history, &[s.clone()], t(7, 0), &ISSUER).expect("plan"),
         ));
         s.run_id = 9;
         s.exceeded = false;
@@ -479,7 +514,7 @@ mod tests {
         s.back_below = None;
         s.crest_stage = 11.8;
         s.margin = -0.2;
-        let cancel = plan(&history, &[s.clone()], t(8, 0), SENDER).expect("plan");
+        let cancel = plan(&history, &[s.clone()], t(8, 0), &ISSUER).expect("plan");
         assert_eq!(cancel.len(), 1);
         let c = &cancel[0];
         assert_eq!(c.msg_type, MsgType::Cancel);
@@ -491,24 +526,24 @@ mod tests {
         // Still below: nothing more.
         s.run_id = 10;
         assert!(
-            plan(&history, &[s], t(9, 0), SENDER)
+            plan(&history, &[s], t(9, 0), &ISSUER)
                 .expect("plan")
                 .is_empty()
         );
         // Rising again: a fresh Alert with no references.
         let mut again = situation();
         again.run_id = 11;
-        let alert = plan(&history, &[again], t(10, 0), SENDER).expect("plan");
+        let alert = plan(&history, &[again], t(10, 0), &ISSUER).expect("plan");
         assert_eq!(alert[0].msg_type, MsgType::Alert);
         assert!(alert[0].references.is_empty());
     }
 
     #[test]
     fn stale_forecast_updates_with_possible_certainty() {
-        let history = issued(&plan(&[], &[situation()], t(6, 0), SENDER).expect("plan"));
+        let history = issued(&plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan"));
         let mut s = situation();
         s.stale = true; // same run, now flagged stale
-        let out = plan(&history, &[s], t(8, 0), SENDER).expect("plan");
+        let out = plan(&history, &[s], t(8, 0), &ISSUER).expect("plan");
         assert_eq!(out.len(), 1);
         assert_eq!(out[0].msg_type, MsgType::Update);
         assert_eq!(certainty(&out[0]), "Possible");
@@ -520,12 +555,12 @@ mod tests {
 
     #[test]
     fn removed_threshold_is_withdrawn() {
-        let history = issued(&plan(&[], &[situation()], t(6, 0), SENDER).expect("plan"));
+        let history = issued(&plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan"));
         let mut other = situation();
         other.threshold_name = "Deck awash".into();
         other.exceeded = false;
         other.first_above = None;
-        let out = plan(&history, &[other], t(7, 0), SENDER).expect("plan");
+        let out = plan(&history, &[other], t(7, 0), &ISSUER).expect("plan");
         assert_eq!(out.len(), 1);
         let c = &out[0];
         assert_eq!(c.msg_type, MsgType::Cancel);
@@ -541,7 +576,10 @@ mod tests {
             ("Unknown", "Unknown", "Unknown")
         );
         assert_eq!(response_type(c), None);
-        assert!(c.identifier.starts_with("reachcast-brindlemoor-w"));
+        assert!(
+            c.identifier
+                .starts_with(&format!("reachcast-{INSTANCE}-brindlemoor-w"))
+        );
         let xml = render_cap(c, &CapOptions::default()).expect("render");
         assert!(xml.contains(CAUTION));
     }
@@ -560,42 +598,82 @@ mod tests {
     fn identifiers_are_safe_whatever_the_slug() {
         let mut s = situation();
         s.reach_id = "Brindle moor, <upper> & lower".into();
-        let p = plan(&[], &[s], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[s], t(6, 0), &ISSUER).expect("plan");
         assert!(is_cap_token(&p[0].identifier), "{}", p[0].identifier);
-        assert!(
-            p[0].identifier
-                .starts_with("reachcast-Brindle_moor___upper____lower-r7-")
-        );
+        assert!(p[0].identifier.starts_with(&format!(
+            "reachcast-{INSTANCE}-Brindle_moor___upper____lower-r7-"
+        )));
+    }
+
+    #[test]
+    fn identifiers_differ_between_databases() {
+        // Two databases, same sender, same run number and key: CAP §3.2.1
+        // wants the identifier unique for the sender, so the database
+        // identity must tell them apart.
+        let other = Issuer {
+            instance: "0123456789abcdef0123456789abcdef",
+            ..ISSUER
+        };
+        let a = plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan");
+        let b = plan(&[], &[situation()], t(6, 0), &other).expect("plan");
+        assert_ne!(a[0].identifier, b[0].identifier);
+        assert!(b[0].identifier.contains(other.instance));
+        for bad in ["", "has-dash", "spa ce"] {
+            let issuer = Issuer {
+                instance: bad,
+                ..ISSUER
+            };
+            assert!(matches!(
+                plan(&[], &[situation()], t(6, 0), &issuer),
+                Err(CapError::InvalidInstance(_))
+            ));
+        }
     }
 
     #[test]
     fn bad_plan_inputs_are_typed_errors() {
         assert!(matches!(
-            plan(&[], &[situation()], t(6, 0), "has space"),
+            plan(
+                &[],
+                &[situation()],
+                t(6, 0),
+                &Issuer {
+                    sender: "has space",
+                    ..ISSUER
+                }
+            ),
             Err(CapError::InvalidSender(_))
         ));
         assert!(matches!(
-            plan(&[], &[situation()], t(6, 0), "a,b"),
+            plan(
+                &[],
+                &[situation()],
+                t(6, 0),
+                &Issuer {
+                    sender: "a,b",
+                    ..ISSUER
+                }
+            ),
             Err(CapError::InvalidSender(_))
         ));
         assert!(matches!(
-            plan(&[], &[situation(), situation()], t(6, 0), SENDER),
+            plan(&[], &[situation(), situation()], t(6, 0), &ISSUER),
             Err(CapError::DuplicateKey(_))
         ));
         let mut s = situation();
         s.crest_stage = f64::NAN;
         assert!(matches!(
-            plan(&[], &[s], t(6, 0), SENDER),
+            plan(&[], &[s], t(6, 0), &ISSUER),
             Err(CapError::NonFinite {
                 field: "crest_stage",
                 ..
             })
         ));
-        let history = issued(&plan(&[], &[situation()], t(6, 0), SENDER).expect("plan"));
+        let history = issued(&plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan"));
         let mut s = situation();
         s.crest_stage = 13.0;
         assert!(matches!(
-            plan(&history, &[s], t(5, 0), SENDER),
+            plan(&history, &[s], t(5, 0), &ISSUER),
             Err(CapError::ClockBehind { .. })
         ));
     }

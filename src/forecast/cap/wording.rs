@@ -257,13 +257,13 @@ pub fn parameters(msg: &Planned) -> Vec<(&'static str, String)> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::forecast::cap::fixtures::{SENDER, situation, t};
+    use crate::forecast::cap::fixtures::{ISSUER, situation, t};
     use crate::forecast::cap::{Situation, plan};
 
     #[test]
     fn urgency_follows_time_to_onset() {
         let at = |now: DateTime<Utc>, s: Situation| {
-            let p = plan(&[], &[s], now, SENDER).expect("plan");
+            let p = plan(&[], &[s], now, &ISSUER).expect("plan");
             urgency(&p[0])
         };
         assert_eq!(at(t(6, 0), situation()), "Future");
@@ -279,28 +279,28 @@ mod tests {
     fn headline_stays_under_160_characters() {
         let mut s = situation();
         s.point_name = "Sallowgate ".repeat(30);
-        let p = plan(&[], &[s], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[s], t(6, 0), &ISSUER).expect("plan");
         assert!(headline(&p[0]).chars().count() < 160);
         assert!(
-            headline(&plan(&[], &[situation()], t(6, 0), SENDER).expect("plan")[0])
+            headline(&plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan")[0])
                 .contains("Sallowgate Bridge")
         );
     }
 
     #[test]
     fn caution_is_in_description_and_instruction() {
-        let p = plan(&[], &[situation()], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan");
         assert!(description(&p[0]).ends_with(CAUTION));
         assert_eq!(instruction(), CAUTION);
     }
 
     #[test]
     fn categories_add_transport_at_crossings_only() {
-        let p = plan(&[], &[situation()], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan");
         assert_eq!(categories(&p[0]), vec!["Met", "Transport"]);
         let mut s = situation();
         s.point_kind = PointKind::Town;
-        let p = plan(&[], &[s], t(6, 0), SENDER).expect("plan");
+        let p = plan(&[], &[s], t(6, 0), &ISSUER).expect("plan");
         assert_eq!(categories(&p[0]), vec!["Met"]);
     }
 }
