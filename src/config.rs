@@ -569,6 +569,17 @@ impl Config {
                 ),
             ));
         }
+        if a.base_url().is_none() && !crate::forecast::cap::is_tag_authority(&a.sender) {
+            return Err(bad(
+                "alerts.sender",
+                format!(
+                    "`{}`: with alerts.base_url empty, the Atom ids are tag URIs (RFC 4151) \
+                     minted under the sender, so it must be a domain name or an email address \
+                     you control (or set alerts.base_url)",
+                    a.sender
+                ),
+            ));
+        }
         if !a.base_url.is_empty() && !is_base_url(&a.base_url) {
             return Err(bad(
                 "alerts.base_url",
@@ -792,6 +803,12 @@ mod tests {
         assert!(e.to_string().contains("alerts.sender"), "{e}");
         let e = load_str("[alerts]\nsender = \"a,b\"\n", &[]).unwrap_err();
         assert!(e.to_string().contains("alerts.sender"), "{e}");
+        // Not a tag authority (RFC 4151 §2.1): refused unless base_url is set.
+        let e = load_str("[alerts]\nsender = \"urn:reachcast\"\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("alerts.sender"), "{e}");
+        assert!(e.to_string().contains("RFC 4151"), "{e}");
+        let with_base = "[alerts]\nsender = \"urn:reachcast\"\nbase_url = \"https://x.example\"\n";
+        assert!(load_str(with_base, &[]).is_ok());
         let e = load_str("", &[("REACHCAST_ALERTS_CAP_STATUS", "actual")]).unwrap_err();
         let msg = e.to_string();
         assert!(msg.contains("alerts.cap_status"), "{msg}");

@@ -473,10 +473,8 @@ fn atom_index_meets_rfc_4287() {
     let entries: Vec<FeedEntry> = current
         .iter()
         .map(|m| {
-            FeedEntry::for_message(
-                m,
-                &format!("https://forecast.example/cap/{}.xml", m.identifier),
-            )
+            let url = format!("https://forecast.example/cap/{}.xml", m.identifier);
+            FeedEntry::for_message(m, &url, &url)
         })
         .collect();
     let feed = Feed {

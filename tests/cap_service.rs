@@ -14,7 +14,7 @@ use std::collections::HashMap;
 
 use chrono::{DateTime, Duration, Utc};
 use common::xml::{El, cap_time_value as time_of, is_cap_time, is_cap_token, parse};
-use reachcast::{CAUTION, auth::Role};
+use reachcast::{CAUTION, auth::Role, config::Config};
 use serde_json::{Value, json};
 
 const CAP_NS: &str = "urn:oasis:names:tc:emergency:cap:1.2";
@@ -287,6 +287,11 @@ fn ids(messages: &[Message]) -> Vec<String> {
 }
 
 async fn start(dir: &std::path::Path) -> Service {
+    start_with(dir, |_| {}).await
+}
+
+/// [`start`] with the test's changes to the configuration.
+async fn start_with(dir: &std::path::Path, change: impl FnOnce(&mut Config)) -> Service {
     let mut config = common::test_config(dir);
     // Runs happen only when the test asks: data-triggered runs wait ten
     // minutes, longer than the test; the periodic run is an hour away.
@@ -295,6 +300,7 @@ async fn start(dir: &std::path::Path) -> Service {
     config.alerts.sender = SENDER.to_owned();
     config.alerts.cap_status = "Exercise".to_owned();
     config.alerts.base_url = format!("{BASE}/");
+    change(&mut config);
     let app = common::spawn_app_with(config).await;
     let admin = app.key(Role::Admin, &[]).await;
     let forecaster = app.key(Role::Forecaster, &[]).await;
@@ -557,4 +563,58 @@ async fn two_fresh_installs_never_issue_the_same_identifier() {
         identifiers[0].iter().all(|i| !identifiers[1].contains(i)),
         "{identifiers:?}"
     );
+}
+
+#[tokio::test]
+async fn atom_ids_do_not_change_with_the_host_header() {
+    // RFC 4287 §4.2.6: an id is permanent and never changes. Without
+    // `alerts.base_url` the links follow the request's Host (they must
+    // reach the service), but the ids are tag URIs (RFC 4151) minted under
+    // the sender.
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start_with(dir.path(), |c| c.alerts.base_url = String::new()).await;
+    s.upload(5.0, 50.0).await;
+    s.run().await;
+    let fetch = |host: &'static str| {
+        let req = s
+            .app
+            .client
+            .get(s.app.url("/api/cap/feed.atom"))
+            .header("host", host);
+        async move {
+            let res = req.send().await.expect("GET feed");
+            assert_eq!(res.status(), 200);
+            parse(&res.text().await.expect("feed body"))
+        }
+    };
+    let a = fetch("cast-a.fernhollow.example").await;
+    let b = fetch("cast-b.fernhollow.example:8080").await;
+    let ids = |feed: &El| -> Vec<String> {
+        std::iter::once(feed.text_of("id").to_owned())
+            .chain(feed.all("entry").iter().map(|e| e.text_of("id").to_owned()))
+            .collect()
+    };
+    assert_eq!(ids(&a).len(), 3, "the feed and two entries");
+    assert_eq!(ids(&a), ids(&b));
+    // Tag URIs under the sender (RFC 4151 §2.1: "tag:" authority "," date
+    // ":" specific); the entry's names the message's identifier.
+    for id in ids(&a) {
+        assert!(id.starts_with(&format!("tag:{SENDER},")), "{id}");
+    }
+    for entry in a.all("entry") {
+        let href = &entry.one("link").attrs["href"];
+        assert!(
+            href.starts_with("http://cast-a.fernhollow.example/api/cap/"),
+            "{href}"
+        );
+        let identifier = href.rsplit('/').next().expect("identifier");
+        assert!(entry.text_of("id").ends_with(&format!(":cap/{identifier}")));
+    }
+    // The links did follow the Host header.
+    let href_b = &b.all("entry")[0].one("link").attrs["href"];
+    assert!(
+        href_b.starts_with("http://cast-b.fernhollow.example:8080/"),
+        "{href_b}"
+    );
+    s.app.stop().await;
 }

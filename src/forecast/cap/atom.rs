@@ -3,8 +3,11 @@
 use chrono::{DateTime, Utc};
 
 use super::lexical::{atom_time, check_uri};
+use super::tag::tag_uri;
 use super::xml::XmlDoc;
-use super::{ATOM_MEDIA_TYPE, ATOM_NAMESPACE, CAP_MEDIA_TYPE, CapError, Planned, headline};
+use super::{
+    ATOM_MEDIA_TYPE, ATOM_NAMESPACE, CAP_MEDIA_TYPE, CapError, Planned, headline, summary,
+};
 use crate::CAUTION;
 
 /// The Atom feed's own metadata.
@@ -33,18 +36,71 @@ pub struct FeedEntry {
 }
 
 impl FeedEntry {
-    /// The entry for a message served at `cap_url`. Its id is that URL:
-    /// the URL names the message's identifier, which is never reused, so
-    /// it is as permanent as RFC 4287 §4.2.6 asks; and a consumer that has
-    /// the id can fetch the document.
-    pub fn for_message(msg: &Planned, cap_url: &str) -> FeedEntry {
-        let title = headline(msg);
+    /// The entry for a message with Atom id `id` (see [`AtomIds::entry`]),
+    /// its document served at `cap_url`.
+    pub fn for_message(msg: &Planned, id: &str, cap_url: &str) -> FeedEntry {
         FeedEntry {
-            id: cap_url.to_owned(),
-            summary: format!("{} ({}). {}", title, msg.msg_type.cap_value(), CAUTION),
-            title,
+            id: id.to_owned(),
+            title: headline(msg),
+            summary: summary(msg),
             updated: msg.sent,
             cap_url: cap_url.to_owned(),
+        }
+    }
+}
+
+/// Where the Atom ids come from. RFC 4287 §4.2.6: an id is a permanent,
+/// universally unique IRI that never changes, even when the entry is
+/// relocated; so it must not come from the request (its `Host` header
+/// says only how this client reached the service today).
+#[derive(Debug, Clone, PartialEq)]
+pub enum AtomIds {
+    /// `alerts.base_url` is set: the permanent URLs under it, which a
+    /// consumer can also fetch.
+    Url {
+        /// Absolute, without a trailing `/`.
+        base: String,
+    },
+    /// No public URL: tag URIs (RFC 4151) minted under the CAP sender.
+    Tag {
+        /// The CAP sender: a domain name or an email address.
+        authority: String,
+        /// `service_meta.instance_id`: which database's feed it is.
+        instance: String,
+        /// When the database was created: the feed's tag date.
+        created: DateTime<Utc>,
+    },
+}
+
+impl AtomIds {
+    /// The id of the feed served at `path`: the URL under the base, or
+    /// `tag:{sender},{database creation day}:{instance}{path}`.
+    pub fn feed(&self, path: &str) -> Result<String, CapError> {
+        match self {
+            AtomIds::Url { base } => Ok(format!("{base}{path}")),
+            AtomIds::Tag {
+                authority,
+                instance,
+                created,
+            } => tag_uri(authority, *created, &format!("{instance}{path}")),
+        }
+    }
+
+    /// The id of the entry for CAP message `identifier`, sent at `sent`,
+    /// whose document is served at `path`: the URL under the base, or
+    /// `tag:{sender},{day sent}:cap/{identifier}` (identifiers are never
+    /// reused and carry the database's identity).
+    pub fn entry(
+        &self,
+        identifier: &str,
+        sent: DateTime<Utc>,
+        path: &str,
+    ) -> Result<String, CapError> {
+        match self {
+            AtomIds::Url { base } => Ok(format!("{base}{path}")),
+            AtomIds::Tag { authority, .. } => {
+                tag_uri(authority, sent, &format!("cap/{identifier}"))
+            }
         }
     }
 }

@@ -43,13 +43,14 @@ mod document;
 mod lexical;
 mod plan;
 mod situation;
+mod tag;
 mod wording;
 mod xml;
 
 #[cfg(test)]
 mod fixtures;
 
-pub use atom::{Feed, FeedEntry, render_atom};
+pub use atom::{AtomIds, Feed, FeedEntry, render_atom};
 pub use document::{CapOptions, DEFAULT_VALIDITY, Status, expires, render_cap};
 pub use lexical::{atom_time, cap_time, is_cap_token};
 pub use plan::{
@@ -57,9 +58,10 @@ pub use plan::{
     Reference, Subject, plan,
 };
 pub use situation::{Circle, Key, RunContext, Situation};
+pub use tag::is_tag_authority;
 pub use wording::{
     EXPECTED_WITHIN, categories, certainty, description, event, headline, instruction, parameters,
-    response_type, severity, urgency,
+    response_type, severity, summary, urgency,
 };
 
 /// XML namespace of CAP 1.2 documents (CAP §3.2.1, from memory; also in
@@ -107,6 +109,12 @@ pub enum CapError {
     /// A URL or IRI that must be absolute is not.
     #[error("{field} `{value}`: must be an absolute URI without spaces")]
     InvalidUri { field: &'static str, value: String },
+    /// A tag URI (RFC 4151) needs a DNS name or an email address as its
+    /// authority.
+    #[error(
+        "`{0}` cannot mint tag URIs: it must be a domain name or an email address (RFC 4151 §2.1)"
+    )]
+    InvalidTagAuthority(String),
     /// A circle outside WGS 84 ranges or with a negative radius.
     #[error("area circle: {0}")]
     InvalidCircle(String),

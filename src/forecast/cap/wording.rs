@@ -127,6 +127,17 @@ pub fn headline(msg: &Planned) -> String {
     }
 }
 
+/// The Atom entry summary of a message: its headline, its `msgType`, and
+/// the caution.
+pub fn summary(msg: &Planned) -> String {
+    format!(
+        "{} ({}). {}",
+        headline(msg),
+        msg.msg_type.cap_value(),
+        CAUTION
+    )
+}
+
 /// CAP `description`: what the forecast says, where, from which run, how
 /// fresh, ending with the caution.
 pub fn description(msg: &Planned) -> String {
