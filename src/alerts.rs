@@ -21,7 +21,7 @@ use std::collections::HashSet;
 use chrono::{DateTime, Duration, Utc};
 
 use crate::{
-    config::{AlertsConfig, ForecastConfig},
+    config::{AlertsConfig, Config},
     forecast::{
         cap::{
             self, AtomIds, CapError, CapOptions, Feed, FeedEntry, Issued, Issuer, Key, Situation,
@@ -55,15 +55,15 @@ pub struct Alerter {
 }
 
 impl Alerter {
-    pub fn new(alerts: &AlertsConfig, forecast: &ForecastConfig) -> Self {
-        let minutes = i64::try_from(forecast.interval_minutes).unwrap_or(1_440);
+    pub fn new(config: &Config) -> Self {
+        let minutes = i64::try_from(config.forecast.interval_minutes).unwrap_or(1_440);
         Self {
-            sender: alerts.sender.clone(),
+            sender: config.alerts.sender.clone(),
             options: CapOptions {
-                status: alerts.status(),
+                status: config.cap_status(),
                 ..CapOptions::default()
             },
-            base_url: alerts.base_url().map(str::to_owned),
+            base_url: config.alerts.base_url().map(str::to_owned),
             renew_within: Duration::minutes(2 * minutes),
         }
     }

@@ -70,8 +70,9 @@ pub struct AlertsConfig {
     /// commas, `<` or `&` (CAP 1.2 §3.2.1).
     pub sender: String,
     /// CAP `status` of every message: `Actual`, `Exercise`, `System`,
-    /// `Test` or `Draft`.
-    pub cap_status: String,
+    /// `Test` or `Draft`. Unset: `Exercise` while the invented demo is on,
+    /// else `Actual` (see [`Config::cap_status`]).
+    pub cap_status: Option<crate::forecast::cap::Status>,
     /// Absolute `http(s)://` URL under which the service is reached, used
     /// for CAP `web` and the links of the Atom index. Empty: CAP messages
     /// carry no `web`, and the index links are built from the request's
@@ -83,25 +84,13 @@ impl Default for AlertsConfig {
     fn default() -> Self {
         Self {
             sender: "reachcast@localhost".to_owned(),
-            cap_status: "Actual".to_owned(),
+            cap_status: None,
             base_url: String::new(),
         }
     }
 }
 
 impl AlertsConfig {
-    /// The configured CAP status (validated at load; `Actual` otherwise).
-    pub fn status(&self) -> crate::forecast::cap::Status {
-        use crate::forecast::cap::Status;
-        match self.cap_status.as_str() {
-            "Exercise" => Status::Exercise,
-            "System" => Status::System,
-            "Test" => Status::Test,
-            "Draft" => Status::Draft,
-            _ => Status::Actual,
-        }
-    }
-
     /// `base_url` without a trailing `/`, or `None` when not set.
     pub fn base_url(&self) -> Option<&str> {
         let b = self.base_url.trim_end_matches('/');
@@ -557,18 +546,6 @@ impl Config {
                 ),
             ));
         }
-        if !matches!(
-            a.cap_status.as_str(),
-            "Actual" | "Exercise" | "System" | "Test" | "Draft"
-        ) {
-            return Err(bad(
-                "alerts.cap_status",
-                format!(
-                    "must be Actual, Exercise, System, Test or Draft (CAP 1.2 §3.2.1), got `{}`",
-                    a.cap_status
-                ),
-            ));
-        }
         if a.base_url().is_none() && !crate::forecast::cap::is_tag_authority(&a.sender) {
             return Err(bad(
                 "alerts.sender",
@@ -604,6 +581,20 @@ impl Config {
     /// Bounded drain time on shutdown.
     pub fn shutdown_grace(&self) -> Duration {
         Duration::from_secs(self.server.shutdown_grace_secs)
+    }
+
+    /// The CAP `status` of every message: `alerts.cap_status` when it is
+    /// set; otherwise `Exercise` while the invented demo is on, because its
+    /// messages describe an invented river and no consumer must act on
+    /// them (CAP 1.2 §3.2.1: "Exercise - Actionable only by designated
+    /// exercise participants", from memory); else `Actual`.
+    pub fn cap_status(&self) -> crate::forecast::cap::Status {
+        use crate::forecast::cap::Status;
+        match self.alerts.cap_status {
+            Some(status) => status,
+            None if self.demo.enabled => Status::Exercise,
+            None => Status::Actual,
+        }
     }
 
     /// Path of the SQLite database file inside the data directory.
@@ -780,7 +771,8 @@ mod tests {
         assert!(!c.demo.enabled);
     }
 
-    /// The shipped example documents every key with its default value.
+    /// The shipped example documents every key with its default value; a
+    /// key with no default (unset unless given) appears commented out.
     #[test]
     fn example_file_matches_defaults_and_documents_every_key() {
         let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("deploy/reachcast.example.toml");
@@ -788,12 +780,15 @@ mod tests {
             Config::load(Some(&path), Vec::new(), &Overrides::default()).expect("example loads");
         assert_eq!(c, Config::default());
         let text = std::fs::read_to_string(&path).expect("read example");
+        let unset_by_default = ["alerts.cap_status"];
         for key in KEYS {
             let name = key.split_once('.').map(|(_, n)| n).unwrap_or(key);
-            assert!(
-                text.contains(&format!("\n{name} = ")),
-                "{key} not in example"
-            );
+            let line = if unset_by_default.contains(key) {
+                format!("\n# {name} = ")
+            } else {
+                format!("\n{name} = ")
+            };
+            assert!(text.contains(&line), "{key} not in example as `{line}`");
         }
     }
 
@@ -828,13 +823,35 @@ mod tests {
             &[],
         )
         .expect("load");
-        assert_eq!(c.alerts.status(), crate::forecast::cap::Status::Exercise);
+        assert_eq!(c.cap_status(), crate::forecast::cap::Status::Exercise);
         assert_eq!(c.alerts.base_url(), Some("https://cast.fernhollow.example"));
         assert_eq!(Config::default().alerts.base_url(), None);
-        assert_eq!(
-            Config::default().alerts.status(),
-            crate::forecast::cap::Status::Actual
-        );
+    }
+
+    #[test]
+    fn cap_status_is_exercise_during_the_demo_unless_set() {
+        use crate::forecast::cap::Status;
+        // Unset: the invented demo (on by default) sends `Exercise` (CAP 1.2
+        // §3.2.1, from memory: actionable only by exercise participants);
+        // without the demo, `Actual`.
+        assert!(Config::default().demo.enabled);
+        assert_eq!(Config::default().alerts.cap_status, None);
+        assert_eq!(Config::default().cap_status(), Status::Exercise);
+        let c = load_str("[demo]\nenabled = false\n", &[]).expect("load");
+        assert_eq!(c.cap_status(), Status::Actual);
+        // Set explicitly, it wins either way.
+        let c = load_str("[alerts]\ncap_status = \"Actual\"\n", &[]).expect("load");
+        assert!(c.demo.enabled);
+        assert_eq!(c.cap_status(), Status::Actual);
+        let c = load_str(
+            "",
+            &[
+                ("REACHCAST_DEMO_ENABLED", "false"),
+                ("REACHCAST_ALERTS_CAP_STATUS", "Test"),
+            ],
+        )
+        .expect("load");
+        assert_eq!(c.cap_status(), Status::Test);
     }
 
     #[test]

@@ -14,7 +14,7 @@ use std::collections::HashMap;
 
 use chrono::{DateTime, Duration, Utc};
 use common::xml::{El, cap_time_value as time_of, is_cap_time, is_cap_token, parse};
-use reachcast::{CAUTION, auth::Role, config::Config};
+use reachcast::{CAUTION, auth::Role, config::Config, forecast::cap::Status};
 use serde_json::{Value, json};
 
 const CAP_NS: &str = "urn:oasis:names:tc:emergency:cap:1.2";
@@ -185,8 +185,12 @@ impl Service {
         assert_eq!(alert.text_of("sender"), SENDER);
         let sent = alert.text_of("sent").to_owned();
         assert!(is_cap_time(&sent), "CAP §3.3.2 time: {sent}");
-        // `alerts.cap_status = "Exercise"` in this test's configuration.
-        assert_eq!(alert.text_of("status"), "Exercise");
+        // CAP §3.2.1 status values.
+        let status = alert.text_of("status").to_owned();
+        assert!(
+            ["Actual", "Exercise", "System", "Test", "Draft"].contains(&status.as_str()),
+            "{status}"
+        );
         let msg_type = alert.text_of("msgType").to_owned();
         assert!(["Alert", "Update", "Cancel"].contains(&msg_type.as_str()));
         assert_eq!(alert.text_of("scope"), "Public");
@@ -240,6 +244,7 @@ impl Service {
         Message {
             identifier,
             sent,
+            status,
             msg_type,
             references,
             threshold: params["reachcast:threshold_name"].clone(),
@@ -253,6 +258,7 @@ struct Message {
     identifier: String,
     /// The `sent` text exactly as in the document.
     sent: String,
+    status: String,
     msg_type: String,
     references: Vec<String>,
     threshold: String,
@@ -298,7 +304,7 @@ async fn start_with(dir: &std::path::Path, change: impl FnOnce(&mut Config)) -> 
     config.forecast.debounce_ms = 600_000;
     config.forecast.interval_minutes = 60;
     config.alerts.sender = SENDER.to_owned();
-    config.alerts.cap_status = "Exercise".to_owned();
+    config.alerts.cap_status = Some(Status::Exercise);
     config.alerts.base_url = format!("{BASE}/");
     change(&mut config);
     let app = common::spawn_app_with(config).await;
@@ -348,6 +354,8 @@ async fn alert_update_cancel_chain_through_the_service() {
     assert_eq!(names, ["Lock gate", "Towpath"], "{messages:#?}");
     for m in alerts.values() {
         assert_eq!(m.msg_type, "Alert");
+        // `alerts.cap_status = "Exercise"` in this test's configuration.
+        assert_eq!(m.status, "Exercise");
         // CAP §3.2.1: an Alert references nothing.
         assert!(m.references.is_empty());
     }
@@ -465,7 +473,7 @@ async fn messages_survive_a_restart_and_chains_continue() {
     config.forecast.debounce_ms = 600_000;
     config.forecast.interval_minutes = 60;
     config.alerts.sender = SENDER.to_owned();
-    config.alerts.cap_status = "Exercise".to_owned();
+    config.alerts.cap_status = Some(Status::Exercise);
     config.alerts.base_url = BASE.to_owned();
     let s = Service {
         app: common::spawn_app_with(config).await,
@@ -617,4 +625,36 @@ async fn atom_ids_do_not_change_with_the_host_header() {
         "{href_b}"
     );
     s.app.stop().await;
+}
+
+#[tokio::test]
+async fn demo_messages_are_exercises_unless_a_status_is_set() {
+    // While the invented demo is on, nobody must act on a message, so with
+    // `alerts.cap_status` unset the status is `Exercise` (CAP §3.2.1:
+    // actionable only by designated exercise participants, from memory).
+    // An explicit setting wins; without the demo the default is `Actual`.
+    let cases = [
+        (true, None, "Exercise"),
+        (true, Some(Status::Actual), "Actual"),
+        (false, None, "Actual"),
+    ];
+    for (demo, set, expected) in cases {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let s = start_with(dir.path(), |c| {
+            c.demo.enabled = demo;
+            // No replayed demo reading during the test.
+            c.demo.replay_secs = 3_600;
+            c.alerts.cap_status = set;
+        })
+        .await;
+        s.upload(5.0, 50.0).await;
+        s.run().await;
+        // This reach's feed only: the demo reach may issue its own.
+        let (_, _, messages) = s.feed(&format!("/api/reaches/{REACH}/cap/feed.atom")).await;
+        assert_eq!(messages.len(), 2, "demo {demo}, cap_status {set:?}");
+        for m in &messages {
+            assert_eq!(m.status, expected, "demo {demo}, cap_status {set:?}");
+        }
+        s.app.stop().await;
+    }
 }
