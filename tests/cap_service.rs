@@ -658,3 +658,33 @@ async fn demo_messages_are_exercises_unless_a_status_is_set() {
         s.app.stop().await;
     }
 }
+
+#[tokio::test]
+async fn every_issued_message_is_in_the_audit_log() {
+    // Project invariant (DEVELOPERS.md): every write goes to the audit log,
+    // in the same transaction. CAP messages are written by the service
+    // itself after a run, so the actor is the system, not a key.
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start(dir.path()).await;
+    s.upload(5.0, 50.0).await;
+    let run_id = s.run().await;
+    let (_, _, messages) = s.feed("/api/cap/feed.atom").await;
+    assert_eq!(messages.len(), 2);
+    let log = s.app.store.audit_log(100).await.expect("audit log");
+    for m in &messages {
+        let entry = log
+            .iter()
+            .find(|e| e.action == "cap.issue" && e.target == format!("cap:{}", m.identifier))
+            .unwrap_or_else(|| panic!("no audit entry for {}: {log:#?}", m.identifier));
+        assert_eq!(entry.actor, "system:alerts");
+        assert_eq!(entry.key_id, None);
+        assert_eq!(entry.summary["msg_type"], "Alert");
+        assert_eq!(entry.summary["threshold"], m.threshold.as_str());
+        assert_eq!(entry.summary["run_id"], run_id);
+    }
+    assert_eq!(
+        log.iter().filter(|e| e.action == "cap.issue").count(),
+        messages.len()
+    );
+    s.app.stop().await;
+}
