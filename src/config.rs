@@ -282,6 +282,10 @@ pub struct Overrides {
     pub data_dir: Option<PathBuf>,
 }
 
+/// Builds the error for a bad value of a key (it knows where each value
+/// came from).
+type Bad<'a> = &'a dyn Fn(&str, String) -> ConfigError;
+
 /// Every key, as `section.name`, in the order the example file documents them.
 pub const KEYS: &[&str] = &[
     "server.bind",
@@ -403,6 +407,17 @@ impl Config {
             origin: origin(key),
             message,
         };
+        self.validate_service(&bad)?;
+        self.validate_forecast(&bad)?;
+        self.validate_alerts(&bad)?;
+        if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {
+            return Err(bad("log.filter", format!("not a valid log filter: {e}")));
+        }
+        Ok(())
+    }
+
+    /// `[server]`, `[storage]`, `[auth]` and `[ingest]`.
+    fn validate_service(&self, bad: Bad<'_>) -> Result<(), ConfigError> {
         self.bind_addr()
             .map_err(|m| bad("server.bind", m.to_string()))?;
         if self.server.shutdown_grace_secs == 0 || self.server.shutdown_grace_secs > 3600 {
@@ -495,6 +510,11 @@ impl Config {
                 ),
             ));
         }
+        Ok(())
+    }
+
+    /// `[forecast]` and `[demo]`.
+    fn validate_forecast(&self, bad: Bad<'_>) -> Result<(), ConfigError> {
         let f = &self.forecast;
         let range = |key: &str, v: u64, lo: u64, hi: u64| -> Result<(), ConfigError> {
             if v < lo || v > hi {
@@ -536,6 +556,11 @@ impl Config {
                 format!("must be zero or positive, got {}", f.base_flow_m3s),
             ));
         }
+        Ok(())
+    }
+
+    /// `[alerts]`.
+    fn validate_alerts(&self, bad: Bad<'_>) -> Result<(), ConfigError> {
         let a = &self.alerts;
         if !crate::forecast::cap::is_cap_token(&a.sender) {
             return Err(bad(
@@ -566,9 +591,6 @@ impl Config {
                     a.base_url
                 ),
             ));
-        }
-        if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {
-            return Err(bad("log.filter", format!("not a valid log filter: {e}")));
         }
         Ok(())
     }
