@@ -16,18 +16,21 @@
 //! Files: `situation.rs` (what a run forecasts for one point and threshold),
 //! `plan.rs` (Alert/Update/Cancel chains and identifiers), `wording.rs`
 //! (what a message says), `document.rs` (the CAP document), `atom.rs` (the
-//! Atom index), `lexical.rs` (tokens, times and URIs as CAP and Atom write
-//! them), `xml.rs` (writing XML).
+//! Atom index and its ids), `tag.rs` (tag URIs), `lexical.rs` (tokens,
+//! times and URIs as CAP and Atom write them), `xml.rs` (writing XML).
 //!
 //! Every message carries [`crate::CAUTION`]: the output is advisory model
 //! output, not an official warning.
 //!
-//! Standards followed (section numbers of OASIS CAP 1.2, 2010, and RFC 4287;
-//! where a detail was recalled rather than read it says "from memory"):
+//! Standards followed (section numbers of OASIS CAP 1.2, 2010, RFC 4287 and
+//! RFC 4151; where a detail was recalled rather than read it says "from
+//! memory"):
 //! - CAP §3.2.1 `alert`: identifier, sender, sent, status, msgType, scope are
 //!   required; identifier and sender must not contain spaces, commas or the
-//!   restricted characters `<` and `&`; `references` is a space-separated
-//!   list of `sender,identifier,sent` triples.
+//!   restricted characters `<` and `&`, and the identifier is unique for the
+//!   sender (it carries the database's identity, see [`Issuer`]);
+//!   `references` is a space-separated list of `sender,identifier,sent`
+//!   triples.
 //! - CAP §3.2.2 `info`: category, event, urgency, severity, certainty are
 //!   required; the vocabularies are listed on the enums below.
 //! - CAP §3.2.4 `area`: areaDesc required; `circle` is `lat,lon radius` in
@@ -36,7 +39,9 @@
 //!   written `-00:00` (see [`cap_time`]).
 //! - RFC 4287 §4.1.1/§4.1.2: feed and entry require id, title, updated; a
 //!   feed needs an author unless every entry has one; an entry without
-//!   content needs a `rel="alternate"` link.
+//!   content needs a `rel="alternate"` link; §4.2.6: an id is permanent and
+//!   never changes, so it never comes from the request (see [`AtomIds`]).
+//! - RFC 4151: tag URIs, the Atom ids when no public base URL is set.
 
 mod atom;
 mod document;
