@@ -632,30 +632,14 @@ mod tests {
 
     #[test]
     fn bad_plan_inputs_are_typed_errors() {
-        assert!(matches!(
-            plan(
-                &[],
-                &[situation()],
-                t(6, 0),
-                &Issuer {
-                    sender: "has space",
-                    ..ISSUER
-                }
-            ),
-            Err(CapError::InvalidSender(_))
-        ));
-        assert!(matches!(
-            plan(
-                &[],
-                &[situation()],
-                t(6, 0),
-                &Issuer {
-                    sender: "a,b",
-                    ..ISSUER
-                }
-            ),
-            Err(CapError::InvalidSender(_))
-        ));
+        // CAP §3.2.1: no spaces or commas in the sender.
+        for sender in ["has space", "a,b"] {
+            let issuer = Issuer { sender, ..ISSUER };
+            assert!(matches!(
+                plan(&[], &[situation()], t(6, 0), &issuer),
+                Err(CapError::InvalidSender(_))
+            ));
+        }
         assert!(matches!(
             plan(&[], &[situation(), situation()], t(6, 0), &ISSUER),
             Err(CapError::DuplicateKey(_))
