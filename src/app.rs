@@ -39,7 +39,7 @@ impl Application {
         let forecaster = Forecaster::new(
             store.clone(),
             config.forecast.clone(),
-            &config.alerts,
+            crate::service::alerts::Alerter::new(&config),
             stop_rx.clone(),
         );
         if config.demo.enabled {

@@ -70,8 +70,9 @@ pub struct AlertsConfig {
     /// commas, `<` or `&` (CAP 1.2 §3.2.1).
     pub sender: String,
     /// CAP `status` of every message: `Actual`, `Exercise`, `System`,
-    /// `Test` or `Draft`.
-    pub cap_status: String,
+    /// `Test` or `Draft`. Unset: `Exercise` while the invented demo is on,
+    /// else `Actual` (see [`Config::cap_status`]).
+    pub cap_status: Option<crate::forecast::cap::Status>,
     /// Absolute `http(s)://` URL under which the service is reached, used
     /// for CAP `web` and the links of the Atom index. Empty: CAP messages
     /// carry no `web`, and the index links are built from the request's
@@ -83,25 +84,13 @@ impl Default for AlertsConfig {
     fn default() -> Self {
         Self {
             sender: "reachcast@localhost".to_owned(),
-            cap_status: "Actual".to_owned(),
+            cap_status: None,
             base_url: String::new(),
         }
     }
 }
 
 impl AlertsConfig {
-    /// The configured CAP status (validated at load; `Actual` otherwise).
-    pub fn status(&self) -> crate::forecast::cap::Status {
-        use crate::forecast::cap::Status;
-        match self.cap_status.as_str() {
-            "Exercise" => Status::Exercise,
-            "System" => Status::System,
-            "Test" => Status::Test,
-            "Draft" => Status::Draft,
-            _ => Status::Actual,
-        }
-    }
-
     /// `base_url` without a trailing `/`, or `None` when not set.
     pub fn base_url(&self) -> Option<&str> {
         let b = self.base_url.trim_end_matches('/');
@@ -293,6 +282,10 @@ pub struct Overrides {
     pub data_dir: Option<PathBuf>,
 }
 
+/// Builds the error for a bad value of a key (it knows where each value
+/// came from).
+type Bad<'a> = &'a dyn Fn(&str, String) -> ConfigError;
+
 /// Every key, as `section.name`, in the order the example file documents them.
 pub const KEYS: &[&str] = &[
     "server.bind",
@@ -414,6 +407,17 @@ impl Config {
             origin: origin(key),
             message,
         };
+        self.validate_service(&bad)?;
+        self.validate_forecast(&bad)?;
+        self.validate_alerts(&bad)?;
+        if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {
+            return Err(bad("log.filter", format!("not a valid log filter: {e}")));
+        }
+        Ok(())
+    }
+
+    /// `[server]`, `[storage]`, `[auth]` and `[ingest]`.
+    fn validate_service(&self, bad: Bad<'_>) -> Result<(), ConfigError> {
         self.bind_addr()
             .map_err(|m| bad("server.bind", m.to_string()))?;
         if self.server.shutdown_grace_secs == 0 || self.server.shutdown_grace_secs > 3600 {
@@ -506,6 +510,11 @@ impl Config {
                 ),
             ));
         }
+        Ok(())
+    }
+
+    /// `[forecast]` and `[demo]`.
+    fn validate_forecast(&self, bad: Bad<'_>) -> Result<(), ConfigError> {
         let f = &self.forecast;
         let range = |key: &str, v: u64, lo: u64, hi: u64| -> Result<(), ConfigError> {
             if v < lo || v > hi {
@@ -547,6 +556,11 @@ impl Config {
                 format!("must be zero or positive, got {}", f.base_flow_m3s),
             ));
         }
+        Ok(())
+    }
+
+    /// `[alerts]`.
+    fn validate_alerts(&self, bad: Bad<'_>) -> Result<(), ConfigError> {
         let a = &self.alerts;
         if !crate::forecast::cap::is_cap_token(&a.sender) {
             return Err(bad(
@@ -557,15 +571,14 @@ impl Config {
                 ),
             ));
         }
-        if !matches!(
-            a.cap_status.as_str(),
-            "Actual" | "Exercise" | "System" | "Test" | "Draft"
-        ) {
+        if a.base_url().is_none() && !crate::forecast::cap::is_tag_authority(&a.sender) {
             return Err(bad(
-                "alerts.cap_status",
+                "alerts.sender",
                 format!(
-                    "must be Actual, Exercise, System, Test or Draft (CAP 1.2 §3.2.1), got `{}`",
-                    a.cap_status
+                    "`{}`: with alerts.base_url empty, the Atom ids are tag URIs (RFC 4151) \
+                     minted under the sender, so it must be a domain name or an email address \
+                     you control (or set alerts.base_url)",
+                    a.sender
                 ),
             ));
         }
@@ -579,9 +592,6 @@ impl Config {
                 ),
             ));
         }
-        if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {
-            return Err(bad("log.filter", format!("not a valid log filter: {e}")));
-        }
         Ok(())
     }
 
@@ -593,6 +603,20 @@ impl Config {
     /// Bounded drain time on shutdown.
     pub fn shutdown_grace(&self) -> Duration {
         Duration::from_secs(self.server.shutdown_grace_secs)
+    }
+
+    /// The CAP `status` of every message: `alerts.cap_status` when it is
+    /// set; otherwise `Exercise` while the invented demo is on, because its
+    /// messages describe an invented river and no consumer must act on
+    /// them (CAP 1.2 §3.2.1: "Exercise - Actionable only by designated
+    /// exercise participants", from memory); else `Actual`.
+    pub fn cap_status(&self) -> crate::forecast::cap::Status {
+        use crate::forecast::cap::Status;
+        match self.alerts.cap_status {
+            Some(status) => status,
+            None if self.demo.enabled => Status::Exercise,
+            None => Status::Actual,
+        }
     }
 
     /// Path of the SQLite database file inside the data directory.
@@ -769,7 +793,8 @@ mod tests {
         assert!(!c.demo.enabled);
     }
 
-    /// The shipped example documents every key with its default value.
+    /// The shipped example documents every key with its default value; a
+    /// key with no default (unset unless given) appears commented out.
     #[test]
     fn example_file_matches_defaults_and_documents_every_key() {
         let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("deploy/reachcast.example.toml");
@@ -777,12 +802,15 @@ mod tests {
             Config::load(Some(&path), Vec::new(), &Overrides::default()).expect("example loads");
         assert_eq!(c, Config::default());
         let text = std::fs::read_to_string(&path).expect("read example");
+        let unset_by_default = ["alerts.cap_status"];
         for key in KEYS {
             let name = key.split_once('.').map(|(_, n)| n).unwrap_or(key);
-            assert!(
-                text.contains(&format!("\n{name} = ")),
-                "{key} not in example"
-            );
+            let line = if unset_by_default.contains(key) {
+                format!("\n# {name} = ")
+            } else {
+                format!("\n{name} = ")
+            };
+            assert!(text.contains(&line), "{key} not in example as `{line}`");
         }
     }
 
@@ -792,6 +820,12 @@ mod tests {
         assert!(e.to_string().contains("alerts.sender"), "{e}");
         let e = load_str("[alerts]\nsender = \"a,b\"\n", &[]).unwrap_err();
         assert!(e.to_string().contains("alerts.sender"), "{e}");
+        // Not a tag authority (RFC 4151 §2.1): refused unless base_url is set.
+        let e = load_str("[alerts]\nsender = \"urn:reachcast\"\n", &[]).unwrap_err();
+        assert!(e.to_string().contains("alerts.sender"), "{e}");
+        assert!(e.to_string().contains("RFC 4151"), "{e}");
+        let with_base = "[alerts]\nsender = \"urn:reachcast\"\nbase_url = \"https://x.example\"\n";
+        assert!(load_str(with_base, &[]).is_ok());
         let e = load_str("", &[("REACHCAST_ALERTS_CAP_STATUS", "actual")]).unwrap_err();
         let msg = e.to_string();
         assert!(msg.contains("alerts.cap_status"), "{msg}");
@@ -811,13 +845,35 @@ mod tests {
             &[],
         )
         .expect("load");
-        assert_eq!(c.alerts.status(), crate::forecast::cap::Status::Exercise);
+        assert_eq!(c.cap_status(), crate::forecast::cap::Status::Exercise);
         assert_eq!(c.alerts.base_url(), Some("https://cast.fernhollow.example"));
         assert_eq!(Config::default().alerts.base_url(), None);
-        assert_eq!(
-            Config::default().alerts.status(),
-            crate::forecast::cap::Status::Actual
-        );
+    }
+
+    #[test]
+    fn cap_status_is_exercise_during_the_demo_unless_set() {
+        use crate::forecast::cap::Status;
+        // Unset: the invented demo (on by default) sends `Exercise` (CAP 1.2
+        // §3.2.1, from memory: actionable only by exercise participants);
+        // without the demo, `Actual`.
+        assert!(Config::default().demo.enabled);
+        assert_eq!(Config::default().alerts.cap_status, None);
+        assert_eq!(Config::default().cap_status(), Status::Exercise);
+        let c = load_str("[demo]\nenabled = false\n", &[]).expect("load");
+        assert_eq!(c.cap_status(), Status::Actual);
+        // Set explicitly, it wins either way.
+        let c = load_str("[alerts]\ncap_status = \"Actual\"\n", &[]).expect("load");
+        assert!(c.demo.enabled);
+        assert_eq!(c.cap_status(), Status::Actual);
+        let c = load_str(
+            "",
+            &[
+                ("REACHCAST_DEMO_ENABLED", "false"),
+                ("REACHCAST_ALERTS_CAP_STATUS", "Test"),
+            ],
+        )
+        .expect("load");
+        assert_eq!(c.cap_status(), Status::Test);
     }
 
     #[test]

@@ -14,7 +14,7 @@ use std::collections::HashMap;
 
 use chrono::{DateTime, Duration, Utc};
 use common::xml::{El, cap_time_value as time_of, is_cap_time, is_cap_token, parse};
-use reachcast::{CAUTION, auth::Role};
+use reachcast::{CAUTION, auth::Role, config::Config, forecast::cap::Status};
 use serde_json::{Value, json};
 
 const CAP_NS: &str = "urn:oasis:names:tc:emergency:cap:1.2";
@@ -185,8 +185,12 @@ impl Service {
         assert_eq!(alert.text_of("sender"), SENDER);
         let sent = alert.text_of("sent").to_owned();
         assert!(is_cap_time(&sent), "CAP §3.3.2 time: {sent}");
-        // `alerts.cap_status = "Exercise"` in this test's configuration.
-        assert_eq!(alert.text_of("status"), "Exercise");
+        // CAP §3.2.1 status values.
+        let status = alert.text_of("status").to_owned();
+        assert!(
+            ["Actual", "Exercise", "System", "Test", "Draft"].contains(&status.as_str()),
+            "{status}"
+        );
         let msg_type = alert.text_of("msgType").to_owned();
         assert!(["Alert", "Update", "Cancel"].contains(&msg_type.as_str()));
         assert_eq!(alert.text_of("scope"), "Public");
@@ -240,6 +244,7 @@ impl Service {
         Message {
             identifier,
             sent,
+            status,
             msg_type,
             references,
             threshold: params["reachcast:threshold_name"].clone(),
@@ -253,6 +258,7 @@ struct Message {
     identifier: String,
     /// The `sent` text exactly as in the document.
     sent: String,
+    status: String,
     msg_type: String,
     references: Vec<String>,
     threshold: String,
@@ -279,15 +285,28 @@ fn by_threshold(messages: &[Message]) -> HashMap<String, Message> {
     map
 }
 
+/// The identifiers of `messages`, sorted.
+fn ids(messages: &[Message]) -> Vec<String> {
+    let mut v: Vec<String> = messages.iter().map(|m| m.identifier.clone()).collect();
+    v.sort();
+    v
+}
+
 async fn start(dir: &std::path::Path) -> Service {
+    start_with(dir, |_| {}).await
+}
+
+/// [`start`] with the test's changes to the configuration.
+async fn start_with(dir: &std::path::Path, change: impl FnOnce(&mut Config)) -> Service {
     let mut config = common::test_config(dir);
     // Runs happen only when the test asks: data-triggered runs wait ten
     // minutes, longer than the test; the periodic run is an hour away.
     config.forecast.debounce_ms = 600_000;
     config.forecast.interval_minutes = 60;
     config.alerts.sender = SENDER.to_owned();
-    config.alerts.cap_status = "Exercise".to_owned();
+    config.alerts.cap_status = Some(Status::Exercise);
     config.alerts.base_url = format!("{BASE}/");
+    change(&mut config);
     let app = common::spawn_app_with(config).await;
     let admin = app.key(Role::Admin, &[]).await;
     let forecaster = app.key(Role::Forecaster, &[]).await;
@@ -335,6 +354,8 @@ async fn alert_update_cancel_chain_through_the_service() {
     assert_eq!(names, ["Lock gate", "Towpath"], "{messages:#?}");
     for m in alerts.values() {
         assert_eq!(m.msg_type, "Alert");
+        // `alerts.cap_status = "Exercise"` in this test's configuration.
+        assert_eq!(m.status, "Exercise");
         // CAP §3.2.1: an Alert references nothing.
         assert!(m.references.is_empty());
     }
@@ -351,11 +372,6 @@ async fn alert_update_cancel_chain_through_the_service() {
     assert_eq!(res.headers()["etag"].to_str().expect("etag"), etag1);
     let (_, etag_again, again) = s.feed(feed_path).await;
     assert_eq!(etag_again, etag1);
-    let ids = |ms: &[Message]| {
-        let mut v: Vec<String> = ms.iter().map(|m| m.identifier.clone()).collect();
-        v.sort();
-        v
-    };
     assert_eq!(ids(&again), ids(&messages));
 
     // 3. A bigger flood (120 m³/s): Updates referencing the Alerts, and an
@@ -457,7 +473,7 @@ async fn messages_survive_a_restart_and_chains_continue() {
     config.forecast.debounce_ms = 600_000;
     config.forecast.interval_minutes = 60;
     config.alerts.sender = SENDER.to_owned();
-    config.alerts.cap_status = "Exercise".to_owned();
+    config.alerts.cap_status = Some(Status::Exercise);
     config.alerts.base_url = BASE.to_owned();
     let s = Service {
         app: common::spawn_app_with(config).await,
@@ -519,5 +535,159 @@ async fn removing_a_threshold_withdraws_its_chain_only() {
     assert_eq!(gone.references, [alerts["Lock gate"].triple()]);
     // The other chain is untouched: its Alert is still the current message.
     assert_eq!(now["Towpath"].identifier, alerts["Towpath"].identifier);
+    s.app.stop().await;
+}
+
+#[tokio::test]
+async fn two_fresh_installs_never_issue_the_same_identifier() {
+    // Same configuration, same reach, same storm, and run numbers that
+    // start at 1 in each database: before identifiers carried the database
+    // identity, both installs issued the same `reachcast-fernhollow-r…`.
+    // CAP §3.2.1: the identifier is unique for the sender, and both use the
+    // same sender here.
+    let (dir_a, dir_b) = (
+        tempfile::tempdir().expect("temp dir"),
+        tempfile::tempdir().expect("temp dir"),
+    );
+    let mut identifiers = Vec::new();
+    for dir in [&dir_a, &dir_b] {
+        let s = start(dir.path()).await;
+        s.upload(5.0, 50.0).await;
+        s.run().await;
+        let (_, ready) = s.app.get_json("/ready").await;
+        let instance = ready["instance"]["instance_id"]
+            .as_str()
+            .expect("instance id")
+            .to_owned();
+        let (_, _, messages) = s.feed("/api/cap/feed.atom").await;
+        assert_eq!(messages.len(), 2);
+        for m in &messages {
+            assert!(m.identifier.contains(&instance), "{}", m.identifier);
+        }
+        identifiers.push(ids(&messages));
+        s.app.stop().await;
+    }
+    assert!(
+        identifiers[0].iter().all(|i| !identifiers[1].contains(i)),
+        "{identifiers:?}"
+    );
+}
+
+#[tokio::test]
+async fn atom_ids_do_not_change_with_the_host_header() {
+    // RFC 4287 §4.2.6: an id is permanent and never changes. Without
+    // `alerts.base_url` the links follow the request's Host (they must
+    // reach the service), but the ids are tag URIs (RFC 4151) minted under
+    // the sender.
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start_with(dir.path(), |c| c.alerts.base_url = String::new()).await;
+    s.upload(5.0, 50.0).await;
+    s.run().await;
+    let fetch = |host: &'static str| {
+        let req = s
+            .app
+            .client
+            .get(s.app.url("/api/cap/feed.atom"))
+            .header("host", host);
+        async move {
+            let res = req.send().await.expect("GET feed");
+            assert_eq!(res.status(), 200);
+            parse(&res.text().await.expect("feed body"))
+        }
+    };
+    let a = fetch("cast-a.fernhollow.example").await;
+    let b = fetch("cast-b.fernhollow.example:8080").await;
+    let ids = |feed: &El| -> Vec<String> {
+        std::iter::once(feed.text_of("id").to_owned())
+            .chain(feed.all("entry").iter().map(|e| e.text_of("id").to_owned()))
+            .collect()
+    };
+    assert_eq!(ids(&a).len(), 3, "the feed and two entries");
+    assert_eq!(ids(&a), ids(&b));
+    // Tag URIs under the sender (RFC 4151 §2.1: "tag:" authority "," date
+    // ":" specific); the entry's names the message's identifier.
+    for id in ids(&a) {
+        assert!(id.starts_with(&format!("tag:{SENDER},")), "{id}");
+    }
+    for entry in a.all("entry") {
+        let href = &entry.one("link").attrs["href"];
+        assert!(
+            href.starts_with("http://cast-a.fernhollow.example/api/cap/"),
+            "{href}"
+        );
+        let identifier = href.rsplit('/').next().expect("identifier");
+        assert!(entry.text_of("id").ends_with(&format!(":cap/{identifier}")));
+    }
+    // The links did follow the Host header.
+    let href_b = &b.all("entry")[0].one("link").attrs["href"];
+    assert!(
+        href_b.starts_with("http://cast-b.fernhollow.example:8080/"),
+        "{href_b}"
+    );
+    s.app.stop().await;
+}
+
+#[tokio::test]
+async fn demo_messages_are_exercises_unless_a_status_is_set() {
+    // While the invented demo is on, nobody must act on a message, so with
+    // `alerts.cap_status` unset the status is `Exercise` (CAP §3.2.1:
+    // actionable only by designated exercise participants, from memory).
+    // An explicit setting wins; without the demo the default is `Actual`.
+    let cases = [
+        (true, None, "Exercise"),
+        (true, Some(Status::Actual), "Actual"),
+        (false, None, "Actual"),
+    ];
+    for (demo, set, expected) in cases {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let s = start_with(dir.path(), |c| {
+            c.demo.enabled = demo;
+            // No replayed demo reading during the test.
+            c.demo.replay_secs = 3_600;
+            c.alerts.cap_status = set;
+        })
+        .await;
+        s.upload(5.0, 50.0).await;
+        s.run().await;
+        // This reach's feed only: the demo reach may issue its own.
+        let (_, _, messages) = s.feed(&format!("/api/reaches/{REACH}/cap/feed.atom")).await;
+        assert_eq!(messages.len(), 2, "demo {demo}, cap_status {set:?}");
+        for m in &messages {
+            assert_eq!(m.status, expected, "demo {demo}, cap_status {set:?}");
+        }
+        s.app.stop().await;
+    }
+}
+
+#[tokio::test]
+async fn every_issued_message_is_in_the_audit_log() {
+    // Project invariant (DEVELOPERS.md): every write goes to the audit log,
+    // in the same transaction. CAP messages are written by the service
+    // itself after a run, so the actor is the system, not a key.
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start(dir.path()).await;
+    s.upload(5.0, 50.0).await;
+    let run_id = s.run().await;
+    let (_, _, messages) = s.feed("/api/cap/feed.atom").await;
+    assert_eq!(messages.len(), 2);
+    let log = s.app.store.audit_log(100).await.expect("audit log");
+    for m in &messages {
+        let entry = log
+            .iter()
+            .find(|e| e.action == "cap.issue" && e.target == format!("cap:{}", m.identifier))
+            .unwrap_or_else(|| panic!("no audit entry for {}: {log:#?}", m.identifier));
+        assert_eq!(entry.actor, "system:alerts");
+        assert_eq!(entry.key_id, None);
+        assert_eq!(entry.summary["msg_type"], "Alert");
+        assert_eq!(entry.summary["threshold"], m.threshold.as_str());
+        // The run that issued it: the one waited for, or one the reach's
+        // worker started on its own just before.
+        let issued_by = entry.summary["run_id"].as_i64().expect("run id");
+        assert!((1..=run_id).contains(&issued_by), "{issued_by} vs {run_id}");
+    }
+    assert_eq!(
+        log.iter().filter(|e| e.action == "cap.issue").count(),
+        messages.len()
+    );
     s.app.stop().await;
 }

@@ -7,7 +7,8 @@
 //!   (`application/cap+xml`); 404 problem if unknown
 //!
 //! Links in the feed start with `alerts.base_url`, or, when it is not set,
-//! with `http://` and the request's `Host` header.
+//! with `http://` and the request's `Host` header. Ids never depend on the
+//! request (`alerts::atom_feed`).
 
 use axum::{
     Router,
@@ -75,12 +76,9 @@ async fn feed(
         .store
         .current_cap_messages(reach.map(|(id, _)| id), Utc::now())
         .await?;
-    // Nothing ever issued: the database's creation is when the (empty)
-    // list began, and it does not change between requests.
-    let fallback = match current.updated {
-        Some(t) => t,
-        None => state.store.service_meta().await?.created_at,
-    };
+    // The database's identity and creation: for the Atom ids, and as the
+    // feed's `updated` when nothing was ever issued.
+    let meta = state.store.service_meta().await?;
     let (path, title) = match reach {
         Some((id, name)) => (
             format!("/api/reaches/{id}/cap/feed.atom"),
@@ -93,11 +91,11 @@ async fn feed(
     };
     let body = alerts::atom_feed(
         &base_url(state, headers),
+        &state.config.alerts,
+        &meta,
         &path,
         &title,
-        &state.config.alerts.sender,
         &current,
-        fallback,
     )
     .map_err(|e| ApiError::Internal(e.into()))?;
     Ok(xml_response(body, ATOM_MEDIA_TYPE, headers))

@@ -21,12 +21,14 @@ use std::collections::HashSet;
 use chrono::{DateTime, Duration, Utc};
 
 use crate::{
-    config::{AlertsConfig, ForecastConfig},
+    config::{AlertsConfig, Config},
     forecast::{
-        cap::{self, CapError, CapOptions, Feed, FeedEntry, Issued, Key, Situation},
+        cap::{
+            self, AtomIds, CapError, CapOptions, Feed, FeedEntry, Issued, Issuer, Key, Situation,
+        },
         spec::ReachSpec,
     },
-    store::{CurrentCap, NewCapMessage, OpenMessage, ReachVersion, Store, StoreError},
+    store::{CurrentCap, NewCapMessage, OpenMessage, ReachVersion, ServiceMeta, Store, StoreError},
 };
 
 /// Why the messages of a run were not issued.
@@ -53,15 +55,15 @@ pub struct Alerter {
 }
 
 impl Alerter {
-    pub fn new(alerts: &AlertsConfig, forecast: &ForecastConfig) -> Self {
-        let minutes = i64::try_from(forecast.interval_minutes).unwrap_or(1_440);
+    pub fn new(config: &Config) -> Self {
+        let minutes = i64::try_from(config.forecast.interval_minutes).unwrap_or(1_440);
         Self {
-            sender: alerts.sender.clone(),
+            sender: config.alerts.sender.clone(),
             options: CapOptions {
-                status: alerts.status(),
+                status: config.cap_status(),
                 ..CapOptions::default()
             },
-            base_url: alerts.base_url().map(str::to_owned),
+            base_url: config.alerts.base_url().map(str::to_owned),
             renew_within: Duration::minutes(2 * minutes),
         }
     }
@@ -116,7 +118,14 @@ impl Alerter {
         let open = store.cap_open_chains(reach_id).await?;
         check_complete(&open, situations, &reach.spec)?;
         let previous = with_renewals(&open, now, self.renew_within);
-        let planned = cap::plan(&previous, situations, now, &self.sender)?;
+        // The database's identity goes into every identifier, so that two
+        // installs never issue the same one (see `cap::Issuer`).
+        let meta = store.service_meta().await?;
+        let issuer = Issuer {
+            sender: &self.sender,
+            instance: &meta.instance_id,
+        };
+        let planned = cap::plan(&previous, situations, now, &issuer)?;
         let options = CapOptions {
             web: self
                 .base_url
@@ -126,15 +135,14 @@ impl Alerter {
         };
         let mut out = Vec::with_capacity(planned.len());
         for p in &planned {
-            let document = cap::render_cap(p, &options)?;
-            // Title and summary only; the links are made when serving.
-            let entry = FeedEntry::for_message(p, "");
+            // The Atom entry's title and summary are stored with the
+            // message; its id and links are made when serving.
             out.push(NewCapMessage {
                 issued: p.to_issued(),
                 expires: cap::expires(p, options.validity)?,
-                document,
-                title: entry.title,
-                summary: entry.summary,
+                document: cap::render_cap(p, &options)?,
+                title: cap::headline(p),
+                summary: cap::summary(p),
                 run_id,
             });
         }
@@ -148,41 +156,56 @@ pub fn document_path(identifier: &str) -> String {
     format!("/api/cap/{identifier}")
 }
 
-/// Renders the Atom index of `current` served at `base` + `path`. The feed
-/// id is its own URL (permanent as long as `alerts.base_url` is); each
-/// entry's id is its document's URL (identifiers are never reused, RFC
-/// 4287 §4.2.6); `updated` is when the list last changed, or `fallback`
+/// The ids of the Atom index: URLs under `alerts.base_url` when it is set,
+/// else tag URIs minted under `alerts.sender` (see [`AtomIds`]).
+fn atom_ids(alerts: &AlertsConfig, meta: &ServiceMeta) -> AtomIds {
+    match alerts.base_url() {
+        Some(base) => AtomIds::Url {
+            base: base.to_owned(),
+        },
+        None => AtomIds::Tag {
+            authority: alerts.sender.clone(),
+            instance: meta.instance_id.clone(),
+            created: meta.created_at,
+        },
+    }
+}
+
+/// Renders the Atom index of `current` served at `path`. Links start with
+/// `links` (the public base URL, or one built from the request); ids never
+/// do, since an id must not change (RFC 4287 §4.2.6): see [`atom_ids`].
+/// `updated` is when the list last changed, or the database's creation
 /// when nothing was ever issued, so the same messages give the same bytes.
 pub fn atom_feed(
-    base: &str,
+    links: &str,
+    alerts: &AlertsConfig,
+    meta: &ServiceMeta,
     path: &str,
     title: &str,
-    author: &str,
     current: &CurrentCap,
-    fallback: DateTime<Utc>,
 ) -> Result<String, CapError> {
-    let url = format!("{base}{path}");
+    let ids = atom_ids(alerts, meta);
     let feed = Feed {
-        id: url.clone(),
+        id: ids.feed(path)?,
         title: title.to_owned(),
-        self_url: url,
-        author_name: author.to_owned(),
+        self_url: format!("{links}{path}"),
+        author_name: alerts.sender.clone(),
     };
-    let entries: Vec<FeedEntry> = current
+    let entries = current
         .entries
         .iter()
         .map(|e| {
-            let cap_url = format!("{base}{}", document_path(&e.identifier));
-            FeedEntry {
-                id: cap_url.clone(),
+            let doc = document_path(&e.identifier);
+            Ok(FeedEntry {
+                id: ids.entry(&e.identifier, e.sent, &doc)?,
                 title: e.title.clone(),
                 summary: e.summary.clone(),
                 updated: e.sent,
-                cap_url,
-            }
+                cap_url: format!("{links}{doc}"),
+            })
         })
-        .collect();
-    cap::render_atom(&feed, &entries, current.updated.unwrap_or(fallback))
+        .collect::<Result<Vec<_>, CapError>>()?;
+    cap::render_atom(&feed, &entries, current.updated.unwrap_or(meta.created_at))
 }
 
 /// Refuses to plan when a key that is still configured in `spec` has an
@@ -235,6 +258,11 @@ mod tests {
     use crate::forecast::{
         cap::{Key, Material, MsgType},
         spec::Severity,
+    };
+
+    const ISSUER: Issuer<'static> = Issuer {
+        sender: "reachcast@localhost",
+        instance: "5eed0f1e2d3c4b5a69788796a5b4c3d2",
     };
 
     fn t(h: u32) -> DateTime<Utc> {
@@ -368,14 +396,13 @@ mod tests {
             stale: false,
             location: None,
         };
-        let planned =
-            cap::plan(&p, std::slice::from_ref(&s), t(7), "reachcast@localhost").expect("plan");
+        let planned = cap::plan(&p, std::slice::from_ref(&s), t(7), &ISSUER).expect("plan");
         assert_eq!(planned.len(), 1);
         assert_eq!(planned[0].msg_type, MsgType::Update);
         assert_eq!(planned[0].references.len(), 1);
         // Without renewal the same forecast is unchanged: nothing is sent.
         let plain: Vec<Issued> = open.iter().map(|m| m.issued.clone()).collect();
-        let planned = cap::plan(&plain, &[s], t(7), "reachcast@localhost").expect("plan");
+        let planned = cap::plan(&plain, &[s], t(7), &ISSUER).expect("plan");
         assert!(planned.is_empty());
     }
 }

@@ -71,14 +71,14 @@ impl Forecaster {
     pub fn new(
         store: Store,
         config: ForecastConfig,
-        alerts: &crate::config::AlertsConfig,
+        alerts: Alerter,
         shutdown: watch::Receiver<bool>,
     ) -> Self {
         let (board_version, _) = watch::channel(0);
         Self {
             inner: Arc::new(Inner {
                 store,
-                alerts: Alerter::new(alerts, &config),
+                alerts,
                 config,
                 workers: StdMutex::new(HashMap::new()),
                 board: RwLock::new(Board::default()),

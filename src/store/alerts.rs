@@ -5,7 +5,7 @@
 use chrono::{DateTime, Utc};
 use sqlx::Row;
 
-use super::{Store, StoreError};
+use super::{Audit, Store, StoreError, audit};
 use crate::forecast::cap::{self, Issued, Key, Material, MsgType};
 
 /// A planned and rendered message, ready to store.
@@ -132,7 +132,8 @@ impl Store {
             .collect()
     }
 
-    /// Stores the messages of one plan, all or none.
+    /// Stores the messages of one plan, all or none, each with its audit
+    /// entry (`cap.issue`, actor `system:alerts`) in the same transaction.
     pub async fn insert_cap_messages(&self, msgs: &[NewCapMessage]) -> Result<(), StoreError> {
         if msgs.is_empty() {
             return Ok(());
@@ -168,6 +169,23 @@ impl Store {
             .bind(&m.summary)
             .bind(m.run_id)
             .execute(&mut *tx)
+            .await?;
+            audit::record_system(
+                &mut tx,
+                "alerts",
+                &Audit {
+                    key_id: None,
+                    action: "cap.issue".to_owned(),
+                    target: format!("cap:{}", i.identifier),
+                    summary: serde_json::json!({
+                        "msg_type": i.msg_type.cap_value(),
+                        "reach": i.key.reach,
+                        "point": i.key.point,
+                        "threshold": i.key.threshold,
+                        "run_id": m.run_id,
+                    }),
+                },
+            )
             .await?;
         }
         tx.commit().await?;

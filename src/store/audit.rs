@@ -8,7 +8,8 @@ use super::{Store, StoreError};
 /// What is recorded about a write.
 #[derive(Debug, Clone)]
 pub struct Audit {
-    /// The API key that made the write; `None` for the command line.
+    /// The API key that made the write; `None` for the command line and
+    /// for the service's own writes (`record_system`).
     pub key_id: Option<String>,
     pub action: String,
     pub target: String,
@@ -35,37 +36,32 @@ pub(super) async fn record(conn: &mut SqliteConnection, audit: &Audit) -> Result
         Some(id) => format!("key:{id}"),
         None => "cli".to_owned(),
     };
+    insert(conn, audit, &actor).await
+}
+
+/// Records a write the service made on its own, with no key and no
+/// command line behind it (CAP messages issued after a forecast run, say):
+/// `key_id` must be `None`, and the actor is `system:{component}`.
+pub(super) async fn record_system(
+    conn: &mut SqliteConnection,
+    component: &str,
+    audit: &Audit,
+) -> Result<(), StoreError> {
+    debug_assert!(audit.key_id.is_none(), "a system write has no key");
+    insert(conn, audit, &format!("system:{component}")).await
+}
+
+async fn insert(conn: &mut SqliteConnection, audit: &Audit, actor: &str) -> Result<(), StoreError> {
     sqlx::query(
         "INSERT INTO audit_log (at, key_id, actor, action, target, summary)
          VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
     )
-    .bind(Utc::now().to_rfc3339())
+    .bind(crate::wire_time::format(Utc::now()))
     .bind(&audit.key_id)
     .bind(actor)
     .bind(&audit.action)
     .bind(&audit.target)
     .bind(audit.summary.to_string())
-    .execute(conn)
-    .await?;
-    Ok(())
-}
-
-/// Records a write the service made on its own (a forecast run, a CAP
-/// message), with the actor `system`.
-pub(super) async fn record_system(
-    conn: &mut SqliteConnection,
-    action: &str,
-    target: &str,
-    summary: serde_json::Value,
-) -> Result<(), StoreError> {
-    sqlx::query(
-        "INSERT INTO audit_log (at, key_id, actor, action, target, summary)
-         VALUES (?1, NULL, 'system', ?2, ?3, ?4)",
-    )
-    .bind(crate::wire_time::format(Utc::now()))
-    .bind(action)
-    .bind(target)
-    .bind(summary.to_string())
     .execute(conn)
     .await?;
     Ok(())

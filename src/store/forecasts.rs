@@ -327,9 +327,13 @@ impl Store {
         .await?;
         audit::record_system(
             &mut tx,
-            "forecast.run",
-            &reach_id,
-            serde_json::json!({"run_id": run_id, "status": status.as_str(), "error": error}),
+            "forecast",
+            &Audit {
+                key_id: None,
+                action: "forecast.run".to_owned(),
+                target: reach_id,
+                summary: serde_json::json!({"run_id": run_id, "status": status.as_str(), "error": error}),
+            },
         )
         .await?;
         tx.commit().await?;

@@ -1,0 +1,287 @@
+//! One (point, threshold) pair as the latest forecast run sees it: the
+//! input of [`super::plan`] and of everything a message says.
+
+use chrono::{DateTime, Utc};
+use serde::{Deserialize, Serialize};
+
+use super::{CapError, Material};
+use crate::forecast::level::{LevelOutlook, Trace};
+use crate::forecast::run::PointForecast;
+use crate::forecast::spec::{PointKind, Severity};
+
+/// Identifies one (reach, point, threshold) across runs. Names, not
+/// database ids, so that a reach re-uploaded with the same names keeps its
+/// message chains; renaming a threshold therefore cancels the old chain and
+/// starts a new one, which is what a consumer should see.
+#[derive(Debug, Clone, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+pub struct Key {
+    /// Reach slug.
+    pub reach: String,
+    pub point: String,
+    pub threshold: String,
+}
+
+impl Key {
+    /// 64-bit FNV-1a over the three fields separated by U+001F. FNV is
+    /// specified independently of the Rust release (unlike
+    /// `DefaultHasher`), so identifiers computed today and next year agree.
+    pub fn digest(&self) -> u64 {
+        const OFFSET: u64 = 0xcbf2_9ce4_8422_2325;
+        const PRIME: u64 = 0x0000_0100_0000_01b3;
+        let mut h = OFFSET;
+        let parts = [&self.reach, &self.point, &self.threshold];
+        for (i, part) in parts.iter().enumerate() {
+            if i > 0 {
+                h ^= 0x1f;
+                h = h.wrapping_mul(PRIME);
+            }
+            for b in part.bytes() {
+                h ^= u64::from(b);
+                h = h.wrapping_mul(PRIME);
+            }
+        }
+        h
+    }
+}
+
+impl std::fmt::Display for Key {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{}/{}/{}", self.reach, self.point, self.threshold)
+    }
+}
+
+/// A circular area in WGS 84 (CAP §3.2.4 `circle`; radius in km, from
+/// memory).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Circle {
+    /// Latitude (degrees, −90..=90).
+    pub lat: f64,
+    /// Longitude (degrees, −180..=180).
+    pub lon: f64,
+    /// Radius (km, ≥ 0).
+    pub radius_km: f64,
+}
+
+/// One (point, threshold) pair at the latest forecast: everything a
+/// message says about it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Situation {
+    /// Reach slug (stable, URL-safe).
+    pub reach_id: String,
+    /// Reach display name.
+    pub reach_name: String,
+    pub point_name: String,
+    pub point_kind: PointKind,
+    /// Chainage of the point (m).
+    pub chainage: f64,
+    pub threshold_name: String,
+    /// Threshold elevation (m).
+    pub elevation: f64,
+    pub severity: Severity,
+    /// The forecast stage is above the threshold at some time from `now`
+    /// on. (An exceedance wholly in the past is not a reason to alert.)
+    pub exceeded: bool,
+    /// The stage is above the threshold at `now`.
+    pub above_now: bool,
+    /// When the stage is forecast to rise above the threshold (or `now`
+    /// when already above).
+    pub first_above: Option<DateTime<Utc>>,
+    /// When it is forecast to fall back below; `None` if it stays above to
+    /// the end of the forecast.
+    pub back_below: Option<DateTime<Utc>>,
+    /// Highest forecast stage (m) and its time.
+    pub crest_stage: f64,
+    pub crest_time: DateTime<Utc>,
+    /// Crest minus threshold (m); positive when exceeded.
+    pub margin: f64,
+    pub run_id: i64,
+    /// When the run that produced this forecast finished.
+    pub run_finished: DateTime<Utc>,
+    /// No newer run arrived when one was due: the forecast may be out of
+    /// date, so certainty drops to `Possible`.
+    pub stale: bool,
+    /// Optional WGS 84 circle for the CAP `area`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub location: Option<Circle>,
+}
+
+/// Run-level facts shared by every [`Situation`] built from one run.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RunContext {
+    pub reach_id: String,
+    pub reach_name: String,
+    pub run_id: i64,
+    pub run_finished: DateTime<Utc>,
+    pub stale: bool,
+}
+
+impl Situation {
+    /// The identity of this situation across runs.
+    pub fn key(&self) -> Key {
+        Key {
+            reach: self.reach_id.clone(),
+            point: self.point_name.clone(),
+            threshold: self.threshold_name.clone(),
+        }
+    }
+
+    /// A message chain is open for this situation: the stage is above the
+    /// threshold now or is forecast to be later.
+    pub fn is_active(&self) -> bool {
+        self.exceeded || self.above_now
+    }
+
+    /// The facts whose change warrants an `Update`.
+    pub fn material(&self) -> Material {
+        Material {
+            first_above: self.first_above,
+            crest_stage: self.crest_stage,
+            stale: self.stale,
+            severity: self.severity,
+            elevation: self.elevation,
+        }
+    }
+
+    /// Builds a situation from a run's point forecast and one of its
+    /// thresholds, looking only at the forecast from `now` on: the run
+    /// started earlier, and an exceedance that is already over must not
+    /// open a chain. The stage at `now` is interpolated linearly between
+    /// samples (as [`Trace`] does); after the last sample the last stage is
+    /// carried forward (a stale forecast is flagged by `ctx.stale`); before
+    /// the first sample the forecast is read from its start.
+    pub fn from_forecast(
+        ctx: &RunContext,
+        point: &PointForecast,
+        threshold: &LevelOutlook,
+        now: DateTime<Utc>,
+    ) -> Result<Situation, CapError> {
+        let trace = Trace::new(&point.times, &point.stage);
+        if trace.times.is_empty() {
+            return Err(CapError::EmptyForecast(point.name.clone()));
+        }
+        let crest = trace.crest_from(now).ok_or_else(|| CapError::NonFinite {
+            key: point.name.clone(),
+            field: "stage",
+        })?;
+        let level = threshold.seen_from(&trace, now);
+        Ok(Situation {
+            reach_id: ctx.reach_id.clone(),
+            reach_name: ctx.reach_name.clone(),
+            point_name: point.name.clone(),
+            point_kind: point.kind,
+            chainage: point.chainage,
+            threshold_name: level.name,
+            elevation: level.elevation,
+            severity: level.severity,
+            exceeded: level.exceeded,
+            above_now: level.above_now,
+            first_above: level.first_above,
+            back_below: level.back_below,
+            crest_stage: crest.stage,
+            crest_time: crest.time,
+            margin: level.margin,
+            run_id: ctx.run_id,
+            run_finished: ctx.run_finished,
+            stale: ctx.stale,
+            location: None,
+        })
+    }
+
+    pub(super) fn check_finite(&self) -> Result<(), CapError> {
+        let fields = [
+            ("chainage", self.chainage),
+            ("elevation", self.elevation),
+            ("crest_stage", self.crest_stage),
+            ("margin", self.margin),
+        ];
+        for (field, v) in fields {
+            if !v.is_finite() {
+                return Err(CapError::NonFinite {
+                    key: self.key().to_string(),
+                    field,
+                });
+            }
+        }
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::forecast::cap::fixtures::{situation, t};
+
+    fn point(times: Vec<DateTime<Utc>>, stage: Vec<f64>) -> (PointForecast, LevelOutlook) {
+        let point = PointForecast {
+            name: "Sallowgate Bridge".into(),
+            chainage: 4200.0,
+            kind: PointKind::Bridge,
+            bed_elevation: 8.0,
+            low_chord: None,
+            deck: None,
+            discharge: vec![0.0; times.len()],
+            times,
+            stage,
+            crest_stage: 0.0,
+            crest_time: t(0, 0),
+            peak_discharge: 0.0,
+            low_chord_margin: None,
+            deck_margin: None,
+            thresholds: vec![],
+        };
+        let th = LevelOutlook {
+            name: "Road closed".into(),
+            elevation: 12.0,
+            severity: Severity::Moderate,
+            exceeded: true,
+            above_now: false,
+            first_above: None,
+            back_below: None,
+            duration_above_s: 0.0,
+            margin: 0.0,
+        };
+        (point, th)
+    }
+
+    #[test]
+    fn from_forecast_reads_the_series_from_now_on() {
+        let ctx = RunContext {
+            reach_id: "brindlemoor".into(),
+            reach_name: "Brindlemoor River".into(),
+            run_id: 3,
+            run_finished: t(5, 0),
+            stale: false,
+        };
+        // Above 12 m only between 06:00 and 08:00, peaking 13 m at 07:00.
+        let times = vec![t(5, 0), t(6, 0), t(7, 0), t(8, 0), t(9, 0)];
+        let (p, th) = point(times, vec![11.0, 12.0, 13.0, 12.0, 11.0]);
+        // At 06:30 it is above now (12.5 m), back below at 08:00.
+        let s = Situation::from_forecast(&ctx, &p, &th, t(6, 30)).expect("situation");
+        assert!(s.above_now && s.exceeded);
+        assert_eq!(s.first_above, Some(t(6, 30)));
+        assert_eq!(s.back_below, Some(t(8, 0)));
+        assert_eq!((s.crest_stage, s.crest_time), (13.0, t(7, 0)));
+        // At 08:30 the exceedance is over: no chain should open.
+        let s = Situation::from_forecast(&ctx, &p, &th, t(8, 30)).expect("situation");
+        assert!(!s.above_now && !s.exceeded && !s.is_active());
+        // Before the forecast starts, the whole series is read, not "now".
+        let s = Situation::from_forecast(&ctx, &p, &th, t(4, 0)).expect("situation");
+        assert!(!s.above_now && s.exceeded);
+        assert_eq!(s.first_above, Some(t(6, 0)));
+        // After it ends, the last stage is carried forward.
+        let s = Situation::from_forecast(&ctx, &p, &th, t(10, 0)).expect("situation");
+        assert!(!s.exceeded);
+        let (empty, th) = point(vec![], vec![]);
+        assert!(matches!(
+            Situation::from_forecast(&ctx, &empty, &th, t(6, 0)),
+            Err(CapError::EmptyForecast(_))
+        ));
+    }
+
+    #[test]
+    fn key_digest_is_fnv1a_with_unit_separators() {
+        // Cross-checked with an independent FNV-1a 64 implementation, which
+        // also gives the published test vector FNV-1a("a") = af63dc4c8601ec8c.
+        assert_eq!(situation().key().digest(), 0xf255_937f_9c27_4c04);
+    }
+}
