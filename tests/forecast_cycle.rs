@@ -745,3 +745,95 @@ fn check_times(v: &serde_json::Value, path: &str) -> usize {
         _ => 0,
     }
 }
+
+/// Every write is audited (DEVELOPERS.md, invariants), the service's own
+/// included: each finished run leaves one `forecast.run` entry by the
+/// system actor, naming the run and its outcome.
+#[tokio::test]
+async fn every_run_is_in_the_audit_log() {
+    let s = setup(60, 600_000).await;
+    post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
+    let run = run_now(&s).await;
+    let id = run["run_id"].as_i64().expect("run id");
+    let log = s.app.store.audit_log(200).await.expect("audit log");
+    let entry = log
+        .iter()
+        .find(|e| e.action == "forecast.run" && e.summary["run_id"] == id)
+        .unwrap_or_else(|| panic!("no audit entry for run {id}: {log:#?}"));
+    assert_eq!(entry.actor, "system:forecast");
+    assert_eq!(entry.key_id, None);
+    assert_eq!(entry.target, REACH);
+    assert_eq!(entry.summary["status"], run["status"]);
+    s.app.stop().await;
+}
+
+/// RFC 9110 §12.5.5: an answer chosen by the `Accept` header says so in
+/// `Vary`, or a shared cache could hand CSV to a client that asked for
+/// JSON.
+#[tokio::test]
+async fn forecast_answers_vary_on_accept() {
+    let s = setup(60, 600_000).await;
+    post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
+    assert_eq!(run_now(&s).await["status"], "ok");
+    for accept in ["application/json", "text/csv"] {
+        let res = s
+            .app
+            .client
+            .get(s.app.url(&format!("/api/reaches/{REACH}/forecast")))
+            .header("accept", accept)
+            .send()
+            .await
+            .expect("GET");
+        assert_eq!(res.status(), 200);
+        let vary = res
+            .headers()
+            .get_all("vary")
+            .iter()
+            .filter_map(|v| v.to_str().ok())
+            .collect::<Vec<_>>()
+            .join(",");
+        assert!(
+            vary.to_ascii_lowercase().contains("accept"),
+            "{accept}: Vary `{vary}`"
+        );
+        let ctype = res.headers()["content-type"]
+            .to_str()
+            .unwrap_or("")
+            .to_owned();
+        assert!(ctype.starts_with(if accept == "text/csv" {
+            "text/csv"
+        } else {
+            "application/json"
+        }));
+    }
+    s.app.stop().await;
+}
+
+/// A crest is an instant of the model's own output: the first release
+/// reported it 0.1–0.8 ms before its sample (so CAP text said 13:50 for
+/// 13:51). Every crest time on the board is now one of the run's output
+/// times, or the instant the run finished when the water is highest then.
+#[tokio::test]
+async fn crest_times_are_output_instants() {
+    let s = setup(60, 600_000).await;
+    post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
+    let run = run_now(&s).await;
+    let id = run["run_id"].as_i64().expect("run id");
+    let (_, detail) = get_json(&s.app, &format!("/api/runs/{id}")).await;
+    let (_, board) = get_json(&s.app, "/api/exceedances").await;
+    let items = board["items"].as_array().expect("items");
+    assert!(!items.is_empty(), "the test reach has thresholds");
+    for item in items {
+        let point = detail["results"]["points"]
+            .as_array()
+            .and_then(|ps| ps.iter().find(|p| p["name"] == item["point"]))
+            .expect("point of the item");
+        let times = point["times"].as_array().expect("times");
+        let crest = &item["crest_time"];
+        assert!(
+            times.contains(crest) || *crest == item["run_finished"],
+            "crest {crest} is not an output instant of run {id}"
+        );
+    }
+    s.app.stop().await;
+}

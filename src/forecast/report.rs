@@ -7,10 +7,11 @@ use chrono::{DateTime, Utc};
 
 use super::{
     export::{Rows, TableContext, table},
-    run::RunOutput,
+    level::LevelOutlook,
+    run::{PointForecast, RunOutput},
     spec::Units,
 };
-use crate::CAUTION;
+use crate::{CAUTION, engine::diffusive::Diagnostics};
 
 fn hours_minutes(seconds: f64) -> String {
     let total = (seconds / 60.0).round() as i64;
@@ -43,67 +44,83 @@ pub fn summary(out: &RunOutput, wall_time_s: f64) -> String {
         time(out.end)
     );
     for p in &out.points {
-        let _ = writeln!(s);
-        let _ = writeln!(
-            s,
-            "{} ({}, chainage {:.0} m, bed {:.2} m)",
-            p.name, p.kind, p.chainage, p.bed_elevation
-        );
-        let _ = writeln!(
-            s,
-            "  crest {:.2} m at {}; peak discharge {:.1} m3/s",
-            p.crest_stage,
-            time(p.crest_time),
-            p.peak_discharge
-        );
-        if let (Some(lc), Some(m)) = (p.low_chord, p.low_chord_margin) {
-            let verdict = if m < 0.0 {
-                "WATER REACHES THE LOW CHORD"
-            } else {
-                "clear"
-            };
-            let _ = writeln!(s, "  low chord {lc:.2} m: margin {m:+.2} m ({verdict})");
-        }
-        if let (Some(dk), Some(m)) = (p.deck, p.deck_margin) {
-            let verdict = if m < 0.0 { "DECK OVERTOPPED" } else { "clear" };
-            let _ = writeln!(s, "  deck {dk:.2} m: margin {m:+.2} m ({verdict})");
-        }
-        if p.thresholds.is_empty() {
-            let _ = writeln!(s, "  no thresholds set");
-        }
-        for t in &p.thresholds {
-            if t.exceeded {
-                let first = t
-                    .first_above
-                    .map(|x| {
-                        if t.above_now {
-                            format!("already above at {}", time(x))
-                        } else {
-                            format!("first above {}", time(x))
-                        }
-                    })
-                    .unwrap_or_default();
-                let back = t
-                    .back_below
-                    .map(|x| format!("back below {}", time(x)))
-                    .unwrap_or_else(|| "still above at the end".to_owned());
-                let _ = writeln!(
-                    s,
-                    "  threshold \"{}\" {:.2} m: EXCEEDED, {first}, {back}, above for {} (crest {:+.2} m over)",
-                    t.name,
-                    t.elevation,
-                    hours_minutes(t.duration_above_s),
-                    t.margin
-                );
-            } else {
-                let _ = writeln!(
-                    s,
-                    "  threshold \"{}\" {:.2} m: not reached (crest {:.2} m below)",
-                    t.name, t.elevation, -t.margin
-                );
-            }
-        }
+        point_lines(&mut s, p);
     }
+    diagnostics_lines(&mut s, d, wall_time_s);
+    s
+}
+
+/// The lines of one point: crest, bridge margins, thresholds.
+fn point_lines(s: &mut String, p: &PointForecast) {
+    let _ = writeln!(s);
+    let _ = writeln!(
+        s,
+        "{} ({}, chainage {:.0} m, bed {:.2} m)",
+        p.name, p.kind, p.chainage, p.bed_elevation
+    );
+    let _ = writeln!(
+        s,
+        "  crest {:.2} m at {}; peak discharge {:.1} m3/s",
+        p.crest_stage,
+        time(p.crest_time),
+        p.peak_discharge
+    );
+    if let (Some(lc), Some(m)) = (p.low_chord, p.low_chord_margin) {
+        let verdict = if m < 0.0 {
+            "WATER REACHES THE LOW CHORD"
+        } else {
+            "clear"
+        };
+        let _ = writeln!(s, "  low chord {lc:.2} m: margin {m:+.2} m ({verdict})");
+    }
+    if let (Some(dk), Some(m)) = (p.deck, p.deck_margin) {
+        let verdict = if m < 0.0 { "DECK OVERTOPPED" } else { "clear" };
+        let _ = writeln!(s, "  deck {dk:.2} m: margin {m:+.2} m ({verdict})");
+    }
+    if p.thresholds.is_empty() {
+        let _ = writeln!(s, "  no thresholds set");
+    }
+    for t in &p.thresholds {
+        level_line(s, t);
+    }
+}
+
+/// One threshold: when it is crossed and for how long, or its clearance.
+fn level_line(s: &mut String, t: &LevelOutlook) {
+    if t.exceeded {
+        let first = t
+            .first_above
+            .map(|x| {
+                if t.above_now {
+                    format!("already above at {}", time(x))
+                } else {
+                    format!("first above {}", time(x))
+                }
+            })
+            .unwrap_or_default();
+        let back = t
+            .back_below
+            .map(|x| format!("back below {}", time(x)))
+            .unwrap_or_else(|| "still above at the end".to_owned());
+        let _ = writeln!(
+            s,
+            "  threshold \"{}\" {:.2} m: EXCEEDED, {first}, {back}, above for {} (crest {:+.2} m over)",
+            t.name,
+            t.elevation,
+            hours_minutes(t.duration_above_s),
+            t.margin
+        );
+    } else {
+        let _ = writeln!(
+            s,
+            "  threshold \"{}\" {:.2} m: not reached (crest {:.2} m below)",
+            t.name, t.elevation, -t.margin
+        );
+    }
+}
+
+/// The engine's diagnostics and warnings.
+fn diagnostics_lines(s: &mut String, d: &Diagnostics, wall_time_s: f64) {
     let _ = writeln!(s);
     let _ = writeln!(s, "diagnostics");
     let _ = writeln!(
@@ -149,7 +166,6 @@ pub fn summary(out: &RunOutput, wall_time_s: f64) -> String {
             let _ = writeln!(s, "  WARNING: {w}");
         }
     }
-    s
 }
 
 /// Stage and discharge hydrographs at every point, in the one CSV table
