@@ -163,7 +163,7 @@ pub fn build(i: &Inputs<'_>, freshness: Freshness) -> ForecastDoc {
 impl ForecastDoc {
     /// The document of one point, if the reach has it.
     pub fn point(&self, name: &str) -> Option<PointDoc<'_>> {
-        let point = self.points.iter().find(|p| p.name == name)?;
+        let point = self.points.iter().find(|p| p.forecast.name == name)?;
         Some(PointDoc {
             caution: crate::CAUTION,
             reach: &self.reach,
@@ -186,7 +186,7 @@ impl ForecastDoc {
         let rows = self
             .points
             .iter()
-            .filter(|p| only.is_none_or(|n| n == p.name))
+            .filter(|p| only.is_none_or(|n| n == p.forecast.name))
             .map(Rows::from);
         export::table(&ctx, rows)
     }

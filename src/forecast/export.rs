@@ -11,6 +11,7 @@
 //! it is advisory; a stale forecast says so in the same cell.
 
 use super::{
+    run::PointForecast,
     spec::Units,
     view::{PointView, UnitNames},
 };
@@ -40,6 +41,12 @@ pub struct Rows<'a> {
 
 impl<'a> From<&'a PointView> for Rows<'a> {
     fn from(p: &'a PointView) -> Self {
+        Rows::from(&p.forecast)
+    }
+}
+
+impl<'a> From<&'a PointForecast> for Rows<'a> {
+    fn from(p: &'a PointForecast) -> Self {
         Rows {
             point: &p.name,
             chainage: p.chainage,

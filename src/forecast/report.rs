@@ -177,14 +177,7 @@ pub fn results_csv(out: &RunOutput) -> Result<String, csv::Error> {
         units: Units::Si,
         caution: CAUTION.to_owned(),
     };
-    let rows = out.points.iter().map(|p| Rows {
-        point: &p.name,
-        chainage: p.chainage,
-        times: &p.times,
-        stage: &p.stage,
-        discharge: &p.discharge,
-    });
-    table(&ctx, rows)
+    table(&ctx, out.points.iter().map(Rows::from))
 }
 
 #[cfg(test)]

@@ -7,10 +7,10 @@ use chrono::{DateTime, Utc};
 use serde::Serialize;
 
 use super::{
-    level::{LevelOutlook, Trace},
+    level::Trace,
     record::StoredResults,
     run::PointForecast,
-    spec::{PointKind, ReachSpec, Units},
+    spec::{ReachSpec, Units},
 };
 
 /// Feet per metre: the international foot is exactly 0.3048 m (NIST
@@ -50,30 +50,16 @@ pub struct ObservedStage {
     pub stage: f64,
 }
 
+/// A point seen from `now` on: its forecast, with the crest, margins and
+/// thresholds of what is still ahead, plus the stage now and the gauge's
+/// observations.
 #[derive(Debug, Clone, Serialize, PartialEq)]
 pub struct PointView {
-    pub name: String,
-    pub chainage: f64,
-    pub kind: PointKind,
-    pub bed_elevation: f64,
-    pub low_chord: Option<f64>,
-    pub deck: Option<f64>,
+    #[serde(flatten)]
+    pub forecast: PointForecast,
     /// Forecast stage at `now`.
     pub current_stage: f64,
-    /// Highest forecast stage from now on, and when.
-    pub crest_stage: f64,
-    #[serde(with = "crate::wire_time")]
-    pub crest_time: DateTime<Utc>,
-    pub peak_discharge: f64,
-    pub low_chord_margin: Option<f64>,
-    pub deck_margin: Option<f64>,
-    #[serde(with = "crate::wire_time::vec")]
-    pub times: Vec<DateTime<Utc>>,
-    pub stage: Vec<f64>,
-    pub discharge: Vec<f64>,
     pub observed: Vec<ObservedStage>,
-    /// Ranked by elevation, lowest first; seen from now on.
-    pub thresholds: Vec<LevelOutlook>,
     /// Name of the highest threshold exceeded from now on.
     pub highest_exceeded: Option<String>,
 }
@@ -142,37 +128,28 @@ pub fn freshness(f: &FreshnessInput) -> Freshness {
 /// trace has no finite crest ahead keeps the run's own crest.
 pub fn point(p: &PointForecast, observed: Vec<ObservedStage>, now: DateTime<Utc>) -> PointView {
     let trace = Trace::new(&p.times, &p.stage);
-    let (crest_stage, crest_time) = trace
-        .crest_from(now)
-        .map_or((p.crest_stage, p.crest_time), |c| (c.stage, c.time));
-    let thresholds: Vec<LevelOutlook> = p
+    let mut forecast = p.clone();
+    if let Some(c) = trace.crest_from(now) {
+        forecast.crest_stage = c.stage;
+        forecast.crest_time = c.time;
+    }
+    forecast.low_chord_margin = p.low_chord.map(|lc| lc - forecast.crest_stage);
+    forecast.deck_margin = p.deck.map(|d| d - forecast.crest_stage);
+    forecast.thresholds = p
         .thresholds
         .iter()
         .map(|t| t.seen_from(&trace, now))
         .collect();
-    let highest_exceeded = thresholds
+    let highest_exceeded = forecast
+        .thresholds
         .iter()
         .rev()
         .find(|t| t.exceeded)
         .map(|t| t.name.clone());
     PointView {
-        name: p.name.clone(),
-        chainage: p.chainage,
-        kind: p.kind,
-        bed_elevation: p.bed_elevation,
-        low_chord: p.low_chord,
-        deck: p.deck,
+        forecast,
         current_stage: trace.stage_at(now),
-        crest_stage,
-        crest_time,
-        peak_discharge: p.peak_discharge,
-        low_chord_margin: p.low_chord.map(|lc| lc - crest_stage),
-        deck_margin: p.deck.map(|d| d - crest_stage),
-        times: p.times.clone(),
-        stage: p.stage.clone(),
-        discharge: p.discharge.clone(),
         observed,
-        thresholds,
         highest_exceeded,
     }
 }
@@ -202,27 +179,28 @@ pub fn points(
 impl PointView {
     /// Converts lengths to feet and discharges to ft³/s.
     pub fn to_us(&mut self) {
+        let f = &mut self.forecast;
         let l = |v: &mut f64| *v *= FT_PER_M;
-        l(&mut self.bed_elevation);
         l(&mut self.current_stage);
-        l(&mut self.crest_stage);
-        self.chainage *= FT_PER_M;
-        self.peak_discharge *= FT3_PER_M3;
+        l(&mut f.bed_elevation);
+        l(&mut f.crest_stage);
+        l(&mut f.chainage);
+        f.peak_discharge *= FT3_PER_M3;
         for v in [
-            &mut self.low_chord,
-            &mut self.deck,
-            &mut self.low_chord_margin,
-            &mut self.deck_margin,
+            &mut f.low_chord,
+            &mut f.deck,
+            &mut f.low_chord_margin,
+            &mut f.deck_margin,
         ]
         .into_iter()
         .flatten()
         {
             *v *= FT_PER_M;
         }
-        self.stage.iter_mut().for_each(l);
-        self.discharge.iter_mut().for_each(|q| *q *= FT3_PER_M3);
+        f.stage.iter_mut().for_each(l);
+        f.discharge.iter_mut().for_each(|q| *q *= FT3_PER_M3);
         self.observed.iter_mut().for_each(|o| o.stage *= FT_PER_M);
-        for t in &mut self.thresholds {
+        for t in &mut f.thresholds {
             t.elevation *= FT_PER_M;
             t.margin *= FT_PER_M;
         }

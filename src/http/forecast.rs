@@ -213,6 +213,34 @@ fn csv_response(body: Result<String, csv::Error>) -> Result<Response, ApiError> 
         .into_response())
 }
 
+/// What both reads decide before building anything: the run, the
+/// representation asked for, and the freshness verdict at `now`.
+struct Request {
+    loaded: Loaded,
+    units: Units,
+    csv: bool,
+    now: DateTime<Utc>,
+    fresh: Freshness,
+}
+
+async fn prepare(
+    state: &AppState,
+    id: &str,
+    params: &ForecastParams,
+    headers: &HeaderMap,
+) -> Result<Request, ApiError> {
+    let loaded = load_latest(state, id).await?;
+    let now = Utc::now();
+    let fresh = freshness_of(state, &loaded, now).await?;
+    Ok(Request {
+        units: params.units.unwrap_or(loaded.reach.spec.service.units),
+        csv: wants_csv(params.format, headers),
+        loaded,
+        now,
+        fresh,
+    })
+}
+
 async fn forecast(
     _: ReadAccess,
     State(state): State<AppState>,
@@ -220,11 +248,13 @@ async fn forecast(
     Query(params): Query<ForecastParams>,
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
-    let l = load_latest(&state, &id).await?;
-    let units = params.units.unwrap_or(l.reach.spec.service.units);
-    let csv = wants_csv(params.format, &headers);
-    let now = Utc::now();
-    let fresh = freshness_of(&state, &l, now).await?;
+    let Request {
+        loaded: l,
+        units,
+        csv,
+        now,
+        fresh,
+    } = prepare(&state, &id, &params, &headers).await?;
     let etag = forecast_etag(l.run.id, &fresh, units, csv);
     if not_modified(&headers, &etag) {
         return Ok(vary_accept(with_etag(
@@ -248,11 +278,13 @@ async fn point_forecast(
     Query(params): Query<ForecastParams>,
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
-    let l = load_latest(&state, &id).await?;
-    let units = params.units.unwrap_or(l.reach.spec.service.units);
-    let csv = wants_csv(params.format, &headers);
-    let now = Utc::now();
-    let fresh = freshness_of(&state, &l, now).await?;
+    let Request {
+        loaded: l,
+        units,
+        csv,
+        now,
+        fresh,
+    } = prepare(&state, &id, &params, &headers).await?;
     let doc = build_doc(&state, &l, units, now, fresh).await?;
     let Some(p) = doc.point(&point) else {
         return Err(not_found(
