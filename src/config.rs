@@ -10,7 +10,9 @@
 //! `REACHCAST_SERVER_BIND` sets `server.bind`, `REACHCAST_STORAGE_DATA_DIR`
 //! sets `storage.data_dir`. An unknown `REACHCAST_*` variable is an error
 //! rather than silently ignored, because a typo in a deployment file would
-//! otherwise leave a default in force unnoticed.
+//! otherwise leave a default in force unnoticed. A variable's value takes
+//! the type of its key (`env_value`), so `REACHCAST_ALERTS_SENDER=2024`
+//! is the text "2024".
 
 use std::{
     collections::BTreeMap,
