@@ -10,15 +10,18 @@
 //! `REACHCAST_SERVER_BIND` sets `server.bind`, `REACHCAST_STORAGE_DATA_DIR`
 //! sets `storage.data_dir`. An unknown `REACHCAST_*` variable is an error
 //! rather than silently ignored, because a typo in a deployment file would
-//! otherwise leave a default in force unnoticed.
+//! otherwise leave a default in force unnoticed. A variable's value takes
+//! the type of its key (`env_value`), so `REACHCAST_ALERTS_SENDER=2024`
+//! is the text "2024".
 
 use std::{
+    collections::BTreeMap,
     net::SocketAddr,
     path::{Path, PathBuf},
     time::Duration,
 };
 
-use serde::Deserialize;
+use serde::{Deserialize, Serialize};
 
 /// Prefix of the environment variables read as configuration.
 pub const ENV_PREFIX: &str = "REACHCAST_";
@@ -48,7 +51,7 @@ pub enum ConfigError {
 }
 
 /// The whole configuration of the service.
-#[derive(Debug, Clone, Default, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Default, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct Config {
     pub server: ServerConfig,
@@ -63,7 +66,7 @@ pub struct Config {
 
 /// `[alerts]`: CAP 1.2 messages issued after forecast runs and their Atom
 /// index.
-#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct AlertsConfig {
     /// CAP `sender`: identifies this service to consumers; no spaces,
@@ -99,7 +102,7 @@ impl AlertsConfig {
 }
 
 /// `[forecast]`: the forecast cycle.
-#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct ForecastConfig {
     /// Every reach is forecast at least this often.
@@ -149,7 +152,7 @@ impl Default for ForecastConfig {
 }
 
 /// `[server]`: the HTTP listener.
-#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct ServerConfig {
     /// Address and port to listen on. Port 0 picks a free port.
@@ -163,7 +166,7 @@ pub struct ServerConfig {
 }
 
 /// `[storage]`: the embedded SQLite database.
-#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct StorageConfig {
     /// Folder that holds the database file; created if missing.
@@ -175,7 +178,7 @@ pub struct StorageConfig {
 }
 
 /// `[log]`: what the service writes to standard error.
-#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct LogConfig {
     /// A `tracing` filter such as `info` or `reachcast=debug,tower_http=info`.
@@ -184,7 +187,7 @@ pub struct LogConfig {
 }
 
 /// `[demo]`: the invented demonstration reach.
-#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct DemoConfig {
     /// Seed the invented demo reach and replay its synthetic storm.
@@ -194,7 +197,7 @@ pub struct DemoConfig {
 }
 
 /// `[auth]`: API keys and their limits.
-#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct AuthConfig {
     /// Whether `GET` endpoints answer without a key.
@@ -206,7 +209,7 @@ pub struct AuthConfig {
 }
 
 /// `[ingest]`: checks on incoming readings and paging of answers.
-#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct IngestConfig {
     /// How far ahead of the server clock a reading's time may lie.
@@ -282,10 +285,6 @@ pub struct Overrides {
     pub data_dir: Option<PathBuf>,
 }
 
-/// Builds the error for a bad value of a key (it knows where each value
-/// came from).
-type Bad<'a> = &'a dyn Fn(&str, String) -> ConfigError;
-
 /// Every key, as `section.name`, in the order the example file documents them.
 pub const KEYS: &[&str] = &[
     "server.bind",
@@ -329,30 +328,25 @@ impl Config {
         overrides: &Overrides,
     ) -> Result<Self, ConfigError> {
         let mut table = match file {
-            Some(path) => {
-                let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read {
-                    path: path.to_owned(),
-                    source,
-                })?;
-                text.parse::<toml::Table>()
-                    .map_err(|e| ConfigError::Parse {
-                        path: path.to_owned(),
-                        message: e.message().to_owned(),
-                    })?
-            }
+            Some(path) => read_file(path)?,
             None => toml::Table::new(),
         };
-        let origin_of_file = file
-            .map(|p| format!("file {}", p.display()))
-            .unwrap_or_else(|| "defaults".to_owned());
-        let mut origins: Vec<(String, String)> = Vec::new();
+        let file_origin = file.map_or_else(
+            || "defaults".to_owned(),
+            |p| format!("file {}", p.display()),
+        );
+        // Where each key not from the file got its value; a later source
+        // replaces an earlier one, as the value itself does.
+        let mut origins: BTreeMap<&str, String> = BTreeMap::new();
 
         let mut env: Vec<(String, String)> = env
             .into_iter()
             .filter(|(k, _)| k.starts_with(ENV_PREFIX) && k != ENV_CONFIG_FILE)
             .collect();
         env.sort();
-        for (var, value) in env {
+        let defaults = toml::Table::try_from(Config::default())
+            .expect("the defaults are plain tables of scalars");
+        for (var, raw) in env {
             let key = env_key(&var).ok_or_else(|| ConfigError::UnknownEnv {
                 var: var.clone(),
                 known: KEYS
@@ -361,180 +355,107 @@ impl Config {
                     .collect::<Vec<_>>()
                     .join(", "),
             })?;
-            set_key(&mut table, key, env_value(&value));
-            origins.push((key.to_owned(), format!("environment variable {var}")));
+            let origin = format!("environment variable {var}");
+            let value = env_value(lookup(&defaults, key), &raw).map_err(|message| {
+                ConfigError::Invalid {
+                    key: key.to_owned(),
+                    origin: origin.clone(),
+                    message,
+                }
+            })?;
+            set_key(&mut table, key, value);
+            origins.insert(key, origin);
         }
         if let Some(bind) = &overrides.bind {
-            set_key(&mut table, "server.bind", toml::Value::String(bind.clone()));
-            origins.push(("server.bind".to_owned(), "--bind".to_owned()));
+            set_key(&mut table, "server.bind", bind.clone().into());
+            origins.insert("server.bind", "--bind".to_owned());
         }
         if let Some(dir) = &overrides.data_dir {
             set_key(
                 &mut table,
                 "storage.data_dir",
-                toml::Value::String(dir.display().to_string()),
+                dir.display().to_string().into(),
             );
-            origins.push(("storage.data_dir".to_owned(), "--data-dir".to_owned()));
+            origins.insert("storage.data_dir", "--data-dir".to_owned());
         }
 
-        let origin = |key: &str| -> String {
+        let origin = |key: &str| {
             origins
-                .iter()
-                .rev()
-                .find(|(k, _)| k == key)
-                .map(|(_, o)| o.clone())
-                .unwrap_or_else(|| origin_of_file.clone())
+                .get(key)
+                .cloned()
+                .unwrap_or_else(|| file_origin.clone())
         };
-
         // serde_path_to_error reports the path of the value that failed, so
         // the message names `section.key` whatever the TOML library says.
-        let config: Config =
-            serde_path_to_error::deserialize(toml::Value::Table(table)).map_err(|e| {
-                let key = e.path().to_string();
-                ConfigError::Invalid {
-                    origin: origin(&key),
-                    key,
-                    message: e.into_inner().message().to_owned(),
-                }
-            })?;
-        config.validate(&origin)?;
-        Ok(config)
-    }
-
-    fn validate(&self, origin: &dyn Fn(&str) -> String) -> Result<(), ConfigError> {
-        let bad = |key: &str, message: String| ConfigError::Invalid {
+        let config: Config = serde_path_to_error::deserialize(table).map_err(|e| {
+            let key = e.path().to_string();
+            ConfigError::Invalid {
+                origin: origin(&key),
+                key,
+                message: e.into_inner().message().to_owned(),
+            }
+        })?;
+        config.validate(&|key, message| ConfigError::Invalid {
             key: key.to_owned(),
             origin: origin(key),
             message,
-        };
-        self.validate_service(&bad)?;
-        self.validate_forecast(&bad)?;
-        self.validate_alerts(&bad)?;
-        if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {
-            return Err(bad("log.filter", format!("not a valid log filter: {e}")));
-        }
-        Ok(())
+        })?;
+        Ok(config)
     }
 
-    /// `[server]`, `[storage]`, `[auth]` and `[ingest]`.
-    fn validate_service(&self, bad: Bad<'_>) -> Result<(), ConfigError> {
+    /// Checks what the types do not: ranges, closed word lists, formats.
+    fn validate(&self, bad: &dyn Fn(&str, String) -> ConfigError) -> Result<(), ConfigError> {
+        let (s, st, i, f) = (&self.server, &self.storage, &self.ingest, &self.forecast);
+        // Whole-number keys: (key, value, least, most), both ends allowed;
+        // `u64::MAX` is no upper bound.
+        #[rustfmt::skip]
+        let ranges = [
+            ("server.shutdown_grace_secs", s.shutdown_grace_secs, 1, 3_600),
+            ("server.request_timeout_secs", s.request_timeout_secs, 1, 3_600),
+            ("server.body_limit_bytes", s.body_limit_bytes as u64, 1_024, u64::MAX),
+            ("storage.busy_timeout_ms", st.busy_timeout_ms, 0, 600_000),
+            ("storage.max_connections", st.max_connections.into(), 1, 64),
+            ("demo.replay_secs", self.demo.replay_secs, 1, 3_600),
+            ("auth.rate_limit_burst", self.auth.rate_limit_burst.into(), 1, u64::MAX),
+            ("ingest.max_future_secs", i.max_future_secs, 0, 86_400),
+            ("ingest.max_rows_per_request", i.max_rows_per_request as u64, 1, u64::MAX),
+            ("ingest.max_page_size", i.max_page_size as u64, 1, 1_000_000),
+            ("forecast.interval_minutes", f.interval_minutes, 1, 1_440),
+            ("forecast.debounce_ms", f.debounce_ms, 0, 600_000),
+            ("forecast.lookback_hours", f.lookback_hours, 1, 720),
+            ("forecast.horizon_hours", f.horizon_hours, 1, 720),
+            ("forecast.max_gap_minutes", f.max_gap_minutes, 0, 10_080),
+            ("forecast.stale_after_minutes", f.stale_after_minutes, 1, 10_080),
+            ("forecast.step_minutes", f.step_minutes, 1, 1_440),
+        ];
+        for (key, v, lo, hi) in ranges {
+            if !(lo..=hi).contains(&v) {
+                let expected = match (lo, hi) {
+                    (_, u64::MAX) => format!("at least {lo}"),
+                    (0, _) => format!("at most {hi}"),
+                    _ => format!("between {lo} and {hi}"),
+                };
+                return Err(bad(key, format!("must be {expected}, got {v}")));
+            }
+        }
+        let rate = self.auth.rate_limit_per_sec;
+        if !(rate.is_finite() && rate > 0.0 && rate <= 1_000_000.0) {
+            let m = format!("must be a number above 0 and at most 1000000, got {rate}");
+            return Err(bad("auth.rate_limit_per_sec", m));
+        }
+        if !(f.recession_hours.is_finite() && f.recession_hours > 0.0) {
+            let m = format!("must be positive, got {}", f.recession_hours);
+            return Err(bad("forecast.recession_hours", m));
+        }
+        if !(f.base_flow_m3s.is_finite() && f.base_flow_m3s >= 0.0) {
+            let m = format!("must be zero or positive, got {}", f.base_flow_m3s);
+            return Err(bad("forecast.base_flow_m3s", m));
+        }
         self.bind_addr()
             .map_err(|m| bad("server.bind", m.to_string()))?;
-        if self.server.shutdown_grace_secs == 0 || self.server.shutdown_grace_secs > 3600 {
-            return Err(bad(
-                "server.shutdown_grace_secs",
-                format!(
-                    "must be between 1 and 3600 seconds, got {}",
-                    self.server.shutdown_grace_secs
-                ),
-            ));
-        }
-        if self.server.request_timeout_secs == 0 || self.server.request_timeout_secs > 3600 {
-            return Err(bad(
-                "server.request_timeout_secs",
-                format!(
-                    "must be between 1 and 3600 seconds, got {}",
-                    self.server.request_timeout_secs
-                ),
-            ));
-        }
-        if self.server.body_limit_bytes < 1024 {
-            return Err(bad(
-                "server.body_limit_bytes",
-                format!(
-                    "must be at least 1024 bytes, got {}",
-                    self.server.body_limit_bytes
-                ),
-            ));
-        }
-        if self.storage.data_dir.as_os_str().is_empty() {
+        if st.data_dir.as_os_str().is_empty() {
             return Err(bad("storage.data_dir", "must not be empty".to_owned()));
         }
-        if self.storage.max_connections == 0 || self.storage.max_connections > 64 {
-            return Err(bad(
-                "storage.max_connections",
-                format!(
-                    "must be between 1 and 64, got {}",
-                    self.storage.max_connections
-                ),
-            ));
-        }
-        if self.storage.busy_timeout_ms > 600_000 {
-            return Err(bad(
-                "storage.busy_timeout_ms",
-                format!(
-                    "must be at most 600000 ms, got {}",
-                    self.storage.busy_timeout_ms
-                ),
-            ));
-        }
-        if !(self.auth.rate_limit_per_sec.is_finite()
-            && self.auth.rate_limit_per_sec > 0.0
-            && self.auth.rate_limit_per_sec <= 1_000_000.0)
-        {
-            return Err(bad(
-                "auth.rate_limit_per_sec",
-                format!(
-                    "must be a number above 0 and at most 1000000, got {}",
-                    self.auth.rate_limit_per_sec
-                ),
-            ));
-        }
-        if self.auth.rate_limit_burst == 0 {
-            return Err(bad(
-                "auth.rate_limit_burst",
-                "must be at least 1".to_owned(),
-            ));
-        }
-        if self.ingest.max_future_secs > 86_400 {
-            return Err(bad(
-                "ingest.max_future_secs",
-                format!(
-                    "must be at most 86400 seconds, got {}",
-                    self.ingest.max_future_secs
-                ),
-            ));
-        }
-        if self.ingest.max_rows_per_request == 0 {
-            return Err(bad(
-                "ingest.max_rows_per_request",
-                "must be at least 1".to_owned(),
-            ));
-        }
-        if self.ingest.max_page_size == 0 || self.ingest.max_page_size > 1_000_000 {
-            return Err(bad(
-                "ingest.max_page_size",
-                format!(
-                    "must be between 1 and 1000000, got {}",
-                    self.ingest.max_page_size
-                ),
-            ));
-        }
-        Ok(())
-    }
-
-    /// `[forecast]` and `[demo]`.
-    fn validate_forecast(&self, bad: Bad<'_>) -> Result<(), ConfigError> {
-        let f = &self.forecast;
-        let range = |key: &str, v: u64, lo: u64, hi: u64| -> Result<(), ConfigError> {
-            if v < lo || v > hi {
-                return Err(bad(key, format!("must be between {lo} and {hi}, got {v}")));
-            }
-            Ok(())
-        };
-        range("forecast.interval_minutes", f.interval_minutes, 1, 1_440)?;
-        range("forecast.debounce_ms", f.debounce_ms, 0, 600_000)?;
-        range("forecast.lookback_hours", f.lookback_hours, 1, 720)?;
-        range("forecast.horizon_hours", f.horizon_hours, 1, 720)?;
-        range("forecast.max_gap_minutes", f.max_gap_minutes, 0, 10_080)?;
-        range(
-            "forecast.stale_after_minutes",
-            f.stale_after_minutes,
-            1,
-            10_080,
-        )?;
-        range("forecast.step_minutes", f.step_minutes, 1, 1_440)?;
-        range("demo.replay_secs", self.demo.replay_secs, 1, 3_600)?;
         if !matches!(f.extrapolation.as_str(), "persistence" | "recession") {
             return Err(bad(
                 "forecast.extrapolation",
@@ -544,23 +465,16 @@ impl Config {
                 ),
             ));
         }
-        if !(f.recession_hours.is_finite() && f.recession_hours > 0.0) {
-            return Err(bad(
-                "forecast.recession_hours",
-                format!("must be positive, got {}", f.recession_hours),
-            ));
+        if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {
+            return Err(bad("log.filter", format!("not a valid log filter: {e}")));
         }
-        if !(f.base_flow_m3s.is_finite() && f.base_flow_m3s >= 0.0) {
-            return Err(bad(
-                "forecast.base_flow_m3s",
-                format!("must be zero or positive, got {}", f.base_flow_m3s),
-            ));
-        }
-        Ok(())
+        self.validate_alerts(bad)
     }
 
-    /// `[alerts]`.
-    fn validate_alerts(&self, bad: Bad<'_>) -> Result<(), ConfigError> {
+    fn validate_alerts(
+        &self,
+        bad: &dyn Fn(&str, String) -> ConfigError,
+    ) -> Result<(), ConfigError> {
         let a = &self.alerts;
         if !crate::forecast::cap::is_cap_token(&a.sender) {
             return Err(bad(
@@ -625,6 +539,18 @@ impl Config {
     }
 }
 
+fn read_file(path: &Path) -> Result<toml::Table, ConfigError> {
+    let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read {
+        path: path.to_owned(),
+        source,
+    })?;
+    text.parse()
+        .map_err(|e: toml::de::Error| ConfigError::Parse {
+            path: path.to_owned(),
+            message: e.message().to_owned(),
+        })
+}
+
 /// An absolute `http`/`https` URL with a host, no whitespace, query or
 /// fragment, and none of the characters XML escapes (it is written into
 /// CAP and Atom documents as it is).
@@ -652,24 +578,31 @@ fn env_key(var: &str) -> Option<&'static str> {
     KEYS.iter().copied().find(|k| env_name(k) == var)
 }
 
-/// Environment values are strings; numbers and booleans are recognised so
-/// `REACHCAST_DEMO_ENABLED=false` means the boolean, not the word.
-fn env_value(raw: &str) -> toml::Value {
+/// The value of `section.name` in `table`, if any.
+fn lookup<'t>(table: &'t toml::Table, key: &str) -> Option<&'t toml::Value> {
+    let (section, name) = key.split_once('.')?;
+    table.get(section)?.get(name)
+}
+
+/// An environment value read as the type of the key it sets, which the
+/// key's default tells: `REACHCAST_ALERTS_SENDER=2024` is the text "2024",
+/// `REACHCAST_DEMO_ENABLED=false` the boolean. Nothing is guessed from how
+/// the value looks. A key without a default value (an optional one) is
+/// text. `Err` says what the value should have been.
+fn env_value(default: Option<&toml::Value>, raw: &str) -> Result<toml::Value, String> {
     let t = raw.trim();
-    if let Ok(i) = t.parse::<i64>() {
-        return toml::Value::Integer(i);
-    }
-    if let Ok(f) = t.parse::<f64>()
-        && f.is_finite()
-        && t.contains('.')
-    {
-        return toml::Value::Float(f);
-    }
-    match t {
-        "true" => toml::Value::Boolean(true),
-        "false" => toml::Value::Boolean(false),
-        _ => toml::Value::String(raw.to_owned()),
-    }
+    let (parsed, expected) = match default {
+        Some(toml::Value::Integer(_)) => {
+            (t.parse().ok().map(toml::Value::Integer), "a whole number")
+        }
+        Some(toml::Value::Float(_)) => (t.parse().ok().map(toml::Value::Float), "a number"),
+        Some(toml::Value::Boolean(_)) => (
+            t.parse().ok().map(toml::Value::Boolean),
+            "`true` or `false`",
+        ),
+        _ => return Ok(toml::Value::String(raw.to_owned())),
+    };
+    parsed.ok_or_else(|| format!("`{raw}` is not {expected}"))
 }
 
 fn set_key(table: &mut toml::Table, key: &str, value: toml::Value) {
@@ -793,8 +726,71 @@ mod tests {
         assert!(!c.demo.enabled);
     }
 
-    /// The shipped example documents every key with its default value; a
-    /// key with no default (unset unless given) appears commented out.
+    /// An environment value is read as the type of the key it sets, never
+    /// guessed from how it looks: digits for a text key are text.
+    #[test]
+    fn env_values_take_the_type_of_their_key() {
+        let c = load_str(
+            "",
+            &[
+                ("REACHCAST_ALERTS_SENDER", "2024"),
+                ("REACHCAST_FORECAST_REACH_DIR", "true"),
+                ("REACHCAST_STORAGE_DATA_DIR", "1.5"),
+                ("REACHCAST_AUTH_RATE_LIMIT_PER_SEC", "50"),
+                ("REACHCAST_AUTH_RATE_LIMIT_BURST", " 7 "),
+            ],
+        )
+        .expect("load");
+        assert_eq!(c.alerts.sender, "2024");
+        assert_eq!(c.forecast.reach_dir, PathBuf::from("true"));
+        assert_eq!(c.storage.data_dir, PathBuf::from("1.5"));
+        assert_eq!(c.auth.rate_limit_per_sec, 50.0);
+        assert_eq!(c.auth.rate_limit_burst, 7);
+    }
+
+    /// A value that is not of the key's type names the key and the variable.
+    #[test]
+    fn env_value_of_the_wrong_type_names_key_and_variable() {
+        for (var, key, value) in [
+            (
+                "REACHCAST_SERVER_SHUTDOWN_GRACE_SECS",
+                "server.shutdown_grace_secs",
+                "abc",
+            ),
+            (
+                "REACHCAST_STORAGE_MAX_CONNECTIONS",
+                "storage.max_connections",
+                "8.5",
+            ),
+            (
+                "REACHCAST_AUTH_RATE_LIMIT_PER_SEC",
+                "auth.rate_limit_per_sec",
+                "fast",
+            ),
+            ("REACHCAST_DEMO_ENABLED", "demo.enabled", "yes"),
+        ] {
+            let e = load_str("", &[(var, value)]).unwrap_err();
+            let msg = e.to_string();
+            assert!(msg.contains(key), "{msg}");
+            assert!(msg.contains(var), "{msg}");
+            assert!(msg.contains(value), "quotes the value: {msg}");
+        }
+    }
+
+    /// `KEYS` lists every key of the structs (it also names optional keys,
+    /// which have no default to serialize).
+    #[test]
+    fn keys_list_every_field() {
+        let defaults = toml::Table::try_from(Config::default()).expect("serialize");
+        for (section, fields) in &defaults {
+            for name in fields.as_table().expect("section").keys() {
+                let key = format!("{section}.{name}");
+                assert!(KEYS.contains(&key.as_str()), "{key} missing from KEYS");
+            }
+        }
+    }
+
+    /// The shipped example documents every key with its default value.
     #[test]
     fn example_file_matches_defaults_and_documents_every_key() {
         let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("deploy/reachcast.example.toml");

@@ -637,6 +637,49 @@ async fn bad_reach_names_the_field() {
     s.app.stop().await;
 }
 
+/// A reach's time zone is checked against the IANA time-zone database on
+/// the server, not only in the browser: an invented zone is a 422 problem
+/// naming the field; `Etc/GMT-1` (a zone of the database's `etcetera` file,
+/// from memory) is stored as given.
+#[tokio::test]
+async fn reach_time_zone_must_be_a_known_zone() {
+    let s = setup(60, 600_000).await;
+    let put = |zone: &str| {
+        let mut doc = reach_doc();
+        doc["service"]["time_zone"] = json!(zone);
+        s.app
+            .client
+            .put(s.app.url("/api/reaches/other"))
+            .bearer_auth(&s.admin)
+            .json(&doc)
+            .send()
+    };
+    let res = put("Mars/Olympus_Mons").await.expect("PUT");
+    assert_eq!(res.status(), 422);
+    // RFC 9457 §3: the problem document's media type.
+    assert_eq!(res.headers()["content-type"], "application/problem+json");
+    let p: Value = res.json().await.expect("json");
+    assert_eq!(p["field"], "service.time_zone");
+    assert!(
+        p["detail"]
+            .as_str()
+            .unwrap_or_default()
+            .contains("Mars/Olympus_Mons"),
+        "{p}"
+    );
+    let (status, _) = get_json(&s.app, "/api/reaches/other").await;
+    assert_eq!(status, 404, "nothing stored");
+
+    let res = put("Etc/GMT-1").await.expect("PUT");
+    assert_eq!(res.status(), 201);
+    let (_, reach) = get_json(&s.app, "/api/reaches/other").await;
+    assert_eq!(
+        reach["document"]["service"]["time_zone"], "Etc/GMT-1",
+        "{reach}"
+    );
+    s.app.stop().await;
+}
+
 /// Reaches can come from files at start: a new version only when a file
 /// changed, and a bad file stops the start naming the file and the field.
 #[tokio::test]

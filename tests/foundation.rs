@@ -165,6 +165,35 @@ fn bad_config_value_fails_start_naming_the_key() {
     );
 }
 
+/// The real binary reads an environment value as the type of its key:
+/// `REACHCAST_ALERTS_SENDER=2024` is the text "2024", so the configuration
+/// loads (`keys list` loads it in full, then exits); a number key given
+/// `abc` stops it, naming the key and the variable.
+#[test]
+fn env_values_are_typed_by_their_key() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let keys_list = |var: &str, value: &str| {
+        Command::new(env!("CARGO_BIN_EXE_reachcast"))
+            .env(var, value)
+            .args(["keys", "list", "--data-dir"])
+            .arg(dir.path().join("data"))
+            .output()
+            .expect("run binary")
+    };
+    let out = keys_list("REACHCAST_ALERTS_SENDER", "2024");
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(out.status.success(), "{stderr}");
+
+    let out = keys_list("REACHCAST_FORECAST_INTERVAL_MINUTES", "abc");
+    assert_eq!(out.status.code(), Some(2));
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("forecast.interval_minutes"), "{stderr}");
+    assert!(
+        stderr.contains("REACHCAST_FORECAST_INTERVAL_MINUTES"),
+        "{stderr}"
+    );
+}
+
 /// The real binary stops cleanly on SIGTERM (what systemd sends).
 #[cfg(unix)]
 #[test]

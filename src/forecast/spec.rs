@@ -62,8 +62,9 @@ pub struct ServiceSpec {
     /// (its stage is converted with the gauge's rating curve unless it
     /// reports discharge). Without one, forecasts use uploaded inflows only.
     pub upstream_gauge: Option<String>,
-    /// Time zone for display: an IANA name (`UTC`) or a fixed offset
-    /// (`+01:00`). Stored times are always UTC.
+    /// Time zone for display: a name in the IANA time-zone database (`UTC`)
+    /// or a fixed offset (`+01:00`), checked by [`is_time_zone`]. Stored
+    /// times are always UTC.
     pub time_zone: String,
     /// Display units.
     pub units: Units,
@@ -346,8 +347,9 @@ impl ReachSpec {
     }
 
     /// Checks everything the engine does not: names, points, thresholds,
-    /// boundary values and numerical settings. Section geometry is checked by
-    /// the engine, whose errors name the section and field.
+    /// boundary values, the time zone and numerical settings. Section
+    /// geometry is checked by the engine, whose errors name the section and
+    /// field.
     pub fn validate(&self) -> Result<(), SpecError> {
         if self.name.trim().is_empty() {
             return Err(SpecError::new("name", "must not be empty"));
@@ -363,7 +365,7 @@ impl ReachSpec {
         }
         crate::engine::section::validate_reach(&self.sections)
             .map_err(|e| SpecError::new("sections", e.to_string()))?;
-        let (first, last) = self
+        let extent = self
             .extent()
             .ok_or_else(|| SpecError::new("sections", "must not be empty"))?;
         if !(self.max_node_spacing.is_finite() && self.max_node_spacing > 0.0) {
@@ -372,17 +374,73 @@ impl ReachSpec {
                 format!("must be positive, got {}", self.max_node_spacing),
             ));
         }
-        let within = |field: &str, x: f64| -> Result<(), SpecError> {
-            finite(field, x)?;
-            if x < first || x > last {
-                return Err(SpecError::new(
-                    field,
-                    format!("{x} m lies outside the reach ({first} m to {last} m)"),
-                ));
-            }
-            Ok(())
-        };
-        match &self.downstream {
+        self.downstream.validate()?;
+        for (i, l) in self.laterals.iter().enumerate() {
+            l.validate(&format!("laterals[{i}]"), extent)?;
+        }
+        if self.points.is_empty() {
+            return Err(SpecError::new(
+                "points",
+                "at least one point of interest is needed",
+            ));
+        }
+        for (i, p) in self.points.iter().enumerate() {
+            p.validate(&format!("points[{i}]"), &self.points[..i], extent)?;
+        }
+        let tz = &self.service.time_zone;
+        if !is_time_zone(tz) {
+            return Err(SpecError::new(
+                "service.time_zone",
+                format!(
+                    "`{tz}` is neither a name in the IANA time-zone database \
+                     (`UTC`, `Area/Location`; exact spelling) nor a ±hh:mm offset"
+                ),
+            ));
+        }
+        self.routing.validate()
+    }
+}
+
+/// `x` is a finite chainage inside the reach's `(first, last)` extent.
+fn within(field: &str, x: f64, (first, last): (f64, f64)) -> Result<(), SpecError> {
+    finite(field, x)?;
+    if x < first || x > last {
+        return Err(SpecError::new(
+            field,
+            format!("{x} m lies outside the reach ({first} m to {last} m)"),
+        ));
+    }
+    Ok(())
+}
+
+/// A time zone the service and the dashboard can show times in: a name in
+/// the IANA time-zone database as chrono-tz embeds it (the same list on
+/// every host, whatever its own zoneinfo files), `Z`, or a fixed offset
+/// `±hh:mm` (RFC 3339 §5.6 `time-numoffset`: hour 00–23, minute 00–59) or
+/// `±hhmm`, which the dashboard also reads.
+pub fn is_time_zone(zone: &str) -> bool {
+    zone == "Z" || is_fixed_offset(zone) || zone.parse::<chrono_tz::Tz>().is_ok()
+}
+
+fn is_fixed_offset(zone: &str) -> bool {
+    let Some(rest) = zone.strip_prefix(['+', '-']) else {
+        return false;
+    };
+    let parts = match rest.split_once(':') {
+        Some(hm) => Some(hm),
+        None => rest.get(..2).zip(rest.get(2..)),
+    };
+    let two_digits = |s: &str, most: u8| {
+        s.len() == 2
+            && s.bytes().all(|b| b.is_ascii_digit())
+            && s.parse().is_ok_and(|v: u8| v <= most)
+    };
+    parts.is_some_and(|(h, m)| two_digits(h, 23) && two_digits(m, 59))
+}
+
+impl DownstreamSpec {
+    fn validate(&self) -> Result<(), SpecError> {
+        match self {
             DownstreamSpec::NormalDepth { friction_slope } => {
                 let f = "downstream.friction_slope";
                 finite(f, *friction_slope)?;
@@ -409,100 +467,90 @@ impl ReachSpec {
                 .validate()
                 .map_err(|e| SpecError::new("downstream.rating", e.to_string()))?,
         }
-        for (i, l) in self.laterals.iter().enumerate() {
-            if l.name.trim().is_empty() {
-                return Err(SpecError::new(
-                    format!("laterals[{i}].name"),
-                    "must not be empty",
-                ));
+        Ok(())
+    }
+}
+
+impl LateralSpec {
+    /// `at` is the lateral's path, `laterals[i]`.
+    fn validate(&self, at: &str, extent: (f64, f64)) -> Result<(), SpecError> {
+        if self.name.trim().is_empty() {
+            return Err(SpecError::new(format!("{at}.name"), "must not be empty"));
+        }
+        within(&format!("{at}.chainage"), self.chainage, extent)?;
+        if self.inflow.is_empty() {
+            return Err(SpecError::new(format!("{at}.inflow"), "must not be empty"));
+        }
+        for (j, p) in self.inflow.iter().enumerate() {
+            let f = format!("{at}.inflow[{j}].discharge");
+            finite(&f, p.discharge)?;
+            if p.discharge < 0.0 {
+                return Err(SpecError::new(f, "must not be negative"));
             }
-            within(&format!("laterals[{i}].chainage"), l.chainage)?;
-            if l.inflow.is_empty() {
+            if j > 0 && p.time <= self.inflow[j - 1].time {
                 return Err(SpecError::new(
-                    format!("laterals[{i}].inflow"),
-                    "must not be empty",
+                    format!("{at}.inflow[{j}].time"),
+                    "times must increase strictly",
                 ));
-            }
-            for (j, p) in l.inflow.iter().enumerate() {
-                let f = format!("laterals[{i}].inflow[{j}].discharge");
-                finite(&f, p.discharge)?;
-                if p.discharge < 0.0 {
-                    return Err(SpecError::new(f, "must not be negative"));
-                }
-                if j > 0 && p.time <= l.inflow[j - 1].time {
-                    return Err(SpecError::new(
-                        format!("laterals[{i}].inflow[{j}].time"),
-                        "times must increase strictly",
-                    ));
-                }
             }
         }
-        if self.points.is_empty() {
+        Ok(())
+    }
+}
+
+impl PointSpec {
+    /// `at` is the point's path, `points[i]`; `earlier` the points before it.
+    fn validate(
+        &self,
+        at: &str,
+        earlier: &[PointSpec],
+        extent: (f64, f64),
+    ) -> Result<(), SpecError> {
+        if self.name.trim().is_empty() {
+            return Err(SpecError::new(format!("{at}.name"), "must not be empty"));
+        }
+        if earlier.iter().any(|q| q.name == self.name) {
             return Err(SpecError::new(
-                "points",
-                "at least one point of interest is needed",
+                format!("{at}.name"),
+                format!("`{}` is used by an earlier point", self.name),
             ));
         }
-        for (i, p) in self.points.iter().enumerate() {
-            if p.name.trim().is_empty() {
-                return Err(SpecError::new(
-                    format!("points[{i}].name"),
-                    "must not be empty",
-                ));
-            }
-            if self.points[..i].iter().any(|q| q.name == p.name) {
-                return Err(SpecError::new(
-                    format!("points[{i}].name"),
-                    format!("`{}` is used by an earlier point", p.name),
-                ));
-            }
-            within(&format!("points[{i}].chainage"), p.chainage)?;
-            if let Some(v) = p.low_chord {
-                finite(&format!("points[{i}].low_chord"), v)?;
-            }
-            if let Some(v) = p.deck {
-                finite(&format!("points[{i}].deck"), v)?;
-            }
-            if let (Some(lc), Some(d)) = (p.low_chord, p.deck)
-                && d < lc
-            {
-                return Err(SpecError::new(
-                    format!("points[{i}].deck"),
-                    format!("deck {d} m is below the low chord {lc} m"),
-                ));
-            }
-            for (j, t) in p.thresholds.iter().enumerate() {
-                if t.name.trim().is_empty() {
-                    return Err(SpecError::new(
-                        format!("points[{i}].thresholds[{j}].name"),
-                        "must not be empty",
-                    ));
-                }
-                if p.thresholds[..j].iter().any(|u| u.name == t.name) {
-                    return Err(SpecError::new(
-                        format!("points[{i}].thresholds[{j}].name"),
-                        format!("`{}` is used twice at this point", t.name),
-                    ));
-                }
-                finite(
-                    &format!("points[{i}].thresholds[{j}].elevation"),
-                    t.elevation,
-                )?;
-            }
+        within(&format!("{at}.chainage"), self.chainage, extent)?;
+        if let Some(v) = self.low_chord {
+            finite(&format!("{at}.low_chord"), v)?;
         }
-        let tz = &self.service.time_zone;
-        if tz.is_empty()
-            || tz.len() > 64
-            || !tz
-                .chars()
-                .all(|c| c.is_ascii_alphanumeric() || "_/+-:".contains(c))
+        if let Some(v) = self.deck {
+            finite(&format!("{at}.deck"), v)?;
+        }
+        if let (Some(lc), Some(d)) = (self.low_chord, self.deck)
+            && d < lc
         {
             return Err(SpecError::new(
-                "service.time_zone",
-                format!("`{tz}` is not an IANA time-zone name or a ±hh:mm offset"),
+                format!("{at}.deck"),
+                format!("deck {d} m is below the low chord {lc} m"),
             ));
         }
-        let r = &self.routing;
+        for (j, t) in self.thresholds.iter().enumerate() {
+            if t.name.trim().is_empty() {
+                return Err(SpecError::new(
+                    format!("{at}.thresholds[{j}].name"),
+                    "must not be empty",
+                ));
+            }
+            if self.thresholds[..j].iter().any(|u| u.name == t.name) {
+                return Err(SpecError::new(
+                    format!("{at}.thresholds[{j}].name"),
+                    format!("`{}` is used twice at this point", t.name),
+                ));
+            }
+            finite(&format!("{at}.thresholds[{j}].elevation"), t.elevation)?;
+        }
+        Ok(())
+    }
+}
+
+impl RoutingSpec {
+    fn validate(&self) -> Result<(), SpecError> {
         let positive = |f: &str, v: f64| -> Result<(), SpecError> {
             finite(f, v)?;
             if v <= 0.0 {
@@ -510,13 +558,13 @@ impl ReachSpec {
             }
             Ok(())
         };
-        positive("routing.output_interval_s", r.output_interval_s)?;
-        positive("routing.dt_max_s", r.dt_max_s)?;
-        positive("routing.kinematic_dt_s", r.kinematic_dt_s)?;
-        if !(0.55..=1.0).contains(&r.theta) {
+        positive("routing.output_interval_s", self.output_interval_s)?;
+        positive("routing.dt_max_s", self.dt_max_s)?;
+        positive("routing.kinematic_dt_s", self.kinematic_dt_s)?;
+        if !(0.55..=1.0).contains(&self.theta) {
             return Err(SpecError::new(
                 "routing.theta",
-                format!("must be between 0.55 and 1, got {}", r.theta),
+                format!("must be between 0.55 and 1, got {}", self.theta),
             ));
         }
         Ok(())
@@ -586,6 +634,41 @@ mod tests {
             t(Some(Severity::Extreme)).severity_at_rank(0, 3),
             Severity::Extreme
         );
+    }
+
+    /// The time zone is checked against the IANA time-zone database as
+    /// chrono-tz embeds it: `UTC` and the `Etc/GMT-1` zone are in it (tzdata
+    /// file `etcetera`, from memory); no planet's name is. Offsets follow
+    /// RFC 3339 §5.6 `time-numoffset`: hour 00–23, minute 00–59.
+    #[test]
+    fn time_zone_must_be_in_the_database_or_an_offset() {
+        for ok in [
+            "UTC",
+            "Etc/GMT-1",
+            "Z",
+            "+01:00",
+            "-05:30",
+            "+0100",
+            "+23:59",
+        ] {
+            assert!(is_time_zone(ok), "{ok}");
+            with(|v| v["service"] = serde_json::json!({"time_zone": ok})).expect(ok);
+        }
+        for bad in [
+            "Mars/Olympus_Mons",
+            "",
+            "+24:00",
+            "+01:60",
+            "+1:00",
+            "01:00",
+            "+01:0é",
+        ] {
+            assert!(!is_time_zone(bad), "{bad}");
+        }
+        let e = with(|v| v["service"] = serde_json::json!({"time_zone": "Mars/Olympus_Mons"}))
+            .unwrap_err();
+        assert_eq!(e.field, "service.time_zone");
+        assert!(e.message.contains("Mars/Olympus_Mons"), "{e}");
     }
 
     #[test]
