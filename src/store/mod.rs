@@ -45,12 +45,27 @@ pub enum StoreError {
         path: String,
         source: std::io::Error,
     },
+    /// The database failed. The cause is kept as a boxed error so that
+    /// the store's surface names no backend's types (a second backend
+    /// implements the same functions).
     #[error("database error: {0}")]
-    Sqlx(#[from] sqlx::Error),
+    Database(#[source] Box<dyn std::error::Error + Send + Sync>),
     #[error("migration error: {0}")]
-    Migrate(#[from] sqlx::migrate::MigrateError),
+    Migrate(#[source] Box<dyn std::error::Error + Send + Sync>),
     #[error("stored value does not decode: {0}")]
     Corrupt(String),
+}
+
+impl From<sqlx::Error> for StoreError {
+    fn from(e: sqlx::Error) -> Self {
+        StoreError::Database(Box::new(e))
+    }
+}
+
+impl From<sqlx::migrate::MigrateError> for StoreError {
+    fn from(e: sqlx::migrate::MigrateError) -> Self {
+        StoreError::Migrate(Box::new(e))
+    }
 }
 
 /// Identity of the database, kept across restarts.
@@ -141,8 +156,9 @@ impl Store {
         Ok((guard, tx))
     }
 
-    /// The pool, for the few callers (tests, maintenance) that need it.
-    pub fn pool(&self) -> &SqlitePool {
+    /// The pool, for this module's tests.
+    #[cfg(test)]
+    fn pool(&self) -> &SqlitePool {
         &self.pool
     }
 
