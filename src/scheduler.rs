@@ -30,7 +30,7 @@ use crate::{
         spec::ReachSpec,
         view::StoredResults,
     },
-    readings::Measures,
+    gauge::Measures,
     store::{ReachVersion, Store, StoreError, StoredRun},
 };
 

@@ -17,7 +17,10 @@ use crate::{
     auth::{NewKey, Role, generate_key, hash_secret},
     engine::{manning::normal_depth, rating::RatingCurve, section::PropertyTable},
     forecast::{inflow::parse_inflow_csv, spec::ReachSpec},
-    readings::{Measures, NewReading, Quality},
+    gauge::{
+        Measures,
+        readings::{NewReading, Quality},
+    },
     scheduler::Forecaster,
     store::{GaugeUpsert, Store, StoreError},
 };

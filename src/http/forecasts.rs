@@ -198,7 +198,7 @@ async fn get_reach(
 }
 
 fn valid_reach_id(id: &str) -> bool {
-    crate::readings::valid_slug(id)
+    crate::gauge::valid_slug(id)
 }
 
 async fn put_reach(

@@ -16,7 +16,7 @@ use super::{
     error::{ApiError, Problem, parse_json},
 };
 use crate::{
-    readings::{Gauge, Measures, valid_slug},
+    gauge::{Gauge, Measures, valid_slug},
     store::GaugeUpsert,
 };
 

@@ -29,7 +29,7 @@ use super::{
     gauges::find_gauge,
 };
 use crate::{
-    readings::{
+    gauge::readings::{
         Field, Limits, RateCheck, RawReading, RowError, StoredReading, check, dedupe_batch,
         format_time, parse_time,
     },

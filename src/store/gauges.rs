@@ -5,7 +5,7 @@ use sqlx::sqlite::SqliteRow;
 use sqlx::{Row, SqliteConnection};
 
 use super::{Audit, Store, StoreError, audit};
-use crate::readings::{Gauge, Measures};
+use crate::gauge::{Gauge, Measures};
 
 /// The fields a client sets on a gauge.
 #[derive(Debug, Clone, PartialEq)]

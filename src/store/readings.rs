@@ -7,7 +7,9 @@ use chrono::Utc;
 use sqlx::{Row, SqliteConnection, sqlite::SqliteRow};
 
 use super::{Audit, Store, StoreError, audit, gauges};
-use crate::readings::{Action, NewReading, Quality, RateCheck, StoredReading, format_time, plan};
+use crate::gauge::readings::{
+    Action, NewReading, Quality, RateCheck, StoredReading, format_time, plan,
+};
 
 /// Rows per multi-row INSERT: 8 parameters each, well under SQLite's limit
 /// of 32766 host parameters per statement.
@@ -369,7 +371,7 @@ async fn revise(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::{config::StorageConfig, readings::Measures, store::GaugeUpsert};
+    use crate::{config::StorageConfig, gauge::Measures, store::GaugeUpsert};
 
     /// Pages come back bit-for-bit and in order: every stored double,
     /// including ones whose shortest decimal form needs 17 digits,
