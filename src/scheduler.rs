@@ -22,7 +22,6 @@ use tokio::sync::{Mutex, Notify, watch};
 
 use crate::{
     config::ForecastConfig,
-    engine::rating::RatingCurve,
     forecast::{
         assemble::{self, Extrapolation, GaugeBasis, Reading, Rules},
         cap::{RunContext, Situation},
@@ -443,10 +442,11 @@ impl Forecaster {
             ));
         };
         let rating = gauge
+            .spec
             .rating_curve
-            .as_ref()
-            .map(|v| serde_json::from_value::<RatingCurve>(v.clone()));
-        let basis = match (gauge.measures, rating) {
+            .clone()
+            .map(|r| r.validate().map(|()| r));
+        let basis = match (gauge.spec.measures, rating) {
             (Measures::Discharge, _) | (Measures::Both, None) => GaugeBasis::Discharge,
             (_, Some(Ok(r))) => GaugeBasis::Stage(r),
             (_, Some(Err(e))) => {

@@ -54,6 +54,21 @@ async fn problem(res: reqwest::Response, status: u16) -> Value {
     body
 }
 
+/// Asserts the one wire form of a time (README, "API"): an RFC 3339 §5.6
+/// date-time in UTC with exactly three fraction digits and `Z`, e.g.
+/// `2026-03-01T03:15:00.000Z`.
+fn assert_wire_time(v: &Value) {
+    let s = v
+        .as_str()
+        .unwrap_or_else(|| panic!("a time string, got {v}"));
+    let shape: String = s
+        .chars()
+        .map(|c| if c.is_ascii_digit() { 'd' } else { c })
+        .collect();
+    assert_eq!(shape, "dddd-dd-ddTdd:dd:dd.dddZ", "{s}");
+    assert!(chrono::DateTime::parse_from_rfc3339(s).is_ok(), "{s}");
+}
+
 fn reading(time: &str, stage: f64) -> Value {
     json!({"time": time, "stage": stage, "quality": "good"})
 }
@@ -905,6 +920,9 @@ async fn gauges_are_created_updated_and_checked() {
     assert_eq!(g["name"], "Alder Weir (upper)");
     assert_eq!(g["chainage_m"], 1250.0);
     assert_eq!(g["rating_curve"]["points"][1][1], 40.0);
+    assert_eq!(g["rating_curve"]["kind"], "table");
+    assert_wire_time(&g["created_at"]);
+    assert_wire_time(&g["updated_at"]);
     let (_, list) = f.app.get_json("/api/gauges").await;
     assert_eq!(list.as_array().map(Vec::len), Some(1));
     let bad = |patch: Value| {

@@ -18,11 +18,11 @@ use crate::{
     engine::{manning::normal_depth, rating::RatingCurve, section::PropertyTable},
     forecast::{inflow::parse_inflow_csv, spec::ReachSpec},
     gauge::{
-        Measures,
+        GaugeSpec, Measures,
         readings::{NewReading, Quality},
     },
     scheduler::Forecaster,
-    store::{GaugeUpsert, Store, StoreError},
+    store::{Store, StoreError},
 };
 
 /// Reach id of the demo.
@@ -129,12 +129,12 @@ pub async fn seed(store: &Store) -> Result<(), DemoError> {
         store
             .put_gauge(
                 GAUGE_ID,
-                &GaugeUpsert {
+                &GaugeSpec {
                     name: "Upper Brindle gauge (invented)".into(),
                     reach: Some(REACH_ID.into()),
                     chainage_m: Some(0.0),
                     measures: Measures::Stage,
-                    rating_curve: serde_json::to_value(&rating).ok(),
+                    rating_curve: Some(rating),
                     stage_min_m: bed - 0.5,
                     stage_max_m: bed + 12.0,
                     max_rise_m_per_h: 2.0,

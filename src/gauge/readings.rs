@@ -230,26 +230,26 @@ pub fn check(
             "stage or discharge (or both) is required".to_owned(),
         ));
     }
-    if stage_m.is_some() && gauge.measures == Measures::Discharge {
+    if stage_m.is_some() && gauge.spec.measures == Measures::Discharge {
         return Err(err(
             "stage",
             format!("gauge `{}` measures discharge only", gauge.id),
         ));
     }
-    if discharge_m3s.is_some() && gauge.measures == Measures::Stage {
+    if discharge_m3s.is_some() && gauge.spec.measures == Measures::Stage {
         return Err(err(
             "discharge",
             format!("gauge `{}` measures stage only", gauge.id),
         ));
     }
     if let Some(s) = stage_m
-        && (s < gauge.stage_min_m || s > gauge.stage_max_m)
+        && (s < gauge.spec.stage_min_m || s > gauge.spec.stage_max_m)
     {
         return Err(err(
             "stage",
             format!(
                 "{s} m is outside the gauge's plausible range {} to {} m",
-                gauge.stage_min_m, gauge.stage_max_m
+                gauge.spec.stage_min_m, gauge.spec.stage_max_m
             ),
         ));
     }
@@ -260,17 +260,19 @@ pub fn check(
                 format!("must not be negative, got {q} m³/s"),
             ));
         }
-        if gauge.discharge_min_m3s.is_some_and(|m| q < m)
-            || gauge.discharge_max_m3s.is_some_and(|m| q > m)
+        if gauge.spec.discharge_min_m3s.is_some_and(|m| q < m)
+            || gauge.spec.discharge_max_m3s.is_some_and(|m| q > m)
         {
             return Err(err(
                 "discharge",
                 format!(
                     "{q} m³/s is outside the gauge's plausible range {} to {} m³/s",
                     gauge
+                        .spec
                         .discharge_min_m3s
                         .map_or("-".to_owned(), |v| v.to_string()),
                     gauge
+                        .spec
                         .discharge_max_m3s
                         .map_or("-".to_owned(), |v| v.to_string())
                 ),
@@ -373,8 +375,10 @@ pub fn plan(
                 let prev = anchors.range(..r.time_ms).next_back();
                 let next = anchors.range(r.time_ms + 1..).next();
                 let fast = prev
-                    .is_some_and(|(t, v)| too_fast((*t, *v), here, gauge.max_rise_m_per_h))
-                    || next.is_some_and(|(t, v)| too_fast(here, (*t, *v), gauge.max_rise_m_per_h));
+                    .is_some_and(|(t, v)| too_fast((*t, *v), here, gauge.spec.max_rise_m_per_h))
+                    || next.is_some_and(|(t, v)| {
+                        too_fast(here, (*t, *v), gauge.spec.max_rise_m_per_h)
+                    });
                 if fast {
                     RateCheck::Suspect
                 } else {
@@ -409,18 +413,20 @@ mod tests {
     fn gauge() -> Gauge {
         Gauge {
             id: "g".into(),
-            name: "G".into(),
-            reach: None,
-            chainage_m: None,
-            measures: Measures::Both,
-            rating_curve: None,
-            stage_min_m: 0.0,
-            stage_max_m: 10.0,
-            max_rise_m_per_h: 1.0,
-            discharge_min_m3s: None,
-            discharge_max_m3s: None,
-            created_at: String::new(),
-            updated_at: String::new(),
+            spec: crate::gauge::GaugeSpec {
+                name: "G".into(),
+                reach: None,
+                chainage_m: None,
+                measures: Measures::Both,
+                rating_curve: None,
+                stage_min_m: 0.0,
+                stage_max_m: 10.0,
+                max_rise_m_per_h: 1.0,
+                discharge_min_m3s: None,
+                discharge_max_m3s: None,
+            },
+            created_at: chrono::DateTime::UNIX_EPOCH,
+            updated_at: chrono::DateTime::UNIX_EPOCH,
         }
     }
 

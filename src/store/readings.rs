@@ -371,7 +371,10 @@ async fn revise(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::{config::StorageConfig, gauge::Measures, store::GaugeUpsert};
+    use crate::{
+        config::StorageConfig,
+        gauge::{GaugeSpec, Measures},
+    };
 
     /// Pages come back bit-for-bit and in order: every stored double,
     /// including ones whose shortest decimal form needs 17 digits,
@@ -385,7 +388,7 @@ mod tests {
         })
         .await
         .expect("open");
-        let gauge = GaugeUpsert {
+        let gauge = GaugeSpec {
             name: "Test".into(),
             reach: None,
             chainage_m: None,
