@@ -476,12 +476,12 @@ impl Forecaster {
             .await?;
         let readings = rows
             .into_iter()
-            .filter_map(|(ms, stage, discharge, usable)| {
+            .filter_map(|r| {
                 Some(Reading {
-                    time: DateTime::from_timestamp_millis(ms)?,
-                    stage,
-                    discharge,
-                    usable,
+                    time: DateTime::from_timestamp_millis(r.time_ms)?,
+                    stage: r.stage_m,
+                    discharge: r.discharge_m3s,
+                    usable: r.for_forecast(),
                 })
             })
             .collect();

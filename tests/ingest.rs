@@ -504,6 +504,110 @@ async fn jump_is_flagged_suspect_until_a_forecaster_confirms() {
     f.app.stop().await;
 }
 
+/// Common practice: data flagged suspect are not used until confirmed.
+/// Here the sender flags it (WaterML 2.0 quality `suspect`); the API's
+/// `for_forecast` says so, and confirming lets it in.
+#[tokio::test]
+async fn sender_suspect_readings_stay_out_of_forecasts_until_confirmed() {
+    let f = fixture().await;
+    let body = json!({"readings": [
+        reading("2025-03-01T00:00:00Z", 1.0),
+        {"time": "2025-03-01T00:15:00Z", "stage": 1.05, "quality": "suspect"},
+        reading("2025-03-01T00:30:00Z", 1.1),
+        {"time": "2025-03-01T00:45:00Z", "stage": 1.1, "quality": "suspect"},
+    ]});
+    let r: Value = f
+        .app
+        .post_readings(&f.logger, "alder-weir", &body)
+        .await
+        .json()
+        .await
+        .expect("json");
+    assert_eq!(
+        (r["accepted"].as_u64(), r["suspect_by_rate"].as_u64()),
+        (Some(4), Some(0)),
+        "{r}"
+    );
+    let flags = |page: &Value| -> Vec<(String, bool)> {
+        page["readings"]
+            .as_array()
+            .expect("readings")
+            .iter()
+            .map(|r| {
+                (
+                    r["quality"].as_str().expect("quality").to_owned(),
+                    r["for_forecast"].as_bool().expect("bool"),
+                )
+            })
+            .collect()
+    };
+    let (_, page) = f
+        .app
+        .get_json("/api/gauges/alder-weir/readings?order=oldest")
+        .await;
+    let expect = |confirmed: bool| {
+        vec![
+            ("good".to_owned(), true),
+            ("suspect".to_owned(), confirmed),
+            ("good".to_owned(), true),
+            ("suspect".to_owned(), false),
+        ]
+    };
+    assert_eq!(flags(&page), expect(false));
+    // What the forecast reads agrees with the flag.
+    let forecast_view = || async {
+        f.app
+            .store
+            .readings_for_forecast("alder-weir", i64::MIN, i64::MAX)
+            .await
+            .expect("readings")
+            .iter()
+            .map(|r| (r.quality.as_str().to_owned(), r.for_forecast()))
+            .collect::<Vec<_>>()
+    };
+    assert_eq!(forecast_view().await, expect(false));
+    let newest_usable = f
+        .app
+        .store
+        .last_usable_reading_ms("alder-weir")
+        .await
+        .expect("newest usable");
+    assert_eq!(
+        newest_usable,
+        Some(
+            chrono::DateTime::parse_from_rfc3339("2025-03-01T00:30:00Z")
+                .expect("time")
+                .timestamp_millis()
+        ),
+        "the suspect 00:45 reading is not the gauge's newest usable one"
+    );
+    let res = f
+        .app
+        .client
+        .post(
+            f.app
+                .url("/api/gauges/alder-weir/readings/2025-03-01T00:15:00Z/confirm"),
+        )
+        .bearer_auth(&f.forecaster)
+        .send()
+        .await
+        .expect("send");
+    assert_eq!(res.status(), 200);
+    let body: Value = res.json().await.expect("json");
+    assert_eq!(body["reading"]["for_forecast"], true, "{body}");
+    assert_eq!(
+        body["reading"]["quality"], "suspect",
+        "the sender's word is kept"
+    );
+    let (_, page) = f
+        .app
+        .get_json("/api/gauges/alder-weir/readings?order=oldest")
+        .await;
+    assert_eq!(flags(&page), expect(true));
+    assert_eq!(forecast_view().await, expect(true));
+    f.app.stop().await;
+}
+
 #[tokio::test]
 async fn roles_and_keys_are_enforced() {
     let f = fixture().await;

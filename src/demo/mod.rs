@@ -192,7 +192,7 @@ async fn anchor(store: &Store) -> Result<Option<DateTime<Utc>>, StoreError> {
         .await?;
     Ok(rows
         .first()
-        .and_then(|r| DateTime::from_timestamp_millis(r.0)))
+        .and_then(|r| DateTime::from_timestamp_millis(r.time_ms)))
 }
 
 fn reading(

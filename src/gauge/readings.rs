@@ -21,6 +21,14 @@ pub enum Quality {
 }
 
 impl Quality {
+    /// Every quality, for building SQL from [`for_forecast`].
+    pub const ALL: [Quality; 4] = [
+        Quality::Good,
+        Quality::Suspect,
+        Quality::Estimate,
+        Quality::Unchecked,
+    ];
+
     pub fn as_str(self) -> &'static str {
         match self {
             Quality::Good => "good",
@@ -55,6 +63,9 @@ pub enum RateCheck {
 }
 
 impl RateCheck {
+    /// Every outcome, for building SQL from [`for_forecast`].
+    pub const ALL: [RateCheck; 3] = [RateCheck::Ok, RateCheck::Suspect, RateCheck::Confirmed];
+
     pub fn as_str(self) -> &'static str {
         match self {
             RateCheck::Ok => "ok",
@@ -70,11 +81,6 @@ impl RateCheck {
             "confirmed" => Some(RateCheck::Confirmed),
             _ => None,
         }
-    }
-
-    /// Whether a reading with this check feeds forecasts.
-    pub fn usable(self) -> bool {
-        self != RateCheck::Suspect
     }
 }
 
@@ -96,8 +102,25 @@ impl NewReading {
     }
 }
 
+/// Whether a reading feeds forecasts: the one rule, which the API's
+/// `for_forecast` flag, the rate check's choice of neighbours and the
+/// store's SQL (built from this function) all follow.
+///
+/// Common practice: data flagged suspect are not used until confirmed.
+/// A reading is held back when its sender marked it `suspect` (WaterML 2.0
+/// quality) or the rate check did; a forecaster's confirmation lets it in
+/// whatever flagged it. `estimate` and `unchecked` readings are used: they
+/// are what most automatic gauges send.
+pub fn for_forecast(quality: Quality, check: RateCheck) -> bool {
+    match check {
+        RateCheck::Confirmed => true,
+        RateCheck::Suspect => false,
+        RateCheck::Ok => quality != Quality::Suspect,
+    }
+}
+
 /// A reading as stored.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct StoredReading {
     pub time_ms: i64,
     pub stage_m: Option<f64>,
@@ -107,6 +130,23 @@ pub struct StoredReading {
     pub revision: i64,
     pub received_at_ms: i64,
     pub key_id: String,
+}
+
+impl StoredReading {
+    /// Whether this reading feeds forecasts ([`for_forecast`]).
+    pub fn for_forecast(&self) -> bool {
+        for_forecast(self.quality, self.rate_check)
+    }
+}
+
+/// An earlier value of a reading, replaced by a revision.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Revision {
+    /// The reading as it was, with who sent it and when.
+    pub reading: StoredReading,
+    /// When it was replaced (Unix ms) and by which key.
+    pub replaced_at_ms: i64,
+    pub replaced_by: String,
 }
 
 /// One input field as the body carried it.
@@ -341,7 +381,7 @@ pub enum Action {
 
 /// Plans a batch against what is stored. `existing` holds the stored
 /// readings in the batch's time span; `before` and `after` are the nearest
-/// usable stored stages outside it. Each new or revised stage is compared
+/// usable ([`for_forecast`]) stored stages outside it. Each new or revised stage is compared
 /// with its nearest usable neighbours in time (stored, or earlier in this
 /// batch); a change (rise or fall) faster than the gauge's plausible rate
 /// marks it suspect.
@@ -354,7 +394,7 @@ pub fn plan(
 ) -> Vec<Action> {
     let mut anchors: BTreeMap<i64, f64> = existing
         .values()
-        .filter(|r| r.rate_check.usable())
+        .filter(|r| r.for_forecast())
         .filter_map(|r| r.stage_m.map(|s| (r.time_ms, s)))
         .collect();
     anchors.extend(before);
@@ -386,11 +426,12 @@ pub fn plan(
                 }
             }
         };
-        match (check, r.stage_m) {
-            (RateCheck::Ok, Some(s)) => {
+        // Only readings that feed forecasts anchor their neighbours' check.
+        match r.stage_m.filter(|_| for_forecast(r.quality, check)) {
+            Some(s) => {
                 anchors.insert(r.time_ms, s);
             }
-            _ => {
+            None => {
                 anchors.remove(&r.time_ms);
             }
         }
@@ -492,6 +533,46 @@ mod tests {
         assert!(too_fast((0, 1.0), (900_000, 1.5), 1.9));
         assert!(!too_fast((0, 1.0), (900_000, 1.5), 2.1));
         assert!(too_fast((0, 1.5), (900_000, 1.0), 1.9), "falls count too");
+    }
+
+    /// Common practice: data flagged suspect are not used until confirmed.
+    #[test]
+    fn the_forecast_rule() {
+        for q in Quality::ALL {
+            assert!(for_forecast(q, RateCheck::Confirmed), "{q:?}");
+            assert!(!for_forecast(q, RateCheck::Suspect), "{q:?}");
+        }
+        assert!(!for_forecast(Quality::Suspect, RateCheck::Ok));
+        for q in [Quality::Good, Quality::Estimate, Quality::Unchecked] {
+            assert!(for_forecast(q, RateCheck::Ok), "{q:?}");
+        }
+    }
+
+    /// A stage its sender marked suspect is not a neighbour for the rate
+    /// check: the next stage is compared with the last usable one.
+    #[test]
+    fn a_sender_suspect_stage_anchors_nothing() {
+        let g = gauge();
+        let r = |t: i64, s: f64, quality: Quality| NewReading {
+            time_ms: t * 900_000,
+            stage_m: Some(s),
+            discharge_m3s: None,
+            quality,
+        };
+        // 1.0 → 1.2 in 15 min is 0.8 m/h (fine); 1.2 → 0.9 in 15 min would
+        // be 1.2 m/h, but 1.0 → 0.9 in 30 min is 0.2 m/h.
+        let rows = [
+            r(0, 1.0, Quality::Good),
+            r(1, 1.2, Quality::Suspect),
+            r(2, 0.9, Quality::Good),
+        ];
+        let actions = plan(&g, &rows, &BTreeMap::new(), None, None);
+        assert!(
+            actions
+                .iter()
+                .all(|a| matches!(a, Action::Insert(_, RateCheck::Ok))),
+            "{actions:?}"
+        );
     }
 
     #[test]

@@ -356,11 +356,11 @@ async fn build_doc(
             observed.insert(
                 g.clone(),
                 rows.into_iter()
-                    .filter(|r| r.3)
-                    .filter_map(|(ms, stage, _, _)| {
+                    .filter(|r| r.for_forecast())
+                    .filter_map(|r| {
                         Some(ObservedStage {
-                            time: DateTime::from_timestamp_millis(ms)?,
-                            stage: stage?,
+                            time: DateTime::from_timestamp_millis(r.time_ms)?,
+                            stage: r.stage_m?,
                         })
                     })
                     .collect(),

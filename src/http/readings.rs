@@ -363,7 +363,7 @@ impl From<&StoredReading> for ReadingOut {
             discharge: r.discharge_m3s,
             quality: r.quality.as_str(),
             rate_check: r.rate_check.as_str(),
-            for_forecast: r.rate_check.usable(),
+            for_forecast: r.for_forecast(),
             revision: r.revision,
         }
     }
@@ -600,16 +600,16 @@ async fn one(
         .reading_revisions(&gauge_id, time_ms)
         .await?
         .into_iter()
-        .map(|(r, at, by)| Revision {
-            stage: r.stage_m,
-            discharge: r.discharge_m3s,
-            quality: r.quality.as_str(),
-            rate_check: r.rate_check.as_str(),
-            revision: r.revision,
-            received_at: format_time(r.received_at_ms),
-            sent_by: r.key_id,
-            replaced_at: format_time(at),
-            replaced_by: by,
+        .map(|rev| Revision {
+            stage: rev.reading.stage_m,
+            discharge: rev.reading.discharge_m3s,
+            quality: rev.reading.quality.as_str(),
+            rate_check: rev.reading.rate_check.as_str(),
+            revision: rev.reading.revision,
+            received_at: format_time(rev.reading.received_at_ms),
+            sent_by: rev.reading.key_id,
+            replaced_at: format_time(rev.replaced_at_ms),
+            replaced_by: rev.replaced_by,
         })
         .collect();
     Ok(Json(serde_json::json!({
@@ -633,18 +633,19 @@ async fn confirm(
         .confirm_reading(&gauge_id, time_ms, auth.caller().key_id())
         .await?
         .ok_or_else(|| no_reading(&gauge_id, time_ms))?;
-    state.cache.invalidate(&gauge_id);
-    wake_forecasts(&state, &gauge_id);
+    // Still `ok`: nothing held it back, so there is nothing to confirm.
     if reading.rate_check == RateCheck::Ok {
         return Err(Problem::new(
             StatusCode::CONFLICT,
             "not-suspect",
             "Reading is not flagged",
         )
-        .detail("only a reading flagged suspect by rate needs confirming")
+        .detail("only a reading flagged suspect (by its sender or by rate) needs confirming")
         .field("time")
         .into());
     }
+    state.cache.invalidate(&gauge_id);
+    wake_forecasts(&state, &gauge_id);
     Ok(Json(serde_json::json!({
         "gauge": gauge_id,
         "reading": ReadingOut::from(&reading),
