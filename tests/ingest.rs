@@ -386,6 +386,12 @@ async fn oversized_body_is_a_413_problem() {
     // RFC 9110 §15.5.14: 413 Content Too Large.
     let p = problem(res, 413).await;
     assert_eq!(p["type"], "/problems/body-too-large");
+    let detail = p["detail"].as_str().expect("detail");
+    assert!(
+        detail.contains("2048") && detail.contains("server.body_limit_bytes"),
+        "{p}"
+    );
+    assert_eq!(p["instance"], "/api/gauges/alder-weir/readings", "{p}");
     app.stop().await;
 }
 
@@ -1085,7 +1091,13 @@ async fn wrong_method_is_a_problem_document() {
         .send()
         .await
         .expect("DELETE");
+    // RFC 9110 §15.5.6: a 405 carries `Allow`.
+    let allow = res.headers()["allow"].to_str().expect("ascii").to_owned();
+    assert!(allow.contains("GET") && allow.contains("PUT"), "{allow}");
     let p = problem(res, 405).await;
     assert_eq!(p["type"], "/problems/method-not-allowed");
+    let detail = p["detail"].as_str().expect("detail");
+    assert!(detail.contains("DELETE") && detail.contains("Allow"), "{p}");
+    assert_eq!(p["instance"], "/api/gauges/alder-weir", "{p}");
     f.app.stop().await;
 }
