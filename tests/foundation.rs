@@ -42,6 +42,16 @@ async fn ready_reports_database_and_schema() {
     assert_eq!(body["status"], "ready");
     assert_eq!(body["database"], "ok");
     assert_eq!(body["migrations"]["applied"], body["migrations"]["known"]);
+    // The one wire form of a time (README, "API"): RFC 3339 UTC with
+    // exactly three fraction digits and `Z`.
+    for member in ["created_at", "last_start"] {
+        let t = body["instance"][member].as_str().expect("time");
+        let shape: String = t
+            .chars()
+            .map(|c| if c.is_ascii_digit() { 'd' } else { c })
+            .collect();
+        assert_eq!(shape, "dddd-dd-ddTdd:dd:dd.dddZ", "{member}: {t}");
+    }
     assert!(
         dir.path().join("reachcast.sqlite3").exists(),
         "database file created in data dir"

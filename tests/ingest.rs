@@ -105,9 +105,9 @@ async fn json_batch_is_per_row_with_a_full_report() {
         [(3, "time"), (4, "stage"), (5, "colour"), (6, "quality")]
     );
     assert!(
-        errors[0]["reason"]
+        errors[0]["message"]
             .as_str()
-            .expect("reason")
+            .expect("message")
             .contains("no UTC offset")
     );
     // The accepted rows are stored; default quality is "unchecked".
@@ -187,7 +187,10 @@ async fn identical_resend_is_a_duplicate_and_changed_value_a_revision() {
     let logger_id = f.logger.split('_').nth(1).expect("key id");
     assert_eq!(revs[0]["replaced_by"], admin_id);
     assert_eq!(revs[0]["sent_by"], logger_id);
-    assert!(revs[0]["replaced_at"].is_string());
+    assert_wire_time(&revs[0]["replaced_at"]);
+    assert_wire_time(&revs[0]["received_at"]);
+    assert_wire_time(&one["received_at"]);
+    assert_wire_time(&one["reading"]["time"]);
     // The same reading addressed with an offset in the path, `+` as is and
     // percent-encoded.
     for path in [
@@ -290,9 +293,9 @@ async fn validation_rules_each_name_the_field() {
     assert_eq!(errors.len(), 3);
     assert!(errors.iter().all(|e| e["field"] == "stage"));
     assert!(
-        errors[0]["reason"]
+        errors[0]["message"]
             .as_str()
-            .expect("reason")
+            .expect("message")
             .contains("finite")
     );
     // Unknown gauge: 404 problem naming the gauge.
@@ -846,6 +849,8 @@ async fn csv_round_trip() {
             .expect("ascii")
             .starts_with("text/csv")
     );
+    // RFC 9110 §12.5.5: the answer was chosen by Accept, so it says so.
+    assert_eq!(res.headers()["vary"], "accept");
     let out = res.text().await.expect("text");
     assert_eq!(
         out,
@@ -970,6 +975,8 @@ async fn paging_walks_every_reading_once_in_both_orders() {
         ("order=up", "order"),
         ("cursor=x", "cursor"),
         ("colour=red", "colour"),
+        ("limit=5&limit=6", "limit"),
+        ("format=xml", "format"),
     ] {
         let res = f
             .app
@@ -980,6 +987,11 @@ async fn paging_walks_every_reading_once_in_both_orders() {
             .expect("GET");
         let p = problem(res, 400).await;
         assert_eq!(p["field"], field, "{q}");
+        assert_eq!(p["type"], "/problems/invalid-parameter", "{q}");
+        assert!(
+            p["detail"].as_str().is_some_and(|d| d.contains(field)),
+            "{p}"
+        );
     }
     f.app.stop().await;
 }
@@ -994,6 +1006,25 @@ async fn latest_readings_answer_follows_every_write() {
         async move { app.post_readings(&key, "alder-weir", &body).await }
     };
     assert_eq!(post("2025-03-01T00:00:00Z", 1.0).await.status(), 200);
+    // Served from the cache or not, JSON or CSV, the answer varies by
+    // Accept (RFC 9110 §12.5.5).
+    for accept in [
+        "application/json",
+        "application/json",
+        "text/csv",
+        "text/csv",
+    ] {
+        let res = f
+            .app
+            .client
+            .get(f.app.url("/api/gauges/alder-weir/readings"))
+            .header("accept", accept)
+            .send()
+            .await
+            .expect("GET");
+        assert_eq!(res.status(), 200);
+        assert_eq!(res.headers()["vary"], "accept", "{accept}");
+    }
     for round in 0..3 {
         let (_, a) = f.app.get_json("/api/gauges/alder-weir/readings").await;
         let (_, b) = f.app.get_json("/api/gauges/alder-weir/readings").await;

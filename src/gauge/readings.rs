@@ -4,7 +4,7 @@
 
 use std::collections::BTreeMap;
 
-use chrono::{DateTime, NaiveDateTime, SecondsFormat, Utc};
+use chrono::{DateTime, NaiveDateTime, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::{Gauge, Measures};
@@ -167,12 +167,14 @@ pub struct RawReading {
     pub quality: Field<String>,
 }
 
-/// Why a row was rejected: its 1-based row number, the field and a reason.
+/// Why a row was rejected: its 1-based row number, the field and what is
+/// wrong with it. The API sends it as it is (`{row, field, message}`, the
+/// shape inflow uploads use too).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RowError {
     pub row: usize,
     pub field: String,
-    pub reason: String,
+    pub message: String,
 }
 
 /// Limits that do not come from the gauge.
@@ -207,11 +209,20 @@ pub fn parse_time(text: &str) -> Result<i64, String> {
     }
 }
 
-/// Formats Unix milliseconds as RFC 3339 in UTC with milliseconds.
+/// Unix milliseconds as a UTC time. Stored times come from [`parse_time`],
+/// so they are in chrono's range; anything outside is clamped to its ends.
+pub fn utc(ms: i64) -> DateTime<Utc> {
+    DateTime::<Utc>::from_timestamp_millis(ms).unwrap_or(if ms < 0 {
+        DateTime::<Utc>::MIN_UTC
+    } else {
+        DateTime::<Utc>::MAX_UTC
+    })
+}
+
+/// Unix milliseconds in the one wire form of a time
+/// ([`crate::wire_time::format`]), for CSV and messages.
 pub fn format_time(ms: i64) -> String {
-    DateTime::<Utc>::from_timestamp_millis(ms)
-        .map(|t| t.to_rfc3339_opts(SecondsFormat::Millis, true))
-        .unwrap_or_else(|| ms.to_string())
+    crate::wire_time::format(utc(ms))
 }
 
 /// Checks one row against the gauge and the limits.
@@ -221,10 +232,10 @@ pub fn check(
     gauge: &Gauge,
     limits: Limits,
 ) -> Result<NewReading, RowError> {
-    let err = |field: &str, reason: String| RowError {
+    let err = |field: &str, message: String| RowError {
         row,
         field: field.to_owned(),
-        reason,
+        message,
     };
     let time_ms = match &raw.time {
         Field::Absent => return Err(err("time", "is required".to_owned())),
@@ -344,7 +355,7 @@ pub fn dedupe_batch(rows: Vec<(usize, NewReading)>) -> (Vec<NewReading>, usize, 
             Some((first_row, _)) => errors.push(RowError {
                 row,
                 field: "time".to_owned(),
-                reason: format!(
+                message: format!(
                     "{} appears earlier in this batch (row {first_row}) with other values",
                     format_time(r.time_ms)
                 ),
@@ -517,14 +528,14 @@ mod tests {
         assert_eq!((e.row, e.field.as_str()), (2, "stage"));
         let e = check(3, &raw("2026-03-01T04:15:00+01:00", Some(11.0)), &g, LIMITS).unwrap_err();
         assert_eq!(e.field, "stage");
-        assert!(e.reason.contains("plausible range"), "{}", e.reason);
+        assert!(e.message.contains("plausible range"), "{}", e.message);
         let mut neg = raw("2026-03-01T04:15:00Z", None);
         neg.discharge = Field::Value(-1.0);
         assert_eq!(check(4, &neg, &g, LIMITS).unwrap_err().field, "discharge");
         let e = check(5, &raw("2031-03-01T04:15:00Z", Some(1.0)), &g, LIMITS).unwrap_err();
         assert_eq!(e.field, "time");
         let e = check(6, &raw("2026-03-01T04:15:00Z", None), &g, LIMITS).unwrap_err();
-        assert!(e.reason.contains("required"));
+        assert!(e.message.contains("required"));
     }
 
     #[test]

@@ -15,6 +15,7 @@ pub mod gauges;
 pub mod health;
 pub mod inflows;
 pub mod openapi;
+pub mod query;
 pub mod readings;
 
 use std::{
