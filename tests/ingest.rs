@@ -36,6 +36,56 @@ async fn fixture() -> Fixture {
     }
 }
 
+impl Fixture {
+    /// Posts a JSON batch for `alder-weir` with the gauge key; the report.
+    async fn post(&self, body: &Value) -> Value {
+        self.app
+            .post_readings(&self.logger, "alder-weir", body)
+            .await
+            .json()
+            .await
+            .expect("json")
+    }
+
+    /// `member` and `for_forecast` of every reading of `alder-weir`,
+    /// oldest first.
+    async fn flags(&self, member: &str) -> Vec<(String, bool)> {
+        let (_, page) = self
+            .app
+            .get_json("/api/gauges/alder-weir/readings?order=oldest")
+            .await;
+        page["readings"]
+            .as_array()
+            .expect("readings")
+            .iter()
+            .map(|r| {
+                (
+                    r[member].as_str().expect("member").to_owned(),
+                    r["for_forecast"].as_bool().expect("bool"),
+                )
+            })
+            .collect()
+    }
+
+    /// `POST …/readings/{time}/confirm` of `alder-weir` with `key`.
+    async fn confirm(&self, key: &str, time: &str) -> reqwest::Response {
+        self.app
+            .client
+            .post(
+                self.app
+                    .url(&format!("/api/gauges/alder-weir/readings/{time}/confirm")),
+            )
+            .bearer_auth(key)
+            .send()
+            .await
+            .expect("send")
+    }
+}
+
+fn owned(pairs: &[(&str, bool)]) -> Vec<(String, bool)> {
+    pairs.iter().map(|(s, b)| ((*s).to_owned(), *b)).collect()
+}
+
 /// Asserts an RFC 9457 problem (§3: media type application/problem+json,
 /// members type, title, status) and returns its body.
 async fn problem(res: reqwest::Response, status: u16) -> Value {
@@ -409,72 +459,25 @@ async fn jump_is_flagged_suspect_until_a_forecaster_confirms() {
         reading("2025-03-01T00:30:00Z", 3.1),
         reading("2025-03-01T00:45:00Z", 1.2),
     ]});
-    let r: Value = f
-        .app
-        .post_readings(&f.logger, "alder-weir", &body)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = f.post(&body).await;
     assert_eq!(r["accepted"], 4, "stored, never dropped");
     assert_eq!(r["suspect_by_rate"], 1);
-    let (_, page) = f
-        .app
-        .get_json("/api/gauges/alder-weir/readings?order=oldest")
-        .await;
-    let flags: Vec<(&str, bool)> = page["readings"]
-        .as_array()
-        .expect("readings")
-        .iter()
-        .map(|r| {
-            (
-                r["rate_check"].as_str().expect("check"),
-                r["for_forecast"].as_bool().expect("bool"),
-            )
-        })
-        .collect();
     assert_eq!(
-        flags,
-        [("ok", true), ("ok", true), ("suspect", false), ("ok", true)]
+        f.flags("rate_check").await,
+        owned(&[("ok", true), ("ok", true), ("suspect", false), ("ok", true)])
     );
     // A later reading is compared with its stored neighbour.
-    let r: Value = f
-        .app
-        .post_readings(
-            &f.logger,
-            "alder-weir",
-            &json!({"readings": [reading("2025-03-01T01:00:00Z", 0.1)]}),
-        )
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = f
+        .post(&json!({"readings": [reading("2025-03-01T01:00:00Z", 0.1)]}))
+        .await;
     assert_eq!(
         r["suspect_by_rate"], 1,
         "a fall of 1.1 m in 15 min is flagged too"
     );
 
-    let confirm = |key: String, time: &'static str| {
-        f.app
-            .client
-            .post(
-                f.app
-                    .url(&format!("/api/gauges/alder-weir/readings/{time}/confirm")),
-            )
-            .bearer_auth(key)
-            .send()
-    };
     // A gauge key may not confirm.
-    problem(
-        confirm(f.logger.clone(), "2025-03-01T00:30:00Z")
-            .await
-            .expect("send"),
-        403,
-    )
-    .await;
-    let res = confirm(f.forecaster.clone(), "2025-03-01T00:30:00Z")
-        .await
-        .expect("send");
+    problem(f.confirm(&f.logger, "2025-03-01T00:30:00Z").await, 403).await;
+    let res = f.confirm(&f.forecaster, "2025-03-01T00:30:00Z").await;
     assert_eq!(res.status(), 200);
     let body: Value = res.json().await.expect("json");
     assert_eq!(body["reading"]["rate_check"], "confirmed");
@@ -488,27 +491,9 @@ async fn jump_is_flagged_suspect_until_a_forecaster_confirms() {
         "cache invalidated on confirm"
     );
     // Confirming a reading that is not flagged is a conflict; none there, 404.
-    problem(
-        confirm(f.forecaster.clone(), "2025-03-01T00:00:00Z")
-            .await
-            .expect("send"),
-        409,
-    )
-    .await;
-    problem(
-        confirm(f.forecaster.clone(), "2025-03-01T05:00:00Z")
-            .await
-            .expect("send"),
-        404,
-    )
-    .await;
-    let p = problem(
-        confirm(f.forecaster.clone(), "yesterday")
-            .await
-            .expect("send"),
-        422,
-    )
-    .await;
+    problem(f.confirm(&f.forecaster, "2025-03-01T00:00:00Z").await, 409).await;
+    problem(f.confirm(&f.forecaster, "2025-03-01T05:00:00Z").await, 404).await;
+    let p = problem(f.confirm(&f.forecaster, "yesterday").await, 422).await;
     assert_eq!(p["field"], "time");
     f.app.stop().await;
 }
@@ -525,44 +510,21 @@ async fn sender_suspect_readings_stay_out_of_forecasts_until_confirmed() {
         reading("2025-03-01T00:30:00Z", 1.1),
         {"time": "2025-03-01T00:45:00Z", "stage": 1.1, "quality": "suspect"},
     ]});
-    let r: Value = f
-        .app
-        .post_readings(&f.logger, "alder-weir", &body)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = f.post(&body).await;
     assert_eq!(
         (r["accepted"].as_u64(), r["suspect_by_rate"].as_u64()),
         (Some(4), Some(0)),
         "{r}"
     );
-    let flags = |page: &Value| -> Vec<(String, bool)> {
-        page["readings"]
-            .as_array()
-            .expect("readings")
-            .iter()
-            .map(|r| {
-                (
-                    r["quality"].as_str().expect("quality").to_owned(),
-                    r["for_forecast"].as_bool().expect("bool"),
-                )
-            })
-            .collect()
-    };
-    let (_, page) = f
-        .app
-        .get_json("/api/gauges/alder-weir/readings?order=oldest")
-        .await;
     let expect = |confirmed: bool| {
-        vec![
-            ("good".to_owned(), true),
-            ("suspect".to_owned(), confirmed),
-            ("good".to_owned(), true),
-            ("suspect".to_owned(), false),
-        ]
+        owned(&[
+            ("good", true),
+            ("suspect", confirmed),
+            ("good", true),
+            ("suspect", false),
+        ])
     };
-    assert_eq!(flags(&page), expect(false));
+    assert_eq!(f.flags("quality").await, expect(false));
     // What the forecast reads agrees with the flag.
     let forecast_view = || async {
         f.app
@@ -590,17 +552,7 @@ async fn sender_suspect_readings_stay_out_of_forecasts_until_confirmed() {
         ),
         "the suspect 00:45 reading is not the gauge's newest usable one"
     );
-    let res = f
-        .app
-        .client
-        .post(
-            f.app
-                .url("/api/gauges/alder-weir/readings/2025-03-01T00:15:00Z/confirm"),
-        )
-        .bearer_auth(&f.forecaster)
-        .send()
-        .await
-        .expect("send");
+    let res = f.confirm(&f.forecaster, "2025-03-01T00:15:00Z").await;
     assert_eq!(res.status(), 200);
     let body: Value = res.json().await.expect("json");
     assert_eq!(body["reading"]["for_forecast"], true, "{body}");
@@ -608,11 +560,7 @@ async fn sender_suspect_readings_stay_out_of_forecasts_until_confirmed() {
         body["reading"]["quality"], "suspect",
         "the sender's word is kept"
     );
-    let (_, page) = f
-        .app
-        .get_json("/api/gauges/alder-weir/readings?order=oldest")
-        .await;
-    assert_eq!(flags(&page), expect(true));
+    assert_eq!(f.flags("quality").await, expect(true));
     assert_eq!(forecast_view().await, expect(true));
     f.app.stop().await;
 }

@@ -20,7 +20,7 @@ use axum::{
 use serde::Serialize;
 
 use super::AppState;
-use crate::store::StoreError;
+use crate::{forecast::cap::xml_escape, store::StoreError};
 
 /// Media type of RFC 9457 problem details.
 pub const PROBLEM_JSON: &str = "application/problem+json";
@@ -482,27 +482,15 @@ pub fn router() -> Router<AppState> {
     Router::new().route("/problems/{slug}", get(page))
 }
 
-fn escape_html(text: &str) -> String {
-    let mut out = String::with_capacity(text.len());
-    for c in text.chars() {
-        match c {
-            '&' => out.push_str("&amp;"),
-            '<' => out.push_str("&lt;"),
-            '>' => out.push_str("&gt;"),
-            '"' => out.push_str("&quot;"),
-            c => out.push(c),
-        }
-    }
-    out
-}
-
 /// The HTML page of one problem type.
 pub fn page_html(t: &ProblemType) -> String {
     format!(
         "<!doctype html>\n<html lang=\"en\">\n<head><meta charset=\"utf-8\"><title>{title} (reachcast)</title></head>\n<body>\n<h1>{title}</h1>\n<p>Problem type <code>/problems/{slug}</code> of the reachcast API, sent as an RFC 9457 problem document (<code>application/problem+json</code>).</p>\n<p>{explanation}</p>\n<p>The whole API is described at <a href=\"/api/openapi.json\">/api/openapi.json</a>.</p>\n</body>\n</html>\n",
-        title = escape_html(t.title),
+        // XML's five entities are HTML's too (HTML Living Standard,
+        // named character references).
+        title = xml_escape(t.title),
         slug = t.slug,
-        explanation = escape_html(t.explanation),
+        explanation = xml_escape(t.explanation),
     )
 }
 
