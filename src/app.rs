@@ -150,7 +150,7 @@ pub async fn load_reach_dir(store: &Store, dir: &std::path::Path) -> anyhow::Res
             .unwrap_or_default()
             .to_owned();
         anyhow::ensure!(
-            crate::readings::valid_slug(&id),
+            crate::gauge::valid_slug(&id),
             "{}: the file name must be a reach id (a-z, 0-9, -) followed by .json",
             path.display()
         );

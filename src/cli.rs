@@ -127,7 +127,7 @@ pub async fn run_keys(
             if *role != Role::Gauge && !gauges.is_empty() {
                 anyhow::bail!("--gauge applies only to keys with role gauge");
             }
-            if let Some(bad) = gauges.iter().find(|g| !crate::readings::valid_slug(g)) {
+            if let Some(bad) = gauges.iter().find(|g| !crate::gauge::valid_slug(g)) {
                 anyhow::bail!("--gauge `{bad}` is not a gauge id (a-z, 0-9, -)");
             }
             let key = crate::auth::generate_key()

@@ -113,7 +113,7 @@ fn batch(first: i64) -> Value {
     let readings: Vec<Value> = (first..first + BATCH)
         .map(|i| {
             json!({
-                "time": reachcast::readings::format_time(T0 + i * 60_000),
+                "time": reachcast::gauge::readings::format_time(T0 + i * 60_000),
                 "stage": 2.0 + 0.01 * ((i % 50) as f64),
                 "quality": "good"
             })
@@ -248,7 +248,8 @@ async fn acknowledged_readings_survive_sigkill() {
         .expect("readings")
         .iter()
         .map(|r| {
-            reachcast::readings::parse_time(r["time"].as_str().expect("time")).expect("rfc 3339")
+            reachcast::gauge::readings::parse_time(r["time"].as_str().expect("time"))
+                .expect("rfc 3339")
         })
         .collect();
     assert!(acknowledged.is_subset(&served));

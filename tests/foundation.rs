@@ -42,6 +42,16 @@ async fn ready_reports_database_and_schema() {
     assert_eq!(body["status"], "ready");
     assert_eq!(body["database"], "ok");
     assert_eq!(body["migrations"]["applied"], body["migrations"]["known"]);
+    // The one wire form of a time (README, "API"): RFC 3339 UTC with
+    // exactly three fraction digits and `Z`.
+    for member in ["created_at", "last_start"] {
+        let t = body["instance"][member].as_str().expect("time");
+        let shape: String = t
+            .chars()
+            .map(|c| if c.is_ascii_digit() { 'd' } else { c })
+            .collect();
+        assert_eq!(shape, "dddd-dd-ddTdd:dd:dd.dddZ", "{member}: {t}");
+    }
     assert!(
         dir.path().join("reachcast.sqlite3").exists(),
         "database file created in data dir"
@@ -92,6 +102,104 @@ async fn unknown_api_path_is_a_problem_document() {
     let body: Value = res.json().await.expect("json");
     assert_eq!(body["status"], 404);
     assert!(body["type"].is_string() && body["title"].is_string());
+    // RFC 9457 §3.1.5: `instance` identifies this occurrence; it is the
+    // path the client asked for, `/api` included (the nested router sees
+    // the path without it).
+    assert_eq!(body["instance"], "/api/nothing-here", "{body}");
+    assert!(body["detail"].is_string(), "{body}");
+    app.stop().await;
+}
+
+/// Every problem `type` the source can emit: the literal kind of each
+/// `Problem::new`, `malformed-<format>` for each `Problem::malformed`,
+/// `invalid-value` for `Problem::invalid`, and the kinds `problemize`
+/// gives other error answers (`generic_kind`, over every 4xx and 5xx).
+fn emitted_problem_types() -> std::collections::BTreeSet<String> {
+    fn rust_files(dir: &std::path::Path, out: &mut Vec<std::path::PathBuf>) {
+        for entry in std::fs::read_dir(dir).expect("read src") {
+            let path = entry.expect("entry").path();
+            if path.is_dir() {
+                rust_files(&path, out);
+            } else if path.extension().is_some_and(|e| e == "rs") {
+                out.push(path);
+            }
+        }
+    }
+    /// The string literal `text` starts with (after white space), if any.
+    fn first_literal(text: &str) -> Option<&str> {
+        text.trim_start().strip_prefix('"')?.split('"').next()
+    }
+    let mut files = Vec::new();
+    rust_files(
+        &std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("src"),
+        &mut files,
+    );
+    let mut kinds = std::collections::BTreeSet::new();
+    for file in files {
+        let text = std::fs::read_to_string(&file).expect("source");
+        for piece in text.split("Problem::new(").skip(1) {
+            // The kind is the second argument: after the first comma.
+            if let Some(kind) = piece.split_once(',').and_then(|(_, r)| first_literal(r)) {
+                kinds.insert(kind.to_owned());
+            }
+        }
+        for piece in text.split("Problem::malformed(").skip(1) {
+            if let Some(format) = first_literal(piece) {
+                kinds.insert(format!("malformed-{format}"));
+            }
+        }
+        if text.contains("Problem::invalid(") {
+            kinds.insert("invalid-value".to_owned());
+        }
+    }
+    for code in 400..600 {
+        if let Ok(status) = axum::http::StatusCode::from_u16(code) {
+            kinds.insert(reachcast::http::error::generic_kind(status).to_owned());
+        }
+    }
+    kinds
+}
+
+/// RFC 9457 §3.1.1: a `type` URI, when dereferenced, should give
+/// human-readable documentation of the problem type. Every type the code
+/// can emit resolves to a page (200, HTML) and the catalogue holds no type
+/// the code never emits; an unknown type is a 404 problem.
+#[tokio::test]
+async fn every_problem_type_resolves_to_its_page() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let app = spawn_app(dir.path()).await;
+    let kinds = emitted_problem_types();
+    assert!(kinds.len() >= 15, "{kinds:?}");
+    for kind in &kinds {
+        let res = app
+            .client
+            .get(app.url(&format!("/problems/{kind}")))
+            .send()
+            .await
+            .expect("GET");
+        assert_eq!(res.status(), 200, "/problems/{kind}");
+        let ctype = res.headers()["content-type"]
+            .to_str()
+            .expect("ascii")
+            .to_owned();
+        assert!(ctype.starts_with("text/html"), "{kind}: {ctype}");
+        let html = res.text().await.expect("body");
+        assert!(html.contains(&format!("/problems/{kind}")), "{html}");
+        assert!(html.contains("<h1>"), "{html}");
+    }
+    let catalogued: std::collections::BTreeSet<String> = reachcast::http::error::PROBLEM_TYPES
+        .iter()
+        .map(|t| t.slug.to_owned())
+        .collect();
+    assert_eq!(&catalogued, &kinds, "catalogue and code agree");
+    let res = app
+        .client
+        .get(app.url("/problems/no-such-problem"))
+        .send()
+        .await
+        .expect("GET");
+    assert_eq!(res.status(), 404);
+    assert_eq!(res.headers()["content-type"], "application/problem+json");
     app.stop().await;
 }
 

@@ -36,6 +36,56 @@ async fn fixture() -> Fixture {
     }
 }
 
+impl Fixture {
+    /// Posts a JSON batch for `alder-weir` with the gauge key; the report.
+    async fn post(&self, body: &Value) -> Value {
+        self.app
+            .post_readings(&self.logger, "alder-weir", body)
+            .await
+            .json()
+            .await
+            .expect("json")
+    }
+
+    /// `member` and `for_forecast` of every reading of `alder-weir`,
+    /// oldest first.
+    async fn flags(&self, member: &str) -> Vec<(String, bool)> {
+        let (_, page) = self
+            .app
+            .get_json("/api/gauges/alder-weir/readings?order=oldest")
+            .await;
+        page["readings"]
+            .as_array()
+            .expect("readings")
+            .iter()
+            .map(|r| {
+                (
+                    r[member].as_str().expect("member").to_owned(),
+                    r["for_forecast"].as_bool().expect("bool"),
+                )
+            })
+            .collect()
+    }
+
+    /// `POST …/readings/{time}/confirm` of `alder-weir` with `key`.
+    async fn confirm(&self, key: &str, time: &str) -> reqwest::Response {
+        self.app
+            .client
+            .post(
+                self.app
+                    .url(&format!("/api/gauges/alder-weir/readings/{time}/confirm")),
+            )
+            .bearer_auth(key)
+            .send()
+            .await
+            .expect("send")
+    }
+}
+
+fn owned(pairs: &[(&str, bool)]) -> Vec<(String, bool)> {
+    pairs.iter().map(|(s, b)| ((*s).to_owned(), *b)).collect()
+}
+
 /// Asserts an RFC 9457 problem (§3: media type application/problem+json,
 /// members type, title, status) and returns its body.
 async fn problem(res: reqwest::Response, status: u16) -> Value {
@@ -52,6 +102,21 @@ async fn problem(res: reqwest::Response, status: u16) -> Value {
         "{body}"
     );
     body
+}
+
+/// Asserts the one wire form of a time (README, "API"): an RFC 3339 §5.6
+/// date-time in UTC with exactly three fraction digits and `Z`, e.g.
+/// `2026-03-01T03:15:00.000Z`.
+fn assert_wire_time(v: &Value) {
+    let s = v
+        .as_str()
+        .unwrap_or_else(|| panic!("a time string, got {v}"));
+    let shape: String = s
+        .chars()
+        .map(|c| if c.is_ascii_digit() { 'd' } else { c })
+        .collect();
+    assert_eq!(shape, "dddd-dd-ddTdd:dd:dd.dddZ", "{s}");
+    assert!(chrono::DateTime::parse_from_rfc3339(s).is_ok(), "{s}");
 }
 
 fn reading(time: &str, stage: f64) -> Value {
@@ -90,9 +155,9 @@ async fn json_batch_is_per_row_with_a_full_report() {
         [(3, "time"), (4, "stage"), (5, "colour"), (6, "quality")]
     );
     assert!(
-        errors[0]["reason"]
+        errors[0]["message"]
             .as_str()
-            .expect("reason")
+            .expect("message")
             .contains("no UTC offset")
     );
     // The accepted rows are stored; default quality is "unchecked".
@@ -172,7 +237,10 @@ async fn identical_resend_is_a_duplicate_and_changed_value_a_revision() {
     let logger_id = f.logger.split('_').nth(1).expect("key id");
     assert_eq!(revs[0]["replaced_by"], admin_id);
     assert_eq!(revs[0]["sent_by"], logger_id);
-    assert!(revs[0]["replaced_at"].is_string());
+    assert_wire_time(&revs[0]["replaced_at"]);
+    assert_wire_time(&revs[0]["received_at"]);
+    assert_wire_time(&one["received_at"]);
+    assert_wire_time(&one["reading"]["time"]);
     // The same reading addressed with an offset in the path, `+` as is and
     // percent-encoded.
     for path in [
@@ -275,9 +343,9 @@ async fn validation_rules_each_name_the_field() {
     assert_eq!(errors.len(), 3);
     assert!(errors.iter().all(|e| e["field"] == "stage"));
     assert!(
-        errors[0]["reason"]
+        errors[0]["message"]
             .as_str()
-            .expect("reason")
+            .expect("message")
             .contains("finite")
     );
     // Unknown gauge: 404 problem naming the gauge.
@@ -371,6 +439,12 @@ async fn oversized_body_is_a_413_problem() {
     // RFC 9110 §15.5.14: 413 Content Too Large.
     let p = problem(res, 413).await;
     assert_eq!(p["type"], "/problems/body-too-large");
+    let detail = p["detail"].as_str().expect("detail");
+    assert!(
+        detail.contains("2048") && detail.contains("server.body_limit_bytes"),
+        "{p}"
+    );
+    assert_eq!(p["instance"], "/api/gauges/alder-weir/readings", "{p}");
     app.stop().await;
 }
 
@@ -385,72 +459,25 @@ async fn jump_is_flagged_suspect_until_a_forecaster_confirms() {
         reading("2025-03-01T00:30:00Z", 3.1),
         reading("2025-03-01T00:45:00Z", 1.2),
     ]});
-    let r: Value = f
-        .app
-        .post_readings(&f.logger, "alder-weir", &body)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = f.post(&body).await;
     assert_eq!(r["accepted"], 4, "stored, never dropped");
     assert_eq!(r["suspect_by_rate"], 1);
-    let (_, page) = f
-        .app
-        .get_json("/api/gauges/alder-weir/readings?order=oldest")
-        .await;
-    let flags: Vec<(&str, bool)> = page["readings"]
-        .as_array()
-        .expect("readings")
-        .iter()
-        .map(|r| {
-            (
-                r["rate_check"].as_str().expect("check"),
-                r["for_forecast"].as_bool().expect("bool"),
-            )
-        })
-        .collect();
     assert_eq!(
-        flags,
-        [("ok", true), ("ok", true), ("suspect", false), ("ok", true)]
+        f.flags("rate_check").await,
+        owned(&[("ok", true), ("ok", true), ("suspect", false), ("ok", true)])
     );
     // A later reading is compared with its stored neighbour.
-    let r: Value = f
-        .app
-        .post_readings(
-            &f.logger,
-            "alder-weir",
-            &json!({"readings": [reading("2025-03-01T01:00:00Z", 0.1)]}),
-        )
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = f
+        .post(&json!({"readings": [reading("2025-03-01T01:00:00Z", 0.1)]}))
+        .await;
     assert_eq!(
         r["suspect_by_rate"], 1,
         "a fall of 1.1 m in 15 min is flagged too"
     );
 
-    let confirm = |key: String, time: &'static str| {
-        f.app
-            .client
-            .post(
-                f.app
-                    .url(&format!("/api/gauges/alder-weir/readings/{time}/confirm")),
-            )
-            .bearer_auth(key)
-            .send()
-    };
     // A gauge key may not confirm.
-    problem(
-        confirm(f.logger.clone(), "2025-03-01T00:30:00Z")
-            .await
-            .expect("send"),
-        403,
-    )
-    .await;
-    let res = confirm(f.forecaster.clone(), "2025-03-01T00:30:00Z")
-        .await
-        .expect("send");
+    problem(f.confirm(&f.logger, "2025-03-01T00:30:00Z").await, 403).await;
+    let res = f.confirm(&f.forecaster, "2025-03-01T00:30:00Z").await;
     assert_eq!(res.status(), 200);
     let body: Value = res.json().await.expect("json");
     assert_eq!(body["reading"]["rate_check"], "confirmed");
@@ -464,28 +491,77 @@ async fn jump_is_flagged_suspect_until_a_forecaster_confirms() {
         "cache invalidated on confirm"
     );
     // Confirming a reading that is not flagged is a conflict; none there, 404.
-    problem(
-        confirm(f.forecaster.clone(), "2025-03-01T00:00:00Z")
-            .await
-            .expect("send"),
-        409,
-    )
-    .await;
-    problem(
-        confirm(f.forecaster.clone(), "2025-03-01T05:00:00Z")
-            .await
-            .expect("send"),
-        404,
-    )
-    .await;
-    let p = problem(
-        confirm(f.forecaster.clone(), "yesterday")
-            .await
-            .expect("send"),
-        422,
-    )
-    .await;
+    problem(f.confirm(&f.forecaster, "2025-03-01T00:00:00Z").await, 409).await;
+    problem(f.confirm(&f.forecaster, "2025-03-01T05:00:00Z").await, 404).await;
+    let p = problem(f.confirm(&f.forecaster, "yesterday").await, 422).await;
     assert_eq!(p["field"], "time");
+    f.app.stop().await;
+}
+
+/// Common practice: data flagged suspect are not used until confirmed.
+/// Here the sender flags it (WaterML 2.0 quality `suspect`); the API's
+/// `for_forecast` says so, and confirming lets it in.
+#[tokio::test]
+async fn sender_suspect_readings_stay_out_of_forecasts_until_confirmed() {
+    let f = fixture().await;
+    let body = json!({"readings": [
+        reading("2025-03-01T00:00:00Z", 1.0),
+        {"time": "2025-03-01T00:15:00Z", "stage": 1.05, "quality": "suspect"},
+        reading("2025-03-01T00:30:00Z", 1.1),
+        {"time": "2025-03-01T00:45:00Z", "stage": 1.1, "quality": "suspect"},
+    ]});
+    let r = f.post(&body).await;
+    assert_eq!(
+        (r["accepted"].as_u64(), r["suspect_by_rate"].as_u64()),
+        (Some(4), Some(0)),
+        "{r}"
+    );
+    let expect = |confirmed: bool| {
+        owned(&[
+            ("good", true),
+            ("suspect", confirmed),
+            ("good", true),
+            ("suspect", false),
+        ])
+    };
+    assert_eq!(f.flags("quality").await, expect(false));
+    // What the forecast reads agrees with the flag.
+    let forecast_view = || async {
+        f.app
+            .store
+            .readings_for_forecast("alder-weir", i64::MIN, i64::MAX)
+            .await
+            .expect("readings")
+            .iter()
+            .map(|r| (r.quality.as_str().to_owned(), r.for_forecast()))
+            .collect::<Vec<_>>()
+    };
+    assert_eq!(forecast_view().await, expect(false));
+    let newest_usable = f
+        .app
+        .store
+        .last_usable_reading_ms("alder-weir")
+        .await
+        .expect("newest usable");
+    assert_eq!(
+        newest_usable,
+        Some(
+            chrono::DateTime::parse_from_rfc3339("2025-03-01T00:30:00Z")
+                .expect("time")
+                .timestamp_millis()
+        ),
+        "the suspect 00:45 reading is not the gauge's newest usable one"
+    );
+    let res = f.confirm(&f.forecaster, "2025-03-01T00:15:00Z").await;
+    assert_eq!(res.status(), 200);
+    let body: Value = res.json().await.expect("json");
+    assert_eq!(body["reading"]["for_forecast"], true, "{body}");
+    assert_eq!(
+        body["reading"]["quality"], "suspect",
+        "the sender's word is kept"
+    );
+    assert_eq!(f.flags("quality").await, expect(true));
+    assert_eq!(forecast_view().await, expect(true));
     f.app.stop().await;
 }
 
@@ -721,6 +797,8 @@ async fn csv_round_trip() {
             .expect("ascii")
             .starts_with("text/csv")
     );
+    // RFC 9110 §12.5.5: the answer was chosen by Accept, so it says so.
+    assert_eq!(res.headers()["vary"], "accept");
     let out = res.text().await.expect("text");
     assert_eq!(
         out,
@@ -845,6 +923,8 @@ async fn paging_walks_every_reading_once_in_both_orders() {
         ("order=up", "order"),
         ("cursor=x", "cursor"),
         ("colour=red", "colour"),
+        ("limit=5&limit=6", "limit"),
+        ("format=xml", "format"),
     ] {
         let res = f
             .app
@@ -855,6 +935,11 @@ async fn paging_walks_every_reading_once_in_both_orders() {
             .expect("GET");
         let p = problem(res, 400).await;
         assert_eq!(p["field"], field, "{q}");
+        assert_eq!(p["type"], "/problems/invalid-parameter", "{q}");
+        assert!(
+            p["detail"].as_str().is_some_and(|d| d.contains(field)),
+            "{p}"
+        );
     }
     f.app.stop().await;
 }
@@ -869,6 +954,25 @@ async fn latest_readings_answer_follows_every_write() {
         async move { app.post_readings(&key, "alder-weir", &body).await }
     };
     assert_eq!(post("2025-03-01T00:00:00Z", 1.0).await.status(), 200);
+    // Served from the cache or not, JSON or CSV, the answer varies by
+    // Accept (RFC 9110 §12.5.5).
+    for accept in [
+        "application/json",
+        "application/json",
+        "text/csv",
+        "text/csv",
+    ] {
+        let res = f
+            .app
+            .client
+            .get(f.app.url("/api/gauges/alder-weir/readings"))
+            .header("accept", accept)
+            .send()
+            .await
+            .expect("GET");
+        assert_eq!(res.status(), 200);
+        assert_eq!(res.headers()["vary"], "accept", "{accept}");
+    }
     for round in 0..3 {
         let (_, a) = f.app.get_json("/api/gauges/alder-weir/readings").await;
         let (_, b) = f.app.get_json("/api/gauges/alder-weir/readings").await;
@@ -905,6 +1009,9 @@ async fn gauges_are_created_updated_and_checked() {
     assert_eq!(g["name"], "Alder Weir (upper)");
     assert_eq!(g["chainage_m"], 1250.0);
     assert_eq!(g["rating_curve"]["points"][1][1], 40.0);
+    assert_eq!(g["rating_curve"]["kind"], "table");
+    assert_wire_time(&g["created_at"]);
+    assert_wire_time(&g["updated_at"]);
     let (_, list) = f.app.get_json("/api/gauges").await;
     assert_eq!(list.as_array().map(Vec::len), Some(1));
     let bad = |patch: Value| {
@@ -963,7 +1070,13 @@ async fn wrong_method_is_a_problem_document() {
         .send()
         .await
         .expect("DELETE");
+    // RFC 9110 §15.5.6: a 405 carries `Allow`.
+    let allow = res.headers()["allow"].to_str().expect("ascii").to_owned();
+    assert!(allow.contains("GET") && allow.contains("PUT"), "{allow}");
     let p = problem(res, 405).await;
     assert_eq!(p["type"], "/problems/method-not-allowed");
+    let detail = p["detail"].as_str().expect("detail");
+    assert!(detail.contains("DELETE") && detail.contains("Allow"), "{p}");
+    assert_eq!(p["instance"], "/api/gauges/alder-weir", "{p}");
     f.app.stop().await;
 }

@@ -29,6 +29,7 @@ use serde_json::{Value, json};
 const ROUTES: &[(&str, &str)] = &[
     ("GET", "/health"),
     ("GET", "/ready"),
+    ("GET", "/problems/{slug}"),
     ("GET", "/api/openapi.json"),
     ("GET", "/api/gauges"),
     ("GET", "/api/gauges/{gauge}"),
@@ -877,6 +878,7 @@ async fn fixture() -> Fixture {
         ("id", run_id),
         ("version", version),
         ("identifier", identifier),
+        ("slug", "invalid-parameter".to_owned()),
     ]);
     Fixture {
         app,
@@ -982,6 +984,7 @@ async fn every_documented_get_answers_as_documented() {
         ("id", "999999".to_owned()),
         ("version", "999999".to_owned()),
         ("identifier", "no-such-message".to_owned()),
+        ("slug", "no-such-problem".to_owned()),
     ]);
     let mut not_found = 0;
     for (method, path, op) in operations(&doc) {
@@ -1106,6 +1109,7 @@ async fn security_requirements_match_the_server() {
         ("id", "1".to_owned()),
         ("version", "1".to_owned()),
         ("identifier", "x".to_owned()),
+        ("slug", "unauthorized".to_owned()),
     ]);
     for (method, path, op) in operations(&doc) {
         if method != "GET" {

@@ -17,9 +17,12 @@ use crate::{
     auth::{NewKey, Role, generate_key, hash_secret},
     engine::{manning::normal_depth, rating::RatingCurve, section::PropertyTable},
     forecast::{hydrograph::Hydrograph, inflow, spec::ReachSpec},
-    readings::{Measures, NewReading, Quality},
+    gauge::{
+        GaugeSpec, Measures,
+        readings::{NewReading, Quality},
+    },
     service::Forecaster,
-    store::{GaugeUpsert, Store, StoreError},
+    store::{Store, StoreError},
 };
 
 /// Reach id of the demo.
@@ -129,12 +132,12 @@ pub async fn seed(store: &Store) -> Result<(), DemoError> {
         store
             .put_gauge(
                 GAUGE_ID,
-                &GaugeUpsert {
+                &GaugeSpec {
                     name: "Upper Brindle gauge (invented)".into(),
                     reach: Some(REACH_ID.into()),
                     chainage_m: Some(0.0),
                     measures: Measures::Stage,
-                    rating_curve: serde_json::to_value(&rating).ok(),
+                    rating_curve: Some(rating),
                     stage_min_m: bed - 0.5,
                     stage_max_m: bed + 12.0,
                     max_rise_m_per_h: 2.0,
@@ -195,7 +198,7 @@ async fn anchor(store: &Store) -> Result<Option<DateTime<Utc>>, StoreError> {
         .await?;
     Ok(rows
         .first()
-        .and_then(|r| DateTime::from_timestamp_millis(r.0)))
+        .and_then(|r| DateTime::from_timestamp_millis(r.time_ms)))
 }
 
 fn reading(

@@ -31,13 +31,6 @@ pub fn with_etag(mut r: Response, etag: &str) -> Response {
     r
 }
 
-/// Marks an answer chosen by the `Accept` header (RFC 9110 §12.5.5).
-pub fn vary_accept(mut r: Response) -> Response {
-    r.headers_mut()
-        .append(header::VARY, HeaderValue::from_static("accept"));
-    r
-}
-
 /// FNV-1a 64 of the body: a content hash for a strong `ETag`.
 pub fn fnv(bytes: &[u8]) -> u64 {
     bytes.iter().fold(0xcbf2_9ce4_8422_2325, |h, b| {

@@ -4,13 +4,22 @@
 //! Internal and database errors are logged with their cause; the client gets
 //! a short, safe message. Validation errors name the field (and the row, for
 //! batches) in extension members so a client can point at the bad input.
+//!
+//! Every problem has a `detail`. Every `type` (`/problems/{slug}`) is in
+//! [`PROBLEM_TYPES`] and resolves to a short HTML page that explains it
+//! (RFC 9457 §3.1.1), served by [`router`].
 
 use axum::{
-    http::{HeaderName, HeaderValue, StatusCode, header},
+    Router,
+    extract::{OriginalUri, Path, Request, State},
+    http::{HeaderName, HeaderValue, Method, StatusCode, Uri, header},
+    middleware::Next,
     response::{IntoResponse, Response},
+    routing::get,
 };
 use serde::Serialize;
 
+use super::AppState;
 use crate::store::StoreError;
 
 /// Media type of RFC 9457 problem details.
@@ -115,7 +124,15 @@ impl Problem {
 }
 
 impl IntoResponse for Problem {
-    fn into_response(self) -> Response {
+    fn into_response(mut self) -> Response {
+        if self.detail.is_none() {
+            // Every problem says something beyond its title: at worst what
+            // its type's page says.
+            let slug = self.kind.trim_start_matches("/problems/");
+            self.detail = Some(
+                problem_type(slug).map_or_else(|| self.title.clone(), |t| t.explanation.to_owned()),
+            );
+        }
         let status = StatusCode::from_u16(self.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR);
         let mut response = (status, axum::Json(&self)).into_response();
         let headers = response.headers_mut();
@@ -175,8 +192,10 @@ impl IntoResponse for ApiError {
     }
 }
 
-/// 404 for unknown API paths, in problem form.
-pub async fn not_found(uri: axum::http::Uri) -> Problem {
+/// 404 for an unknown path, in problem form. Inside the nested `/api`
+/// router the request's URI has lost its prefix: the API's fallback passes
+/// the `OriginalUri`, so `instance` is the path the client asked for.
+pub async fn not_found(uri: Uri) -> Problem {
     Problem::new(StatusCode::NOT_FOUND, "not-found", "Not found")
         .detail(format!("No resource at {}", uri.path()))
         .instance(uri.path().to_owned())
@@ -217,10 +236,54 @@ fn json_syntax(e: serde_json::Error) -> Problem {
     .with("column", e.column())
 }
 
-/// Middleware: turns any error response that is not already a problem
-/// document (axum's own rejections, 405, the timeout's 503) into one, so
-/// every error the API gives is RFC 9457.
-pub async fn problemize(response: Response) -> Response {
+/// What `problemize` needs to explain the errors of the layers around the
+/// handlers: the limits they enforce.
+#[derive(Debug, Clone, Copy)]
+pub struct Limits {
+    /// `server.body_limit_bytes`.
+    pub body_limit_bytes: usize,
+    /// `server.request_timeout_secs`.
+    pub request_timeout_secs: u64,
+}
+
+/// The problem type `problemize` gives an error answer that is not already
+/// a problem document, by status.
+pub fn generic_kind(status: StatusCode) -> &'static str {
+    match status {
+        StatusCode::NOT_FOUND => "not-found",
+        StatusCode::PAYLOAD_TOO_LARGE => "body-too-large",
+        StatusCode::UNSUPPORTED_MEDIA_TYPE => "unsupported-media-type",
+        StatusCode::METHOD_NOT_ALLOWED => "method-not-allowed",
+        StatusCode::SERVICE_UNAVAILABLE => "unavailable",
+        StatusCode::REQUEST_TIMEOUT => "timeout",
+        s if s.is_server_error() => "internal",
+        _ => "bad-request",
+    }
+}
+
+/// Middleware: turns any error answer that is not already a problem
+/// document (axum's own rejections, 405, the body limit's 413, the
+/// timeout's 503) into one, with a `detail` and the request's path as
+/// `instance`, so every error the API gives is RFC 9457.
+pub async fn problemize(State(limits): State<Limits>, request: Request, next: Next) -> Response {
+    let method = request.method().clone();
+    // The path the client sent, whatever router this runs in.
+    let path = request
+        .extensions()
+        .get::<OriginalUri>()
+        .map_or_else(|| request.uri().path(), |o| o.path())
+        .to_owned();
+    let response = next.run(request).await;
+    as_problem(response, &method, &path, limits).await
+}
+
+/// The work of [`problemize`], for one answer to `method path`.
+pub async fn as_problem(
+    response: Response,
+    method: &Method,
+    path: &str,
+    limits: Limits,
+) -> Response {
     let status = response.status();
     let is_problem = response
         .headers()
@@ -234,25 +297,296 @@ pub async fn problemize(response: Response) -> Response {
         .await
         .map(|b| String::from_utf8_lossy(&b).trim().to_owned())
         .unwrap_or_default();
-    let kind = match status {
-        StatusCode::PAYLOAD_TOO_LARGE => "body-too-large",
-        StatusCode::UNSUPPORTED_MEDIA_TYPE => "unsupported-media-type",
-        StatusCode::METHOD_NOT_ALLOWED => "method-not-allowed",
-        StatusCode::SERVICE_UNAVAILABLE => "unavailable",
-        StatusCode::REQUEST_TIMEOUT => "timeout",
-        s if s.is_server_error() => "internal",
-        _ => "bad-request",
+    // axum's method router adds `Allow` after the route's layers have run,
+    // so it is usually not here yet; the answer carries it all the same.
+    let allow = parts
+        .headers
+        .get(header::ALLOW)
+        .and_then(|v| v.to_str().ok())
+        .map_or_else(
+            || "the Allow header lists the methods it takes".to_owned(),
+            |a| format!("it allows {a}"),
+        );
+    let detail = match status {
+        StatusCode::METHOD_NOT_ALLOWED => format!("{method} is not allowed on {path}; {allow}"),
+        StatusCode::PAYLOAD_TOO_LARGE => format!(
+            "the request body is larger than the {} bytes this server accepts (server.body_limit_bytes)",
+            limits.body_limit_bytes
+        ),
+        StatusCode::SERVICE_UNAVAILABLE => format!(
+            "the request did not finish within {} s (server.request_timeout_secs) and was abandoned; retry later",
+            limits.request_timeout_secs
+        ),
+        s if s.is_server_error() => "An unexpected error occurred; it has been logged.".to_owned(),
+        _ if !text.is_empty() => text,
+        s => format!("{method} {path} was refused ({s})"),
     };
+    let kind = generic_kind(status);
     let title = status.canonical_reason().unwrap_or("Error");
-    let mut problem = Problem::new(status, kind, title);
-    if status.is_client_error() && !text.is_empty() {
-        problem = problem.detail(text);
-    }
-    let mut out = problem.into_response();
+    let mut out = Problem::new(status, kind, title)
+        .detail(detail)
+        .instance(path)
+        .into_response();
     for (name, value) in &parts.headers {
         if name != header::CONTENT_TYPE && name != header::CONTENT_LENGTH {
             out.headers_mut().insert(name.clone(), value.clone());
         }
     }
     out
+}
+
+/// A problem type: the slug of its URI `/problems/{slug}`, its title and
+/// what its page says.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct ProblemType {
+    pub slug: &'static str,
+    pub title: &'static str,
+    pub explanation: &'static str,
+}
+
+const fn pt(slug: &'static str, title: &'static str, explanation: &'static str) -> ProblemType {
+    ProblemType {
+        slug,
+        title,
+        explanation,
+    }
+}
+
+/// Every problem type the service emits (`tests/foundation.rs` checks the
+/// list against the source both ways).
+pub const PROBLEM_TYPES: &[ProblemType] = &[
+    pt(
+        "bad-request",
+        "Bad request",
+        "The request could not be read as sent, for example a path segment of the wrong form. The detail says what was wrong; the same request sent again gets the same answer.",
+    ),
+    pt(
+        "malformed-json",
+        "Malformed JSON body",
+        "The body is not well-formed JSON (RFC 8259). The members line and column point at the first error. Nothing in the body was stored.",
+    ),
+    pt(
+        "malformed-csv",
+        "Malformed CSV body",
+        "The body is not CSV as RFC 4180 defines it (for example a record with another number of fields than the header row), or the header row names a column this endpoint does not take. The members line and row (data records counted from 1) point at the error; field names an unknown column. Nothing in the body was stored.",
+    ),
+    pt(
+        "malformed-body",
+        "Malformed body",
+        "The body could not be read as text: it is not UTF-8. Nothing was stored.",
+    ),
+    pt(
+        "invalid-parameter",
+        "Invalid query parameter",
+        "A query parameter is unknown, repeated, or has a value of the wrong form or outside its range. The member field names the parameter and the detail says what is accepted. The answer is 400.",
+    ),
+    pt(
+        "invalid-value",
+        "Invalid value",
+        "The body is well-formed but a value in it is not acceptable (a member missing, unknown or of the wrong type, a number out of range, a reference to something that does not exist), or a path segment such as a time or an id is not of the right form. The member field names the value (a path for nested members). Nothing was stored.",
+    ),
+    pt(
+        "invalid-readings",
+        "No reading was accepted",
+        "Every reading of the batch was rejected, so nothing was stored. The member errors lists each rejected row as row, field and message (rows counted from 1); field and row at the top repeat the first. A batch with at least one stored or duplicate reading answers 200 with the same list instead.",
+    ),
+    pt(
+        "unauthorized",
+        "Missing or invalid API key",
+        "This needs an API key and the request had none, or the key is malformed, unknown or revoked. Send Authorization: Bearer rck_<id>_<secret>; keys are made with the command reachcast keys create.",
+    ),
+    pt(
+        "forbidden",
+        "Forbidden",
+        "The key is valid but its role does not allow this, or a gauge key asked for a gauge not named on it. The detail says what is needed.",
+    ),
+    pt(
+        "not-found",
+        "Not found",
+        "There is nothing at this path: no such resource, or an id that names nothing (the member field names the path segment).",
+    ),
+    pt(
+        "unknown-gauge",
+        "Unknown gauge",
+        "No gauge has this id. An admin creates gauges with PUT /api/gauges/{gauge}.",
+    ),
+    pt(
+        "unknown-reading",
+        "No such reading",
+        "The gauge has no reading at this time. A reading is identified by its instant: 04:15+01:00 and 03:15Z are the same reading.",
+    ),
+    pt(
+        "method-not-allowed",
+        "Method not allowed",
+        "The resource exists but does not take this method. The Allow header lists the methods it takes.",
+    ),
+    pt(
+        "timeout",
+        "Request timeout",
+        "The server stopped waiting for the request to arrive in full. Send it again.",
+    ),
+    pt(
+        "not-suspect",
+        "Reading is not flagged",
+        "Nothing flagged this reading suspect (neither its sender nor the rate check), so it feeds forecasts already and there is nothing to confirm.",
+    ),
+    pt(
+        "body-too-large",
+        "Request body too large",
+        "The request body is larger than this server accepts (server.body_limit_bytes). Send fewer rows per request.",
+    ),
+    pt(
+        "too-many-readings",
+        "Too many readings",
+        "The batch has more readings than one request may carry (ingest.max_rows_per_request). Split it into smaller batches.",
+    ),
+    pt(
+        "unsupported-media-type",
+        "Unsupported media type",
+        "The body's Content-Type is not one this endpoint reads. Readings and inflow uploads take application/json or text/csv; other writes take application/json.",
+    ),
+    pt(
+        "rate-limited",
+        "Too many requests",
+        "This key has used its request budget (auth.rate_limit_per_sec, in bursts of auth.rate_limit_burst). Wait the number of seconds in the Retry-After header, then retry.",
+    ),
+    pt(
+        "internal",
+        "Internal error",
+        "The server failed in a way it did not expect. The error is logged with the request's x-request-id; quote that id when reporting it.",
+    ),
+    pt(
+        "storage-unavailable",
+        "Storage unavailable",
+        "The database could not complete the request, and nothing the request asked for was changed. Retry later; GET /ready tells whether the database answers.",
+    ),
+    pt(
+        "not-ready",
+        "Service not ready",
+        "The service runs but cannot do its job: the database does not answer, or its schema does not match this version of the service.",
+    ),
+    pt(
+        "unavailable",
+        "Service unavailable",
+        "The request did not finish within server.request_timeout_secs and was abandoned. Retry later: a batch of readings sent again counts what was already stored as duplicates.",
+    ),
+];
+
+/// The problem type with this slug.
+pub fn problem_type(slug: &str) -> Option<&'static ProblemType> {
+    PROBLEM_TYPES.iter().find(|t| t.slug == slug)
+}
+
+/// `GET /problems/{slug}`: the page a problem's `type` resolves to.
+pub fn router() -> Router<AppState> {
+    Router::new().route("/problems/{slug}", get(page))
+}
+
+/// The HTML page of one problem type.
+pub fn page_html(t: &ProblemType) -> String {
+    format!(
+        "<!doctype html>\n<html lang=\"en\">\n<head><meta charset=\"utf-8\"><title>{title} (reachcast)</title></head>\n<body>\n<h1>{title}</h1>\n<p>Problem type <code>/problems/{slug}</code> of the reachcast API, sent as an RFC 9457 problem document (<code>application/problem+json</code>).</p>\n<p>{explanation}</p>\n<p>The whole API is described at <a href=\"/api/openapi.json\">/api/openapi.json</a>.</p>\n</body>\n</html>\n",
+        // XML's five entities are HTML's too (HTML Living Standard,
+        // named character references).
+        title = quick_xml::escape::escape(t.title),
+        slug = t.slug,
+        explanation = quick_xml::escape::escape(t.explanation),
+    )
+}
+
+async fn page(Path(slug): Path<String>) -> Response {
+    match problem_type(&slug) {
+        Some(t) => (
+            [
+                (header::CONTENT_TYPE, "text/html; charset=utf-8"),
+                (header::CACHE_CONTROL, "max-age=3600"),
+            ],
+            page_html(t),
+        )
+            .into_response(),
+        None => Problem::new(StatusCode::NOT_FOUND, "not-found", "Not found")
+            .detail(format!("there is no problem type `{slug}`"))
+            .field("slug")
+            .instance(format!("/problems/{slug}"))
+            .into_response(),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const LIMITS: Limits = Limits {
+        body_limit_bytes: 2048,
+        request_timeout_secs: 30,
+    };
+
+    async fn problem_of(response: Response, method: Method) -> serde_json::Value {
+        let out = as_problem(response, &method, "/api/gauges/g/readings", LIMITS).await;
+        assert_eq!(out.headers()[header::CONTENT_TYPE], PROBLEM_JSON);
+        let bytes = axum::body::to_bytes(out.into_body(), 1 << 16)
+            .await
+            .expect("body");
+        serde_json::from_slice(&bytes).expect("problem JSON")
+    }
+
+    /// RFC 9457 §3.1.4 `detail` and §3.1.5 `instance`, for the answers the
+    /// layers around the handlers give with an empty body.
+    #[tokio::test]
+    async fn layer_errors_get_a_detail_and_the_path() {
+        let timeout = StatusCode::SERVICE_UNAVAILABLE.into_response();
+        let p = problem_of(timeout, Method::GET).await;
+        assert_eq!(p["type"], "/problems/unavailable");
+        assert!(
+            p["detail"].as_str().expect("detail").contains("30 s"),
+            "{p}"
+        );
+        assert_eq!(p["instance"], "/api/gauges/g/readings");
+        let mut not_allowed = StatusCode::METHOD_NOT_ALLOWED.into_response();
+        not_allowed
+            .headers_mut()
+            .insert(header::ALLOW, HeaderValue::from_static("GET,POST"));
+        let p = problem_of(not_allowed, Method::DELETE).await;
+        assert_eq!(
+            p["detail"],
+            "DELETE is not allowed on /api/gauges/g/readings; it allows GET,POST"
+        );
+        let p = problem_of(StatusCode::PAYLOAD_TOO_LARGE.into_response(), Method::POST).await;
+        assert!(
+            p["detail"].as_str().expect("detail").contains("2048"),
+            "{p}"
+        );
+        let p = problem_of(StatusCode::NOT_ACCEPTABLE.into_response(), Method::GET).await;
+        assert_eq!(p["type"], "/problems/bad-request");
+        assert!(p["detail"].is_string(), "{p}");
+    }
+
+    #[tokio::test]
+    async fn a_problem_without_detail_gets_its_types_explanation() {
+        let res =
+            Problem::new(StatusCode::NOT_FOUND, "unknown-gauge", "Unknown gauge").into_response();
+        let bytes = axum::body::to_bytes(res.into_body(), 1 << 16)
+            .await
+            .expect("body");
+        let p: serde_json::Value = serde_json::from_slice(&bytes).expect("json");
+        assert_eq!(
+            p["detail"].as_str(),
+            problem_type("unknown-gauge").map(|t| t.explanation)
+        );
+    }
+
+    #[test]
+    fn every_generic_kind_is_catalogued_and_pages_escape() {
+        for code in 400..600 {
+            if let Ok(s) = StatusCode::from_u16(code) {
+                assert!(problem_type(generic_kind(s)).is_some(), "{code}");
+            }
+        }
+        let mut slugs: Vec<&str> = PROBLEM_TYPES.iter().map(|t| t.slug).collect();
+        slugs.sort_unstable();
+        slugs.dedup();
+        assert_eq!(slugs.len(), PROBLEM_TYPES.len(), "a slug twice");
+        let html = page_html(&pt("x", "a < b", "\"quoted\" & more"));
+        assert!(html.contains("a &lt; b") && html.contains("&quot;quoted&quot; &amp; more"));
+    }
 }

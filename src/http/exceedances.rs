@@ -22,7 +22,7 @@ use super::{
     auth::ReadAccess,
     conditional::{fnv, not_modified, with_etag},
     error::ApiError,
-    query::Query,
+    query::Params,
 };
 use crate::{
     CAUTION,
@@ -102,8 +102,7 @@ struct Doc<'a> {
     items: Vec<Item<'a>>,
 }
 
-/// The board is JSON only; `format=json` is accepted for clients that
-/// send it to every endpoint.
+/// The board is JSON only.
 #[derive(Debug, Deserialize)]
 #[serde(rename_all = "lowercase")]
 enum JsonOnly {
@@ -112,8 +111,9 @@ enum JsonOnly {
 
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-struct Params {
+struct BoardParams {
     units: Option<Units>,
+    /// Accepted for clients that send it everywhere; the board is JSON.
     #[serde(rename = "format")]
     _format: Option<JsonOnly>,
 }
@@ -143,7 +143,7 @@ fn render(state: &AppState, units: Units) -> Result<(Bytes, String), ApiError> {
 async fn exceedances(
     _: ReadAccess,
     State(state): State<AppState>,
-    Query(params): Query<Params>,
+    Params(params): Params<BoardParams>,
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
     let units = params.units.unwrap_or_default();

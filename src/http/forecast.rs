@@ -18,9 +18,9 @@ use serde::Deserialize;
 use super::{
     AppState,
     auth::ReadAccess,
-    conditional::{fnv, not_modified, vary_accept, with_etag},
+    conditional::{fnv, not_modified, with_etag},
     error::ApiError,
-    query::Query,
+    query::{Format, Params, vary_accept},
     reaches::{find_reach, not_found},
 };
 use crate::{
@@ -42,31 +42,12 @@ pub fn router() -> Router<AppState> {
         )
 }
 
-/// `format=` of a read.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub(super) enum Format {
-    Json,
-    Csv,
-}
-
 /// Query parameters of the forecast reads.
 #[derive(Debug, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub(super) struct ForecastParams {
     units: Option<Units>,
     format: Option<Format>,
-}
-
-/// CSV when asked by `format=csv`, or by `Accept: text/csv` without one.
-fn wants_csv(format: Option<Format>, headers: &HeaderMap) -> bool {
-    match format {
-        Some(f) => f == Format::Csv,
-        None => headers
-            .get(header::ACCEPT)
-            .and_then(|v| v.to_str().ok())
-            .is_some_and(|a| a.contains("text/csv")),
-    }
 }
 
 /// The latest good run of a reach and everything the document needs.
@@ -149,11 +130,11 @@ async fn observations(
             .await?;
         let stages = rows
             .into_iter()
-            .filter(|r| r.3)
-            .filter_map(|(ms, stage, _, _)| {
+            .filter(|r| r.for_forecast())
+            .filter_map(|r| {
                 Some(ObservedStage {
-                    time: DateTime::from_timestamp_millis(ms)?,
-                    stage: stage?,
+                    time: DateTime::from_timestamp_millis(r.time_ms)?,
+                    stage: r.stage_m?,
                 })
             })
             .collect();
@@ -234,7 +215,7 @@ async fn prepare(
     let fresh = freshness_of(state, &loaded, now).await?;
     Ok(Request {
         units: params.units.unwrap_or(loaded.reach.spec.service.units),
-        csv: wants_csv(params.format, headers),
+        csv: Format::choose(params.format, headers) == Format::Csv,
         loaded,
         now,
         fresh,
@@ -245,7 +226,7 @@ async fn forecast(
     _: ReadAccess,
     State(state): State<AppState>,
     Path(id): Path<String>,
-    Query(params): Query<ForecastParams>,
+    Params(params): Params<ForecastParams>,
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
     let Request {
@@ -257,10 +238,9 @@ async fn forecast(
     } = prepare(&state, &id, &params, &headers).await?;
     let etag = forecast_etag(l.run.id, &fresh, units, csv);
     if not_modified(&headers, &etag) {
-        return Ok(vary_accept(with_etag(
-            StatusCode::NOT_MODIFIED.into_response(),
-            &etag,
-        )));
+        let mut r = with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag);
+        vary_accept(r.headers_mut());
+        return Ok(r);
     }
     let doc = build_doc(&state, &l, units, now, fresh).await?;
     let response = if csv {
@@ -268,14 +248,16 @@ async fn forecast(
     } else {
         Json(&doc).into_response()
     };
-    Ok(vary_accept(with_etag(response, &etag)))
+    let mut response = with_etag(response, &etag);
+    vary_accept(response.headers_mut());
+    Ok(response)
 }
 
 async fn point_forecast(
     _: ReadAccess,
     State(state): State<AppState>,
     Path((id, point)): Path<(String, String)>,
-    Query(params): Query<ForecastParams>,
+    Params(params): Params<ForecastParams>,
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
     let Request {
@@ -298,5 +280,7 @@ async fn point_forecast(
     } else {
         Json(&p).into_response()
     };
-    Ok(vary_accept(response))
+    let mut response = response;
+    vary_accept(response.headers_mut());
+    Ok(response)
 }

@@ -6,6 +6,7 @@
 //! balancer sends traffic only to an instance that can do its job.
 
 use axum::{Json, Router, extract::State, http::StatusCode, routing::get};
+use chrono::{DateTime, Utc};
 use serde::Serialize;
 
 use super::{AppState, error::Problem};
@@ -35,7 +36,29 @@ struct Ready {
     status: &'static str,
     database: &'static str,
     migrations: MigrationStatus,
-    instance: ServiceMeta,
+    instance: Instance,
+}
+
+/// The database's identity on the wire, times in the one wire form.
+#[derive(Serialize)]
+struct Instance {
+    instance_id: String,
+    #[serde(with = "crate::wire_time")]
+    created_at: DateTime<Utc>,
+    #[serde(with = "crate::wire_time")]
+    last_start: DateTime<Utc>,
+    start_count: i64,
+}
+
+impl From<ServiceMeta> for Instance {
+    fn from(m: ServiceMeta) -> Self {
+        Self {
+            instance_id: m.instance_id,
+            created_at: m.created_at,
+            last_start: m.last_start,
+            start_count: m.start_count,
+        }
+    }
 }
 
 async fn ready(State(state): State<AppState>) -> Result<Json<Ready>, Problem> {
@@ -69,6 +92,6 @@ async fn ready(State(state): State<AppState>) -> Result<Json<Ready>, Problem> {
         status: "ready",
         database: "ok",
         migrations,
-        instance,
+        instance: instance.into(),
     }))
 }

@@ -25,7 +25,7 @@ use super::{
     AppState,
     auth::{Forecasting, ReadAccess, RequireRole},
     error::{ApiError, Problem, parse_json},
-    query::Query,
+    query::Params,
 };
 use crate::{
     CAUTION,
@@ -116,7 +116,7 @@ async fn upload(
     State(state): State<AppState>,
     Path(reach): Path<String>,
     headers: HeaderMap,
-    Query(params): Query<UploadParams>,
+    Params(params): Params<UploadParams>,
     body: Bytes,
 ) -> Result<Response, ApiError> {
     super::reaches::find_reach(&state, &reach).await?;

@@ -32,7 +32,7 @@ use std::{
 
 use axum::{
     Router,
-    extract::DefaultBodyLimit,
+    extract::{DefaultBodyLimit, OriginalUri},
     http::{HeaderName, HeaderValue, Request, StatusCode, header},
     routing::any,
 };
@@ -119,10 +119,15 @@ pub fn router(state: AppState) -> Router {
         .merge(inflows::router())
         .merge(cap::router())
         .merge(openapi::router())
-        .fallback(any(error::not_found));
+        .fallback(any(|OriginalUri(uri): OriginalUri| error::not_found(uri)));
+    let limits = error::Limits {
+        body_limit_bytes: body_limit,
+        request_timeout_secs: state.config.server.request_timeout_secs,
+    };
 
     Router::new()
         .merge(health::router())
+        .merge(error::router())
         .nest("/api", api)
         .fallback(assets::serve)
         .with_state(state)
@@ -145,7 +150,10 @@ pub fn router(state: AppState) -> Router {
                     }),
                 )
                 .layer(PropagateRequestIdLayer::new(REQUEST_ID))
-                .layer(axum::middleware::map_response(error::problemize))
+                .layer(axum::middleware::from_fn_with_state(
+                    limits,
+                    error::problemize,
+                ))
                 .layer(TimeoutLayer::with_status_code(
                     StatusCode::SERVICE_UNAVAILABLE,
                     timeout,

@@ -124,7 +124,7 @@ async fn put_reach(
     Path(id): Path<String>,
     body: Bytes,
 ) -> Result<Response, ApiError> {
-    if !crate::readings::valid_slug(&id) {
+    if !crate::gauge::valid_slug(&id) {
         return Err(Problem::invalid("reach", "a reach id is 1 to 64 of a-z, 0-9 and -").into());
     }
     // Parse with the same strict reader as the offline command, so the

@@ -7,18 +7,16 @@
 //! are stored in one transaction and the answer reports accepted,
 //! duplicate, revised and rejected rows, naming each rejected row's field.
 
-use std::collections::HashMap;
-
 use axum::{
     Json, Router,
     body::Bytes,
-    extract::{Path, Query, State},
+    extract::{Path, State},
     http::{HeaderMap, HeaderValue, StatusCode, header},
     response::{IntoResponse, Response},
     routing::{get, post},
 };
-use chrono::Utc;
-use serde::Serialize;
+use chrono::{DateTime, Utc};
+use serde::{Deserialize, Deserializer, Serialize};
 use serde_json::Value;
 
 use super::{
@@ -27,11 +25,15 @@ use super::{
     cache::{CacheKey, Cached},
     error::{ApiError, Problem},
     gauges::find_gauge,
+    query::{Format, Params, Time, bad_parameter, vary_accept},
 };
 use crate::{
-    readings::{
-        Field, Limits, RateCheck, RawReading, RowError, StoredReading, check, dedupe_batch,
-        format_time, parse_time,
+    gauge::{
+        Gauge,
+        readings::{
+            Field, Limits, NewReading, RateCheck, RawReading, Revision, RowError, StoredReading,
+            check, dedupe_batch, format_time, parse_time, utc,
+        },
     },
     store::{IngestOutcome, ReadingsQuery},
 };
@@ -76,9 +78,12 @@ fn media_type(headers: &HeaderMap) -> String {
         .unwrap_or_default()
 }
 
+/// The rows of a body, each raw or already rejected, in body order.
+type RawRows = Vec<Result<RawReading, RowError>>;
+
 /// JSON body → raw rows. Syntax errors and a wrong top-level shape refuse
 /// the request; a row of the wrong shape is rejected on its own.
-fn parse_json_rows(body: &[u8]) -> Result<Vec<Result<RawReading, RowError>>, Problem> {
+fn parse_json_rows(body: &[u8]) -> Result<RawRows, Problem> {
     #[derive(serde::Deserialize)]
     #[serde(deny_unknown_fields)]
     struct Batch {
@@ -94,10 +99,10 @@ fn parse_json_rows(body: &[u8]) -> Result<Vec<Result<RawReading, RowError>>, Pro
 }
 
 fn json_row(row: usize, v: Value) -> Result<RawReading, RowError> {
-    let err = |field: &str, reason: &str| RowError {
+    let err = |field: &str, message: &str| RowError {
         row,
         field: field.to_owned(),
-        reason: reason.to_owned(),
+        message: message.to_owned(),
     };
     let Value::Object(map) = v else {
         return Err(err("", "a reading must be a JSON object"));
@@ -139,7 +144,7 @@ fn json_row(row: usize, v: Value) -> Result<RawReading, RowError> {
 
 /// CSV body (RFC 4180, header row required) → raw rows. Syntax errors and
 /// a bad header refuse the request.
-fn parse_csv_rows(body: &[u8]) -> Result<Vec<Result<RawReading, RowError>>, Problem> {
+fn parse_csv_rows(body: &[u8]) -> Result<RawRows, Problem> {
     let mut reader = csv::ReaderBuilder::new()
         .has_headers(true)
         .trim(csv::Trim::All)
@@ -228,6 +233,66 @@ fn parse_csv_rows(body: &[u8]) -> Result<Vec<Result<RawReading, RowError>>, Prob
     Ok(rows)
 }
 
+/// Raw rows of a body, by its media type, and the format's name.
+fn parse_rows(headers: &HeaderMap, body: &[u8]) -> Result<(&'static str, RawRows), Problem> {
+    match media_type(headers).as_str() {
+        "application/json" => Ok(("json", parse_json_rows(body)?)),
+        "text/csv" => Ok(("csv", parse_csv_rows(body)?)),
+        other => Err(Problem::new(
+            StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            "unsupported-media-type",
+            "Unsupported media type",
+        )
+        .detail(format!(
+            "Content-Type `{other}` is not accepted here; send application/json or text/csv"
+        ))
+        .field("Content-Type")),
+    }
+}
+
+/// The rows that pass the per-row checks, de-duplicated within the batch,
+/// with the number of in-batch duplicates and every rejection by row.
+fn checked_rows(
+    raw_rows: RawRows,
+    gauge: &Gauge,
+    limits: Limits,
+) -> (Vec<NewReading>, usize, Vec<RowError>) {
+    let mut errors = Vec::new();
+    let mut valid = Vec::with_capacity(raw_rows.len());
+    for (i, raw) in raw_rows.into_iter().enumerate() {
+        match raw.and_then(|r| check(i + 1, &r, gauge, limits)) {
+            Ok(r) => valid.push((i + 1, r)),
+            Err(e) => errors.push(e),
+        }
+    }
+    let (rows, in_batch_dupes, mut batch_errors) = dedupe_batch(valid);
+    errors.append(&mut batch_errors);
+    errors.sort_by_key(|e| e.row);
+    (rows, in_batch_dupes, errors)
+}
+
+/// 422 when every row of a batch was rejected: the first bad row named,
+/// all of them listed.
+fn nothing_accepted(report: &Report) -> Option<Problem> {
+    let first = report.errors.first()?;
+    (report.rejected == report.received).then(|| {
+        Problem::new(
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "invalid-readings",
+            "No reading was accepted",
+        )
+        .detail(format!(
+            "row {}: {}: {}",
+            first.row, first.field, first.message
+        ))
+        .field(first.field.clone())
+        .row(first.row)
+        .with("accepted", 0)
+        .with("rejected", report.rejected)
+        .with("errors", &report.errors)
+    })
+}
+
 async fn ingest(
     auth: RequireRole<GaugeWriter>,
     State(state): State<AppState>,
@@ -248,33 +313,17 @@ async fn ingest(
         );
     }
     let gauge = find_gauge(&state, &gauge_id).await?;
-    let media = media_type(&headers);
-    let (format, raw_rows) = match media.as_str() {
-        "application/json" => ("json", parse_json_rows(&body)?),
-        "text/csv" => ("csv", parse_csv_rows(&body)?),
-        other => {
-            return Err(Problem::new(
-                StatusCode::UNSUPPORTED_MEDIA_TYPE,
-                "unsupported-media-type",
-                "Unsupported media type",
-            )
-            .detail(format!(
-                "Content-Type `{other}` is not accepted here; send application/json or text/csv"
-            ))
-            .field("Content-Type")
-            .into());
-        }
-    };
+    let (format, raw_rows) = parse_rows(&headers, &body)?;
     let received = raw_rows.len();
-    if received > state.config.ingest.max_rows_per_request {
+    let max_rows = state.config.ingest.max_rows_per_request;
+    if received > max_rows {
         return Err(Problem::new(
             StatusCode::PAYLOAD_TOO_LARGE,
             "too-many-readings",
             "Too many readings",
         )
         .detail(format!(
-            "{received} readings in one request; at most {} (ingest.max_rows_per_request)",
-            state.config.ingest.max_rows_per_request
+            "{received} readings in one request; at most {max_rows} (ingest.max_rows_per_request)"
         ))
         .field("readings")
         .into());
@@ -285,17 +334,7 @@ async fn ingest(
             .unwrap_or(i64::MAX / 1000)
             .saturating_mul(1000),
     };
-    let mut errors = Vec::new();
-    let mut valid = Vec::with_capacity(received);
-    for (i, raw) in raw_rows.into_iter().enumerate() {
-        match raw.and_then(|r| check(i + 1, &r, &gauge, limits)) {
-            Ok(r) => valid.push((i + 1, r)),
-            Err(e) => errors.push(e),
-        }
-    }
-    let (rows, in_batch_dupes, mut batch_errors) = dedupe_batch(valid);
-    errors.append(&mut batch_errors);
-    errors.sort_by_key(|e| e.row);
+    let (rows, in_batch_dupes, errors) = checked_rows(raw_rows, &gauge, limits);
     let outcome = if rows.is_empty() && in_batch_dupes == 0 {
         IngestOutcome::default()
     } else {
@@ -322,22 +361,7 @@ async fn ingest(
         suspect_by_rate: outcome.suspect_by_rate,
         errors,
     };
-    if received > 0 && report.rejected == received {
-        let first = &report.errors[0];
-        let problem = Problem::new(
-            StatusCode::UNPROCESSABLE_ENTITY,
-            "invalid-readings",
-            "No reading was accepted",
-        )
-        .detail(format!(
-            "row {}: {}: {}",
-            first.row, first.field, first.reason
-        ))
-        .field(first.field.clone())
-        .row(first.row)
-        .with("accepted", 0)
-        .with("rejected", report.rejected)
-        .with("errors", &report.errors);
+    if let Some(problem) = nothing_accepted(&report) {
         return Err(problem.into());
     }
     Ok((StatusCode::OK, Json(report)).into_response())
@@ -345,12 +369,13 @@ async fn ingest(
 
 #[derive(Debug, Serialize)]
 struct ReadingOut {
-    time: String,
+    #[serde(with = "crate::wire_time")]
+    time: DateTime<Utc>,
     stage: Option<f64>,
     discharge: Option<f64>,
     quality: &'static str,
     rate_check: &'static str,
-    /// Whether the reading feeds forecasts (not suspect by rate).
+    /// Whether the reading feeds forecasts (the domain's one rule).
     for_forecast: bool,
     revision: i64,
 }
@@ -358,12 +383,12 @@ struct ReadingOut {
 impl From<&StoredReading> for ReadingOut {
     fn from(r: &StoredReading) -> Self {
         Self {
-            time: format_time(r.time_ms),
+            time: utc(r.time_ms),
             stage: r.stage_m,
             discharge: r.discharge_m3s,
             quality: r.quality.as_str(),
             rate_check: r.rate_check.as_str(),
-            for_forecast: r.rate_check.usable(),
+            for_forecast: r.for_forecast(),
             revision: r.revision,
         }
     }
@@ -372,7 +397,7 @@ impl From<&StoredReading> for ReadingOut {
 #[derive(Debug, Serialize)]
 struct Page<'a> {
     gauge: &'a str,
-    order: &'static str,
+    order: Order,
     count: usize,
     readings: Vec<ReadingOut>,
     next_cursor: Option<String>,
@@ -400,143 +425,149 @@ fn csv_body(readings: &[StoredReading]) -> Result<Vec<u8>, ApiError> {
         .map_err(|e| ApiError::Internal(anyhow::anyhow!("writing CSV: {e}")))
 }
 
-fn bad_param(field: &str, detail: impl Into<String>) -> ApiError {
-    Problem::new(
-        StatusCode::BAD_REQUEST,
-        "invalid-parameter",
-        "Invalid query parameter",
-    )
-    .field(field)
-    .detail(detail)
-    .into()
+/// `order`: newest first (the default) or oldest first.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+enum Order {
+    #[default]
+    Newest,
+    Oldest,
 }
 
-fn respond(csv: bool, body: Bytes, next_cursor: Option<&str>) -> Response {
-    let ctype = if csv {
-        "text/csv; charset=utf-8; header=present"
-    } else {
-        "application/json"
+/// `cursor`: the `next_cursor` of the previous page (the time of its last
+/// reading, in Unix ms; clients pass it back unchanged).
+#[derive(Debug, Clone, Copy)]
+struct Cursor(i64);
+
+impl<'de> Deserialize<'de> for Cursor {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        let text = String::deserialize(d)?;
+        text.parse()
+            .map(Cursor)
+            .map_err(|_| serde::de::Error::custom("not a cursor returned by this endpoint"))
+    }
+}
+
+/// The query of `GET …/readings`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ListParams {
+    from: Option<Time>,
+    to: Option<Time>,
+    #[serde(default)]
+    order: Order,
+    limit: Option<i64>,
+    cursor: Option<Cursor>,
+    format: Option<Format>,
+}
+
+impl ListParams {
+    /// The page size, checked against `ingest.max_page_size`.
+    fn limit(&self, max_page_size: usize) -> Result<i64, Problem> {
+        let max = i64::try_from(max_page_size).unwrap_or(i64::MAX);
+        match self.limit {
+            None => Ok(DEFAULT_LIMIT.min(max)),
+            Some(n) if (1..=max).contains(&n) => Ok(n),
+            Some(_) => Err(bad_parameter(
+                "limit",
+                format!("must be an integer from 1 to {max}"),
+            )),
+        }
+    }
+
+    /// The store query for one page: the bounds narrowed by the cursor.
+    fn query(&self, limit: i64) -> ReadingsQuery {
+        let newest_first = self.order == Order::Newest;
+        let mut q = ReadingsQuery {
+            from_ms: self.from.map_or(i64::MIN, |t| t.0),
+            to_ms: self.to.map_or(i64::MAX, |t| t.0),
+            newest_first,
+            limit,
+        };
+        if let Some(Cursor(c)) = self.cursor {
+            if newest_first {
+                q.to_ms = q.to_ms.min(c.saturating_sub(1));
+            } else {
+                q.from_ms = q.from_ms.max(c.saturating_add(1));
+            }
+        }
+        q
+    }
+}
+
+fn respond(format: Format, body: Bytes, next_cursor: Option<&str>) -> Response {
+    let ctype = match format {
+        Format::Csv => "text/csv; charset=utf-8; header=present",
+        Format::Json => "application/json",
     };
     let mut res = (StatusCode::OK, body).into_response();
     let h = res.headers_mut();
     h.insert(header::CONTENT_TYPE, HeaderValue::from_static(ctype));
+    vary_accept(h);
     if let Some(c) = next_cursor.and_then(|c| HeaderValue::from_str(c).ok()) {
         h.insert("next-cursor", c);
     }
     res
 }
 
+/// One page of readings in `format`, and the cursor of the next page.
+async fn page_body(
+    state: &AppState,
+    gauge_id: &str,
+    params: &ListParams,
+    limit: i64,
+    format: Format,
+) -> Result<(Bytes, Option<String>), ApiError> {
+    let mut readings = state.store.readings(gauge_id, params.query(limit)).await?;
+    let more = readings.len() as i64 > limit;
+    readings.truncate(usize::try_from(limit).unwrap_or(usize::MAX));
+    let next_cursor = more
+        .then(|| readings.last().map(|r| r.time_ms.to_string()))
+        .flatten();
+    let body = match format {
+        Format::Csv => Bytes::from(csv_body(&readings)?),
+        Format::Json => {
+            let page = Page {
+                gauge: gauge_id,
+                order: params.order,
+                count: readings.len(),
+                readings: readings.iter().map(ReadingOut::from).collect(),
+                next_cursor: next_cursor.clone(),
+            };
+            Bytes::from(
+                serde_json::to_vec(&page)
+                    .map_err(|e| ApiError::Internal(anyhow::anyhow!("serialising page: {e}")))?,
+            )
+        }
+    };
+    Ok((body, next_cursor))
+}
+
 async fn list(
     _: ReadAccess,
     State(state): State<AppState>,
     Path(gauge_id): Path<String>,
-    Query(params): Query<HashMap<String, String>>,
+    Params(params): Params<ListParams>,
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
-    for k in params.keys() {
-        if !["from", "to", "limit", "order", "cursor", "format"].contains(&k.as_str()) {
-            return Err(bad_param(
-                k,
-                "unknown parameter (expected from, to, limit, order, cursor, format)",
-            ));
-        }
-    }
-    let csv = match params.get("format").map(String::as_str) {
-        Some("csv") => true,
-        Some("json") => false,
-        Some(other) => return Err(bad_param("format", format!("`{other}` is not json or csv"))),
-        None => headers
-            .get(header::ACCEPT)
-            .and_then(|v| v.to_str().ok())
-            .is_some_and(|a| a.contains("text/csv")),
-    };
-    let newest_first = match params.get("order").map(String::as_str) {
-        None | Some("newest") => true,
-        Some("oldest") => false,
-        Some(other) => {
-            return Err(bad_param(
-                "order",
-                format!("`{other}` is not newest or oldest"),
-            ));
-        }
-    };
-    let max = i64::try_from(state.config.ingest.max_page_size).unwrap_or(i64::MAX);
-    let limit = match params.get("limit") {
-        None => DEFAULT_LIMIT.min(max),
-        Some(t) => match t.parse::<i64>() {
-            Ok(n) if (1..=max).contains(&n) => n,
-            _ => {
-                return Err(bad_param(
-                    "limit",
-                    format!("must be an integer from 1 to {max}"),
-                ));
-            }
-        },
-    };
-    let time_param = |name: &str| -> Result<Option<i64>, ApiError> {
-        params
-            .get(name)
-            .map(|t| parse_time(t).map_err(|e| bad_param(name, e)))
-            .transpose()
-    };
-    let from = time_param("from")?;
-    let to = time_param("to")?;
-    let cursor = params
-        .get("cursor")
-        .map(|c| {
-            c.parse::<i64>()
-                .map_err(|_| bad_param("cursor", "not a cursor returned by this endpoint"))
-        })
-        .transpose()?;
+    let format = Format::choose(params.format, &headers);
+    let limit = params.limit(state.config.ingest.max_page_size)?;
     let cache_key = CacheKey {
         limit,
-        newest_first,
-        csv,
+        newest_first: params.order == Order::Newest,
+        csv: format == Format::Csv,
     };
-    let cacheable = from.is_none() && to.is_none() && cursor.is_none();
+    let cacheable = params.from.is_none() && params.to.is_none() && params.cursor.is_none();
     let generation = if cacheable {
         match state.cache.get(&gauge_id, cache_key) {
-            Ok(hit) => return Ok(respond(csv, hit.body, hit.next_cursor.as_deref())),
+            Ok(hit) => return Ok(respond(format, hit.body, hit.next_cursor.as_deref())),
             Err(g) => Some(g),
         }
     } else {
         None
     };
     find_gauge(&state, &gauge_id).await?;
-    let mut q = ReadingsQuery {
-        from_ms: from.unwrap_or(i64::MIN),
-        to_ms: to.unwrap_or(i64::MAX),
-        newest_first,
-        limit,
-    };
-    if let Some(c) = cursor {
-        if newest_first {
-            q.to_ms = q.to_ms.min(c.saturating_sub(1));
-        } else {
-            q.from_ms = q.from_ms.max(c.saturating_add(1));
-        }
-    }
-    let mut readings = state.store.readings(&gauge_id, q).await?;
-    let more = readings.len() as i64 > limit;
-    readings.truncate(usize::try_from(limit).unwrap_or(usize::MAX));
-    let next_cursor = more
-        .then(|| readings.last().map(|r| r.time_ms.to_string()))
-        .flatten();
-    let body = if csv {
-        Bytes::from(csv_body(&readings)?)
-    } else {
-        let page = Page {
-            gauge: &gauge_id,
-            order: if newest_first { "newest" } else { "oldest" },
-            count: readings.len(),
-            readings: readings.iter().map(ReadingOut::from).collect(),
-            next_cursor: next_cursor.clone(),
-        };
-        Bytes::from(
-            serde_json::to_vec(&page)
-                .map_err(|e| ApiError::Internal(anyhow::anyhow!("serialising page: {e}")))?,
-        )
-    };
+    let (body, next_cursor) = page_body(&state, &gauge_id, &params, limit, format).await?;
     if let Some(g) = generation {
         state.cache.put(
             &gauge_id,
@@ -548,7 +579,7 @@ async fn list(
             },
         );
     }
-    Ok(respond(csv, body, next_cursor.as_deref()))
+    Ok(respond(format, body, next_cursor.as_deref()))
 }
 
 fn path_time(text: &str) -> Result<i64, ApiError> {
@@ -565,24 +596,55 @@ fn no_reading(gauge: &str, time_ms: i64) -> ApiError {
         .into()
 }
 
+/// An earlier value of a reading on the wire.
 #[derive(Debug, Serialize)]
-struct Revision {
+struct RevisionOut {
     stage: Option<f64>,
     discharge: Option<f64>,
     quality: &'static str,
     rate_check: &'static str,
     revision: i64,
-    received_at: String,
+    #[serde(with = "crate::wire_time")]
+    received_at: DateTime<Utc>,
     sent_by: String,
-    replaced_at: String,
+    #[serde(with = "crate::wire_time")]
+    replaced_at: DateTime<Utc>,
     replaced_by: String,
+}
+
+impl From<Revision> for RevisionOut {
+    fn from(rev: Revision) -> Self {
+        let r = rev.reading;
+        Self {
+            stage: r.stage_m,
+            discharge: r.discharge_m3s,
+            quality: r.quality.as_str(),
+            rate_check: r.rate_check.as_str(),
+            revision: r.revision,
+            received_at: utc(r.received_at_ms),
+            sent_by: r.key_id,
+            replaced_at: utc(rev.replaced_at_ms),
+            replaced_by: rev.replaced_by,
+        }
+    }
+}
+
+/// One reading with who sent it, when, and its earlier values.
+#[derive(Debug, Serialize)]
+struct OneOut {
+    gauge: String,
+    reading: ReadingOut,
+    #[serde(with = "crate::wire_time")]
+    received_at: DateTime<Utc>,
+    sent_by: String,
+    revisions: Vec<RevisionOut>,
 }
 
 async fn one(
     _: ReadAccess,
     State(state): State<AppState>,
     Path((gauge_id, time)): Path<(String, String)>,
-) -> Result<Json<Value>, ApiError> {
+) -> Result<Json<OneOut>, ApiError> {
     let time_ms = path_time(&time)?;
     find_gauge(&state, &gauge_id).await?;
     let q = ReadingsQuery {
@@ -595,37 +657,21 @@ async fn one(
     let reading = found
         .first()
         .ok_or_else(|| no_reading(&gauge_id, time_ms))?;
-    let revisions: Vec<Revision> = state
-        .store
-        .reading_revisions(&gauge_id, time_ms)
-        .await?
-        .into_iter()
-        .map(|(r, at, by)| Revision {
-            stage: r.stage_m,
-            discharge: r.discharge_m3s,
-            quality: r.quality.as_str(),
-            rate_check: r.rate_check.as_str(),
-            revision: r.revision,
-            received_at: format_time(r.received_at_ms),
-            sent_by: r.key_id,
-            replaced_at: format_time(at),
-            replaced_by: by,
-        })
-        .collect();
-    Ok(Json(serde_json::json!({
-        "gauge": gauge_id,
-        "reading": ReadingOut::from(reading),
-        "received_at": format_time(reading.received_at_ms),
-        "sent_by": reading.key_id,
-        "revisions": revisions,
-    })))
+    let revisions = state.store.reading_revisions(&gauge_id, time_ms).await?;
+    Ok(Json(OneOut {
+        reading: ReadingOut::from(reading),
+        received_at: utc(reading.received_at_ms),
+        sent_by: reading.key_id.clone(),
+        revisions: revisions.into_iter().map(RevisionOut::from).collect(),
+        gauge: gauge_id,
+    }))
 }
 
 async fn confirm(
     auth: RequireRole<Forecasting>,
     State(state): State<AppState>,
     Path((gauge_id, time)): Path<(String, String)>,
-) -> Result<Json<Value>, ApiError> {
+) -> Result<Json<ConfirmedOut>, ApiError> {
     let time_ms = path_time(&time)?;
     find_gauge(&state, &gauge_id).await?;
     let reading = state
@@ -633,22 +679,29 @@ async fn confirm(
         .confirm_reading(&gauge_id, time_ms, auth.caller().key_id())
         .await?
         .ok_or_else(|| no_reading(&gauge_id, time_ms))?;
-    state.cache.invalidate(&gauge_id);
-    wake_forecasts(&state, &gauge_id);
+    // Still `ok`: nothing held it back, so there is nothing to confirm.
     if reading.rate_check == RateCheck::Ok {
         return Err(Problem::new(
             StatusCode::CONFLICT,
             "not-suspect",
             "Reading is not flagged",
         )
-        .detail("only a reading flagged suspect by rate needs confirming")
+        .detail("only a reading flagged suspect (by its sender or by rate) needs confirming")
         .field("time")
         .into());
     }
-    Ok(Json(serde_json::json!({
-        "gauge": gauge_id,
-        "reading": ReadingOut::from(&reading),
-    })))
+    state.cache.invalidate(&gauge_id);
+    wake_forecasts(&state, &gauge_id);
+    Ok(Json(ConfirmedOut {
+        reading: ReadingOut::from(&reading),
+        gauge: gauge_id,
+    }))
+}
+
+#[derive(Debug, Serialize)]
+struct ConfirmedOut {
+    gauge: String,
+    reading: ReadingOut,
 }
 
 /// New usable data: the reaches that read this gauge run again soon

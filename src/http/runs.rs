@@ -16,7 +16,7 @@ use super::{
     AppState,
     auth::{Forecasting, ReadAccess, RequireRole},
     error::{ApiError, Problem},
-    query::Query,
+    query::Params,
     reaches::{find_reach, not_found},
 };
 use crate::{
@@ -74,7 +74,7 @@ async fn list_runs(
     _: ReadAccess,
     State(state): State<AppState>,
     Path(id): Path<String>,
-    Query(params): Query<ListParams>,
+    Params(params): Params<ListParams>,
 ) -> Result<Response, ApiError> {
     find_reach(&state, &id).await?;
     let limit = params.limit.unwrap_or(50);
@@ -129,7 +129,7 @@ async fn trigger(
     _: RequireRole<Forecasting>,
     State(state): State<AppState>,
     Path(id): Path<String>,
-    Query(params): Query<TriggerParams>,
+    Params(params): Params<TriggerParams>,
 ) -> Result<Response, ApiError> {
     find_reach(&state, &id).await?;
     if params.wait {

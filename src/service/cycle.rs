@@ -11,14 +11,13 @@ use chrono::{DateTime, Utc};
 
 use super::{CycleError, Forecaster, RunSummary};
 use crate::{
-    engine::rating::RatingCurve,
     forecast::{
         assemble::{self, Extrapolation, GaugeBasis, Reading, Rules},
         record::{RuleSettings, RunDiagnostics, RunProvenance, RunStatus, StoredResults},
         run,
         spec::ReachSpec,
     },
-    readings::Measures,
+    gauge::Measures,
     store::{ReachVersion, StoreError},
 };
 
@@ -194,10 +193,11 @@ impl Forecaster {
             return Ok(Err(format!("upstream gauge `{gauge_id}` does not exist")));
         };
         let rating = gauge
+            .spec
             .rating_curve
-            .as_ref()
-            .map(|v| serde_json::from_value::<RatingCurve>(v.clone()));
-        let basis = match (gauge.measures, rating) {
+            .clone()
+            .map(|r| r.validate().map(|()| r));
+        let basis = match (gauge.spec.measures, rating) {
             (Measures::Discharge, _) | (Measures::Both, None) => GaugeBasis::Discharge,
             (_, Some(Ok(r))) => GaugeBasis::Stage(r),
             (_, Some(Err(e))) => {
@@ -219,12 +219,12 @@ impl Forecaster {
             .await?;
         let readings = rows
             .into_iter()
-            .filter_map(|(ms, stage, discharge, usable)| {
+            .filter_map(|r| {
                 Some(Reading {
-                    time: DateTime::from_timestamp_millis(ms)?,
-                    stage,
-                    discharge,
-                    usable,
+                    time: DateTime::from_timestamp_millis(r.time_ms)?,
+                    stage: r.stage_m,
+                    discharge: r.discharge_m3s,
+                    usable: r.for_forecast(),
                 })
             })
             .collect();

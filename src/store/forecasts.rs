@@ -382,44 +382,6 @@ impl Store {
         .await?;
         rows.iter().map(run_from_row).collect()
     }
-
-    /// Usable readings of a gauge in `[from, to]` (inclusive, Unix ms),
-    /// oldest first: `(time_ms, stage, discharge, usable)` where a reading
-    /// is unusable when flagged suspect (by its sender or by the rate
-    /// check) and not confirmed by a forecaster.
-    pub async fn readings_for_forecast(
-        &self,
-        gauge_id: &str,
-        from_ms: i64,
-        to_ms: i64,
-    ) -> Result<Vec<(i64, Option<f64>, Option<f64>, bool)>, StoreError> {
-        let rows: Vec<(i64, Option<f64>, Option<f64>, bool)> = sqlx::query_as(
-            "SELECT time_ms, stage_m, discharge_m3s,
-                    (rate_check IN ('ok', 'confirmed') AND quality <> 'suspect')
-                      OR rate_check = 'confirmed'
-             FROM readings WHERE gauge_id = ?1 AND time_ms >= ?2 AND time_ms <= ?3
-             ORDER BY time_ms",
-        )
-        .bind(gauge_id)
-        .bind(from_ms)
-        .bind(to_ms)
-        .fetch_all(&self.pool)
-        .await?;
-        Ok(rows)
-    }
-
-    /// Time of the newest usable reading of a gauge (Unix ms).
-    pub async fn last_usable_reading_ms(&self, gauge_id: &str) -> Result<Option<i64>, StoreError> {
-        let (t,): (Option<i64>,) = sqlx::query_as(
-            "SELECT MAX(time_ms) FROM readings WHERE gauge_id = ?1
-               AND ((rate_check IN ('ok', 'confirmed') AND quality <> 'suspect')
-                    OR rate_check = 'confirmed')",
-        )
-        .bind(gauge_id)
-        .fetch_one(&self.pool)
-        .await?;
-        Ok(t)
-    }
 }
 
 fn reach_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<ReachVersion, StoreError> {

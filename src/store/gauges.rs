@@ -4,22 +4,16 @@ use chrono::Utc;
 use sqlx::sqlite::SqliteRow;
 use sqlx::{Row, SqliteConnection};
 
-use super::{Audit, Store, StoreError, audit};
-use crate::readings::{Gauge, Measures};
+use super::{Audit, Store, StoreError, audit, parse_time};
+use crate::gauge::{Gauge, GaugeSpec, Measures};
 
-/// The fields a client sets on a gauge.
+/// What [`Store::put_gauge`] did.
 #[derive(Debug, Clone, PartialEq)]
-pub struct GaugeUpsert {
-    pub name: String,
-    pub reach: Option<String>,
-    pub chainage_m: Option<f64>,
-    pub measures: Measures,
-    pub rating_curve: Option<serde_json::Value>,
-    pub stage_min_m: f64,
-    pub stage_max_m: f64,
-    pub max_rise_m_per_h: f64,
-    pub discharge_min_m3s: Option<f64>,
-    pub discharge_max_m3s: Option<f64>,
+pub struct SavedGauge {
+    /// The gauge as stored now.
+    pub gauge: Gauge,
+    /// Whether it is new (else it replaced an existing one).
+    pub created: bool,
 }
 
 const COLUMNS: &str = "id, name, reach_id, chainage_m, measures, rating_curve, stage_min_m, \
@@ -28,8 +22,7 @@ stage_max_m, max_rise_m_per_h, discharge_min_m3s, discharge_max_m3s, created_at,
 fn gauge_from_row(row: &SqliteRow) -> Result<Gauge, StoreError> {
     let measures: String = row.try_get("measures")?;
     let curve: Option<String> = row.try_get("rating_curve")?;
-    Ok(Gauge {
-        id: row.try_get("id")?,
+    let spec = GaugeSpec {
         name: row.try_get("name")?,
         reach: row.try_get("reach_id")?,
         chainage_m: row.try_get("chainage_m")?,
@@ -44,8 +37,12 @@ fn gauge_from_row(row: &SqliteRow) -> Result<Gauge, StoreError> {
         max_rise_m_per_h: row.try_get("max_rise_m_per_h")?,
         discharge_min_m3s: row.try_get("discharge_min_m3s")?,
         discharge_max_m3s: row.try_get("discharge_max_m3s")?,
-        created_at: row.try_get("created_at")?,
-        updated_at: row.try_get("updated_at")?,
+    };
+    Ok(Gauge {
+        id: row.try_get("id")?,
+        spec,
+        created_at: parse_time(row.try_get("created_at")?)?,
+        updated_at: parse_time(row.try_get("updated_at")?)?,
     })
 }
 
@@ -86,13 +83,14 @@ impl Store {
         Ok(found.is_some())
     }
 
-    /// Creates or replaces a gauge; `true` when it was created.
+    /// Creates or replaces a gauge (checked by the caller) with its audit
+    /// entry, in one transaction.
     pub async fn put_gauge(
         &self,
         id: &str,
-        g: &GaugeUpsert,
+        g: &GaugeSpec,
         key_id: &str,
-    ) -> Result<(Gauge, bool), StoreError> {
+    ) -> Result<SavedGauge, StoreError> {
         let now = Utc::now().to_rfc3339();
         let (_writer, mut tx) = self.begin_write().await?;
         let existed = find_in(&mut tx, id).await?.is_some();
@@ -116,7 +114,13 @@ impl Store {
         .bind(&g.reach)
         .bind(g.chainage_m)
         .bind(g.measures.as_str())
-        .bind(g.rating_curve.as_ref().map(|c| c.to_string()))
+        .bind(
+            g.rating_curve
+                .as_ref()
+                .map(serde_json::to_string)
+                .transpose()
+                .map_err(|e| StoreError::Corrupt(format!("rating curve to JSON: {e}")))?,
+        )
         .bind(g.stage_min_m)
         .bind(g.stage_max_m)
         .bind(g.max_rise_m_per_h)
@@ -144,6 +148,9 @@ impl Store {
             .await?
             .ok_or_else(|| StoreError::Corrupt(format!("gauge {id} vanished")))?;
         tx.commit().await?;
-        Ok((gauge, !existed))
+        Ok(SavedGauge {
+            gauge,
+            created: !existed,
+        })
     }
 }

@@ -31,7 +31,7 @@ mod readings;
 
 pub use alerts::{CapEntry, CurrentCap, NewCapMessage, OpenMessage};
 pub use audit::{Audit, AuditEntry};
-pub use gauges::GaugeUpsert;
+pub use gauges::SavedGauge;
 pub use readings::{IngestOutcome, ReadingsQuery};
 
 /// The schema, compiled into the binary from `migrations/`.

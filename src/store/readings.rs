@@ -1,13 +1,17 @@
 //! Readings: batch ingest (one transaction per request, multi-row INSERT
-//! statements), paged reads, confirmation of suspect readings.
+//! statements), paged reads, the readings a forecast reads, confirmation
+//! of suspect readings.
 
-use std::collections::BTreeMap;
+use std::{collections::BTreeMap, sync::LazyLock};
 
 use chrono::Utc;
 use sqlx::{Row, SqliteConnection, sqlite::SqliteRow};
 
 use super::{Audit, Store, StoreError, audit, gauges};
-use crate::readings::{Action, NewReading, Quality, RateCheck, StoredReading, format_time, plan};
+use crate::gauge::readings::{
+    Action, NewReading, Quality, RateCheck, Revision, StoredReading, for_forecast, format_time,
+    plan,
+};
 
 /// Rows per multi-row INSERT: 8 parameters each, well under SQLite's limit
 /// of 32766 host parameters per statement.
@@ -76,25 +80,38 @@ fn stored_from_tuple(t: ReadingTuple) -> Result<StoredReading, StoreError> {
     })
 }
 
+/// [`for_forecast`] as a SQL condition on a `readings` row, built from the
+/// function itself (every quality and rate check it lets in), so the SQL
+/// cannot drift from the rule the API reports.
+static FOR_FORECAST: LazyLock<String> = LazyLock::new(|| {
+    let pairs: Vec<String> = Quality::ALL
+        .iter()
+        .flat_map(|q| RateCheck::ALL.iter().map(move |c| (*q, *c)))
+        .filter(|(q, c)| for_forecast(*q, *c))
+        .map(|(q, c)| format!("('{}', '{}')", q.as_str(), c.as_str()))
+        .collect();
+    format!("(quality, rate_check) IN (VALUES {})", pairs.join(", "))
+});
+
 const READ_COLUMNS: &str =
     "time_ms, stage_m, discharge_m3s, quality, rate_check, revision, received_at_ms, key_id";
 
+/// The nearest stage before (or after) `time_ms` that feeds forecasts:
+/// what the rate check compares a batch's first (or last) stage with.
 async fn anchor(
     conn: &mut SqliteConnection,
     gauge: &str,
     time_ms: i64,
     before: bool,
 ) -> Result<Option<(i64, f64)>, StoreError> {
-    let sql = if before {
+    let (op, order) = if before { ("<", "DESC") } else { (">", "ASC") };
+    let sql = format!(
         "SELECT time_ms, stage_m FROM readings
-         WHERE gauge_id = ?1 AND time_ms < ?2 AND stage_m IS NOT NULL AND rate_check <> 'suspect'
-         ORDER BY time_ms DESC LIMIT 1"
-    } else {
-        "SELECT time_ms, stage_m FROM readings
-         WHERE gauge_id = ?1 AND time_ms > ?2 AND stage_m IS NOT NULL AND rate_check <> 'suspect'
-         ORDER BY time_ms ASC LIMIT 1"
-    };
-    Ok(sqlx::query_as(sql)
+         WHERE gauge_id = ?1 AND time_ms {op} ?2 AND stage_m IS NOT NULL AND {}
+         ORDER BY time_ms {order} LIMIT 1",
+        *FOR_FORECAST
+    );
+    Ok(sqlx::query_as(sqlx::AssertSqlSafe(sql))
         .bind(gauge)
         .bind(time_ms)
         .fetch_optional(conn)
@@ -227,7 +244,38 @@ impl Store {
         gauge_id: &str,
         q: ReadingsQuery,
     ) -> Result<Vec<StoredReading>, StoreError> {
-        let sql = if q.newest_first {
+        self.range(
+            gauge_id,
+            q.from_ms,
+            q.to_ms,
+            q.newest_first,
+            q.limit.saturating_add(1),
+        )
+        .await
+    }
+
+    /// Every reading of a gauge in `[from_ms, to_ms]` (inclusive), oldest
+    /// first, whatever its flags: [`StoredReading::for_forecast`] says which
+    /// ones a forecast uses.
+    pub async fn readings_for_forecast(
+        &self,
+        gauge_id: &str,
+        from_ms: i64,
+        to_ms: i64,
+    ) -> Result<Vec<StoredReading>, StoreError> {
+        // LIMIT -1: no limit (SQLite's documented form).
+        self.range(gauge_id, from_ms, to_ms, false, -1).await
+    }
+
+    async fn range(
+        &self,
+        gauge_id: &str,
+        from_ms: i64,
+        to_ms: i64,
+        newest_first: bool,
+        limit: i64,
+    ) -> Result<Vec<StoredReading>, StoreError> {
+        let sql = if newest_first {
             "SELECT time_ms, stage_m, discharge_m3s, quality, rate_check, revision, received_at_ms, key_id
              FROM readings WHERE gauge_id = ?1 AND time_ms >= ?2 AND time_ms <= ?3
              ORDER BY time_ms DESC LIMIT ?4"
@@ -240,12 +288,25 @@ impl Store {
         // `Row::try_get` cost more than the query for a page of 500.
         let rows: Vec<ReadingTuple> = sqlx::query_as(sql)
             .bind(gauge_id)
-            .bind(q.from_ms)
-            .bind(q.to_ms)
-            .bind(q.limit.saturating_add(1))
+            .bind(from_ms)
+            .bind(to_ms)
+            .bind(limit)
             .fetch_all(&self.pool)
             .await?;
         rows.into_iter().map(stored_from_tuple).collect()
+    }
+
+    /// Time of the newest reading of a gauge that feeds forecasts (Unix ms).
+    pub async fn last_usable_reading_ms(&self, gauge_id: &str) -> Result<Option<i64>, StoreError> {
+        let sql = format!(
+            "SELECT MAX(time_ms) FROM readings WHERE gauge_id = ?1 AND {}",
+            *FOR_FORECAST
+        );
+        let (t,): (Option<i64>,) = sqlx::query_as(sqlx::AssertSqlSafe(sql))
+            .bind(gauge_id)
+            .fetch_one(&self.pool)
+            .await?;
+        Ok(t)
     }
 
     /// The earlier values of one reading, oldest first.
@@ -253,7 +314,7 @@ impl Store {
         &self,
         gauge_id: &str,
         time_ms: i64,
-    ) -> Result<Vec<(StoredReading, i64, String)>, StoreError> {
+    ) -> Result<Vec<Revision>, StoreError> {
         let rows = sqlx::query(
             "SELECT time_ms, stage_m, discharge_m3s, quality, rate_check, revision,
                     received_at_ms, key_id, replaced_at_ms, replaced_by
@@ -265,18 +326,20 @@ impl Store {
         .await?;
         rows.iter()
             .map(|row| {
-                Ok((
-                    stored_from_row(row)?,
-                    row.try_get("replaced_at_ms")?,
-                    row.try_get("replaced_by")?,
-                ))
+                Ok(Revision {
+                    reading: stored_from_row(row)?,
+                    replaced_at_ms: row.try_get("replaced_at_ms")?,
+                    replaced_by: row.try_get("replaced_by")?,
+                })
             })
             .collect()
     }
 
-    /// Marks a suspect reading confirmed. `Ok(None)` when there is no such
-    /// reading; the reading as it is otherwise (already `ok` readings are
-    /// returned unchanged, for the caller to refuse).
+    /// Confirms a reading held back from forecasts (flagged suspect by its
+    /// sender or by the rate check): its `rate_check` becomes `confirmed`.
+    /// `Ok(None)` when there is no such reading; the reading as it is
+    /// otherwise (one that was never held back is returned unchanged, still
+    /// `ok`, for the caller to refuse).
     pub async fn confirm_reading(
         &self,
         gauge_id: &str,
@@ -284,17 +347,19 @@ impl Store {
         key_id: &str,
     ) -> Result<Option<StoredReading>, StoreError> {
         let (_writer, mut tx) = self.begin_write().await?;
-        let changed = sqlx::query(
+        let sql = format!(
             "UPDATE readings SET rate_check = 'confirmed', confirmed_by = ?3, confirmed_at_ms = ?4
-             WHERE gauge_id = ?1 AND time_ms = ?2 AND rate_check = 'suspect'",
-        )
-        .bind(gauge_id)
-        .bind(time_ms)
-        .bind(key_id)
-        .bind(Utc::now().timestamp_millis())
-        .execute(&mut *tx)
-        .await?
-        .rows_affected();
+             WHERE gauge_id = ?1 AND time_ms = ?2 AND NOT {}",
+            *FOR_FORECAST
+        );
+        let changed = sqlx::query(sqlx::AssertSqlSafe(sql))
+            .bind(gauge_id)
+            .bind(time_ms)
+            .bind(key_id)
+            .bind(Utc::now().timestamp_millis())
+            .execute(&mut *tx)
+            .await?
+            .rows_affected();
         let sql =
             format!("SELECT {READ_COLUMNS} FROM readings WHERE gauge_id = ?1 AND time_ms = ?2");
         let row = sqlx::query(sqlx::AssertSqlSafe(sql))
@@ -369,7 +434,10 @@ async fn revise(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::{config::StorageConfig, readings::Measures, store::GaugeUpsert};
+    use crate::{
+        config::StorageConfig,
+        gauge::{GaugeSpec, Measures},
+    };
 
     /// Pages come back bit-for-bit and in order: every stored double,
     /// including ones whose shortest decimal form needs 17 digits,
@@ -383,7 +451,7 @@ mod tests {
         })
         .await
         .expect("open");
-        let gauge = GaugeUpsert {
+        let gauge = GaugeSpec {
             name: "Test".into(),
             reach: None,
             chainage_m: None,

@@ -83,7 +83,7 @@ fn body(first: usize, n: usize) -> Vec<u8> {
     let readings: Vec<_> = (first..first + n)
         .map(|i| {
             json!({
-                "time": reachcast::readings::format_time(T0 + i as i64 * 60_000),
+                "time": reachcast::gauge::readings::format_time(T0 + i as i64 * 60_000),
                 "stage": 2.0 + 0.001 * ((i % 1000) as f64),
                 "quality": "good"
             })

@@ -4,8 +4,10 @@
 
 use std::collections::BTreeMap;
 
-use chrono::{DateTime, NaiveDateTime, SecondsFormat, Utc};
+use chrono::{DateTime, NaiveDateTime, Utc};
 use serde::{Deserialize, Serialize};
+
+use super::{Gauge, Measures};
 
 /// Quality of a reading, from the WaterML 2.0 quality vocabulary
 /// (`good`, `suspect`, `estimate`, `unchecked`).
@@ -19,6 +21,14 @@ pub enum Quality {
 }
 
 impl Quality {
+    /// Every quality, for building SQL from [`for_forecast`].
+    pub const ALL: [Quality; 4] = [
+        Quality::Good,
+        Quality::Suspect,
+        Quality::Estimate,
+        Quality::Unchecked,
+    ];
+
     pub fn as_str(self) -> &'static str {
         match self {
             Quality::Good => "good",
@@ -53,6 +63,9 @@ pub enum RateCheck {
 }
 
 impl RateCheck {
+    /// Every outcome, for building SQL from [`for_forecast`].
+    pub const ALL: [RateCheck; 3] = [RateCheck::Ok, RateCheck::Suspect, RateCheck::Confirmed];
+
     pub fn as_str(self) -> &'static str {
         match self {
             RateCheck::Ok => "ok",
@@ -69,68 +82,6 @@ impl RateCheck {
             _ => None,
         }
     }
-
-    /// Whether a reading with this check feeds forecasts.
-    pub fn usable(self) -> bool {
-        self != RateCheck::Suspect
-    }
-}
-
-/// What a gauge measures.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Measures {
-    Stage,
-    Discharge,
-    Both,
-}
-
-impl Measures {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Measures::Stage => "stage",
-            Measures::Discharge => "discharge",
-            Measures::Both => "both",
-        }
-    }
-
-    pub fn parse(s: &str) -> Option<Self> {
-        match s {
-            "stage" => Some(Measures::Stage),
-            "discharge" => Some(Measures::Discharge),
-            "both" => Some(Measures::Both),
-            _ => None,
-        }
-    }
-}
-
-/// A gauge and the plausibility limits its readings are checked against.
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct Gauge {
-    pub id: String,
-    pub name: String,
-    pub reach: Option<String>,
-    pub chainage_m: Option<f64>,
-    pub measures: Measures,
-    pub rating_curve: Option<serde_json::Value>,
-    pub stage_min_m: f64,
-    pub stage_max_m: f64,
-    pub max_rise_m_per_h: f64,
-    pub discharge_min_m3s: Option<f64>,
-    pub discharge_max_m3s: Option<f64>,
-    pub created_at: String,
-    pub updated_at: String,
-}
-
-/// Whether `id` is a gauge slug: 1 to 64 of `a-z`, `0-9`, `-`, starting
-/// with a letter or digit.
-pub fn valid_slug(id: &str) -> bool {
-    !id.is_empty()
-        && id.len() <= 64
-        && id
-            .bytes()
-            .all(|b| b.is_ascii_lowercase() || b.is_ascii_digit() || b == b'-')
-        && !id.starts_with('-')
 }
 
 /// A reading that passed the checks, ready to store. Times are Unix
@@ -151,8 +102,25 @@ impl NewReading {
     }
 }
 
+/// Whether a reading feeds forecasts: the one rule, which the API's
+/// `for_forecast` flag, the rate check's choice of neighbours and the
+/// store's SQL (built from this function) all follow.
+///
+/// Common practice: data flagged suspect are not used until confirmed.
+/// A reading is held back when its sender marked it `suspect` (WaterML 2.0
+/// quality) or the rate check did; a forecaster's confirmation lets it in
+/// whatever flagged it. `estimate` and `unchecked` readings are used: they
+/// are what most automatic gauges send.
+pub fn for_forecast(quality: Quality, check: RateCheck) -> bool {
+    match check {
+        RateCheck::Confirmed => true,
+        RateCheck::Suspect => false,
+        RateCheck::Ok => quality != Quality::Suspect,
+    }
+}
+
 /// A reading as stored.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct StoredReading {
     pub time_ms: i64,
     pub stage_m: Option<f64>,
@@ -162,6 +130,23 @@ pub struct StoredReading {
     pub revision: i64,
     pub received_at_ms: i64,
     pub key_id: String,
+}
+
+impl StoredReading {
+    /// Whether this reading feeds forecasts ([`for_forecast`]).
+    pub fn for_forecast(&self) -> bool {
+        for_forecast(self.quality, self.rate_check)
+    }
+}
+
+/// An earlier value of a reading, replaced by a revision.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Revision {
+    /// The reading as it was, with who sent it and when.
+    pub reading: StoredReading,
+    /// When it was replaced (Unix ms) and by which key.
+    pub replaced_at_ms: i64,
+    pub replaced_by: String,
 }
 
 /// One input field as the body carried it.
@@ -182,12 +167,14 @@ pub struct RawReading {
     pub quality: Field<String>,
 }
 
-/// Why a row was rejected: its 1-based row number, the field and a reason.
+/// Why a row was rejected: its 1-based row number, the field and what is
+/// wrong with it. The API sends it as it is (`{row, field, message}`, the
+/// shape inflow uploads use too).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RowError {
     pub row: usize,
     pub field: String,
-    pub reason: String,
+    pub message: String,
 }
 
 /// Limits that do not come from the gauge.
@@ -222,11 +209,20 @@ pub fn parse_time(text: &str) -> Result<i64, String> {
     }
 }
 
-/// Formats Unix milliseconds as RFC 3339 in UTC with milliseconds.
+/// Unix milliseconds as a UTC time. Stored times come from [`parse_time`],
+/// so they are in chrono's range; anything outside is clamped to its ends.
+pub fn utc(ms: i64) -> DateTime<Utc> {
+    DateTime::<Utc>::from_timestamp_millis(ms).unwrap_or(if ms < 0 {
+        DateTime::<Utc>::MIN_UTC
+    } else {
+        DateTime::<Utc>::MAX_UTC
+    })
+}
+
+/// Unix milliseconds in the one wire form of a time
+/// ([`crate::wire_time::format`]), for CSV and messages.
 pub fn format_time(ms: i64) -> String {
-    DateTime::<Utc>::from_timestamp_millis(ms)
-        .map(|t| t.to_rfc3339_opts(SecondsFormat::Millis, true))
-        .unwrap_or_else(|| ms.to_string())
+    crate::wire_time::format(utc(ms))
 }
 
 /// Checks one row against the gauge and the limits.
@@ -236,10 +232,10 @@ pub fn check(
     gauge: &Gauge,
     limits: Limits,
 ) -> Result<NewReading, RowError> {
-    let err = |field: &str, reason: String| RowError {
+    let err = |field: &str, message: String| RowError {
         row,
         field: field.to_owned(),
-        reason,
+        message,
     };
     let time_ms = match &raw.time {
         Field::Absent => return Err(err("time", "is required".to_owned())),
@@ -285,26 +281,26 @@ pub fn check(
             "stage or discharge (or both) is required".to_owned(),
         ));
     }
-    if stage_m.is_some() && gauge.measures == Measures::Discharge {
+    if stage_m.is_some() && gauge.spec.measures == Measures::Discharge {
         return Err(err(
             "stage",
             format!("gauge `{}` measures discharge only", gauge.id),
         ));
     }
-    if discharge_m3s.is_some() && gauge.measures == Measures::Stage {
+    if discharge_m3s.is_some() && gauge.spec.measures == Measures::Stage {
         return Err(err(
             "discharge",
             format!("gauge `{}` measures stage only", gauge.id),
         ));
     }
     if let Some(s) = stage_m
-        && (s < gauge.stage_min_m || s > gauge.stage_max_m)
+        && (s < gauge.spec.stage_min_m || s > gauge.spec.stage_max_m)
     {
         return Err(err(
             "stage",
             format!(
                 "{s} m is outside the gauge's plausible range {} to {} m",
-                gauge.stage_min_m, gauge.stage_max_m
+                gauge.spec.stage_min_m, gauge.spec.stage_max_m
             ),
         ));
     }
@@ -315,17 +311,19 @@ pub fn check(
                 format!("must not be negative, got {q} m³/s"),
             ));
         }
-        if gauge.discharge_min_m3s.is_some_and(|m| q < m)
-            || gauge.discharge_max_m3s.is_some_and(|m| q > m)
+        if gauge.spec.discharge_min_m3s.is_some_and(|m| q < m)
+            || gauge.spec.discharge_max_m3s.is_some_and(|m| q > m)
         {
             return Err(err(
                 "discharge",
                 format!(
                     "{q} m³/s is outside the gauge's plausible range {} to {} m³/s",
                     gauge
+                        .spec
                         .discharge_min_m3s
                         .map_or("-".to_owned(), |v| v.to_string()),
                     gauge
+                        .spec
                         .discharge_max_m3s
                         .map_or("-".to_owned(), |v| v.to_string())
                 ),
@@ -357,7 +355,7 @@ pub fn dedupe_batch(rows: Vec<(usize, NewReading)>) -> (Vec<NewReading>, usize, 
             Some((first_row, _)) => errors.push(RowError {
                 row,
                 field: "time".to_owned(),
-                reason: format!(
+                message: format!(
                     "{} appears earlier in this batch (row {first_row}) with other values",
                     format_time(r.time_ms)
                 ),
@@ -394,7 +392,7 @@ pub enum Action {
 
 /// Plans a batch against what is stored. `existing` holds the stored
 /// readings in the batch's time span; `before` and `after` are the nearest
-/// usable stored stages outside it. Each new or revised stage is compared
+/// usable ([`for_forecast`]) stored stages outside it. Each new or revised stage is compared
 /// with its nearest usable neighbours in time (stored, or earlier in this
 /// batch); a change (rise or fall) faster than the gauge's plausible rate
 /// marks it suspect.
@@ -407,7 +405,7 @@ pub fn plan(
 ) -> Vec<Action> {
     let mut anchors: BTreeMap<i64, f64> = existing
         .values()
-        .filter(|r| r.rate_check.usable())
+        .filter(|r| r.for_forecast())
         .filter_map(|r| r.stage_m.map(|s| (r.time_ms, s)))
         .collect();
     anchors.extend(before);
@@ -428,8 +426,10 @@ pub fn plan(
                 let prev = anchors.range(..r.time_ms).next_back();
                 let next = anchors.range(r.time_ms + 1..).next();
                 let fast = prev
-                    .is_some_and(|(t, v)| too_fast((*t, *v), here, gauge.max_rise_m_per_h))
-                    || next.is_some_and(|(t, v)| too_fast(here, (*t, *v), gauge.max_rise_m_per_h));
+                    .is_some_and(|(t, v)| too_fast((*t, *v), here, gauge.spec.max_rise_m_per_h))
+                    || next.is_some_and(|(t, v)| {
+                        too_fast(here, (*t, *v), gauge.spec.max_rise_m_per_h)
+                    });
                 if fast {
                     RateCheck::Suspect
                 } else {
@@ -437,11 +437,12 @@ pub fn plan(
                 }
             }
         };
-        match (check, r.stage_m) {
-            (RateCheck::Ok, Some(s)) => {
+        // Only readings that feed forecasts anchor their neighbours' check.
+        match r.stage_m.filter(|_| for_forecast(r.quality, check)) {
+            Some(s) => {
                 anchors.insert(r.time_ms, s);
             }
-            _ => {
+            None => {
                 anchors.remove(&r.time_ms);
             }
         }
@@ -464,18 +465,20 @@ mod tests {
     fn gauge() -> Gauge {
         Gauge {
             id: "g".into(),
-            name: "G".into(),
-            reach: None,
-            chainage_m: None,
-            measures: Measures::Both,
-            rating_curve: None,
-            stage_min_m: 0.0,
-            stage_max_m: 10.0,
-            max_rise_m_per_h: 1.0,
-            discharge_min_m3s: None,
-            discharge_max_m3s: None,
-            created_at: String::new(),
-            updated_at: String::new(),
+            spec: crate::gauge::GaugeSpec {
+                name: "G".into(),
+                reach: None,
+                chainage_m: None,
+                measures: Measures::Both,
+                rating_curve: None,
+                stage_min_m: 0.0,
+                stage_max_m: 10.0,
+                max_rise_m_per_h: 1.0,
+                discharge_min_m3s: None,
+                discharge_max_m3s: None,
+            },
+            created_at: chrono::DateTime::UNIX_EPOCH,
+            updated_at: chrono::DateTime::UNIX_EPOCH,
         }
     }
 
@@ -525,14 +528,14 @@ mod tests {
         assert_eq!((e.row, e.field.as_str()), (2, "stage"));
         let e = check(3, &raw("2026-03-01T04:15:00+01:00", Some(11.0)), &g, LIMITS).unwrap_err();
         assert_eq!(e.field, "stage");
-        assert!(e.reason.contains("plausible range"), "{}", e.reason);
+        assert!(e.message.contains("plausible range"), "{}", e.message);
         let mut neg = raw("2026-03-01T04:15:00Z", None);
         neg.discharge = Field::Value(-1.0);
         assert_eq!(check(4, &neg, &g, LIMITS).unwrap_err().field, "discharge");
         let e = check(5, &raw("2031-03-01T04:15:00Z", Some(1.0)), &g, LIMITS).unwrap_err();
         assert_eq!(e.field, "time");
         let e = check(6, &raw("2026-03-01T04:15:00Z", None), &g, LIMITS).unwrap_err();
-        assert!(e.reason.contains("required"));
+        assert!(e.message.contains("required"));
     }
 
     #[test]
@@ -541,6 +544,46 @@ mod tests {
         assert!(too_fast((0, 1.0), (900_000, 1.5), 1.9));
         assert!(!too_fast((0, 1.0), (900_000, 1.5), 2.1));
         assert!(too_fast((0, 1.5), (900_000, 1.0), 1.9), "falls count too");
+    }
+
+    /// Common practice: data flagged suspect are not used until confirmed.
+    #[test]
+    fn the_forecast_rule() {
+        for q in Quality::ALL {
+            assert!(for_forecast(q, RateCheck::Confirmed), "{q:?}");
+            assert!(!for_forecast(q, RateCheck::Suspect), "{q:?}");
+        }
+        assert!(!for_forecast(Quality::Suspect, RateCheck::Ok));
+        for q in [Quality::Good, Quality::Estimate, Quality::Unchecked] {
+            assert!(for_forecast(q, RateCheck::Ok), "{q:?}");
+        }
+    }
+
+    /// A stage its sender marked suspect is not a neighbour for the rate
+    /// check: the next stage is compared with the last usable one.
+    #[test]
+    fn a_sender_suspect_stage_anchors_nothing() {
+        let g = gauge();
+        let r = |t: i64, s: f64, quality: Quality| NewReading {
+            time_ms: t * 900_000,
+            stage_m: Some(s),
+            discharge_m3s: None,
+            quality,
+        };
+        // 1.0 → 1.2 in 15 min is 0.8 m/h (fine); 1.2 → 0.9 in 15 min would
+        // be 1.2 m/h, but 1.0 → 0.9 in 30 min is 0.2 m/h.
+        let rows = [
+            r(0, 1.0, Quality::Good),
+            r(1, 1.2, Quality::Suspect),
+            r(2, 0.9, Quality::Good),
+        ];
+        let actions = plan(&g, &rows, &BTreeMap::new(), None, None);
+        assert!(
+            actions
+                .iter()
+                .all(|a| matches!(a, Action::Insert(_, RateCheck::Ok))),
+            "{actions:?}"
+        );
     }
 
     #[test]
