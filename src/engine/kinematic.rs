@@ -203,9 +203,13 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Kinemat
         lateral: lat.iter().sum(),
         outflow: flow.q[n - 1],
     };
+    // Every node counts for the Froude maximum: stages exist only at the
+    // start and the output times, never as thin trial films.
     let mut watch = Watch::new(n, x[0], t0, f64::NEG_INFINITY);
     let storage0 = stages.at(&flow.q, &mut watch, t0)?;
     let start = stages.mean_state(&flow.q);
+    // The Muskingum recurrence weights the two time levels equally, so its
+    // volumes are integrated with the trapezoid rule.
     let mut budget = Budget::new(0.5, storage0);
     let mut storage1 = storage0;
 

@@ -31,6 +31,17 @@ pub(crate) struct Rect {
     pub(crate) bank: f64,
 }
 
+impl Rect {
+    pub(crate) fn new(bed: f64, width: f64, n: f64, bank: f64) -> Self {
+        Self {
+            bed,
+            width,
+            n,
+            bank,
+        }
+    }
+}
+
 impl Hydraulics for Rect {
     fn bed_elevation(&self) -> f64 {
         self.bed

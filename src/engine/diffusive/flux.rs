@@ -137,25 +137,10 @@ mod tests {
 
     #[test]
     fn face_flow_derivatives_match_finite_differences() {
-        let s = Rect {
-            bed: 0.0,
-            width: 20.0,
-            n: 0.03,
-            bank: 9.0,
-        };
-        let s2 = Rect {
-            bed: -0.1,
-            width: 35.0,
-            n: 0.04,
-            bank: 9.0,
-        };
+        let s = Rect::new(0.0, 20.0, 0.03, 9.0);
+        let s2 = Rect::new(-0.1, 35.0, 0.04, 9.0);
         // A much deeper neighbour: exercises the donor cap and its blend.
-        let deep = Rect {
-            bed: -3.0,
-            width: 35.0,
-            n: 0.04,
-            bank: 9.0,
-        };
+        let deep = Rect::new(-3.0, 35.0, 0.04, 9.0);
         let cases = [
             (&s2, 2.0, 1.9),
             (&s2, 1.5, 1.5 + 1e-9),
@@ -195,18 +180,8 @@ mod tests {
     fn donor_cap_limits_flow_out_of_a_thin_node() {
         // A 5 cm deep node above a 3 m deep one: the face may carry at most
         // DONOR_CAP times the thin node's own conveyance.
-        let thin = Rect {
-            bed: 0.0,
-            width: 20.0,
-            n: 0.03,
-            bank: 9.0,
-        };
-        let deep = Rect {
-            bed: -3.0,
-            width: 20.0,
-            n: 0.03,
-            bank: 9.0,
-        };
+        let thin = Rect::new(0.0, 20.0, 0.03, 9.0);
+        let deep = Rect::new(-3.0, 20.0, 0.03, 9.0);
         let (pa, pb) = (thin.props(0.05), deep.props(0.0));
         let (q, _, _) = face_flow(&pa, &pb, 0.0, -3.0, 100.0, 1e-7);
         let limit = DONOR_CAP * pa.conveyance * (0.05_f64 / 100.0).sqrt();
@@ -217,12 +192,7 @@ mod tests {
     #[test]
     fn regularised_face_flow_matches_manning_away_from_zero_slope() {
         // Common practice: Q = K √S for S ≫ ε.
-        let s = Rect {
-            bed: 0.0,
-            width: 20.0,
-            n: 0.03,
-            bank: 9.0,
-        };
+        let s = Rect::new(0.0, 20.0, 0.03, 9.0);
         let (za, zb, dx) = (2.0, 1.9, 100.0);
         let (q, _, _) = face_flow(&s.props(za), &s.props(zb), 0.0, 0.0, dx, 1e-7);
         let kf = 0.5 * (s.props(za).conveyance + s.props(zb).conveyance);

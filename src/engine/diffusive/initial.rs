@@ -148,7 +148,9 @@ fn hot_start<H: Hydraulics>(reach: &Reach<'_, H>, z: &[f64]) -> Result<Vec<f64>,
 
 #[cfg(test)]
 mod tests {
-    use crate::engine::diffusive::test_support::{hourly, hydrograph, problem};
+    use crate::engine::diffusive::test_support::{
+        hourly, hydrograph, normal_depth_problem, problem,
+    };
     use crate::engine::diffusive::{DownstreamBoundary, InitialState, Reach, route};
     use crate::engine::series::Series;
     use crate::engine::test_sections::uniform_rect;
@@ -157,14 +159,7 @@ mod tests {
     fn steady_run_stays_steady_and_conserves_mass() {
         let (x, nodes) = uniform_rect(21, 100.0, 1e-3, 10.0);
         let reach = Reach::new(&x, &nodes).expect("valid");
-        let p = problem(
-            reach,
-            Series::constant(8.0).expect("valid"),
-            DownstreamBoundary::NormalDepth {
-                friction_slope: 1e-3,
-            },
-            hourly(3),
-        );
+        let p = normal_depth_problem(reach, Series::constant(8.0).expect("valid"), 1e-3, 3);
         let r = route(&p).expect("runs");
         let first = &r.stage[0];
         for row in &r.stage {

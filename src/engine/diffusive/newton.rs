@@ -134,8 +134,8 @@ pub(super) fn newton_step<H: Hydraulics>(
 
 #[cfg(test)]
 mod tests {
-    use crate::engine::diffusive::test_support::{hourly, hydrograph, problem};
-    use crate::engine::diffusive::{DownstreamBoundary, FailureReason, Reach, RoutingError, route};
+    use crate::engine::diffusive::test_support::{hydrograph, normal_depth_problem};
+    use crate::engine::diffusive::{FailureReason, Reach, RoutingError, route};
     use crate::engine::props::{Hydraulics, Props};
     use crate::engine::test_sections::Rect;
 
@@ -176,14 +176,7 @@ mod tests {
             .collect();
         let reach = Reach::new(&x, &nodes).expect("valid");
         // The flood must rise above the 1.5 m "ceiling".
-        let p = problem(
-            reach,
-            hydrograph(2.0, 200.0, 3600.0, 7200.0),
-            DownstreamBoundary::NormalDepth {
-                friction_slope: 1e-3,
-            },
-            hourly(2),
-        );
+        let p = normal_depth_problem(reach, hydrograph(2.0, 200.0, 3600.0, 7200.0), 1e-3, 2);
         match route(&p) {
             Err(RoutingError::NoConvergence {
                 reason: FailureReason::NonFinite,

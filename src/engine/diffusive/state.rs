@@ -131,7 +131,8 @@ pub(super) fn net_inflow(w: &Work, i: usize, q_up: f64) -> f64 {
     net
 }
 
-/// Discharge reported at node `i` (see [`RoutingResult::discharge`]).
+/// Discharge reported at node `i` (see
+/// [`crate::engine::routing::RoutingResult::discharge`]).
 #[inline]
 pub(super) fn node_discharge(w: &Work, i: usize, q_up: f64, q_out: f64) -> f64 {
     let n = w.z.len();
@@ -144,7 +145,7 @@ pub(super) fn node_discharge(w: &Work, i: usize, q_up: f64, q_out: f64) -> f64 {
     }
 }
 
-/// Discharge at every node (see [`crate::engine::routing::RoutingResult::discharge`]).
+/// Discharge at every node, as [`node_discharge`] reports it.
 pub(super) fn discharges(w: &Work, flows: &Flows) -> Vec<f64> {
     (0..w.z.len())
         .map(|i| node_discharge(w, i, flows.upstream, flows.outflow))

@@ -95,22 +95,15 @@ impl StepControl {
 
 #[cfg(test)]
 mod tests {
-    use crate::engine::diffusive::test_support::{hourly, hydrograph, problem};
-    use crate::engine::diffusive::{DownstreamBoundary, FailureReason, Reach, RoutingError, route};
+    use crate::engine::diffusive::test_support::{hydrograph, normal_depth_problem};
+    use crate::engine::diffusive::{FailureReason, Reach, RoutingError, route};
     use crate::engine::test_sections::uniform_rect;
 
     #[test]
     fn non_convergence_is_a_typed_error_with_location() {
         let (x, nodes) = uniform_rect(11, 100.0, 1e-3, 10.0);
         let reach = Reach::new(&x, &nodes).expect("valid");
-        let mut p = problem(
-            reach,
-            hydrograph(1.0, 300.0, 1800.0, 7200.0),
-            DownstreamBoundary::NormalDepth {
-                friction_slope: 1e-3,
-            },
-            hourly(2),
-        );
+        let mut p = normal_depth_problem(reach, hydrograph(1.0, 300.0, 1800.0, 7200.0), 1e-3, 2);
         // One Newton iteration can never reach 1e-12 m on a rising flood.
         p.options.max_newton_iter = 1;
         p.options.newton_tol = 1e-12;

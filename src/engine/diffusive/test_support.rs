@@ -38,6 +38,22 @@ pub(super) fn problem<'a, H: Hydraulics>(
     }
 }
 
+/// [`problem`] with a normal-depth outlet at `friction_slope` and output
+/// every hour for `hours` hours.
+pub(super) fn normal_depth_problem<'a, H: Hydraulics>(
+    reach: Reach<'a, H>,
+    upstream: Series,
+    friction_slope: f64,
+    hours: usize,
+) -> Problem<'a, H> {
+    problem(
+        reach,
+        upstream,
+        DownstreamBoundary::NormalDepth { friction_slope },
+        hourly(hours),
+    )
+}
+
 /// Output every hour for `hours` hours, the start included.
 pub(super) fn hourly(hours: usize) -> Vec<f64> {
     (0..=hours).map(|h| h as f64 * 3600.0).collect()

@@ -2,7 +2,7 @@
 //! wetting, steep and flat reaches, stage boundaries, warnings, and
 //! randomised irregular reaches.
 
-use super::test_support::{all_finite, hourly, hydrograph, problem};
+use super::test_support::{all_finite, hourly, hydrograph, normal_depth_problem, problem};
 use super::*;
 use crate::engine::series::Series;
 use crate::engine::test_sections::{Rect, Vee, uniform_rect};
@@ -101,14 +101,7 @@ fn dry_channel_with_zero_inflow_stays_finite() {
         })
         .collect();
     let reach = Reach::new(&x, &nodes).expect("valid");
-    let mut p = problem(
-        reach,
-        Series::constant(0.0).expect("valid"),
-        DownstreamBoundary::NormalDepth {
-            friction_slope: 2e-3,
-        },
-        hourly(6),
-    );
+    let mut p = normal_depth_problem(reach, Series::constant(0.0).expect("valid"), 2e-3, 6);
     let r = route(&p).expect("dry run");
     assert!(all_finite(&r));
     assert_eq!(r.diagnostics.dry_nodes.len(), 30);
@@ -222,13 +215,11 @@ fn fixed_stage_outflow_closes_mass_balance() {
 fn steep_reach_warns_about_froude() {
     let (x, nodes) = uniform_rect(41, 100.0, 2e-2, 10.0);
     let reach = Reach::new(&x, &nodes).expect("valid");
-    let p = problem(
+    let p = normal_depth_problem(
         reach,
         hydrograph(20.0, 150.0, 2.0 * 3600.0, 6.0 * 3600.0),
-        DownstreamBoundary::NormalDepth {
-            friction_slope: 2e-2,
-        },
-        hourly(6),
+        2e-2,
+        6,
     );
     let r = route(&p).expect("runs");
     assert!(

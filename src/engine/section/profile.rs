@@ -4,7 +4,7 @@
 //! walls or side slopes, and the exact wet geometry of every class at a
 //! water level.
 
-use super::types::{CrossSection, GeometryError, SectionGeometry, StorageZone};
+use super::types::{CrossSection, GeometryError, Shape, Survey, Trapezoid};
 
 /// Depth (m) to which a trapezoid without a `height` is tabulated; above the
 /// table its properties continue exactly along the side slopes.
@@ -60,40 +60,16 @@ pub(super) struct Level {
 impl Profile {
     pub(super) fn from_section(section: &CrossSection) -> Result<Self, GeometryError> {
         section.validate()?;
-        Ok(match &section.geometry {
-            SectionGeometry::StationElevation {
-                points,
-                left_bank,
-                right_bank,
-                n_left,
-                n_channel,
-                n_right,
-                storage,
-            } => Self::surveyed(
-                points,
-                *left_bank,
-                *right_bank,
-                [*n_left, *n_channel, *n_right],
-                storage,
-            ),
-            SectionGeometry::Trapezoid {
-                bed_elevation,
-                bottom_width,
-                side_slope,
-                n,
-                height,
-            } => Self::trapezoid(*bed_elevation, *bottom_width, *side_slope, *n, *height),
+        Ok(match section.geometry.shape() {
+            Shape::Surveyed(survey) => Self::surveyed(&survey),
+            Shape::Trapezoid(trapezoid) => Self::trapezoid(&trapezoid),
         })
     }
 
     /// Builds a validated station–elevation profile.
-    fn surveyed(
-        points: &[[f64; 2]],
-        left_bank: f64,
-        right_bank: f64,
-        n: [f64; 3],
-        storage: &[StorageZone],
-    ) -> Self {
+    fn surveyed(survey: &Survey<'_>) -> Self {
+        let (points, storage) = (survey.points, survey.storage);
+        let (left_bank, right_bank) = (survey.left_bank, survey.right_bank);
         let mut xs: Vec<f64> = points.iter().map(|p| p[0]).collect();
         xs.push(left_bank);
         xs.push(right_bank);
@@ -160,7 +136,7 @@ impl Profile {
                     class: right_class,
                 },
             ],
-            inv_n: [1.0 / n[0], 1.0 / n[1], 1.0 / n[2]],
+            inv_n: survey.n.map(|n| 1.0 / n),
             bed,
             survey_top,
             flag_elevation: first.min(last),
@@ -168,7 +144,14 @@ impl Profile {
     }
 
     /// Builds a validated trapezoid; all of it is main channel.
-    fn trapezoid(bed: f64, width: f64, slope: f64, n: f64, height: Option<f64>) -> Self {
+    fn trapezoid(t: &Trapezoid) -> Self {
+        let Trapezoid {
+            bed,
+            width,
+            side_slope: slope,
+            n,
+            height,
+        } = *t;
         let piece = |x0: f64, x1: f64, g0: f64, g1: f64| Piece {
             x0,
             x1,

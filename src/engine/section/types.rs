@@ -59,6 +59,70 @@ pub enum SectionGeometry {
     },
 }
 
+impl SectionGeometry {
+    /// The shape with its fields gathered, so the checks and the geometry
+    /// read a section's fields in one place.
+    pub(super) fn shape(&self) -> Shape<'_> {
+        match self {
+            SectionGeometry::StationElevation {
+                points,
+                left_bank,
+                right_bank,
+                n_left,
+                n_channel,
+                n_right,
+                storage,
+            } => Shape::Surveyed(Survey {
+                points,
+                left_bank: *left_bank,
+                right_bank: *right_bank,
+                n: [*n_left, *n_channel, *n_right],
+                storage,
+            }),
+            SectionGeometry::Trapezoid {
+                bed_elevation,
+                bottom_width,
+                side_slope,
+                n,
+                height,
+            } => Shape::Trapezoid(Trapezoid {
+                bed: *bed_elevation,
+                width: *bottom_width,
+                side_slope: *side_slope,
+                n: *n,
+                height: *height,
+            }),
+        }
+    }
+}
+
+/// A [`SectionGeometry`] seen through its fields.
+pub(super) enum Shape<'a> {
+    Surveyed(Survey<'a>),
+    Trapezoid(Trapezoid),
+}
+
+/// The fields of [`SectionGeometry::StationElevation`], Manning's n
+/// ordered left overbank, channel, right overbank.
+#[derive(Debug, Clone, Copy)]
+pub(super) struct Survey<'a> {
+    pub(super) points: &'a [[f64; 2]],
+    pub(super) left_bank: f64,
+    pub(super) right_bank: f64,
+    pub(super) n: [f64; 3],
+    pub(super) storage: &'a [StorageZone],
+}
+
+/// The fields of [`SectionGeometry::Trapezoid`].
+#[derive(Debug, Clone, Copy)]
+pub(super) struct Trapezoid {
+    pub(super) bed: f64,
+    pub(super) width: f64,
+    pub(super) side_slope: f64,
+    pub(super) n: f64,
+    pub(super) height: Option<f64>,
+}
+
 /// One surveyed cross-section located along the reach.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]

@@ -1,7 +1,7 @@
 //! The checks a section and a reach of sections must pass before a table
 //! is built: every error names the section and the field.
 
-use super::types::{CrossSection, GeometryError, SectionGeometry, StorageZone};
+use super::types::{CrossSection, GeometryError, Shape, Survey, Trapezoid};
 
 impl CrossSection {
     /// Checks the section for everything a table build relies on. Returns the
@@ -9,52 +9,33 @@ impl CrossSection {
     pub fn validate(&self) -> Result<(), GeometryError> {
         let name = &self.name;
         finite(name, "chainage", self.chainage)?;
-        match &self.geometry {
-            SectionGeometry::StationElevation {
-                points,
-                left_bank,
-                right_bank,
-                n_left,
-                n_channel,
-                n_right,
-                storage,
-            } => validate_profile(
-                name,
-                points,
-                *left_bank,
-                *right_bank,
-                [*n_left, *n_channel, *n_right],
-                storage,
-            ),
-            SectionGeometry::Trapezoid {
-                bed_elevation,
-                bottom_width,
-                side_slope,
-                n,
-                height,
-            } => {
-                finite(name, "bed_elevation", *bed_elevation)?;
-                non_negative(name, "bottom_width", *bottom_width)?;
-                non_negative(name, "side_slope", *side_slope)?;
-                if *bottom_width == 0.0 && *side_slope == 0.0 {
-                    return Err(GeometryError::DegenerateTrapezoid {
-                        section: name.clone(),
-                    });
-                }
-                roughness(name, "n", *n)?;
-                if let Some(h) = *height {
-                    finite(name, "height", h)?;
-                    if h <= 0.0 {
-                        return Err(GeometryError::NonPositiveHeight {
-                            section: name.clone(),
-                            value: h,
-                        });
-                    }
-                }
-                Ok(())
-            }
+        match self.geometry.shape() {
+            Shape::Surveyed(survey) => validate_profile(name, &survey),
+            Shape::Trapezoid(trapezoid) => validate_trapezoid(name, &trapezoid),
         }
     }
+}
+
+fn validate_trapezoid(name: &str, t: &Trapezoid) -> Result<(), GeometryError> {
+    finite(name, "bed_elevation", t.bed)?;
+    non_negative(name, "bottom_width", t.width)?;
+    non_negative(name, "side_slope", t.side_slope)?;
+    if t.width == 0.0 && t.side_slope == 0.0 {
+        return Err(GeometryError::DegenerateTrapezoid {
+            section: name.to_owned(),
+        });
+    }
+    roughness(name, "n", t.n)?;
+    if let Some(h) = t.height {
+        finite(name, "height", h)?;
+        if h <= 0.0 {
+            return Err(GeometryError::NonPositiveHeight {
+                section: name.to_owned(),
+                value: h,
+            });
+        }
+    }
+    Ok(())
 }
 
 fn finite(section: &str, field: &str, value: f64) -> Result<(), GeometryError> {
@@ -93,14 +74,14 @@ fn roughness(section: &str, field: &'static str, value: f64) -> Result<(), Geome
     }
 }
 
-fn validate_profile(
-    name: &str,
-    points: &[[f64; 2]],
-    left_bank: f64,
-    right_bank: f64,
-    n: [f64; 3],
-    storage: &[StorageZone],
-) -> Result<(), GeometryError> {
+fn validate_profile(name: &str, survey: &Survey<'_>) -> Result<(), GeometryError> {
+    let Survey {
+        points,
+        left_bank,
+        right_bank,
+        n,
+        storage,
+    } = *survey;
     if points.len() < 3 {
         return Err(GeometryError::TooFewPoints {
             section: name.to_owned(),
@@ -202,6 +183,7 @@ pub fn validate_reach(sections: &[CrossSection]) -> Result<(), GeometryError> {
 mod tests {
     use super::*;
     use crate::engine::section::fixtures::{err, profile, rect, v_profile, xs};
+    use crate::engine::section::{SectionGeometry, StorageZone};
 
     #[test]
     fn valid_sections_pass() {
