@@ -45,8 +45,9 @@ pub struct Diagnostics {
     pub outflow_volume: f64,
     /// Final minus initial storage (m³).
     pub storage_change: f64,
-    /// Largest Froude number at any node after any accepted step, among
-    /// nodes deeper than the drying ramp (about 1 cm).
+    /// Largest Froude number at any node: for the diffusive solver after
+    /// any accepted step, among nodes deeper than the drying ramp (about
+    /// 1 cm); for the kinematic solver at the start and the output times.
     pub max_froude: f64,
     /// Where it occurred (m).
     pub max_froude_chainage: f64,
