@@ -51,16 +51,16 @@
 
 use thiserror::Error;
 
-use crate::engine::diffusive::{
-    Diagnostics, Lateral, Reach, RoutingError, RoutingResult, collect_warnings, lateral_nodes,
-    validate_inflow, validate_output_times, wave_duration,
-};
+use crate::engine::budget::{Budget, Flows};
+use crate::engine::diagnostics::{self, MeanState, Method, StepStats, Watch, wave_duration};
 use crate::engine::props::{Hydraulics, Props};
-use crate::engine::series::{Cursor, Series};
+use crate::engine::roots::solve_increasing;
+use crate::engine::routing::{
+    Lateral, LateralInflows, Reach, RoutingError, RoutingResult, check_run_inputs,
+};
+use crate::engine::series::Series;
 
-/// Ponce–Li–Simons (1978) threshold for kinematic waves: T·S0·u0/d0 ≥ 171
-/// (from memory).
-pub const KINEMATIC_APPLICABILITY_THRESHOLD: f64 = 171.0;
+pub use crate::engine::diagnostics::KINEMATIC_APPLICABILITY_THRESHOLD;
 
 /// Discharge below which a segment is treated as carrying nothing (m³/s).
 const TINY_DISCHARGE: f64 = 1e-9;
@@ -164,7 +164,7 @@ fn normal_stage<H: Hydraulics>(h: &H, q: f64, slope: f64, guess: f64) -> Option<
         }
         z = next;
     }
-    let z = crate::engine::diffusive::solve_increasing(|z| h.props(z).conveyance, bed, target)?;
+    let z = solve_increasing(|z| h.props(z).conveyance, bed, target)?;
     Some((z, h.props(z)))
 }
 
@@ -185,114 +185,45 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Kinemat
     if !(p.dt.is_finite() && p.dt > 0.0) {
         return Err(KinematicError::InvalidTimeStep(p.dt));
     }
-    validate_output_times(p.start_time, &p.output_times)?;
-    validate_inflow(&p.upstream, || "upstream".to_string())?;
+    check_run_inputs(p.start_time, &p.output_times, &p.upstream)?;
+    let mut laterals = LateralInflows::new(&p.reach, &p.laterals)?;
     let reach = p.reach;
-    let lat_node = lateral_nodes(&reach, &p.laterals)?;
-    let (x, nodes) = (reach.chainage(), reach.nodes());
-    let n = reach.len();
-    let dx: Vec<f64> = x.windows(2).map(|w| w[1] - w[0]).collect();
-    let mut slope = vec![0.0; n - 1];
-    for j in 0..n - 1 {
-        let s = (nodes[j].bed_elevation() - nodes[j + 1].bed_elevation()) / dx[j];
-        // Written so that a NaN slope is rejected too.
-        if s.is_nan() || s <= 0.0 {
-            return Err(KinematicError::NonPositiveSlope {
-                segment: j,
-                upstream_chainage: x[j],
-                downstream_chainage: x[j + 1],
-                slope: s,
-            });
-        }
-        slope[j] = s;
-    }
-    let node_slope: Vec<f64> = (0..n)
-        .map(|i| match (i.checked_sub(1), i + 1 < n) {
-            (Some(l), true) => 0.5 * (slope[l] + slope[i]),
-            (Some(l), false) => slope[l],
-            (None, _) => slope[0],
-        })
-        .collect();
-    let length = reach.control_lengths();
-
-    let mut up = p.upstream.cursor();
-    let mut lat_cursors: Vec<Cursor<'_>> = p.laterals.iter().map(|l| l.inflow.cursor()).collect();
-    let mut lat = vec![0.0; n];
-    let fill = |cursors: &mut [Cursor<'_>], t: f64, out: &mut [f64]| {
-        out.fill(0.0);
-        for (c, &node) in cursors.iter_mut().zip(&lat_node) {
-            out[node] += c.at(t);
-        }
-    };
+    let (x, n) = (reach.chainage(), reach.len());
+    let mut segments = Segments::new(&reach)?;
+    let mut stages = NodeStages::new(&reach, &segments.slope);
 
     // Steady initial discharge.
     let t0 = p.start_time;
-    fill(&mut lat_cursors, t0, &mut lat);
-    let mut q = vec![0.0; n];
-    let mut routed = vec![0.0; n]; // arrival from upstream, before the node's lateral
-    let mut acc = up.at(t0);
-    for i in 0..n {
-        routed[i] = acc;
-        acc += lat[i];
-        q[i] = acc;
-    }
-    let mut q_new = q.clone();
-    let mut routed_new = routed.clone();
-    let mut lat_sum_old: f64 = lat.iter().sum();
-    let mut q_up_old = q[0] - lat[0];
-
-    // Warm starts for the per-segment normal depths (upstream, downstream end).
-    let mut z_seg: Vec<[f64; 2]> = (0..n - 1)
-        .map(|j| {
-            [
-                nodes[j].bed_elevation() + 1.0,
-                nodes[j + 1].bed_elevation() + 1.0,
-            ]
-        })
-        .collect();
-    let mut z_node: Vec<f64> = nodes.iter().map(|h| h.bed_elevation() + 1.0).collect();
-
-    let mut stats = Stats::new(n, x[0], t0);
-    let stages = |q: &[f64], z_node: &mut [f64], stats: &mut Stats, t: f64| {
-        let mut storage = 0.0;
-        for i in 0..n {
-            let (z, pr) = normal_stage(&nodes[i], q[i], node_slope[i], z_node[i]).ok_or(
-                KinematicError::NormalDepth {
-                    node: i,
-                    chainage: x[i],
-                    discharge: q[i],
-                },
-            )?;
-            z_node[i] = z;
-            storage += pr.storage_area * length[i];
-            stats.observe(i, &pr, q[i], z - nodes[i].bed_elevation(), x[i], t);
-        }
-        Ok::<f64, KinematicError>(storage)
+    let mut up = p.upstream.cursor();
+    let mut lat = vec![0.0; n];
+    laterals.fill(t0, &mut lat);
+    let mut flow = Flow::steady(up.at(t0), &lat);
+    let mut old = Flows {
+        upstream: flow.q[0] - lat[0],
+        lateral: lat.iter().sum(),
+        outflow: flow.q[n - 1],
     };
-    let storage0 = stages(&q, &mut z_node, &mut stats, t0)?;
-    // Initial mean depth and velocity for the applicability number.
-    let (mut d_sum, mut u_sum) = (0.0, 0.0);
-    for i in 0..n {
-        let pr = nodes[i].props(z_node[i]);
-        d_sum += pr.hydraulic_depth();
-        u_sum += pr.velocity(q[i]);
-    }
-    let (d0, u0) = (d_sum / n as f64, u_sum / n as f64);
+    // Every node counts for the Froude maximum: stages exist only at the
+    // start and the output times, never as thin trial films.
+    let mut watch = Watch::new(n, x[0], t0, f64::NEG_INFINITY);
+    let storage0 = stages.at(&flow.q, &mut watch, t0)?;
+    let start = stages.mean_state(&flow.q);
+    // The Muskingum recurrence weights the two time levels equally, so its
+    // volumes are integrated with the trapezoid rule.
+    let mut budget = Budget::new(0.5, storage0);
+    let mut storage1 = storage0;
 
     let n_out = p.output_times.len();
     let mut stage_out = Vec::with_capacity(n_out);
     let mut discharge_out = Vec::with_capacity(n_out);
     let mut k = 0;
     while k < n_out && p.output_times[k] <= t0 {
-        stage_out.push(z_node.clone());
-        discharge_out.push(q.clone());
+        stage_out.push(stages.z.clone());
+        discharge_out.push(flow.q.clone());
         k += 1;
     }
-    let mut storage1 = storage0;
-    let (mut vol_in, mut vol_lat, mut vol_out) = (0.0, 0.0, 0.0);
     let mut t = t0;
-    let mut steps = 0usize;
-    let (mut dt_min_used, mut dt_max_used) = (f64::INFINITY, 0.0_f64);
+    let mut stats = StepStats::new();
     while k < n_out {
         let target = p.output_times[k];
         let remaining = target - t;
@@ -302,172 +233,250 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Kinemat
             (p.dt, t + p.dt)
         };
         let q_up = up.at(t_new);
-        fill(&mut lat_cursors, t_new, &mut lat);
-        routed_new[0] = q_up;
-        q_new[0] = q_up + lat[0];
-        for j in 0..n - 1 {
-            let (i_old, i_new, o_old) = (q[j], q_new[j], routed[j + 1]);
-            let q_ref = (i_old + i_new + o_old) / 3.0;
-            let out = if q_ref <= TINY_DISCHARGE {
-                0.0
-            } else {
-                let mut c_sum = 0.0;
-                let mut t_sum = 0.0;
-                for (end, node) in [j, j + 1].into_iter().enumerate() {
-                    let (z, pr) = normal_stage(&nodes[node], q_ref, slope[j], z_seg[j][end])
-                        .ok_or(KinematicError::NormalDepth {
-                            node,
-                            chainage: x[node],
-                            discharge: q_ref,
-                        })?;
-                    z_seg[j][end] = z;
-                    let (c, w) = celerity(&pr, slope[j]);
-                    c_sum += c;
-                    t_sum += w;
-                }
-                let (c, width) = (0.5 * c_sum, 0.5 * t_sum);
-                if c > 0.0 && width > 0.0 {
-                    let xw = 0.5 * (1.0 - q_ref / (width * slope[j] * c * dx[j]));
-                    let cr = c * dt / dx[j];
-                    let den = 2.0 * (1.0 - xw) + cr;
-                    let c0 = (cr - 2.0 * xw) / den;
-                    let c1 = (cr + 2.0 * xw) / den;
-                    let c2 = (2.0 * (1.0 - xw) - cr) / den;
-                    (c0 * i_new + c1 * i_old + c2 * o_old).max(0.0)
-                } else {
-                    0.0
-                }
-            };
-            routed_new[j + 1] = out;
-            q_new[j + 1] = out + lat[j + 1];
-        }
-        let lat_sum: f64 = lat.iter().sum();
-        vol_in += 0.5 * dt * (q_up_old + q_up);
-        vol_lat += 0.5 * dt * (lat_sum_old + lat_sum);
-        vol_out += 0.5 * dt * (q[n - 1] + q_new[n - 1]);
-        std::mem::swap(&mut q, &mut q_new);
-        std::mem::swap(&mut routed, &mut routed_new);
-        q_up_old = q_up;
-        lat_sum_old = lat_sum;
+        laterals.fill(t_new, &mut lat);
+        flow.step(&mut segments, dt, q_up, &lat)?;
+        let new = Flows {
+            upstream: q_up,
+            lateral: lat.iter().sum(),
+            outflow: flow.q[n - 1],
+        };
+        budget.step(dt, &old, &new);
+        old = new;
         t = t_new;
-        steps += 1;
-        dt_min_used = dt_min_used.min(dt);
-        dt_max_used = dt_max_used.max(dt);
+        stats.accept(dt, 0);
         if t_new == target {
-            storage1 = stages(&q, &mut z_node, &mut stats, t)?;
-            stage_out.push(z_node.clone());
-            discharge_out.push(q.clone());
+            storage1 = stages.at(&flow.q, &mut watch, t)?;
+            stage_out.push(stages.z.clone());
+            discharge_out.push(flow.q.clone());
             k += 1;
         }
     }
 
-    let storage_change = storage1 - storage0;
-    let volume_in = vol_in + vol_lat;
-    let error = volume_in - vol_out - storage_change;
-    let denom = if volume_in > 0.0 {
-        volume_in
-    } else {
-        storage0.max(1.0)
-    };
-    let s0 = reach.mean_bed_slope();
-    let t_end = p.output_times[n_out - 1];
-    let applicability =
-        (d0 > 0.0 && u0 > 0.0).then(|| wave_duration(&p.upstream, t0, t_end) * s0 * u0 / d0);
-    let dry_nodes: Vec<usize> = (0..n).filter(|&i| stats.dry[i]).collect();
-    let extrapolated_nodes: Vec<usize> = (0..n).filter(|&i| stats.extrap[i]).collect();
-    let mut diagnostics = Diagnostics {
-        mass_balance_error_pct: 100.0 * error / denom,
-        inflow_volume: vol_in,
-        lateral_volume: vol_lat,
-        outflow_volume: vol_out,
-        storage_change,
-        max_froude: stats.max_fr.0,
-        max_froude_chainage: stats.max_fr.1,
-        max_froude_time: stats.max_fr.2,
-        applicability_number: applicability,
-        applicability_threshold: KINEMATIC_APPLICABILITY_THRESHOLD,
-        extrapolated_chainages: extrapolated_nodes.iter().map(|&i| x[i]).collect(),
-        dry_nodes,
-        extrapolated_nodes,
-        dt_min_used: if steps > 0 { dt_min_used } else { 0.0 },
-        dt_max_used,
-        steps,
-        newton_iterations_total: 0,
-        max_newton_iterations: 0,
-        rejected_steps: 0,
-        warnings: Vec::new(),
-        wall_time_s: None,
-    };
-    diagnostics.warnings = collect_warnings(&diagnostics, x, "kinematic-wave");
+    let method = Method::KinematicWave;
+    let duration = wave_duration(&p.upstream, t0, p.output_times[n_out - 1]);
+    let applicability = method.applicability(duration, reach.mean_bed_slope(), start);
+    let balance = budget.close(storage1);
     Ok(RoutingResult {
         output_times: p.output_times.clone(),
         stage: stage_out,
         discharge: discharge_out,
-        final_state: z_node,
-        diagnostics,
+        final_state: stages.z,
+        diagnostics: diagnostics::summarise(method, balance, watch, stats, applicability, x),
     })
 }
 
-/// Running maxima and flags observed at the instants stages are computed.
-struct Stats {
-    dry: Vec<bool>,
-    extrap: Vec<bool>,
-    max_fr: (f64, f64, f64),
+/// The segments between nodes: length, bed slope and the warm starts of
+/// the normal depths at their two ends.
+struct Segments<'a, H> {
+    nodes: &'a [H],
+    chainage: &'a [f64],
+    dx: Vec<f64>,
+    slope: Vec<f64>,
+    /// Last normal-depth stages at the (upstream, downstream) end.
+    z: Vec<[f64; 2]>,
 }
 
-impl Stats {
-    fn new(n: usize, x0: f64, t0: f64) -> Self {
+impl<'a, H: Hydraulics> Segments<'a, H> {
+    /// Lengths and slopes; every slope must be positive.
+    fn new(reach: &Reach<'a, H>) -> Result<Self, KinematicError> {
+        let (x, nodes) = (reach.chainage(), reach.nodes());
+        let n = nodes.len();
+        let dx: Vec<f64> = x.windows(2).map(|w| w[1] - w[0]).collect();
+        let mut slope = vec![0.0; n - 1];
+        for j in 0..n - 1 {
+            let s = (nodes[j].bed_elevation() - nodes[j + 1].bed_elevation()) / dx[j];
+            // Written so that a NaN slope is rejected too.
+            if s.is_nan() || s <= 0.0 {
+                return Err(KinematicError::NonPositiveSlope {
+                    segment: j,
+                    upstream_chainage: x[j],
+                    downstream_chainage: x[j + 1],
+                    slope: s,
+                });
+            }
+            slope[j] = s;
+        }
+        let z = (0..n - 1)
+            .map(|j| {
+                [
+                    nodes[j].bed_elevation() + 1.0,
+                    nodes[j + 1].bed_elevation() + 1.0,
+                ]
+            })
+            .collect();
+        Ok(Self {
+            nodes,
+            chainage: x,
+            dx,
+            slope,
+            z,
+        })
+    }
+
+    /// Outflow of segment `j` after a step of `dt` from inflow `i_old` to
+    /// `i_new`, with outflow `o_old` before it (the Muskingum recurrence with
+    /// Cunge's parameters for the three-point reference discharge).
+    fn route(
+        &mut self,
+        j: usize,
+        dt: f64,
+        i_old: f64,
+        i_new: f64,
+        o_old: f64,
+    ) -> Result<f64, KinematicError> {
+        let q_ref = (i_old + i_new + o_old) / 3.0;
+        if q_ref <= TINY_DISCHARGE {
+            return Ok(0.0);
+        }
+        let (slope, dx) = (self.slope[j], self.dx[j]);
+        let mut c_sum = 0.0;
+        let mut t_sum = 0.0;
+        for (end, node) in [j, j + 1].into_iter().enumerate() {
+            let (z, pr) = normal_stage(&self.nodes[node], q_ref, slope, self.z[j][end]).ok_or(
+                KinematicError::NormalDepth {
+                    node,
+                    chainage: self.chainage[node],
+                    discharge: q_ref,
+                },
+            )?;
+            self.z[j][end] = z;
+            let (c, w) = celerity(&pr, slope);
+            c_sum += c;
+            t_sum += w;
+        }
+        let (c, width) = (0.5 * c_sum, 0.5 * t_sum);
+        if !(c > 0.0 && width > 0.0) {
+            return Ok(0.0);
+        }
+        let xw = 0.5 * (1.0 - q_ref / (width * slope * c * dx));
+        let cr = c * dt / dx;
+        let den = 2.0 * (1.0 - xw) + cr;
+        let c0 = (cr - 2.0 * xw) / den;
+        let c1 = (cr + 2.0 * xw) / den;
+        let c2 = (2.0 * (1.0 - xw) - cr) / den;
+        Ok((c0 * i_new + c1 * i_old + c2 * o_old).max(0.0))
+    }
+}
+
+/// Discharges at the nodes, before and after the step being taken.
+struct Flow {
+    /// Node discharge, the node's lateral included (m³/s).
+    q: Vec<f64>,
+    /// Arrival from upstream, before the node's lateral (m³/s).
+    routed: Vec<f64>,
+    q_new: Vec<f64>,
+    routed_new: Vec<f64>,
+}
+
+impl Flow {
+    /// Steady flow: the inflow `q_up` plus the laterals above each node.
+    fn steady(q_up: f64, lat: &[f64]) -> Self {
+        let n = lat.len();
+        let mut q = vec![0.0; n];
+        let mut routed = vec![0.0; n];
+        let mut acc = q_up;
+        for i in 0..n {
+            routed[i] = acc;
+            acc += lat[i];
+            q[i] = acc;
+        }
         Self {
-            dry: vec![false; n],
-            extrap: vec![false; n],
-            max_fr: (0.0, x0, t0),
+            q_new: q.clone(),
+            routed_new: routed.clone(),
+            q,
+            routed,
         }
     }
 
-    fn observe(&mut self, i: usize, p: &Props, q: f64, depth: f64, x: f64, t: f64) {
-        if depth < crate::engine::diffusive::DRY_DEPTH {
-            self.dry[i] = true;
+    /// Route one step of `dt` to inflow `q_up` and laterals `lat`, segment
+    /// by segment downstream.
+    fn step<H: Hydraulics>(
+        &mut self,
+        segments: &mut Segments<'_, H>,
+        dt: f64,
+        q_up: f64,
+        lat: &[f64],
+    ) -> Result<(), KinematicError> {
+        self.routed_new[0] = q_up;
+        self.q_new[0] = q_up + lat[0];
+        for j in 0..lat.len() - 1 {
+            let out = segments.route(j, dt, self.q[j], self.q_new[j], self.routed[j + 1])?;
+            self.routed_new[j + 1] = out;
+            self.q_new[j + 1] = out + lat[j + 1];
         }
-        if p.extrapolated {
-            self.extrap[i] = true;
+        std::mem::swap(&mut self.q, &mut self.q_new);
+        std::mem::swap(&mut self.routed, &mut self.routed_new);
+        Ok(())
+    }
+}
+
+/// Node stages at normal depth for the node discharges, at the mean slope
+/// of the adjacent segments.
+struct NodeStages<'a, H> {
+    nodes: &'a [H],
+    chainage: &'a [f64],
+    slope: Vec<f64>,
+    length: Vec<f64>,
+    /// Last stages computed, and the warm starts of the next (m).
+    z: Vec<f64>,
+}
+
+impl<'a, H: Hydraulics> NodeStages<'a, H> {
+    fn new(reach: &Reach<'a, H>, segment_slope: &[f64]) -> Self {
+        let nodes = reach.nodes();
+        let n = nodes.len();
+        let slope = (0..n)
+            .map(|i| match (i.checked_sub(1), i + 1 < n) {
+                (Some(l), true) => 0.5 * (segment_slope[l] + segment_slope[i]),
+                (Some(l), false) => segment_slope[l],
+                (None, _) => segment_slope[0],
+            })
+            .collect();
+        Self {
+            nodes,
+            chainage: reach.chainage(),
+            slope,
+            length: reach.control_lengths(),
+            z: nodes.iter().map(|h| h.bed_elevation() + 1.0).collect(),
         }
-        let fr = p.froude(q);
-        if fr > self.max_fr.0 {
-            self.max_fr = (fr, x, t);
+    }
+
+    /// Stages for node discharges `q` at time `t`, shown to the watch;
+    /// returns the storage they hold (m³).
+    fn at(&mut self, q: &[f64], watch: &mut Watch, t: f64) -> Result<f64, KinematicError> {
+        let mut storage = 0.0;
+        for (i, node) in self.nodes.iter().enumerate() {
+            let (z, pr) = normal_stage(node, q[i], self.slope[i], self.z[i]).ok_or(
+                KinematicError::NormalDepth {
+                    node: i,
+                    chainage: self.chainage[i],
+                    discharge: q[i],
+                },
+            )?;
+            self.z[i] = z;
+            storage += pr.storage_area * self.length[i];
+            watch.observe(i, &pr, q[i], z - node.bed_elevation(), self.chainage[i], t);
         }
+        Ok(storage)
+    }
+
+    /// Mean depth and velocity at the last stages computed, for discharges
+    /// `q`.
+    fn mean_state(&self, q: &[f64]) -> MeanState {
+        MeanState::of(
+            self.nodes
+                .iter()
+                .zip(&self.z)
+                .zip(q)
+                .map(|((h, &z), &q)| (h.props(z), q)),
+        )
     }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    /// Wide rectangle: K = B h^{5/3} / n (hydraulic radius ≈ depth).
-    struct Wide {
-        bed: f64,
-        width: f64,
-        n: f64,
-    }
-
-    impl Hydraulics for Wide {
-        fn bed_elevation(&self) -> f64 {
-            self.bed
-        }
-        fn props(&self, z: f64) -> Props {
-            let h = (z - self.bed).max(0.0);
-            Props {
-                z,
-                flow_area: self.width * h,
-                storage_area: self.width * h,
-                flow_top_width: self.width,
-                storage_top_width: self.width,
-                wetted_perimeter: self.width,
-                conveyance: self.width * h.powf(5.0 / 3.0) / self.n,
-                dconveyance_dz: 5.0 / 3.0 * self.width * h.powf(2.0 / 3.0) / self.n,
-                extrapolated: false,
-            }
-        }
-    }
+    use crate::engine::test_sections::Wide;
 
     fn reach_nodes(n: usize, dx: f64, slope: f64) -> (Vec<f64>, Vec<Wide>) {
         let x: Vec<f64> = (0..n).map(|i| i as f64 * dx).collect();

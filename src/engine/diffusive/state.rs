@@ -1,0 +1,244 @@
+//! The solver's state: per-node and per-face arrays at the current trial
+//! stages and at the old time level, how they are evaluated, and how the
+//! old level is rolled forward after an accepted step.
+
+use super::flux::{boundary_outflow, face_flow};
+use super::newton::NewLevel;
+use super::problem::DownstreamBoundary;
+use crate::engine::budget::Flows;
+use crate::engine::diagnostics::Watch;
+use crate::engine::props::{Hydraulics, Props};
+use crate::engine::routing::Reach;
+
+/// Preallocated per-node and per-face arrays, so a step allocates nothing.
+pub(super) struct Work {
+    pub(super) z: Vec<f64>,
+    pub(super) z_old: Vec<f64>,
+    /// dz/dt of the last accepted step: the Newton predictor.
+    pub(super) rate: Vec<f64>,
+    pub(super) props: Vec<Props>,
+    pub(super) q_face: Vec<f64>,
+    pub(super) dq_a: Vec<f64>,
+    pub(super) dq_b: Vec<f64>,
+    /// Net inflow to each control volume at the old time (incl. outflow).
+    pub(super) f_old: Vec<f64>,
+    /// Storage of each control volume at the old time (m³).
+    pub(super) v_old: Vec<f64>,
+    pub(super) lat_old: Vec<f64>,
+    pub(super) lat_new: Vec<f64>,
+    pub(super) lower: Vec<f64>,
+    pub(super) diag: Vec<f64>,
+    pub(super) upper: Vec<f64>,
+    pub(super) rhs: Vec<f64>,
+    pub(super) scratch: Vec<f64>,
+}
+
+impl Work {
+    pub(super) fn new(n: usize) -> Self {
+        Self {
+            z: vec![0.0; n],
+            z_old: vec![0.0; n],
+            rate: vec![0.0; n],
+            props: vec![Props::default(); n],
+            q_face: vec![0.0; n - 1],
+            dq_a: vec![0.0; n - 1],
+            dq_b: vec![0.0; n - 1],
+            f_old: vec![0.0; n],
+            v_old: vec![0.0; n],
+            lat_old: vec![0.0; n],
+            lat_new: vec![0.0; n],
+            lower: vec![0.0; n],
+            diag: vec![0.0; n],
+            upper: vec![0.0; n],
+            rhs: vec![0.0; n],
+            scratch: vec![0.0; n],
+        }
+    }
+}
+
+/// Fixed geometry derived once from the reach.
+pub(super) struct Geometry {
+    pub(super) dx: Vec<f64>,
+    pub(super) length: Vec<f64>,
+    pub(super) bed: Vec<f64>,
+}
+
+impl Geometry {
+    pub(super) fn new<H: Hydraulics>(reach: &Reach<'_, H>) -> Self {
+        let x = reach.chainage();
+        Self {
+            dx: x.windows(2).map(|w| w[1] - w[0]).collect(),
+            length: reach.control_lengths(),
+            bed: reach.nodes().iter().map(|h| h.bed_elevation()).collect(),
+        }
+    }
+}
+
+fn props_finite(p: &Props) -> bool {
+    p.flow_area.is_finite()
+        && p.storage_area.is_finite()
+        && p.flow_top_width.is_finite()
+        && p.storage_top_width.is_finite()
+        && p.conveyance.is_finite()
+        && p.dconveyance_dz.is_finite()
+}
+
+/// Evaluate node properties and face flows at `w.z`. Returns the first node
+/// with non-finite properties on failure.
+pub(super) fn evaluate<H: Hydraulics>(
+    nodes: &[H],
+    g: &Geometry,
+    eps: f64,
+    w: &mut Work,
+) -> Result<(), usize> {
+    for (i, node) in nodes.iter().enumerate() {
+        let p = node.props(w.z[i]);
+        if !props_finite(&p) {
+            return Err(i);
+        }
+        w.props[i] = p;
+    }
+    for j in 0..nodes.len() - 1 {
+        let (q, a, b) = face_flow(
+            &w.props[j],
+            &w.props[j + 1],
+            g.bed[j],
+            g.bed[j + 1],
+            g.dx[j],
+            eps,
+        );
+        w.q_face[j] = q;
+        w.dq_a[j] = a;
+        w.dq_b[j] = b;
+    }
+    Ok(())
+}
+
+/// Net inflow to control volume `i` at the current evaluation, excluding
+/// the downstream boundary outflow.
+#[inline]
+pub(super) fn net_inflow(w: &Work, i: usize, q_up: f64) -> f64 {
+    let n = w.z.len();
+    let mut net = w.lat_new[i];
+    if i == 0 {
+        net += q_up;
+    } else {
+        net += w.q_face[i - 1];
+    }
+    if i + 1 < n {
+        net -= w.q_face[i];
+    }
+    net
+}
+
+/// Discharge reported at node `i` (see
+/// [`crate::engine::routing::RoutingResult::discharge`]).
+#[inline]
+pub(super) fn node_discharge(w: &Work, i: usize, q_up: f64, q_out: f64) -> f64 {
+    let n = w.z.len();
+    if i == 0 {
+        q_up
+    } else if i + 1 == n {
+        q_out
+    } else {
+        0.5 * (w.q_face[i - 1] + w.q_face[i])
+    }
+}
+
+/// Discharge at every node, as [`node_discharge`] reports it.
+pub(super) fn discharges(w: &Work, flows: &Flows) -> Vec<f64> {
+    (0..w.z.len())
+        .map(|i| node_discharge(w, i, flows.upstream, flows.outflow))
+        .collect()
+}
+
+/// Storage in the reach at the old time level (m³).
+pub(super) fn storage(w: &Work) -> f64 {
+    w.v_old.iter().sum()
+}
+
+/// Make the evaluated start state the old time level and return the
+/// boundary flows there. A stage boundary's outflow is what the last face
+/// and the last node's laterals bring.
+pub(super) fn begin(w: &mut Work, g: &Geometry, b: &DownstreamBoundary, q_up: f64) -> Flows {
+    let n = w.z.len();
+    let q_out = if b.is_stage() {
+        w.q_face[n - 2] + w.lat_new[n - 1]
+    } else {
+        boundary_outflow(b, &w.props[n - 1], g.bed[n - 1]).0
+    };
+    for i in 0..n {
+        w.f_old[i] = net_inflow(w, i, q_up);
+        w.v_old[i] = w.props[i].storage_area * g.length[i];
+    }
+    w.f_old[n - 1] -= q_out;
+    w.lat_old.copy_from_slice(&w.lat_new);
+    w.z_old.copy_from_slice(&w.z);
+    Flows {
+        upstream: q_up,
+        lateral: w.lat_old.iter().sum(),
+        outflow: q_out,
+    }
+}
+
+/// After an accepted step to `lvl` (`w` evaluated at the new stages), make
+/// the new level the old one and return its boundary flows. With a stage
+/// boundary the outflow is whatever closes the last node's continuity
+/// equation, so the volume budget stays exact.
+pub(super) fn advance(
+    w: &mut Work,
+    g: &Geometry,
+    b: &DownstreamBoundary,
+    theta: f64,
+    lvl: &NewLevel,
+) -> Flows {
+    let n = w.z.len();
+    let dt = lvl.dt;
+    // New-level storage and net inflows.
+    let mut v_new_last = 0.0;
+    for i in 0..n {
+        let v = w.props[i].storage_area * g.length[i];
+        if i + 1 == n {
+            v_new_last = v;
+        }
+        w.scratch[i] = v;
+    }
+    let f_in_last = net_inflow(w, n - 1, lvl.q_up);
+    let q_out = if lvl.stage.is_some() {
+        // Outflow that closes the last node's continuity equation.
+        (theta * f_in_last + (1.0 - theta) * w.f_old[n - 1] - (v_new_last - w.v_old[n - 1]) / dt)
+            / theta
+    } else {
+        boundary_outflow(b, &w.props[n - 1], g.bed[n - 1]).0
+    };
+    for i in 0..n {
+        w.f_old[i] = net_inflow(w, i, lvl.q_up);
+        w.v_old[i] = w.scratch[i];
+    }
+    w.f_old[n - 1] -= q_out;
+    for i in 0..n {
+        w.rate[i] = (w.z[i] - w.z_old[i]) / dt;
+    }
+    w.z_old.copy_from_slice(&w.z);
+    w.lat_old.copy_from_slice(&w.lat_new);
+    Flows {
+        upstream: lvl.q_up,
+        lateral: w.lat_new.iter().sum(),
+        outflow: q_out,
+    }
+}
+
+/// Show the watch every node of the evaluated state at time `t`.
+pub(super) fn observe(
+    w: &Work,
+    g: &Geometry,
+    chainage: &[f64],
+    flows: &Flows,
+    t: f64,
+    watch: &mut Watch,
+) {
+    for (i, &x) in chainage.iter().enumerate() {
+        let q = node_discharge(w, i, flows.upstream, flows.outflow);
+        watch.observe(i, &w.props[i], q, w.z[i] - g.bed[i], x, t);
+    }
+}
