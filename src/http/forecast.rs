@@ -229,21 +229,15 @@ async fn forecast(
     Params(params): Params<ForecastParams>,
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
-    let Request {
-        loaded: l,
-        units,
-        csv,
-        now,
-        fresh,
-    } = prepare(&state, &id, &params, &headers).await?;
-    let etag = forecast_etag(l.run.id, &fresh, units, csv);
+    let r = prepare(&state, &id, &params, &headers).await?;
+    let etag = forecast_etag(r.loaded.run.id, &r.fresh, r.units, r.csv);
     if not_modified(&headers, &etag) {
         let mut r = with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag);
         vary_accept(r.headers_mut());
         return Ok(r);
     }
-    let doc = build_doc(&state, &l, units, now, fresh).await?;
-    let response = if csv {
+    let doc = build_doc(&state, &r.loaded, r.units, r.now, r.fresh).await?;
+    let response = if r.csv {
         csv_response(doc.csv(None))?
     } else {
         Json(&doc).into_response()
@@ -260,14 +254,8 @@ async fn point_forecast(
     Params(params): Params<ForecastParams>,
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
-    let Request {
-        loaded: l,
-        units,
-        csv,
-        now,
-        fresh,
-    } = prepare(&state, &id, &params, &headers).await?;
-    let doc = build_doc(&state, &l, units, now, fresh).await?;
+    let r = prepare(&state, &id, &params, &headers).await?;
+    let doc = build_doc(&state, &r.loaded, r.units, r.now, r.fresh).await?;
     let Some(p) = doc.point(&point) else {
         return Err(not_found(
             "Unknown point",
@@ -275,7 +263,7 @@ async fn point_forecast(
             "point",
         ));
     };
-    let response = if csv {
+    let response = if r.csv {
         csv_response(doc.csv(Some(&point)))?
     } else {
         Json(&p).into_response()
