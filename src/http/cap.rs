@@ -115,11 +115,7 @@ async fn feed_reach(
     Path(id): Path<String>,
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
-    let reach = state.store.latest_reach(&id).await?.ok_or_else(|| {
-        Problem::new(StatusCode::NOT_FOUND, "not-found", "Unknown reach")
-            .detail(format!("there is no reach `{id}`"))
-            .field("reach")
-    })?;
+    let reach = super::reaches::find_reach(&state, &id).await?;
     feed(&state, &headers, Some((&id, &reach.spec.name))).await
 }
 
@@ -134,9 +130,10 @@ async fn document(
         .cap_document(&identifier)
         .await?
         .ok_or_else(|| {
-            Problem::new(StatusCode::NOT_FOUND, "not-found", "Unknown CAP message")
-                .detail(format!("no CAP message has the identifier `{identifier}`"))
-                .field("identifier")
+            Problem::missing(
+                "identifier",
+                format!("no CAP message has the identifier `{identifier}`"),
+            )
         })?;
     Ok(xml_response(doc, CAP_MEDIA_TYPE, &headers))
 }

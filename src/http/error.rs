@@ -91,6 +91,15 @@ impl Problem {
         .detail(detail)
     }
 
+    /// 404 for a thing named by `field` that does not exist. One title for
+    /// the type, whatever is missing (RFC 9457 §3.1.3: the title does not
+    /// change from occurrence to occurrence); `detail` says what.
+    pub fn missing(field: &str, detail: impl Into<String>) -> Self {
+        Problem::new(StatusCode::NOT_FOUND, "not-found", "Not found")
+            .field(field)
+            .detail(detail)
+    }
+
     /// 422 for a well-formed body with a bad value in `field`.
     pub fn invalid(field: impl Into<String>, detail: impl Into<String>) -> Self {
         Problem::new(

@@ -19,9 +19,9 @@ use super::{
     AppState,
     auth::ReadAccess,
     conditional::{fnv, not_modified, with_etag},
-    error::ApiError,
+    error::{ApiError, Problem},
     query::{Format, Params, vary_accept},
-    reaches::{find_reach, not_found},
+    reaches::find_reach,
 };
 use crate::{
     forecast::{
@@ -72,10 +72,9 @@ async fn load_latest(state: &AppState, id: &str) -> Result<Loaded, ApiError> {
         .latest_run(id, Some(RunStatus::Ok))
         .await?
         .ok_or_else(|| {
-            not_found(
-                "No forecast yet",
-                format!("reach `{id}` has no successful forecast run yet"),
+            Problem::missing(
                 "reach",
+                format!("reach `{id}` has no successful forecast run yet"),
             )
         })?;
     let latest_any = state.store.latest_run(id, None).await?;
@@ -257,11 +256,11 @@ async fn point_forecast(
     let r = prepare(&state, &id, &params, &headers).await?;
     let doc = build_doc(&state, &r.loaded, r.units, r.now, r.fresh).await?;
     let Some(p) = doc.point(&point) else {
-        return Err(not_found(
-            "Unknown point",
-            format!("reach `{id}` has no point of interest named `{point}`"),
+        return Err(Problem::missing(
             "point",
-        ));
+            format!("reach `{id}` has no point of interest named `{point}`"),
+        )
+        .into());
     };
     let response = if r.csv {
         csv_response(doc.csv(Some(&point)))?

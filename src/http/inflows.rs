@@ -204,12 +204,11 @@ async fn withdraw(
         .withdraw_upload(&reach, v, auth.caller().key_id())
         .await?
     {
-        return Err(
-            Problem::new(StatusCode::NOT_FOUND, "not-found", "No such upload")
-                .detail(format!("reach `{reach}` has no upload {v} in force"))
-                .field("version")
-                .into(),
-        );
+        return Err(Problem::missing(
+            "version",
+            format!("reach `{reach}` has no upload {v} in force"),
+        )
+        .into());
     }
     state.forecaster.data_arrived(&reach);
     Ok(Json(serde_json::json!({"reach": reach, "version": v, "withdrawn": true})).into_response())

@@ -32,23 +32,13 @@ pub fn router() -> Router<AppState> {
         .route("/reaches/{reach}", get(get_reach).put(put_reach))
 }
 
-/// A 404 problem naming the missing thing and the field that named it.
-pub(super) fn not_found(what: &str, detail: String, field: &str) -> ApiError {
-    Problem::new(StatusCode::NOT_FOUND, "not-found", what)
-        .detail(detail)
-        .field(field)
-        .into()
-}
-
 /// The newest version of a reach, or a 404 problem naming it.
 pub(super) async fn find_reach(state: &AppState, id: &str) -> Result<ReachVersion, ApiError> {
-    state.store.latest_reach(id).await?.ok_or_else(|| {
-        not_found(
-            "Unknown reach",
-            format!("there is no reach `{id}`"),
-            "reach",
-        )
-    })
+    state
+        .store
+        .latest_reach(id)
+        .await?
+        .ok_or_else(|| Problem::missing("reach", format!("there is no reach `{id}`")).into())
 }
 
 #[derive(Serialize)]

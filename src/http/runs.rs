@@ -17,7 +17,7 @@ use super::{
     auth::{Forecasting, ReadAccess, RequireRole},
     error::{ApiError, Problem},
     query::Params,
-    reaches::{find_reach, not_found},
+    reaches::find_reach,
 };
 use crate::{
     CAUTION,
@@ -108,7 +108,7 @@ async fn run_by_id(
         .store
         .run(n)
         .await?
-        .ok_or_else(|| not_found("Unknown run", format!("there is no run {n}"), "id"))?;
+        .ok_or_else(|| Problem::missing("id", format!("there is no run {n}")))?;
     let mut view = RunView::of(&run);
     view.results = run.results.as_ref();
     Ok(Json(RunDoc {
