@@ -14,6 +14,7 @@ pub mod forecast;
 pub mod gauge;
 pub mod http;
 pub mod offline;
+pub mod row_error;
 pub mod service;
 pub mod store;
 pub mod telemetry;

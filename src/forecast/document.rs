@@ -191,3 +191,159 @@ impl ForecastDoc {
         export::table(&ctx, rows)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::forecast::{
+        assemble::Provenance, level::Trace, record::RunProvenance, record::RunStatus,
+        run::PointForecast, spec::PointKind, spec::Severity,
+    };
+    use chrono::Duration;
+
+    fn t0() -> DateTime<Utc> {
+        DateTime::parse_from_rfc3339("2026-03-14T00:00:00Z")
+            .unwrap()
+            .with_timezone(&Utc)
+    }
+
+    /// A point with hourly stages rising to 12 m at 03:00 and falling.
+    fn point(name: &str) -> PointForecast {
+        let times: Vec<_> = (0..7).map(|h| t0() + Duration::hours(h)).collect();
+        let stage = vec![10.0, 11.0, 11.5, 12.0, 11.5, 11.0, 10.0];
+        let level =
+            Trace::new(&times, &stage).level_from("bank full", 11.25, Severity::Moderate, t0());
+        PointForecast {
+            name: name.into(),
+            chainage: 1000.0,
+            kind: PointKind::Bridge,
+            bed_elevation: 8.0,
+            low_chord: Some(12.5),
+            deck: None,
+            discharge: vec![1.0; times.len()],
+            times,
+            stage,
+            crest_stage: 12.0,
+            crest_time: t0() + Duration::hours(3),
+            peak_discharge: 1.0,
+            low_chord_margin: Some(0.5),
+            deck_margin: None,
+            thresholds: vec![level],
+        }
+    }
+
+    fn run(id: i64, status: RunStatus) -> RunRecord {
+        RunRecord {
+            id,
+            reach_id: "demo".into(),
+            reach_version: 2,
+            inflow_forecast_id: None,
+            started_at: t0(),
+            finished_at: Some(t0() + Duration::minutes(1)),
+            status,
+            error: (status == RunStatus::Failed).then(|| "routing failed".to_owned()),
+            provenance: RunProvenance::default(),
+            results: None,
+        }
+    }
+
+    fn results() -> StoredResults {
+        StoredResults {
+            method: Method::Diffusive,
+            start: t0(),
+            end: t0() + Duration::hours(6),
+            nodes: 10,
+            points: vec![point("Sallowgate Bridge"), point("Second")],
+            diagnostics: RunDiagnostics::default(),
+        }
+    }
+
+    fn fresh() -> Freshness {
+        view::freshness(&view::FreshnessInput {
+            now: t0() + Duration::hours(2),
+            run_finished: t0() + Duration::minutes(1),
+            inflow_stale: false,
+            last_reading_at: None,
+            has_gauge: false,
+            stale_after_s: 3600,
+            run_overdue_s: 86_400,
+        })
+    }
+
+    fn doc(units: Units) -> ForecastDoc {
+        let spec = crate::demo::reach().expect("demo reach");
+        let mut good = run(7, RunStatus::Ok);
+        good.provenance.inflow = Some(Provenance {
+            upload_version: Some(3),
+            warnings: vec!["no upload".into()],
+            ..serde_json::from_value(serde_json::json!({
+                "observed_from": null, "observed_to": null, "observed_count": 0,
+                "excluded_suspect": 0, "excluded_unconvertible": 0, "excluded_future": 0,
+                "duplicates_replaced": 0, "gaps_interpolated": [], "gap_restart": null,
+                "upload_join": null, "source_beyond_now": "upload", "upload_version": null,
+                "upload_issued_at": null, "upload_issued_by": null, "extrapolated_from": null,
+                "last_reading_age_s": null, "stale": false, "warnings": []
+            }))
+            .expect("provenance")
+        });
+        let failed = run(8, RunStatus::Failed);
+        let observed = HashMap::new();
+        let r = results();
+        let inputs = Inputs {
+            reach_id: "demo",
+            reach_version: 2,
+            spec: &spec,
+            run: &good,
+            results: &r,
+            last_failure: Some(&failed),
+            observed: &observed,
+            units,
+            now: t0() + Duration::hours(2),
+        };
+        build(&inputs, fresh())
+    }
+
+    #[test]
+    fn the_document_tells_the_run_its_inflow_and_the_failure_since() {
+        let d = doc(Units::Si);
+        assert_eq!(d.caution, crate::CAUTION);
+        assert_eq!((d.reach.id.as_str(), d.reach.version), ("demo", 2));
+        assert_eq!(d.run.id, 7);
+        assert_eq!(d.run.inflow.upload_version, Some(3));
+        assert_eq!(d.run.inflow.source_beyond_now, Some(Source::Upload));
+        let f = d.last_failure.as_ref().expect("failure since");
+        assert_eq!((f.run_id, f.error.as_deref()), (8, Some("routing failed")));
+        // Seen from 02:00: 11.5 m now, the crest ahead at 03:00.
+        let p = &d.points[0];
+        assert_eq!(p.current_stage, 11.5);
+        assert_eq!(p.forecast.crest_time, t0() + Duration::hours(3));
+        assert!(p.forecast.thresholds[0].above_now);
+    }
+
+    /// 1 ft = 0.3048 m exactly (NIST SP 811, appendix B).
+    #[test]
+    fn us_units_convert_lengths_and_say_so() {
+        let d = doc(Units::Us);
+        assert_eq!(d.units.stage, "ft");
+        assert!((d.points[0].current_stage * 0.3048 - 11.5).abs() < 1e-12);
+        assert!((d.points[0].forecast.thresholds[0].elevation * 0.3048 - 11.25).abs() < 1e-12);
+        let csv = d.csv(None).expect("csv");
+        assert!(csv.starts_with(
+            "reach,run,point,chainage_ft,time,stage_ft,discharge_ft3_per_s,caution\r\n"
+        ));
+    }
+
+    #[test]
+    fn one_point_and_its_table() {
+        let d = doc(Units::Si);
+        let p = d.point("Second").expect("point");
+        assert_eq!(p.point.forecast.name, "Second");
+        assert!(d.point("Nowhere").is_none());
+        let all = d.csv(None).expect("csv");
+        let one = d.csv(Some("Second")).expect("csv");
+        // Header plus 7 rows per point, CRLF after each line.
+        assert_eq!(all.matches("\r\n").count(), 1 + 2 * 7);
+        assert_eq!(one.matches("\r\n").count(), 1 + 7);
+        assert!(one.lines().skip(1).all(|l| l.contains(",Second,")));
+    }
+}

@@ -12,27 +12,7 @@ use chrono::{DateTime, Utc};
 use serde::{Deserialize, Serialize};
 
 use crate::engine::series::Series;
-
-/// One bad sample of a hydrograph: which row (counting samples from 1),
-/// which field and why. The same shape as a rejected reading.
-#[derive(Debug, Clone, PartialEq, Serialize, thiserror::Error)]
-#[error("row {row}, field `{field}`: {message}")]
-pub struct RowError {
-    /// 1-based sample number; 0 for the series as a whole.
-    pub row: usize,
-    pub field: String,
-    pub message: String,
-}
-
-impl RowError {
-    pub fn new(row: usize, field: &str, message: impl Into<String>) -> Self {
-        Self {
-            row,
-            field: field.to_owned(),
-            message: message.into(),
-        }
-    }
-}
+use crate::row_error::RowError;
 
 /// A discharge hydrograph (m³/s) that keeps the invariants above.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

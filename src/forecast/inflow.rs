@@ -7,7 +7,8 @@
 
 use chrono::{DateTime, Utc};
 
-use super::hydrograph::{Hydrograph, RowError, check_discharge};
+use super::hydrograph::{Hydrograph, check_discharge};
+use crate::row_error::RowError;
 
 /// Why an inflow could not be read.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]

@@ -8,6 +8,7 @@ use chrono::{DateTime, NaiveDateTime, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::{Gauge, Measures};
+use crate::row_error::RowError;
 
 /// Quality of a reading, from the WaterML 2.0 quality vocabulary
 /// (`good`, `suspect`, `estimate`, `unchecked`).
@@ -165,16 +166,6 @@ pub struct RawReading {
     pub stage: Field<f64>,
     pub discharge: Field<f64>,
     pub quality: Field<String>,
-}
-
-/// Why a row was rejected: its 1-based row number, the field and what is
-/// wrong with it. The API sends it as it is (`{row, field, message}`, the
-/// shape inflow uploads use too).
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct RowError {
-    pub row: usize,
-    pub field: String,
-    pub message: String,
 }
 
 /// Limits that do not come from the gauge.

@@ -30,9 +30,10 @@ use super::{
 use crate::{
     CAUTION,
     forecast::{
-        hydrograph::{Hydrograph, RowError},
+        hydrograph::Hydrograph,
         inflow::{self, InflowError},
     },
+    row_error::RowError,
     store::InflowUpload,
 };
 

@@ -31,10 +31,11 @@ use crate::{
     gauge::{
         Gauge,
         readings::{
-            Field, Limits, NewReading, RateCheck, RawReading, Revision, RowError, StoredReading,
-            check, dedupe_batch, format_time, parse_time, utc,
+            Field, Limits, NewReading, RateCheck, RawReading, Revision, StoredReading, check,
+            dedupe_batch, format_time, parse_time, utc,
         },
     },
+    row_error::RowError,
     store::{IngestOutcome, ReadingsQuery},
 };
 
