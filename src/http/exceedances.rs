@@ -1,8 +1,8 @@
 //! `GET /api/exceedances`: every (point, threshold) situation at the latest
 //! good run of each reach, for alerting clients that poll. The answer
 //! changes only when a run lands, so it is serialized once per board
-//! version and unit system and served with a strong `ETag`
-//! (`If-None-Match` → 304).
+//! version and unit system, and served with a weak `ETag` that changes
+//! only when the meaning does (`If-None-Match` → 304).
 
 use std::sync::RwLock;
 
@@ -93,6 +93,60 @@ impl<'a> Item<'a> {
     }
 }
 
+/// What an item means, for the validator: everything but which run said it
+/// and when. While a level is above now its "first above" is the instant
+/// the run finished, and a crest at that instant is "now": both move with
+/// every run without news, so they are left out.
+#[derive(Serialize)]
+struct Meaning<'a> {
+    reach: &'a str,
+    point: &'a str,
+    threshold: &'a str,
+    elevation: f64,
+    severity: Severity,
+    exceeded: bool,
+    above_now: bool,
+    rises_at: Option<DateTime<Utc>>,
+    back_below: Option<DateTime<Utc>>,
+    crest_stage: f64,
+    crest_at: Option<DateTime<Utc>>,
+    margin: f64,
+    stale: bool,
+}
+
+impl<'a> Meaning<'a> {
+    fn of(s: &'a Situation) -> Self {
+        Meaning {
+            reach: &s.reach_id,
+            point: &s.point_name,
+            threshold: &s.threshold_name,
+            elevation: s.elevation,
+            severity: s.severity,
+            exceeded: s.exceeded,
+            above_now: s.above_now,
+            rises_at: s.first_above.filter(|_| !s.above_now),
+            back_below: s.back_below,
+            crest_stage: s.crest_stage,
+            crest_at: Some(s.crest_time).filter(|t| *t != s.run_finished),
+            margin: s.margin,
+            stale: s.stale,
+        }
+    }
+}
+
+/// A weak validator (RFC 9110 §8.8.1) over the meaning of the board: a new
+/// run that says the same keeps it, so a poller's `If-None-Match` gets a
+/// 304 until something an alerting system acts on has changed.
+fn meaning_etag(situations: &[Situation], units: Units) -> Result<String, ApiError> {
+    let meaning: Vec<Meaning<'_>> = situations.iter().map(Meaning::of).collect();
+    let bytes = serde_json::to_vec(&meaning).map_err(|e| ApiError::Internal(e.into()))?;
+    Ok(format!(
+        "W/\"{}-{:016x}\"",
+        if units == Units::Us { "us" } else { "si" },
+        fnv(&bytes)
+    ))
+}
+
 #[derive(Serialize)]
 struct Doc<'a> {
     caution: &'static str,
@@ -128,11 +182,7 @@ fn render(state: &AppState, units: Units) -> Result<(Bytes, String), ApiError> {
         items: situations.iter().map(|s| Item::of(s, units)).collect(),
     };
     let body = Bytes::from(serde_json::to_vec(&doc).map_err(|e| ApiError::Internal(e.into()))?);
-    let etag = format!(
-        "\"b{version}-{}-{:016x}\"",
-        if units == Units::Us { "us" } else { "si" },
-        fnv(&body)
-    );
+    let etag = meaning_etag(&situations, units)?;
     if let Ok(mut e) = state.exceedance_cache.entries.write() {
         e.retain(|(v, _, _, _)| *v == version);
         e.push((version, units, body.clone(), etag.clone()));
