@@ -1,7 +1,9 @@
 //! From a reach description and an inflow to forecasts at points of
-//! interest: the reach document format, inflow parsing, one routing run and
-//! the threshold analysis. Pure code; the scheduler and the offline `route`
-//! command add the I/O.
+//! interest: the reach document format, the validated hydrograph and its
+//! readers, inflow assembly, one routing run, how a stage trace relates to
+//! each level, the typed run record, the forecast document and its CSV
+//! table, and CAP planning and rendering. Pure code: the service layer
+//! (`crate::service`) and the offline `route` command add the I/O.
 
 pub mod assemble;
 pub mod cap;

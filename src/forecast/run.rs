@@ -27,8 +27,6 @@ use super::{
 pub enum RunError {
     #[error("reach description: {0}")]
     Spec(#[from] SpecError),
-    #[error("inflow: {0}")]
-    Inflow(String),
     #[error("routing failed: {0}")]
     Routing(String),
 }
