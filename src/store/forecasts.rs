@@ -417,3 +417,83 @@ fn upload_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<InflowUpload, StoreE
         series: serde_json::from_str(&series).map_err(|e| corrupt("inflow_forecasts.series", e))?,
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::{config::StorageConfig, forecast::assemble::Source};
+
+    /// A run row as the first release wrote it: chrono's own time forms
+    /// (`+00:00`, nanoseconds), `above_at_start`, diagnostics as loose
+    /// JSON. It must read back as the typed record (issue: old stored runs
+    /// stay readable).
+    const OLD_RESULTS: &str = r#"{"method":"diffusive","start":"2026-03-14T00:00:00Z",
+        "end":"2026-03-14T00:15:00Z","nodes":41,"points":[{"name":"Test Bridge",
+        "chainage":5000.0,"kind":"bridge","bed_elevation":15.0,"low_chord":19.5,"deck":20.5,
+        "times":["2026-03-14T00:00:00Z","2026-03-14T00:15:00Z"],"stage":[16.0,16.2],
+        "discharge":[20.0,22.0],"crest_stage":16.2,"crest_time":"2026-03-14T00:14:59.999200Z",
+        "peak_discharge":22.0,"low_chord_margin":3.3,"deck_margin":4.3,"thresholds":[
+        {"name":"bank full","elevation":16.1,"severity":"moderate","exceeded":true,
+        "above_at_start":false,"first_above":"2026-03-14T00:07:30Z","back_below":null,
+        "duration_above_s":450.0,"margin":0.1}]}],"diagnostics":{"mass_balance_error_pct":0.01,
+        "max_froude":0.3,"max_froude_chainage":2500.0,"applicability_number":null,
+        "applicability_threshold":30.0,"dry_nodes":0,"extrapolated_chainages":[],"steps":12,
+        "rejected_steps":0,"newton_iterations_total":30,"dt_min_used":60.0,"dt_max_used":600.0,
+        "wall_time_s":0.02,"warnings":[]}}"#;
+    const OLD_PROVENANCE: &str = r#"{"reach_version":1,"method":"diffusive",
+        "routing":{"method":"diffusive","output_interval_s":900.0,"dt_max_s":600.0,"theta":0.6,
+        "kinematic_dt_s":300.0},"upstream_gauge":"test-gauge","rules":{"lookback_hours":12,
+        "horizon_hours":48,"max_gap_minutes":60,"stale_after_minutes":90,
+        "extrapolation":"persistence"},"engine_version":"0.1.0","inflow":{
+        "observed_from":"2026-03-14T00:00:00+00:00","observed_to":"2026-03-14T00:00:00+00:00",
+        "observed_count":1,"excluded_suspect":0,"excluded_unconvertible":0,"excluded_future":0,
+        "duplicates_replaced":0,"gaps_interpolated":[],"gap_restart":null,"upload_join":null,
+        "source_beyond_now":"persistence","upload_version":null,"upload_issued_at":null,
+        "upload_issued_by":null,"extrapolated_from":"2026-03-14T00:00:00.123456789+00:00",
+        "last_reading_age_s":60,"stale":true,"warnings":["w"]},"wall_time_s":0.02,
+        "diagnostics":{"mass_balance_error_pct":0.01,"dry_nodes":0,"warnings":[]}}"#;
+
+    #[tokio::test]
+    async fn first_release_runs_read_as_typed_records() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let store = Store::open(&StorageConfig {
+            data_dir: dir.path().to_owned(),
+            ..StorageConfig::default()
+        })
+        .await
+        .expect("open");
+        let spec = crate::demo::reach().expect("demo reach");
+        store.put_reach("old", &spec, None).await.expect("reach");
+        sqlx::query(
+            "INSERT INTO forecast_runs (reach_id, reach_version, started_at, finished_at, status,
+                 provenance, results)
+             VALUES ('old', 1, '2026-03-14T00:00:01.123456789+00:00',
+                     '2026-03-14T00:00:02.5+00:00', 'ok', ?1, ?2)",
+        )
+        .bind(OLD_PROVENANCE)
+        .bind(OLD_RESULTS)
+        .execute(store.pool())
+        .await
+        .expect("insert");
+        let run = store
+            .latest_run("old", Some(RunStatus::Ok))
+            .await
+            .expect("read")
+            .expect("a run");
+        assert_eq!(
+            crate::wire_time::format(run.started_at),
+            "2026-03-14T00:00:01.123Z"
+        );
+        let inflow = run.provenance.inflow.as_ref().expect("inflow provenance");
+        assert_eq!(inflow.source_beyond_now, Source::Persistence);
+        assert!(run.provenance.inflow_stale());
+        let results = run.results.expect("results");
+        let t = &results.points[0].thresholds[0];
+        assert!(
+            !t.above_now && t.exceeded,
+            "above_at_start reads as above_now"
+        );
+        assert_eq!(results.diagnostics.steps, 12);
+        assert!(results.diagnostics.applicability_number.is_none());
+    }
+}

@@ -156,9 +156,9 @@ impl Store {
         Ok((guard, tx))
     }
 
-    /// The pool, for this module's tests.
+    /// The pool, for the store's own tests.
     #[cfg(test)]
-    fn pool(&self) -> &SqlitePool {
+    pub(crate) fn pool(&self) -> &SqlitePool {
         &self.pool
     }
 
