@@ -45,7 +45,7 @@ pub struct ExceedanceCache {
 
 /// One situation as this endpoint names its fields (lengths in the unit
 /// system asked for).
-#[derive(Debug, Serialize)]
+#[derive(Debug, Clone, Serialize)]
 struct Item<'a> {
     reach: &'a str,
     reach_name: &'a str,
@@ -93,52 +93,31 @@ impl<'a> Item<'a> {
     }
 }
 
-/// What an item means, for the validator: everything but which run said it
-/// and when. While a level is above now its "first above" is the instant
-/// the run finished, and a crest at that instant is "now": both move with
-/// every run without news, so they are left out.
-#[derive(Serialize)]
-struct Meaning<'a> {
-    reach: &'a str,
-    point: &'a str,
-    threshold: &'a str,
-    elevation: f64,
-    severity: Severity,
-    exceeded: bool,
-    above_now: bool,
-    rises_at: Option<DateTime<Utc>>,
-    back_below: Option<DateTime<Utc>>,
-    crest_stage: f64,
-    crest_at: Option<DateTime<Utc>>,
-    margin: f64,
-    stale: bool,
-}
-
-impl<'a> Meaning<'a> {
-    fn of(s: &'a Situation) -> Self {
-        Meaning {
-            reach: &s.reach_id,
-            point: &s.point_name,
-            threshold: &s.threshold_name,
-            elevation: s.elevation,
-            severity: s.severity,
-            exceeded: s.exceeded,
-            above_now: s.above_now,
-            rises_at: s.first_above.filter(|_| !s.above_now),
-            back_below: s.back_below,
-            crest_stage: s.crest_stage,
-            crest_at: Some(s.crest_time).filter(|t| *t != s.run_finished),
-            margin: s.margin,
-            stale: s.stale,
+impl Item<'_> {
+    /// What the item means, for the validator: everything but which run
+    /// said it and when. While a level is above now its "first above" is
+    /// the instant the run finished, and a crest at that instant is "now":
+    /// both move with every run without news, so they are blanked too.
+    fn meaning(&self) -> Self {
+        let mut m = self.clone();
+        let now = m.run_finished;
+        if m.above_now {
+            m.first_above = None;
         }
+        if m.crest_time == now {
+            m.crest_time = DateTime::<Utc>::UNIX_EPOCH;
+        }
+        m.run_id = 0;
+        m.run_finished = DateTime::<Utc>::UNIX_EPOCH;
+        m
     }
 }
 
 /// A weak validator (RFC 9110 §8.8.1) over the meaning of the board: a new
 /// run that says the same keeps it, so a poller's `If-None-Match` gets a
 /// 304 until something an alerting system acts on has changed.
-fn meaning_etag(situations: &[Situation], units: Units) -> Result<String, ApiError> {
-    let meaning: Vec<Meaning<'_>> = situations.iter().map(Meaning::of).collect();
+fn meaning_etag(items: &[Item<'_>], units: Units) -> Result<String, ApiError> {
+    let meaning: Vec<Item<'_>> = items.iter().map(Item::meaning).collect();
     let bytes = serde_json::to_vec(&meaning).map_err(|e| ApiError::Internal(e.into()))?;
     Ok(format!(
         "W/\"{}-{:016x}\"",
@@ -182,7 +161,7 @@ fn render(state: &AppState, units: Units) -> Result<(Bytes, String), ApiError> {
         items: situations.iter().map(|s| Item::of(s, units)).collect(),
     };
     let body = Bytes::from(serde_json::to_vec(&doc).map_err(|e| ApiError::Internal(e.into()))?);
-    let etag = meaning_etag(&situations, units)?;
+    let etag = meaning_etag(&doc.items, units)?;
     if let Ok(mut e) = state.exceedance_cache.entries.write() {
         e.retain(|(v, _, _, _)| *v == version);
         e.push((version, units, body.clone(), etag.clone()));
