@@ -8,12 +8,13 @@
 //! re-read are marked "(from memory)". The reach and its places are
 //! invented.
 
-mod common;
-
 use std::collections::HashMap;
 
+use crate::common::{
+    self,
+    xml::{El, cap_time_value as time_of, is_cap_time, is_cap_token, parse},
+};
 use chrono::{DateTime, Duration, Utc};
-use common::xml::{El, cap_time_value as time_of, is_cap_time, is_cap_token, parse};
 use reachcast::{CAUTION, auth::Role, config::Config, forecast::cap::Status};
 use serde_json::{Value, json};
 

@@ -13,12 +13,10 @@
 //!   documented schema (a small JSON Schema checker below), and `ETag`
 //!   answers give the documented 304.
 
-mod common;
-
 use std::collections::{BTreeMap, BTreeSet};
 
+use crate::common::{TestApp, spawn_app_with, test_config};
 use chrono::{DateTime, SecondsFormat, Utc};
-use common::{TestApp, spawn_app_with, test_config};
 use reachcast::{auth::Role, http::openapi::DOCUMENT};
 use serde_json::{Value, json};
 

@@ -2,9 +2,7 @@
 //! readings (JSON and CSV), idempotency, revisions, the rate-of-rise flag,
 //! paging, keys and roles, problem documents.
 
-mod common;
-
-use common::{TestApp, gauge_body, make_key, spawn_app, spawn_app_with, test_config};
+use crate::common::{TestApp, gauge_body, make_key, spawn_app, spawn_app_with, test_config};
 use serde_json::{Value, json};
 
 /// An app with one gauge `alder-weir`, an admin key, a gauge key for it and

@@ -1,10 +1,8 @@
 //! The service skeleton, through a real HTTP server on a real SQLite file.
 
-mod common;
-
 use std::process::Command;
 
-use common::spawn_app;
+use crate::common::spawn_app;
 use serde_json::Value;
 
 #[tokio::test]

@@ -14,16 +14,14 @@
 //! API) for a condition and fails with a message at a deadline. Screenshots
 //! land in `target/dashboard-artifacts/`.
 
-mod common;
-
 use std::{
     path::{Path, PathBuf},
     process::{Child, Command, Stdio},
     time::{Duration, Instant},
 };
 
+use crate::common::{TestApp, make_key, spawn_app_with, test_config};
 use base64::Engine as _;
-use common::{TestApp, make_key, spawn_app_with, test_config};
 use serde_json::{Value, json};
 
 const INSTALL_HINT: &str = "install them with: apt-get install -y --no-install-recommends chromium chromium-driver \
@@ -1179,8 +1177,9 @@ async fn reach_picker_switches_reach_with_its_own_units_and_time_zone() {
 
     // A second invented reach: the demo geometry, shown in US units on a
     // -05:00 clock.
-    let mut spec: Value = serde_json::from_str(include_str!("../src/demo/brindlemoor-reach.json"))
-        .expect("demo reach JSON");
+    let mut spec: Value =
+        serde_json::from_str(include_str!("../../src/demo/brindlemoor-reach.json"))
+            .expect("demo reach JSON");
     spec["name"] = json!("Tansy Beck test copy (invented)");
     spec["service"]["units"] = json!("us");
     spec["service"]["time_zone"] = json!("-05:00");

@@ -2,12 +2,10 @@
 //! SQLite file: readings in, scheduled and triggered runs, uploads,
 //! staleness, failures, exceedances and validators.
 
-mod common;
-
 use std::time::{Duration, Instant};
 
+use crate::common::{TestApp, spawn_app_with, test_config};
 use chrono::{DateTime, Utc};
-use common::{TestApp, spawn_app_with, test_config};
 use reachcast::auth::Role;
 use serde_json::{Value, json};
 
