@@ -7,7 +7,7 @@
 //!
 //! ```sh
 //! apt-get install -y --no-install-recommends chromium chromium-driver
-//! cargo test --test dashboard -- --include-ignored
+//! cargo test --test it dashboard:: -- --include-ignored --test-threads=1
 //! ```
 //!
 //! Nothing here sleeps to synchronise: every wait polls the page (or the
