@@ -20,7 +20,11 @@ use std::{
     time::{Duration, Instant},
 };
 
-use crate::common::{TestApp, make_key, spawn_app_with, test_config};
+use crate::common::{
+    TestApp,
+    files::{demo_reach_json, repo_path},
+    make_key, spawn_app, spawn_app_with, test_config,
+};
 use base64::Engine as _;
 use serde_json::{Value, json};
 
@@ -398,9 +402,7 @@ impl Drop for Browser {
 }
 
 fn artifacts_dir() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("target")
-        .join("dashboard-artifacts")
+    repo_path("target/dashboard-artifacts")
 }
 
 /// The demo app with the given tweaks, plus a forecaster key.
@@ -427,23 +429,12 @@ async fn wait_for_forecast(app: &TestApp, key: &str) -> Value {
     let deadline = Instant::now() + Duration::from_secs(180);
     let mut asked = false;
     loop {
-        let res = app
-            .client
-            .get(app.url("/api/reaches/brindlemoor/forecast"))
-            .send()
-            .await
-            .expect("GET forecast");
+        let res = app.get("/api/reaches/brindlemoor/forecast").await;
         if res.status() == 200 {
             return res.json().await.expect("forecast JSON");
         }
         if !asked {
-            let run = app
-                .client
-                .post(app.url("/api/reaches/brindlemoor/runs?wait=true"))
-                .bearer_auth(key)
-                .send()
-                .await
-                .expect("POST run");
+            let run = app.run_and_wait(key, "brindlemoor").await;
             asked = run.status().is_success();
         }
         assert!(
@@ -1056,13 +1047,7 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
 
     // A run started elsewhere reaches the open page by polling, with no reload.
     let latest = after["run"]["id"].as_i64().expect("run id");
-    let run = app
-        .client
-        .post(app.url("/api/reaches/brindlemoor/runs?wait=true"))
-        .bearer_auth(&key)
-        .send()
-        .await
-        .expect("POST run");
+    let run = app.run_and_wait(&key, "brindlemoor").await;
     assert_eq!(run.status(), 200);
     b.wait_for(
         "the page to pick up the newer run by polling",
@@ -1134,7 +1119,7 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
 async fn empty_server_shows_the_caution_and_says_there_is_no_reach() {
     let _one = BROWSER.lock().await;
     let dir = tempfile::tempdir().expect("temp dir");
-    let app = spawn_app_with(test_config(dir.path())).await; // demo off
+    let app = spawn_app(dir.path()).await; // demo off
     let b = Browser::start().await;
     b.goto(&app.url("/")).await;
     let notice = b
@@ -1177,28 +1162,13 @@ async fn reach_picker_switches_reach_with_its_own_units_and_time_zone() {
 
     // A second invented reach: the demo geometry, shown in US units on a
     // -05:00 clock.
-    let mut spec: Value =
-        serde_json::from_str(include_str!("../../src/demo/brindlemoor-reach.json"))
-            .expect("demo reach JSON");
+    let mut spec = demo_reach_json();
     spec["name"] = json!("Tansy Beck test copy (invented)");
     spec["service"]["units"] = json!("us");
     spec["service"]["time_zone"] = json!("-05:00");
-    let put = app
-        .client
-        .put(app.url("/api/reaches/tansy-test"))
-        .bearer_auth(&admin)
-        .json(&spec)
-        .send()
-        .await
-        .expect("PUT reach");
+    let put = app.put_reach(&admin, "tansy-test", &spec).await;
     assert!(put.status().is_success(), "PUT reach: {}", put.status());
-    let run = app
-        .client
-        .post(app.url("/api/reaches/tansy-test/runs?wait=true"))
-        .bearer_auth(&key)
-        .send()
-        .await
-        .expect("POST run");
+    let run = app.run_and_wait(&key, "tansy-test").await;
     assert_eq!(run.status(), 200);
     let b = Browser::start().await;
     b.goto(&app.url("/?poll=2000")).await;
