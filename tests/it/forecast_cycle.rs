@@ -5,7 +5,7 @@
 use std::time::{Duration, Instant};
 
 use crate::common::{
-    Keys, TestApp, assert_success, body_of, bridge_reach, json_of, reach_gauge, spawn_app_with,
+    ReachApp, TestApp, assert_success, bridge_reach, json_of, reach_gauge, spawn_app_with,
     test_config,
 };
 use chrono::{DateTime, Utc};
@@ -20,38 +20,20 @@ fn reach_doc() -> Value {
     bridge_reach("Test reach (invented)", "Test Bridge", GAUGE)
 }
 
-struct Setup {
-    app: TestApp,
-    admin: String,
-    gauge_key: String,
-    forecaster: String,
-    _dir: tempfile::TempDir,
-}
-
 /// `debounce_ms`: 0 lets new readings run the forecast at once; tests that
 /// drive runs themselves with `wait=true` use a long debounce so no
 /// background run lands between their steps.
-async fn setup(stale_after_minutes: u64, debounce_ms: u64) -> Setup {
-    let dir = tempfile::tempdir().expect("temp dir");
-    let mut config = test_config(dir.path());
-    config.forecast.debounce_ms = debounce_ms;
-    config.forecast.stale_after_minutes = stale_after_minutes;
-    let app = spawn_app_with(config).await;
-    let Keys {
-        admin,
-        gauge: gauge_key,
-        forecaster,
-    } = app.keys(GAUGE).await;
-    body_of(app.put_reach(&admin, REACH, &reach_doc()).await, 201).await;
+async fn setup(stale_after_minutes: u64, debounce_ms: u64) -> ReachApp {
     let gauge = reach_gauge("Test gauge", REACH, "discharge", 19.0, 2.0);
-    assert_success(app.put_gauge(&admin, GAUGE, &gauge).await).await;
-    Setup {
-        app,
-        admin,
-        gauge_key,
-        forecaster,
-        _dir: dir,
-    }
+    ReachApp::start(
+        |c| {
+            c.forecast.debounce_ms = debounce_ms;
+            c.forecast.stale_after_minutes = stale_after_minutes;
+        },
+        (REACH, &reach_doc()),
+        (GAUGE, &gauge),
+    )
+    .await
 }
 
 /// Discharge readings every 15 minutes over `hours` up to `end`, rising
@@ -68,17 +50,21 @@ fn rising(end: DateTime<Utc>, hours: i64, q0: f64, q1: f64) -> Value {
     json!({ "readings": readings })
 }
 
-async fn post_readings(s: &Setup, body: &Value) {
-    assert_success(s.app.post_readings(&s.gauge_key, GAUGE, body).await).await;
+async fn post_readings(s: &ReachApp, body: &Value) {
+    assert_success(s.app.post_readings(&s.keys.gauge, GAUGE, body).await).await;
+}
+
+/// The latest forecast of the test reach: status and body.
+async fn forecast(app: &TestApp) -> (u16, Value) {
+    app.get_json(&format!("/api/reaches/{REACH}/forecast"))
+        .await
 }
 
 /// Waits (with a deadline) until the latest forecast satisfies `ok`.
 async fn forecast_when(app: &TestApp, ok: impl Fn(&Value) -> bool) -> Value {
     let deadline = Instant::now() + Duration::from_secs(30);
     loop {
-        let (status, body) = app
-            .get_json(&format!("/api/reaches/{REACH}/forecast"))
-            .await;
+        let (status, body) = forecast(app).await;
         if status == 200 && ok(&body) {
             return body;
         }
@@ -90,16 +76,16 @@ async fn forecast_when(app: &TestApp, ok: impl Fn(&Value) -> bool) -> Value {
     }
 }
 
-async fn run_now(s: &Setup) -> Value {
-    json_of(s.app.run_and_wait(&s.forecaster, REACH).await, 200).await
+async fn run_now(s: &ReachApp) -> Value {
+    json_of(s.app.run_and_wait(&s.keys.forecaster, REACH).await, 200).await
 }
 
-async fn upload(s: &Setup, series: &[(DateTime<Utc>, f64)], reason: &str) -> i64 {
+async fn upload(s: &ReachApp, series: &[(DateTime<Utc>, f64)], reason: &str) -> i64 {
     let body = json!({
         "reason": reason,
         "series": series.iter().map(|(t, q)| json!({"time": t.to_rfc3339(), "discharge": q})).collect::<Vec<_>>(),
     });
-    let res = s.app.post_inflow(&s.forecaster, REACH, &body).await;
+    let res = s.app.post_inflow(&s.keys.forecaster, REACH, &body).await;
     json_of(res, 201).await["version"]
         .as_i64()
         .expect("version")
@@ -217,10 +203,7 @@ async fn uploads_supersede_extrapolation_and_each_other() {
     post_readings(&s, &rising(now, 3, 20.0, 40.0)).await;
     let r = run_now(&s).await;
     assert_eq!(r["status"], "ok", "{r}");
-    let (_, f0) = s
-        .app
-        .get_json(&format!("/api/reaches/{REACH}/forecast"))
-        .await;
+    let (_, f0) = forecast(&s.app).await;
     assert_eq!(f0["run"]["inflow"]["source_beyond_now"], "persistence");
     // A triangular flood: 40 m³/s now, the peak 6 h ahead, back to 40 m³/s
     // at 18 h, then steady.
@@ -241,19 +224,13 @@ async fn uploads_supersede_extrapolation_and_each_other() {
     };
     let v1 = upload(&s, &flood(150.0), "first revision").await;
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f1) = s
-        .app
-        .get_json(&format!("/api/reaches/{REACH}/forecast"))
-        .await;
+    let (_, f1) = forecast(&s.app).await;
     assert_eq!(f1["run"]["inflow"]["source_beyond_now"], "upload");
     assert_eq!(f1["run"]["inflow"]["upload_version"], v1);
     let v2 = upload(&s, &flood(300.0), "second revision: bigger").await;
     assert_eq!(v2, v1 + 1);
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f2) = s
-        .app
-        .get_json(&format!("/api/reaches/{REACH}/forecast"))
-        .await;
+    let (_, f2) = forecast(&s.app).await;
     assert_eq!(f2["run"]["inflow"]["upload_version"], v2);
     let crest = |f: &Value| f["points"][0]["crest_stage"].as_f64().expect("crest");
     assert!(
@@ -267,16 +244,13 @@ async fn uploads_supersede_extrapolation_and_each_other() {
     let res = s
         .app
         .post(
-            &s.forecaster,
+            &s.keys.forecaster,
             &format!("/api/reaches/{REACH}/inflows/{v2}/withdraw"),
         )
         .await;
     assert_eq!(res.status(), 200);
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f3) = s
-        .app
-        .get_json(&format!("/api/reaches/{REACH}/forecast"))
-        .await;
+    let (_, f3) = forecast(&s.app).await;
     assert_eq!(f3["run"]["inflow"]["upload_version"], v1);
     assert!((crest(&f3) - crest(&f1)).abs() < 0.05);
     // Both uploads are kept for audit.
@@ -290,7 +264,7 @@ async fn uploads_supersede_extrapolation_and_each_other() {
     // A gauge key may not upload (role forecaster needed).
     let res = s
         .app
-        .post_inflow(&s.gauge_key, REACH, &json!({"reason": "x", "series": []}))
+        .post_inflow(&s.keys.gauge, REACH, &json!({"reason": "x", "series": []}))
         .await;
     assert_eq!(res.status(), 403);
     s.app.stop().await;
@@ -304,7 +278,7 @@ async fn bad_upload_lists_every_bad_row() {
         .app
         .client
         .post(s.app.url(&format!("/api/reaches/{REACH}/inflows?reason=storm+update")))
-        .bearer_auth(&s.forecaster)
+        .bearer_auth(&s.keys.forecaster)
         .header("content-type", "text/csv")
         .body("time,discharge\n2026-03-01T00:00:00Z,10\n2026-03-01T01:00:00,20\n2026-03-01T02:00:00Z,-5\n")
         .send()
@@ -339,10 +313,7 @@ async fn silent_gauge_marks_the_forecast_stale() {
     let now = Utc::now();
     post_readings(&s, &rising(now - chrono::Duration::hours(3), 4, 20.0, 60.0)).await;
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f) = s
-        .app
-        .get_json(&format!("/api/reaches/{REACH}/forecast"))
-        .await;
+    let (_, f) = forecast(&s.app).await;
     assert_eq!(f["freshness"]["stale"], true, "{}", f["freshness"]);
     assert!(
         f["freshness"]["reasons"][0]
@@ -363,10 +334,7 @@ async fn silent_gauge_marks_the_forecast_stale() {
     )
     .await;
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f) = s
-        .app
-        .get_json(&format!("/api/reaches/{REACH}/forecast"))
-        .await;
+    let (_, f) = forecast(&s.app).await;
     assert_eq!(f["freshness"]["stale"], false, "{}", f["freshness"]);
     s.app.stop().await;
 }
@@ -382,7 +350,7 @@ async fn failed_run_keeps_the_last_good_forecast() {
     // The gauge now reports stage but has no rating: the inflow cannot be
     // assembled and the run fails.
     let gauge = reach_gauge("Test gauge", REACH, "stage", 19.0, 2.0);
-    let res = s.app.put_gauge(&s.admin, GAUGE, &gauge).await;
+    let res = s.app.put_gauge(&s.keys.admin, GAUGE, &gauge).await;
     assert!(res.status().is_success());
     let bad = run_now(&s).await;
     assert_eq!(bad["status"], "failed");
@@ -390,10 +358,7 @@ async fn failed_run_keeps_the_last_good_forecast() {
         bad["error"].as_str().is_some_and(|e| e.contains("rating")),
         "{bad}"
     );
-    let (status, f) = s
-        .app
-        .get_json(&format!("/api/reaches/{REACH}/forecast"))
-        .await;
+    let (status, f) = forecast(&s.app).await;
     assert_eq!(status, 200);
     let served = f["run"]["id"].as_i64().expect("run id");
     assert!(served >= good["run_id"].as_i64().expect("id"));
@@ -459,10 +424,7 @@ async fn us_units_and_csv() {
     let s = setup(60, 600_000).await;
     post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, si) = s
-        .app
-        .get_json(&format!("/api/reaches/{REACH}/forecast"))
-        .await;
+    let (_, si) = forecast(&s.app).await;
     let (_, us) = s
         .app
         .get_json(&format!("/api/reaches/{REACH}/forecast?units=us"))
@@ -511,7 +473,7 @@ async fn bad_reach_names_the_field() {
     let s = setup(60, 600_000).await;
     let mut doc = reach_doc();
     doc["points"][0]["thresholds"][1]["elevation"] = json!("high");
-    let res = s.app.put_reach(&s.admin, "other", &doc).await;
+    let res = s.app.put_reach(&s.keys.admin, "other", &doc).await;
     assert_eq!(res.status(), 422);
     let p: Value = res.json().await.expect("json");
     assert_eq!(p["field"], "points[0].thresholds[1].elevation");
@@ -520,7 +482,7 @@ async fn bad_reach_names_the_field() {
     let r = run_now(&s).await;
     let mut doc = reach_doc();
     doc["points"][0]["thresholds"][0]["name"] = json!("renamed");
-    let res = s.app.put_reach(&s.admin, REACH, &doc).await;
+    let res = s.app.put_reach(&s.keys.admin, REACH, &doc).await;
     assert_eq!(res.status(), 200);
     let (_, run) = s.app.get_json(&format!("/api/runs/{}", r["run_id"])).await;
     assert_eq!(run["reach_version"], 1);
@@ -538,7 +500,7 @@ async fn reach_time_zone_must_be_a_known_zone() {
     let put = async |zone: &str| {
         let mut doc = reach_doc();
         doc["service"]["time_zone"] = json!(zone);
-        s.app.put_reach(&s.admin, "other", &doc).await
+        s.app.put_reach(&s.keys.admin, "other", &doc).await
     };
     let res = put("Mars/Olympus_Mons").await;
     assert_eq!(res.status(), 422);

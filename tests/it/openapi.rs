@@ -16,8 +16,8 @@
 use std::collections::{BTreeMap, BTreeSet};
 
 use crate::common::{
-    Keys, TestApp, body_of, bridge_reach, files::repo_path, json_of, reach_gauge, spawn_app,
-    spawn_app_with, test_config,
+    Keys, ReachApp, TestApp, body_of, bridge_reach, files::repo_path, json_of, reach_gauge,
+    spawn_app, spawn_app_with, test_config,
 };
 use chrono::{DateTime, SecondsFormat, Utc};
 use reachcast::{auth::Role, http::openapi::DOCUMENT};
@@ -751,19 +751,21 @@ struct Fixture {
 }
 
 async fn fixture() -> Fixture {
-    let dir = tempfile::tempdir().expect("temp dir");
-    let mut config = test_config(dir.path());
-    config.forecast.debounce_ms = 0;
-    config.forecast.stale_after_minutes = 60;
-    let app = spawn_app_with(config).await;
+    let gauge = reach_gauge("Quillet gauge", REACH, "both", 10.0, 5.0);
+    let ReachApp { app, keys, dir } = ReachApp::start(
+        |c| {
+            c.forecast.debounce_ms = 0;
+            c.forecast.stale_after_minutes = 60;
+        },
+        (REACH, &reach_doc()),
+        (GAUGE, &gauge),
+    )
+    .await;
     let Keys {
         admin,
         gauge: gauge_key,
         forecaster,
-    } = app.keys(GAUGE).await;
-    body_of(app.put_reach(&admin, REACH, &reach_doc()).await, 201).await;
-    let gauge = reach_gauge("Quillet gauge", REACH, "both", 10.0, 5.0);
-    body_of(app.put_gauge(&admin, GAUGE, &gauge).await, 201).await;
+    } = keys;
     let now = Utc::now();
     let readings: Vec<Value> = (0..=12_i32)
         .map(|k| {

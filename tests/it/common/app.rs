@@ -126,32 +126,30 @@ impl TestApp {
         }
     }
 
-    pub async fn get(&self, path: &str) -> reqwest::Response {
+    /// Sends `req`, failing the test with the method and URL if it cannot.
+    async fn send(&self, req: reqwest::RequestBuilder) -> reqwest::Response {
+        let req = req.build().expect("request");
+        let what = format!("{} {}", req.method(), req.url());
         self.client
-            .get(self.url(path))
-            .send()
+            .execute(req)
             .await
-            .unwrap_or_else(|e| panic!("GET {path}: {e}"))
+            .unwrap_or_else(|e| panic!("{what}: {e}"))
+    }
+
+    pub async fn get(&self, path: &str) -> reqwest::Response {
+        self.send(self.client.get(self.url(path))).await
     }
 
     /// `GET` with `key` as the bearer token.
     pub async fn get_as(&self, key: &str, path: &str) -> reqwest::Response {
-        self.client
-            .get(self.url(path))
-            .bearer_auth(key)
-            .send()
+        self.send(self.client.get(self.url(path)).bearer_auth(key))
             .await
-            .unwrap_or_else(|e| panic!("GET {path}: {e}"))
     }
 
     /// `GET` with one request header (`If-None-Match`, `Accept`, `Host`).
     pub async fn get_with(&self, path: &str, header: &str, value: &str) -> reqwest::Response {
-        self.client
-            .get(self.url(path))
-            .header(header, value)
-            .send()
+        self.send(self.client.get(self.url(path)).header(header, value))
             .await
-            .unwrap_or_else(|e| panic!("GET {path}: {e}"))
     }
 
     pub async fn get_json(&self, path: &str) -> (u16, Value) {
@@ -162,34 +160,20 @@ impl TestApp {
 
     /// `POST` without a body, with `key`: confirm, withdraw, run.
     pub async fn post(&self, key: &str, path: &str) -> reqwest::Response {
-        self.client
-            .post(self.url(path))
-            .bearer_auth(key)
-            .send()
+        self.send(self.client.post(self.url(path)).bearer_auth(key))
             .await
-            .unwrap_or_else(|e| panic!("POST {path}: {e}"))
     }
 
     /// `POST` of a JSON body with `key`.
     pub async fn post_json(&self, key: &str, path: &str, body: &Value) -> reqwest::Response {
-        self.client
-            .post(self.url(path))
-            .bearer_auth(key)
-            .json(body)
-            .send()
+        self.send(self.client.post(self.url(path)).bearer_auth(key).json(body))
             .await
-            .unwrap_or_else(|e| panic!("POST {path}: {e}"))
     }
 
     /// `PUT` of a JSON body with `key`.
     pub async fn put_json(&self, key: &str, path: &str, body: &Value) -> reqwest::Response {
-        self.client
-            .put(self.url(path))
-            .bearer_auth(key)
-            .json(body)
-            .send()
+        self.send(self.client.put(self.url(path)).bearer_auth(key).json(body))
             .await
-            .unwrap_or_else(|e| panic!("PUT {path}: {e}"))
     }
 
     pub async fn put_gauge(&self, key: &str, id: &str, body: &Value) -> reqwest::Response {
@@ -206,14 +190,13 @@ impl TestApp {
     }
 
     pub async fn post_csv(&self, key: &str, gauge: &str, body: &str) -> reqwest::Response {
-        self.client
+        let req = self
+            .client
             .post(self.url(&format!("/api/gauges/{gauge}/readings")))
             .bearer_auth(key)
             .header("content-type", "text/csv")
-            .body(body.to_owned())
-            .send()
-            .await
-            .expect("POST csv")
+            .body(body.to_owned());
+        self.send(req).await
     }
 
     /// Uploads an inflow forecast (`{"reason", "series"}`) for `reach`.

@@ -1,6 +1,38 @@
-//! Invented reaches and gauges that several areas set up the same way.
+//! Invented reaches and gauges that several areas set up the same way, and
+//! a fresh app serving one of them.
 
+use reachcast::config::Config;
 use serde_json::{Value, json};
+
+use super::{Keys, TestApp, body_of, spawn_app_with, test_config};
+
+/// A fresh app on its own temporary data directory with one reach and its
+/// gauge created, and one key of each role.
+pub struct ReachApp {
+    pub app: TestApp,
+    pub keys: Keys,
+    pub dir: tempfile::TempDir,
+}
+
+impl ReachApp {
+    /// Starts the app with the test configuration changed by `change`, then
+    /// creates reach `reach` from `doc` and gauge `gauge` from `gauge_doc`
+    /// (each a 201), the gauge key being for `gauge`.
+    pub async fn start(
+        change: impl FnOnce(&mut Config),
+        (reach, doc): (&str, &Value),
+        (gauge, gauge_doc): (&str, &Value),
+    ) -> ReachApp {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let mut config = test_config(dir.path());
+        change(&mut config);
+        let app = spawn_app_with(config).await;
+        let keys = app.keys(gauge).await;
+        body_of(app.put_reach(&keys.admin, reach, doc).await, 201).await;
+        body_of(app.put_gauge(&keys.admin, gauge, gauge_doc).await, 201).await;
+        ReachApp { app, keys, dir }
+    }
+}
 
 /// An invented 10 km trapezoidal reach (bottom 15 m, sides 1:2, n 0.035,
 /// bed falling from 20 m to 10 m: slope 0.001) with the bridge `point` at
