@@ -361,7 +361,7 @@ const fn pt(slug: &'static str, title: &'static str, explanation: &'static str) 
     }
 }
 
-/// Every problem type the service emits (`tests/foundation.rs` checks the
+/// Every problem type the service emits (`tests/it/foundation.rs` checks the
 /// list against the source both ways).
 pub const PROBLEM_TYPES: &[ProblemType] = &[
     pt(

@@ -1,7 +1,8 @@
 //! `GET /api/openapi.json`: the OpenAPI 3.1 description of the whole HTTP
 //! API, written by hand in `openapi.json` beside this file and embedded in
-//! the binary. `tests/openapi.rs` keeps it honest: every route is described,
-//! every described operation is routed, and real answers match it.
+//! the binary. `tests/it/openapi.rs` keeps it honest: every route is
+//! described, every described operation is routed, and real answers match
+//! it.
 
 use axum::{
     Router,

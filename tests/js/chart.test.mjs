@@ -1,5 +1,5 @@
 // Unit tests for the dashboard's pure chart and format functions.
-// Run: node --test tests/js/   (tests/dashboard_js.rs runs this under cargo test)
+// Run: node --test tests/js/   (tests/it/dashboard_js.rs runs this under cargo test)
 import { test } from "node:test";
 import assert from "node:assert/strict";
 

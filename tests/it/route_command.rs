@@ -1,23 +1,36 @@
 //! The offline `route` command, run as the real binary on the invented demo
 //! reach shipped in `src/demo/`, and the demo reach's numerical convergence.
 
-use std::{path::PathBuf, process::Command};
+use std::{path::Path, process::Output};
 
 use reachcast::forecast::{hydrograph::Hydrograph, inflow, run, spec::ReachSpec};
 
-fn demo(file: &str) -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-        .join("src/demo")
-        .join(file)
+use crate::common::{
+    binary::reachcast,
+    files::{demo_file, demo_reach_json},
+};
+
+/// `reachcast route --reach REACH --inflow INFLOW` and the `extra` arguments.
+fn route(reach: &Path, inflow: &Path, extra: &[&std::ffi::OsStr]) -> Output {
+    reachcast()
+        .arg("route")
+        .arg("--reach")
+        .arg(reach)
+        .arg("--inflow")
+        .arg(inflow)
+        .args(extra)
+        .output()
+        .expect("run binary")
 }
 
 fn demo_inputs() -> (ReachSpec, Hydrograph) {
     let spec = ReachSpec::from_json(
-        &std::fs::read_to_string(demo("brindlemoor-reach.json")).expect("reach"),
+        &std::fs::read_to_string(demo_file("brindlemoor-reach.json")).expect("reach"),
     )
     .expect("demo reach is valid");
-    let inflow = inflow::parse_csv(&std::fs::read(demo("brindlemoor-inflow.csv")).expect("inflow"))
-        .expect("demo inflow is valid");
+    let inflow =
+        inflow::parse_csv(&std::fs::read(demo_file("brindlemoor-inflow.csv")).expect("inflow"))
+            .expect("demo inflow is valid");
     (spec, inflow)
 }
 
@@ -25,16 +38,11 @@ fn demo_inputs() -> (ReachSpec, Hydrograph) {
 fn route_prints_summary_and_writes_hydrographs() {
     let dir = tempfile::tempdir().expect("temp dir");
     let out_csv = dir.path().join("results.csv");
-    let out = Command::new(env!("CARGO_BIN_EXE_reachcast"))
-        .arg("route")
-        .arg("--reach")
-        .arg(demo("brindlemoor-reach.json"))
-        .arg("--inflow")
-        .arg(demo("brindlemoor-inflow.csv"))
-        .arg("--out")
-        .arg(&out_csv)
-        .output()
-        .expect("run binary");
+    let out = route(
+        &demo_file("brindlemoor-reach.json"),
+        &demo_file("brindlemoor-inflow.csv"),
+        &["--out".as_ref(), out_csv.as_os_str()],
+    );
     let stdout = String::from_utf8_lossy(&out.stdout);
     assert!(
         out.status.success(),
@@ -79,19 +87,11 @@ fn route_prints_summary_and_writes_hydrographs() {
 #[test]
 fn route_names_the_bad_field() {
     let dir = tempfile::tempdir().expect("temp dir");
-    let text = std::fs::read_to_string(demo("brindlemoor-reach.json")).expect("reach");
-    let mut v: serde_json::Value = serde_json::from_str(&text).expect("json");
+    let mut v = demo_reach_json();
     v["points"][1]["chainage"] = serde_json::json!(99_999.0);
     let bad = dir.path().join("bad.json");
     std::fs::write(&bad, v.to_string()).expect("write");
-    let out = Command::new(env!("CARGO_BIN_EXE_reachcast"))
-        .arg("route")
-        .arg("--reach")
-        .arg(&bad)
-        .arg("--inflow")
-        .arg(demo("brindlemoor-inflow.csv"))
-        .output()
-        .expect("run binary");
+    let out = route(&bad, &demo_file("brindlemoor-inflow.csv"), &[]);
     assert!(!out.status.success());
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(stderr.contains("points[1].chainage"), "{stderr}");
@@ -102,14 +102,7 @@ fn route_names_the_bad_field() {
         "time,discharge\n2026-03-14T00:00:00Z,10\n2026-03-14T01:00:00,20\n",
     )
     .expect("write");
-    let out = Command::new(env!("CARGO_BIN_EXE_reachcast"))
-        .arg("route")
-        .arg("--reach")
-        .arg(demo("brindlemoor-reach.json"))
-        .arg("--inflow")
-        .arg(&inflow)
-        .output()
-        .expect("run binary");
+    let out = route(&demo_file("brindlemoor-reach.json"), &inflow, &[]);
     assert!(!out.status.success());
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(

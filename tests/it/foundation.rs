@@ -1,22 +1,20 @@
 //! The service skeleton, through a real HTTP server on a real SQLite file.
 
-mod common;
-
 use std::process::Command;
 
-use common::spawn_app;
+use crate::common::{
+    assert_wire_time,
+    binary::{Server, reachcast, serve},
+    files::{files_under, repo_path},
+    problem, spawn_app,
+};
 use serde_json::Value;
 
 #[tokio::test]
 async fn health_answers_ok() {
     let dir = tempfile::tempdir().expect("temp dir");
     let app = spawn_app(dir.path()).await;
-    let res = app
-        .client
-        .get(app.url("/health"))
-        .send()
-        .await
-        .expect("GET /health");
+    let res = app.get("/health").await;
     assert_eq!(res.status(), 200);
     assert!(
         res.headers().get("x-request-id").is_some(),
@@ -31,12 +29,7 @@ async fn health_answers_ok() {
 async fn ready_reports_database_and_schema() {
     let dir = tempfile::tempdir().expect("temp dir");
     let app = spawn_app(dir.path()).await;
-    let res = app
-        .client
-        .get(app.url("/ready"))
-        .send()
-        .await
-        .expect("GET /ready");
+    let res = app.get("/ready").await;
     assert_eq!(res.status(), 200);
     let body: Value = res.json().await.expect("json");
     assert_eq!(body["status"], "ready");
@@ -45,12 +38,7 @@ async fn ready_reports_database_and_schema() {
     // The one wire form of a time (README, "API"): RFC 3339 UTC with
     // exactly three fraction digits and `Z`.
     for member in ["created_at", "last_start"] {
-        let t = body["instance"][member].as_str().expect("time");
-        let shape: String = t
-            .chars()
-            .map(|c| if c.is_ascii_digit() { 'd' } else { c })
-            .collect();
-        assert_eq!(shape, "dddd-dd-ddTdd:dd:dd.dddZ", "{member}: {t}");
+        assert_wire_time(&body["instance"][member]);
     }
     assert!(
         dir.path().join("reachcast.sqlite3").exists(),
@@ -63,7 +51,7 @@ async fn ready_reports_database_and_schema() {
 async fn dashboard_page_carries_the_caution() {
     let dir = tempfile::tempdir().expect("temp dir");
     let app = spawn_app(dir.path()).await;
-    let res = app.client.get(app.url("/")).send().await.expect("GET /");
+    let res = app.get("/").await;
     assert_eq!(res.status(), 200);
     let ctype = res.headers()["content-type"]
         .to_str()
@@ -76,12 +64,8 @@ async fn dashboard_page_carries_the_caution() {
     assert!(html.contains("not an official warning"));
     // Revalidation with the ETag costs a 304 and no body.
     let again = app
-        .client
-        .get(app.url("/"))
-        .header("if-none-match", etag)
-        .send()
-        .await
-        .expect("GET / again");
+        .get_with("/", "if-none-match", etag.to_str().expect("ascii"))
+        .await;
     assert_eq!(again.status(), 304);
     app.stop().await;
 }
@@ -90,18 +74,9 @@ async fn dashboard_page_carries_the_caution() {
 async fn unknown_api_path_is_a_problem_document() {
     let dir = tempfile::tempdir().expect("temp dir");
     let app = spawn_app(dir.path()).await;
-    let res = app
-        .client
-        .get(app.url("/api/nothing-here"))
-        .send()
-        .await
-        .expect("GET");
-    assert_eq!(res.status(), 404);
+    let res = app.get("/api/nothing-here").await;
     // RFC 9457 §3: media type application/problem+json, members type/title/status.
-    assert_eq!(res.headers()["content-type"], "application/problem+json");
-    let body: Value = res.json().await.expect("json");
-    assert_eq!(body["status"], 404);
-    assert!(body["type"].is_string() && body["title"].is_string());
+    let body = problem(res, 404).await;
     // RFC 9457 §3.1.5: `instance` identifies this occurrence; it is the
     // path the client asked for, `/api` included (the nested router sees
     // the path without it).
@@ -115,28 +90,17 @@ async fn unknown_api_path_is_a_problem_document() {
 /// `invalid-value` for `Problem::invalid`, and the kinds `problemize`
 /// gives other error answers (`generic_kind`, over every 4xx and 5xx).
 fn emitted_problem_types() -> std::collections::BTreeSet<String> {
-    fn rust_files(dir: &std::path::Path, out: &mut Vec<std::path::PathBuf>) {
-        for entry in std::fs::read_dir(dir).expect("read src") {
-            let path = entry.expect("entry").path();
-            if path.is_dir() {
-                rust_files(&path, out);
-            } else if path.extension().is_some_and(|e| e == "rs") {
-                out.push(path);
-            }
-        }
-    }
     /// The string literal `text` starts with (after white space), if any.
     fn first_literal(text: &str) -> Option<&str> {
         text.trim_start().strip_prefix('"')?.split('"').next()
     }
-    let mut files = Vec::new();
-    rust_files(
-        &std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("src"),
-        &mut files,
-    );
+    let files = files_under(&repo_path("src"));
+    let rust_files = files
+        .iter()
+        .filter(|p| p.extension().is_some_and(|e| e == "rs"));
     let mut kinds = std::collections::BTreeSet::new();
-    for file in files {
-        let text = std::fs::read_to_string(&file).expect("source");
+    for file in rust_files {
+        let text = std::fs::read_to_string(file).expect("source");
         for piece in text.split("Problem::new(").skip(1) {
             // The kind is the second argument: after the first comma.
             if let Some(kind) = piece.split_once(',').and_then(|(_, r)| first_literal(r)) {
@@ -171,12 +135,7 @@ async fn every_problem_type_resolves_to_its_page() {
     let kinds = emitted_problem_types();
     assert!(kinds.len() >= 15, "{kinds:?}");
     for kind in &kinds {
-        let res = app
-            .client
-            .get(app.url(&format!("/problems/{kind}")))
-            .send()
-            .await
-            .expect("GET");
+        let res = app.get(&format!("/problems/{kind}")).await;
         assert_eq!(res.status(), 200, "/problems/{kind}");
         let ctype = res.headers()["content-type"]
             .to_str()
@@ -192,12 +151,7 @@ async fn every_problem_type_resolves_to_its_page() {
         .map(|t| t.slug.to_owned())
         .collect();
     assert_eq!(&catalogued, &kinds, "catalogue and code agree");
-    let res = app
-        .client
-        .get(app.url("/problems/no-such-problem"))
-        .send()
-        .await
-        .expect("GET");
+    let res = app.get("/problems/no-such-problem").await;
     assert_eq!(res.status(), 404);
     assert_eq!(res.headers()["content-type"], "application/problem+json");
     app.stop().await;
@@ -207,27 +161,11 @@ async fn every_problem_type_resolves_to_its_page() {
 async fn restart_on_same_data_dir_keeps_what_was_written() {
     let dir = tempfile::tempdir().expect("temp dir");
     let first = spawn_app(dir.path()).await;
-    let a: Value = first
-        .client
-        .get(first.url("/ready"))
-        .send()
-        .await
-        .expect("GET /ready")
-        .json()
-        .await
-        .expect("json");
+    let (_, a) = first.get_json("/ready").await;
     first.stop().await;
 
     let second = spawn_app(dir.path()).await;
-    let b: Value = second
-        .client
-        .get(second.url("/ready"))
-        .send()
-        .await
-        .expect("GET /ready")
-        .json()
-        .await
-        .expect("json");
+    let (_, b) = second.get_json("/ready").await;
     assert_eq!(a["instance"]["instance_id"], b["instance"]["instance_id"]);
     assert_eq!(a["instance"]["created_at"], b["instance"]["created_at"]);
     assert_eq!(
@@ -243,7 +181,7 @@ fn bad_config_value_fails_start_naming_the_key() {
     let dir = tempfile::tempdir().expect("temp dir");
     let cfg = dir.path().join("bad.toml");
     std::fs::write(&cfg, "[server]\nshutdown_grace_secs = \"later\"\n").expect("write");
-    let out = Command::new(env!("CARGO_BIN_EXE_reachcast"))
+    let out = reachcast()
         .args(["--config"])
         .arg(&cfg)
         .args(["--data-dir"])
@@ -258,7 +196,7 @@ fn bad_config_value_fails_start_naming_the_key() {
         "nothing written before config is valid"
     );
 
-    let out = Command::new(env!("CARGO_BIN_EXE_reachcast"))
+    let out = reachcast()
         .env("REACHCAST_STORAGE_MAX_CONNECTIONS", "0")
         .args(["--data-dir"])
         .arg(dir.path().join("data"))
@@ -281,7 +219,7 @@ fn bad_config_value_fails_start_naming_the_key() {
 fn env_values_are_typed_by_their_key() {
     let dir = tempfile::tempdir().expect("temp dir");
     let keys_list = |var: &str, value: &str| {
-        Command::new(env!("CARGO_BIN_EXE_reachcast"))
+        reachcast()
             .env(var, value)
             .args(["keys", "list", "--data-dir"])
             .arg(dir.path().join("data"))
@@ -306,28 +244,13 @@ fn env_values_are_typed_by_their_key() {
 #[cfg(unix)]
 #[test]
 fn binary_stops_cleanly_on_sigterm() {
-    use std::io::{BufRead, BufReader};
     let dir = tempfile::tempdir().expect("temp dir");
-    let mut child = Command::new(env!("CARGO_BIN_EXE_reachcast"))
-        .args(["serve", "--bind", "127.0.0.1:0", "--data-dir"])
-        .arg(dir.path())
-        .env("REACHCAST_DEMO_ENABLED", "false")
-        .env("RUST_LOG", "info")
-        .stderr(std::process::Stdio::piped())
-        .spawn()
-        .expect("spawn");
-    let stderr = child.stderr.take().expect("stderr");
-    let mut lines = BufReader::new(stderr).lines();
-    // Wait for the listening line: the server is up once it is logged.
-    let mut seen = false;
-    for line in lines.by_ref() {
-        let line = line.expect("line");
-        if line.contains("listening") {
-            seen = true;
-            break;
-        }
-    }
-    assert!(seen, "server announced its address");
+    // Waits for the listening line: the server is up once it is logged.
+    let Server {
+        mut child,
+        log: lines,
+        ..
+    } = serve(dir.path(), &[]);
     let pid = child.id().to_string();
     let status = Command::new("kill")
         .args(["-TERM", &pid])

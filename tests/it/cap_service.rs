@@ -8,12 +8,13 @@
 //! re-read are marked "(from memory)". The reach and its places are
 //! invented.
 
-mod common;
-
 use std::collections::HashMap;
 
+use crate::common::{
+    self, body_of,
+    xml::{El, cap_time_value as time_of, is_cap_time, is_cap_token, parse},
+};
 use chrono::{DateTime, Duration, Utc};
-use common::xml::{El, cap_time_value as time_of, is_cap_time, is_cap_token, parse};
 use reachcast::{CAUTION, auth::Role, config::Config, forecast::cap::Status};
 use serde_json::{Value, json};
 
@@ -83,48 +84,23 @@ struct Service {
 
 impl Service {
     async fn upload(&self, base: f64, peak: f64) {
-        let res = self
-            .app
-            .client
-            .post(self.app.url(&format!("/api/reaches/{REACH}/inflows")))
-            .bearer_auth(&self.forecaster)
-            .json(&hydrograph(self.storm_start, base, peak))
-            .send()
-            .await
-            .expect("POST inflows");
+        let series = hydrograph(self.storm_start, base, peak);
+        let res = self.app.post_inflow(&self.forecaster, REACH, &series).await;
         assert!(res.status().is_success(), "upload: {}", res.status());
     }
 
     /// Triggers a run and waits for it; returns its id.
     async fn run(&self) -> i64 {
-        let res = self
-            .app
-            .client
-            .post(
-                self.app
-                    .url(&format!("/api/reaches/{REACH}/runs?wait=true")),
-            )
-            .bearer_auth(&self.forecaster)
-            .send()
-            .await
-            .expect("POST run");
+        let res = self.app.run_and_wait(&self.forecaster, REACH).await;
         assert_eq!(res.status(), 200);
         let body: Value = res.json().await.expect("run summary");
         assert_eq!(body["status"], "ok", "{body}");
         body["run_id"].as_i64().expect("run id")
     }
 
-    async fn get(&self, path: &str, etag: Option<&str>) -> reqwest::Response {
-        let mut req = self.app.client.get(self.app.url(path));
-        if let Some(t) = etag {
-            req = req.header("if-none-match", t);
-        }
-        req.send().await.expect("GET")
-    }
-
     /// The feed, its ETag, and each entry's CAP document parsed.
     async fn feed(&self, path: &str) -> (El, String, Vec<Message>) {
-        let res = self.get(path, None).await;
+        let res = self.app.get(path).await;
         assert_eq!(res.status(), 200);
         // RFC 4287 §7: the Atom media type.
         assert_eq!(res.headers()["content-type"], "application/atom+xml");
@@ -170,7 +146,7 @@ impl Service {
     /// the test server and checks the elements CAP 1.2 requires.
     async fn message(&self, href: &str) -> Message {
         let path = href.strip_prefix(BASE).expect("link under alerts.base_url");
-        let res = self.get(path, None).await;
+        let res = self.app.get(path).await;
         assert_eq!(res.status(), 200, "{href}");
         assert_eq!(res.headers()["content-type"], "application/cap+xml");
         let xml = res.text().await.expect("CAP body");
@@ -292,38 +268,31 @@ fn ids(messages: &[Message]) -> Vec<String> {
     v
 }
 
+/// The service's configuration in these tests: `SENDER`, exercise
+/// messages, and runs only when the test asks: data-triggered runs wait
+/// ten minutes, longer than the test; the periodic run is an hour away.
+fn service_config(dir: &std::path::Path) -> Config {
+    let mut config = common::test_config(dir);
+    config.forecast.debounce_ms = 600_000;
+    config.forecast.interval_minutes = 60;
+    config.alerts.sender = SENDER.to_owned();
+    config.alerts.cap_status = Some(Status::Exercise);
+    config
+}
+
 async fn start(dir: &std::path::Path) -> Service {
     start_with(dir, |_| {}).await
 }
 
 /// [`start`] with the test's changes to the configuration.
 async fn start_with(dir: &std::path::Path, change: impl FnOnce(&mut Config)) -> Service {
-    let mut config = common::test_config(dir);
-    // Runs happen only when the test asks: data-triggered runs wait ten
-    // minutes, longer than the test; the periodic run is an hour away.
-    config.forecast.debounce_ms = 600_000;
-    config.forecast.interval_minutes = 60;
-    config.alerts.sender = SENDER.to_owned();
-    config.alerts.cap_status = Some(Status::Exercise);
+    let mut config = service_config(dir);
     config.alerts.base_url = format!("{BASE}/");
     change(&mut config);
     let app = common::spawn_app_with(config).await;
     let admin = app.key(Role::Admin, &[]).await;
     let forecaster = app.key(Role::Forecaster, &[]).await;
-    let res = app
-        .client
-        .put(app.url(&format!("/api/reaches/{REACH}")))
-        .bearer_auth(&admin)
-        .json(&reach_json())
-        .send()
-        .await
-        .expect("PUT reach");
-    assert_eq!(
-        res.status(),
-        201,
-        "{}",
-        res.text().await.unwrap_or_default()
-    );
+    body_of(app.put_reach(&admin, REACH, &reach_json()).await, 201).await;
     Service {
         app,
         forecaster,
@@ -367,7 +336,7 @@ async fn alert_update_cancel_chain_through_the_service() {
     // 2. The same data again: nothing new, and the feed answers 304 to its
     // ETag (RFC 9110 §13.1.2).
     s.run().await;
-    let res = s.get(feed_path, Some(&etag1)).await;
+    let res = s.app.get_with(feed_path, "if-none-match", &etag1).await;
     assert_eq!(res.status(), 304);
     assert_eq!(res.headers()["etag"].to_str().expect("etag"), etag1);
     let (_, etag_again, again) = s.feed(feed_path).await;
@@ -394,7 +363,7 @@ async fn alert_update_cancel_chain_through_the_service() {
     assert!(updates["Mill lane"].references.is_empty());
     // The earlier Alerts stay retrievable by identifier.
     for a in alerts.values() {
-        let res = s.get(&format!("/api/cap/{}", a.identifier), None).await;
+        let res = s.app.get(&format!("/api/cap/{}", a.identifier)).await;
         assert_eq!(res.status(), 200);
     }
 
@@ -423,7 +392,13 @@ async fn alert_update_cancel_chain_through_the_service() {
 
     // 5. Low flow again: nothing new.
     s.run().await;
-    assert_eq!(s.get(feed_path, Some(&etag3)).await.status(), 304);
+    assert_eq!(
+        s.app
+            .get_with(feed_path, "if-none-match", &etag3)
+            .await
+            .status(),
+        304
+    );
 
     // The reach's own feed lists the same messages.
     let reach_path = format!("/api/reaches/{REACH}/cap/feed.atom");
@@ -441,7 +416,7 @@ async fn unknown_message_and_reach_are_404_problems() {
         "/api/cap/reachcast-nowhere-r1-0000000000000000".to_owned(),
         "/api/reaches/nowhere/cap/feed.atom".to_owned(),
     ] {
-        let res = s.get(&path, None).await;
+        let res = s.app.get(&path).await;
         assert_eq!(res.status(), 404, "{path}");
         // RFC 9457 problem details.
         assert_eq!(
@@ -469,11 +444,7 @@ async fn messages_survive_a_restart_and_chains_continue() {
     s.app.stop().await;
 
     // Same data directory, new process state.
-    let mut config = common::test_config(dir.path());
-    config.forecast.debounce_ms = 600_000;
-    config.forecast.interval_minutes = 60;
-    config.alerts.sender = SENDER.to_owned();
-    config.alerts.cap_status = Some(Status::Exercise);
+    let mut config = service_config(dir.path());
     config.alerts.base_url = BASE.to_owned();
     let s = Service {
         app: common::spawn_app_with(config).await,
@@ -481,7 +452,13 @@ async fn messages_survive_a_restart_and_chains_continue() {
         storm_start,
     };
     // The stored messages are served as before (same bytes, same ETag)…
-    assert_eq!(s.get("/api/cap/feed.atom", Some(&etag)).await.status(), 304);
+    assert_eq!(
+        s.app
+            .get_with("/api/cap/feed.atom", "if-none-match", &etag)
+            .await
+            .status(),
+        304
+    );
     // …and the next plan continues their chains from the stored `sent`
     // text: a Cancel references the Alerts exactly.
     s.upload(5.0, 5.0).await;
@@ -513,15 +490,7 @@ async fn removing_a_threshold_withdraws_its_chain_only() {
         .as_array_mut()
         .expect("thresholds");
     thresholds.retain(|t| t["name"] != "Lock gate");
-    let res = s
-        .app
-        .client
-        .put(s.app.url(&format!("/api/reaches/{REACH}")))
-        .bearer_auth(&admin)
-        .json(&reach)
-        .send()
-        .await
-        .expect("PUT reach");
+    let res = s.app.put_reach(&admin, REACH, &reach).await;
     assert_eq!(res.status(), 200);
     s.run().await;
 
@@ -583,17 +552,10 @@ async fn atom_ids_do_not_change_with_the_host_header() {
     let s = start_with(dir.path(), |c| c.alerts.base_url = String::new()).await;
     s.upload(5.0, 50.0).await;
     s.run().await;
-    let fetch = |host: &'static str| {
-        let req = s
-            .app
-            .client
-            .get(s.app.url("/api/cap/feed.atom"))
-            .header("host", host);
-        async move {
-            let res = req.send().await.expect("GET feed");
-            assert_eq!(res.status(), 200);
-            parse(&res.text().await.expect("feed body"))
-        }
+    let fetch = async |host: &str| {
+        let res = s.app.get_with("/api/cap/feed.atom", "host", host).await;
+        assert_eq!(res.status(), 200);
+        parse(&res.text().await.expect("feed body"))
     };
     let a = fetch("cast-a.fernhollow.example").await;
     let b = fetch("cast-b.fernhollow.example:8080").await;

@@ -7,14 +7,12 @@
 //!
 //! ```sh
 //! apt-get install -y --no-install-recommends chromium chromium-driver
-//! cargo test --test dashboard -- --include-ignored
+//! cargo test --test it dashboard:: -- --include-ignored --test-threads=1
 //! ```
 //!
 //! Nothing here sleeps to synchronise: every wait polls the page (or the
 //! API) for a condition and fails with a message at a deadline. Screenshots
 //! land in `target/dashboard-artifacts/`.
-
-mod common;
 
 use std::{
     path::{Path, PathBuf},
@@ -22,8 +20,12 @@ use std::{
     time::{Duration, Instant},
 };
 
+use crate::common::{
+    TestApp,
+    files::{demo_reach_json, repo_path},
+    make_key, spawn_app, spawn_app_with, test_config,
+};
 use base64::Engine as _;
-use common::{TestApp, make_key, spawn_app_with, test_config};
 use serde_json::{Value, json};
 
 const INSTALL_HINT: &str = "install them with: apt-get install -y --no-install-recommends chromium chromium-driver \
@@ -209,6 +211,11 @@ impl Browser {
         .await
     }
 
+    /// [`Browser::js`] without arguments.
+    async fn eval(&self, script: &str) -> Value {
+        self.js(script, json!([])).await
+    }
+
     async fn find(&self, css: &str) -> String {
         let v = self
             .cmd(
@@ -273,7 +280,7 @@ impl Browser {
     async fn wait_for(&self, what: &str, script: &str, secs: u64) -> Value {
         let deadline = Instant::now() + Duration::from_secs(secs);
         loop {
-            let v = self.js(script, json!([])).await;
+            let v = self.eval(script).await;
             let truthy = match &v {
                 Value::Null => false,
                 Value::Bool(b) => *b,
@@ -286,10 +293,7 @@ impl Browser {
             }
             if Instant::now() > deadline {
                 let body = self
-                    .js(
-                        "return document.body ? document.body.innerText.slice(0, 3000) : ''",
-                        json!([]),
-                    )
+                    .eval("return document.body ? document.body.innerText.slice(0, 3000) : ''")
                     .await;
                 panic!(
                     "timed out after {secs} s waiting for {what}; page text:\n{}",
@@ -315,12 +319,12 @@ impl Browser {
                     .as_u64()
                     .unwrap_or(800);
                 let width = self
-                    .js("return window.outerWidth", json!([]))
+                    .eval("return window.outerWidth")
                     .await
                     .as_u64()
                     .unwrap_or(1280);
                 let height = self
-                    .js("return window.outerHeight", json!([]))
+                    .eval("return window.outerHeight")
                     .await
                     .as_u64()
                     .unwrap_or(1000);
@@ -353,7 +357,7 @@ impl Browser {
     /// those matching one of `allowed` (expected, e.g. a 422 the test caused).
     async fn page_errors(&self, allowed: &[&str]) -> Vec<String> {
         let mut out: Vec<String> = Vec::new();
-        let hooked = self.js("return window.__testErrors || []", json!([])).await;
+        let hooked = self.eval("return window.__testErrors || []").await;
         for e in hooked.as_array().into_iter().flatten() {
             out.push(e.as_str().unwrap_or_default().to_owned());
         }
@@ -400,9 +404,7 @@ impl Drop for Browser {
 }
 
 fn artifacts_dir() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("target")
-        .join("dashboard-artifacts")
+    repo_path("target/dashboard-artifacts")
 }
 
 /// The demo app with the given tweaks, plus a forecaster key.
@@ -429,23 +431,12 @@ async fn wait_for_forecast(app: &TestApp, key: &str) -> Value {
     let deadline = Instant::now() + Duration::from_secs(180);
     let mut asked = false;
     loop {
-        let res = app
-            .client
-            .get(app.url("/api/reaches/brindlemoor/forecast"))
-            .send()
-            .await
-            .expect("GET forecast");
+        let res = app.get("/api/reaches/brindlemoor/forecast").await;
         if res.status() == 200 {
             return res.json().await.expect("forecast JSON");
         }
         if !asked {
-            let run = app
-                .client
-                .post(app.url("/api/reaches/brindlemoor/runs?wait=true"))
-                .bearer_auth(key)
-                .send()
-                .await
-                .expect("POST run");
+            let run = app.run_and_wait(key, "brindlemoor").await;
             asked = run.status().is_success();
         }
         assert!(
@@ -547,10 +538,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         "rows ordered as the API orders points (downstream)"
     );
     let statuses = b
-        .js(
-            "return [...document.querySelectorAll('#overview-body tr')].map(t => { const s = t.querySelector('.status'); return {text: s.textContent.trim(), icon: s.querySelector('.icon').textContent, cls: s.className}; })",
-            json!([]),
-        )
+        .eval("return [...document.querySelectorAll('#overview-body tr')].map(t => { const s = t.querySelector('.status'); return {text: s.textContent.trim(), icon: s.querySelector('.icon').textContent, cls: s.className}; })")
         .await;
     for s in statuses.as_array().expect("statuses") {
         let text = s["text"].as_str().unwrap_or_default();
@@ -577,10 +565,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         })
         .count();
     let summary = b
-        .js(
-            "return document.getElementById('summary').textContent",
-            json!([]),
-        )
+        .eval("return document.getElementById('summary').textContent")
         .await;
     let summary = summary.as_str().unwrap_or_default();
     if over_now > 0 {
@@ -596,10 +581,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         .as_f64()
         .expect("crest");
     let row0 = b
-        .js(
-            "return document.querySelector('#overview-body tr').innerText",
-            json!([]),
-        )
+        .eval("return document.querySelector('#overview-body tr').innerText")
         .await;
     assert!(
         row0.as_str()
@@ -611,10 +593,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     // One chart per point, each with the observed and forecast series, a
     // now line, a crest marker and one labelled line per threshold.
     let charts = b
-        .js(
-            "return [...document.querySelectorAll('svg.chart')].map(s => ({point: s.dataset.point, observed: !!s.querySelector('.series-observed'), forecast: s.querySelector('.series-forecast')?.getAttribute('stroke-dasharray'), now: !!s.querySelector('.now-line'), crest: !!s.querySelector('.crest'), levels: s.querySelectorAll('.level-label').length, ticks: s.querySelectorAll('.x-axis text.tick').length, title: s.querySelector('title').textContent}))",
-            json!([]),
-        )
+        .eval("return [...document.querySelectorAll('svg.chart')].map(s => ({point: s.dataset.point, observed: !!s.querySelector('.series-observed'), forecast: s.querySelector('.series-forecast')?.getAttribute('stroke-dasharray'), now: !!s.querySelector('.now-line'), crest: !!s.querySelector('.crest'), levels: s.querySelectorAll('.level-label').length, ticks: s.querySelectorAll('.x-axis text.tick').length, title: s.querySelector('title').textContent}))")
         .await;
     let charts = charts.as_array().expect("charts");
     assert_eq!(charts.len(), names.len(), "one chart per point: {charts:?}");
@@ -640,10 +619,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     }
     // The data table behind each chart has one row per distinct time.
     let table_rows = b
-        .js(
-            "return document.querySelectorAll('#chart-0 details.data tbody tr').length",
-            json!([]),
-        )
+        .eval("return document.querySelectorAll('#chart-0 details.data tbody tr').length")
         .await;
     let n_times = forecast["points"][0]["times"]
         .as_array()
@@ -656,17 +632,11 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     // Freshness: the run id and method are shown.
     let run_id = forecast["run"]["id"].as_i64().expect("run id");
     let shown = b
-        .js(
-            "return document.getElementById('run-id').dataset.run",
-            json!([]),
-        )
+        .eval("return document.getElementById('run-id').dataset.run")
         .await;
     assert_eq!(shown.as_str(), Some(run_id.to_string().as_str()));
     let method = b
-        .js(
-            "return document.getElementById('f-method').textContent",
-            json!([]),
-        )
+        .eval("return document.getElementById('f-method').textContent")
         .await;
     assert!(
         method
@@ -691,20 +661,17 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
 
     // The caution banner stays in view after scrolling to the bottom.
     let caution_top = b
-        .js(
-            "window.scrollTo(0, document.body.scrollHeight); const r = document.getElementById('caution').getBoundingClientRect(); return r.top >= 0 && r.bottom <= window.innerHeight && r.height > 0 ? document.getElementById('caution').textContent : null",
-            json!([]),
-        )
+        .eval("window.scrollTo(0, document.body.scrollHeight); const r = document.getElementById('caution').getBoundingClientRect(); return r.top >= 0 && r.bottom <= window.innerHeight && r.height > 0 ? document.getElementById('caution').textContent : null")
         .await;
     let caution_text = caution_top
         .as_str()
         .expect("caution banner visible after scrolling");
     assert!(caution_text.contains("Advisory model output only"));
     assert!(caution_text.contains("not an official warning"));
-    b.js("window.scrollTo(0, 0)", json!([])).await;
+    b.eval("window.scrollTo(0, 0)").await;
 
     // WCAG 2.1 AA: text contrast at least 4.5:1.
-    let contrast = b.js(CONTRAST_SCRIPT, json!([])).await;
+    let contrast = b.eval(CONTRAST_SCRIPT).await;
     assert!(
         contrast["checked"].as_u64().unwrap_or(0) > 30,
         "contrast checked on the page: {contrast}"
@@ -716,19 +683,13 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     );
 
     // Keyboard: Tab reaches real controls and focus is visibly outlined.
-    b.js(
-        "document.activeElement && document.activeElement.blur(); document.body.focus();",
-        json!([]),
-    )
-    .await;
+    b.eval("document.activeElement && document.activeElement.blur(); document.body.focus();")
+        .await;
     let mut seen: Vec<String> = Vec::new();
     for _ in 0..6 {
         b.keys("\u{E004}").await;
         let f = b
-            .js(
-                "const e = document.activeElement; const s = getComputedStyle(e); return {tag: e.tagName.toLowerCase(), id: e.id, text: (e.textContent || '').trim().slice(0, 30), outline: s.outlineStyle, width: s.outlineWidth}",
-                json!([]),
-            )
+            .eval("const e = document.activeElement; const s = getComputedStyle(e); return {tag: e.tagName.toLowerCase(), id: e.id, text: (e.textContent || '').trim().slice(0, 30), outline: s.outlineStyle, width: s.outlineWidth}")
             .await;
         assert_ne!(f["tag"], "body", "Tab moves focus to a control: {f}");
         assert_eq!(
@@ -746,11 +707,8 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         "units reachable by keyboard: {seen:?}"
     );
 
-    b.js(
-        "document.activeElement && document.activeElement.blur(); window.scrollTo(0, 0)",
-        json!([]),
-    )
-    .await;
+    b.eval("document.activeElement && document.activeElement.blur(); window.scrollTo(0, 0)")
+        .await;
     b.screenshot("overview.png", None).await;
     let bridge = names
         .iter()
@@ -771,7 +729,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     let crest_ft = us["points"][0]["crest_stage"]
         .as_f64()
         .expect("crest in ft");
-    b.js("window.scrollTo(0, 0)", json!([])).await;
+    b.eval("window.scrollTo(0, 0)").await;
     b.click("#units-us").await;
     b.wait_for(
         "the overview in feet",
@@ -782,7 +740,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     )
     .await;
     let axis = b
-        .js("return [...document.querySelectorAll('svg.chart .axis-title')].map(t => t.textContent)", json!([]))
+        .eval("return [...document.querySelectorAll('svg.chart .axis-title')].map(t => t.textContent)")
         .await;
     assert!(
         axis.to_string().contains("Stage (ft)"),
@@ -811,7 +769,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         fits["scroll"].as_u64() <= fits["client"].as_u64(),
         "no horizontal overflow at 360 px: {fits}"
     );
-    b.js("window.scrollTo(0, 0)", json!([])).await;
+    b.eval("window.scrollTo(0, 0)").await;
     b.screenshot("overview-360.png", None).await;
     b.screenshot("chart-360.png", Some(&format!("#chart-{bridge}")))
         .await;
@@ -835,10 +793,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         "{conn}"
     );
     let rows_left = b
-        .js(
-            "return document.querySelectorAll('#overview-body tr').length",
-            json!([]),
-        )
+        .eval("return document.querySelectorAll('#overview-body tr').length")
         .await;
     assert_eq!(
         rows_left.as_u64(),
@@ -947,7 +902,7 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
     )
     .await;
     // A marker that a full page reload would wipe.
-    b.js("window.__noReload = 'still here'", json!([])).await;
+    b.eval("window.__noReload = 'still here'").await;
 
     b.click("#forecaster > summary").await;
     b.type_into("#key-input", &key).await;
@@ -1030,10 +985,7 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
         .await;
     assert!(row0.as_str().is_some());
     let inputs = b
-        .js(
-            "return document.getElementById('f-inputs').textContent",
-            json!([]),
-        )
+        .eval("return document.getElementById('f-inputs').textContent")
         .await;
     assert!(
         inputs
@@ -1058,13 +1010,7 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
 
     // A run started elsewhere reaches the open page by polling, with no reload.
     let latest = after["run"]["id"].as_i64().expect("run id");
-    let run = app
-        .client
-        .post(app.url("/api/reaches/brindlemoor/runs?wait=true"))
-        .bearer_auth(&key)
-        .send()
-        .await
-        .expect("POST run");
+    let run = app.run_and_wait(&key, "brindlemoor").await;
     assert_eq!(run.status(), 200);
     b.wait_for(
         "the page to pick up the newer run by polling",
@@ -1074,7 +1020,7 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
         60,
     )
     .await;
-    let marker = b.js("return window.__noReload || null", json!([])).await;
+    let marker = b.eval("return window.__noReload || null").await;
     assert_eq!(marker, "still here", "updated in place, not reloaded");
     // Polls of an unchanged forecast are answered 304 (If-None-Match sent).
     b.wait_for(
@@ -1089,7 +1035,7 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
 
     // Withdraw the upload through the panel (with its confirm step).
     let version = b
-        .js("return document.querySelector('#uploads-body tr[data-version]:first-child').dataset.version", json!([]))
+        .eval("return document.querySelector('#uploads-body tr[data-version]:first-child').dataset.version")
         .await;
     let version: i64 = version
         .as_str()
@@ -1136,7 +1082,7 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
 async fn empty_server_shows_the_caution_and_says_there_is_no_reach() {
     let _one = BROWSER.lock().await;
     let dir = tempfile::tempdir().expect("temp dir");
-    let app = spawn_app_with(test_config(dir.path())).await; // demo off
+    let app = spawn_app(dir.path()).await; // demo off
     let b = Browser::start().await;
     b.goto(&app.url("/")).await;
     let notice = b
@@ -1151,10 +1097,7 @@ async fn empty_server_shows_the_caution_and_says_there_is_no_reach() {
         "{notice}"
     );
     let caution = b
-        .js(
-            "const c = document.getElementById('caution'); const r = c.getBoundingClientRect(); return r.height > 0 && r.top >= 0 ? c.textContent : null",
-            json!([]),
-        )
+        .eval("const c = document.getElementById('caution'); const r = c.getBoundingClientRect(); return r.height > 0 && r.top >= 0 ? c.textContent : null")
         .await;
     assert!(
         caution
@@ -1179,27 +1122,13 @@ async fn reach_picker_switches_reach_with_its_own_units_and_time_zone() {
 
     // A second invented reach: the demo geometry, shown in US units on a
     // -05:00 clock.
-    let mut spec: Value = serde_json::from_str(include_str!("../src/demo/brindlemoor-reach.json"))
-        .expect("demo reach JSON");
+    let mut spec = demo_reach_json();
     spec["name"] = json!("Tansy Beck test copy (invented)");
     spec["service"]["units"] = json!("us");
     spec["service"]["time_zone"] = json!("-05:00");
-    let put = app
-        .client
-        .put(app.url("/api/reaches/tansy-test"))
-        .bearer_auth(&admin)
-        .json(&spec)
-        .send()
-        .await
-        .expect("PUT reach");
+    let put = app.put_reach(&admin, "tansy-test", &spec).await;
     assert!(put.status().is_success(), "PUT reach: {}", put.status());
-    let run = app
-        .client
-        .post(app.url("/api/reaches/tansy-test/runs?wait=true"))
-        .bearer_auth(&key)
-        .send()
-        .await
-        .expect("POST run");
+    let run = app.run_and_wait(&key, "tansy-test").await;
     assert_eq!(run.status(), 200);
     let b = Browser::start().await;
     b.goto(&app.url("/?poll=2000")).await;
@@ -1238,18 +1167,12 @@ async fn reach_picker_switches_reach_with_its_own_units_and_time_zone() {
         "times on the reach's -05:00 clock: {row0}"
     );
     assert!(
-        b.js(
-            "return document.getElementById('units-us').checked",
-            json!([])
-        )
-        .await
+        b.eval("return document.getElementById('units-us').checked")
+            .await
             == json!(true)
     );
     let title = b
-        .js(
-            "return document.getElementById('reach-title').textContent",
-            json!([]),
-        )
+        .eval("return document.getElementById('reach-title').textContent")
         .await;
     assert_eq!(title, "Tansy Beck test copy (invented)");
     let errors = b.page_errors(&[]).await;

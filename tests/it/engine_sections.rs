@@ -21,6 +21,17 @@ fn section(name: &str, geometry: SectionGeometry) -> CrossSection {
     }
 }
 
+/// An open trapezoid (no height given); side slope 0 is a rectangle.
+fn trapezoid(bed_elevation: f64, bottom_width: f64, side_slope: f64, n: f64) -> SectionGeometry {
+    SectionGeometry::Trapezoid {
+        bed_elevation,
+        bottom_width,
+        side_slope,
+        n,
+        height: None,
+    }
+}
+
 fn table(name: &str, geometry: SectionGeometry) -> PropertyTable {
     PropertyTable::from_section(&section(name, geometry)).expect("test geometry is valid")
 }
@@ -58,13 +69,7 @@ fn chow_trapezoid_normal_depth_in_si() {
     let q = 400.0 * FT * FT * FT;
     assert!((q - 11.327).abs() < 1e-3);
     let bed = 100.0;
-    let geometry = SectionGeometry::Trapezoid {
-        bed_elevation: bed,
-        bottom_width: 20.0 * FT,
-        side_slope: 2.0,
-        n: 0.025,
-        height: None,
-    };
+    let geometry = trapezoid(bed, 20.0 * FT, 2.0, 0.025);
     let t = table("design-cut", geometry);
     let z = normal_depth(&t, q, 0.0016).expect("converges");
     let y_ft = (z - bed) / FT;
@@ -101,16 +106,7 @@ fn chow_trapezoid_normal_depth_in_si() {
 fn table_matches_closed_form_trapezoid_and_rectangle() {
     for (b, m) in [(6.0, 1.5), (8.0, 0.0), (0.0, 2.0)] {
         let n = 0.03;
-        let t = table(
-            "shape-check",
-            SectionGeometry::Trapezoid {
-                bed_elevation: 20.0,
-                bottom_width: b,
-                side_slope: m,
-                n,
-                height: None,
-            },
-        );
+        let t = table("shape-check", trapezoid(20.0, b, m, n));
         for y in [0.137, 0.5, 1.0, 2.345, 7.5, 14.0, 25.0] {
             let p = t.props(20.0 + y);
             let (a, per, top, k) = trapezoid_exact(b, m, n, y);
@@ -227,16 +223,7 @@ fn storage_zone_stores_but_does_not_convey() {
 #[test]
 fn rectangle_critical_depth_matches_formula() {
     let b = 5.0;
-    let t = table(
-        "flume",
-        SectionGeometry::Trapezoid {
-            bed_elevation: 2.0,
-            bottom_width: b,
-            side_slope: 0.0,
-            n: 0.014,
-            height: None,
-        },
-    );
+    let t = table("flume", trapezoid(2.0, b, 0.0, 0.014));
     for q in [0.5, 20.0, 300.0] {
         let yc = ((q / b) * (q / b) / GRAVITY).cbrt();
         let z = critical_depth(&t, q).expect("converges");
@@ -304,16 +291,7 @@ fn rating_fit_recovers_known_curve() {
 #[test]
 fn wide_rectangle_rating_exponent_is_five_thirds() {
     let (width, n, slope, bed) = (1000.0, 0.035, 0.0005, 50.0);
-    let t = table(
-        "broad-flat",
-        SectionGeometry::Trapezoid {
-            bed_elevation: bed,
-            bottom_width: width,
-            side_slope: 0.0,
-            n,
-            height: None,
-        },
-    );
+    let t = table("broad-flat", trapezoid(bed, width, 0.0, n));
     let points: Vec<(f64, f64)> = (1..=20)
         .map(|i| {
             let q = 50.0 * 1.3f64.powi(i);
@@ -374,24 +352,12 @@ fn interpolated_nodes_between_rectangles() {
     let a = CrossSection {
         name: "upper".into(),
         chainage: 1000.0,
-        geometry: SectionGeometry::Trapezoid {
-            bed_elevation: 10.0,
-            bottom_width: 30.0,
-            side_slope: 0.0,
-            n: 0.03,
-            height: None,
-        },
+        geometry: trapezoid(10.0, 30.0, 0.0, 0.03),
     };
     let b = CrossSection {
         name: "lower".into(),
         chainage: 2000.0,
-        geometry: SectionGeometry::Trapezoid {
-            bed_elevation: 9.0,
-            bottom_width: 50.0,
-            side_slope: 0.0,
-            n: 0.03,
-            height: None,
-        },
+        geometry: trapezoid(9.0, 50.0, 0.0, 0.03),
     };
     let nodes = build_nodes(&[a, b], 300.0).expect("valid");
     assert_eq!(nodes.len(), 5);

@@ -9,86 +9,40 @@
 
 use std::{
     collections::BTreeSet,
-    io::{BufRead, BufReader},
     path::Path,
-    process::{Child, Command, Stdio},
+    process::Child,
     sync::{Arc, Mutex},
 };
 
-use reachcast::{
-    config::{Config, Overrides},
-    store::{ReadingsQuery, Store},
-};
+use reachcast::store::ReadingsQuery;
 use serde_json::{Value, json};
 
-const BIN: &str = env!("CARGO_BIN_EXE_reachcast");
+use crate::common::{
+    binary::{Server, created_token, keys, serve},
+    open_store,
+};
+
 const BATCH: i64 = 100;
 /// 2025-01-01T00:00:00Z in Unix ms.
 const T0: i64 = 1_735_689_600_000;
 
-fn strip_ansi(s: &str) -> String {
-    let mut out = String::with_capacity(s.len());
-    let mut chars = s.chars();
-    while let Some(c) = chars.next() {
-        if c == '\u{1b}' {
-            for d in chars.by_ref() {
-                if d.is_ascii_alphabetic() {
-                    break;
-                }
-            }
-        } else {
-            out.push(c);
-        }
-    }
-    out
-}
-
-/// Starts the server and returns it with the address read from its
-/// `listening` log line; the rest of its log is drained by a thread.
+/// Starts the server with a rate limit no writer reaches and returns it
+/// with its address; the rest of its log is drained by a thread.
 fn start(dir: &Path) -> (Child, String) {
-    let mut child = Command::new(BIN)
-        .args(["serve", "--bind", "127.0.0.1:0", "--data-dir"])
-        .arg(dir)
-        .env("REACHCAST_DEMO_ENABLED", "false")
-        .env("REACHCAST_AUTH_RATE_LIMIT_PER_SEC", "100000.0")
-        .env("REACHCAST_AUTH_RATE_LIMIT_BURST", "100000")
-        .env("RUST_LOG", "info")
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("spawn server");
-    let stderr = child.stderr.take().expect("stderr");
-    let mut lines = BufReader::new(stderr).lines();
-    let mut addr = None;
-    for line in lines.by_ref() {
-        let line = strip_ansi(&line.expect("log line"));
-        if line.contains("listening") {
-            addr = line
-                .split_whitespace()
-                .find_map(|w| w.strip_prefix("addr="))
-                .map(str::to_owned);
-            break;
-        }
-    }
-    std::thread::spawn(move || for _ in lines {});
-    let addr = addr.expect("server logged `listening` with addr=");
+    let Server { child, addr, log } = serve(
+        dir,
+        &[
+            ("REACHCAST_AUTH_RATE_LIMIT_PER_SEC", "100000.0"),
+            ("REACHCAST_AUTH_RATE_LIMIT_BURST", "100000"),
+        ],
+    );
+    std::thread::spawn(move || for _ in log {});
     (child, addr)
-}
-
-fn storage(dir: &Path) -> reachcast::config::StorageConfig {
-    let overrides = Overrides {
-        bind: None,
-        data_dir: Some(dir.to_owned()),
-    };
-    Config::load(None, Vec::new(), &overrides)
-        .expect("config")
-        .storage
 }
 
 /// Opens the file directly: integrity check, then the set of stored times.
 async fn stored_times(dir: &Path) -> BTreeSet<i64> {
-    let store = Store::open_for_maintenance(&storage(dir))
-        .await
-        .expect("open after kill");
+    let store = open_store(dir).await;
     assert!(
         store.integrity_ok().await.expect("integrity_check"),
         "PRAGMA integrity_check is not ok"
@@ -126,30 +80,10 @@ fn batch(first: i64) -> Value {
 async fn acknowledged_readings_survive_sigkill() {
     let dir = tempfile::tempdir().expect("temp dir");
     let data = dir.path().join("data");
-    let out = Command::new(BIN)
-        .args([
-            "keys",
-            "create",
-            "--name",
-            "kill test",
-            "--role",
-            "admin",
-            "--data-dir",
-        ])
-        .arg(&data)
-        .output()
-        .expect("keys create");
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let key = String::from_utf8(out.stdout)
-        .expect("utf-8")
-        .lines()
-        .next()
-        .expect("key line")
-        .to_owned();
+    let key = created_token(keys(
+        &data,
+        &["create", "--name", "kill test", "--role", "admin"],
+    ));
     assert!(key.starts_with("rck_"), "{key}");
 
     let client = reqwest::Client::new();

@@ -2,98 +2,38 @@
 //! SQLite file: readings in, scheduled and triggered runs, uploads,
 //! staleness, failures, exceedances and validators.
 
-mod common;
-
 use std::time::{Duration, Instant};
 
+use crate::common::{
+    ReachApp, TestApp, assert_success, bridge_reach, json_of, reach_gauge, spawn_app_with,
+    test_config,
+};
 use chrono::{DateTime, Utc};
-use common::{TestApp, spawn_app_with, test_config};
-use reachcast::auth::Role;
 use serde_json::{Value, json};
 
 const REACH: &str = "test-reach";
 const GAUGE: &str = "test-gauge";
 
-/// An invented 10 km trapezoidal reach (bed slope 0.001) with a bridge at
-/// mid-reach and two thresholds.
+/// The invented test reach: a 10 km trapezoidal channel with a bridge at
+/// mid-reach and two thresholds (`common::bridge_reach`).
 fn reach_doc() -> Value {
-    json!({
-        "name": "Test reach (invented)",
-        "sections": [
-            {"name": "T0", "chainage": 0, "geometry": {"shape": "trapezoid", "bed_elevation": 20.0,
-             "bottom_width": 15.0, "side_slope": 2.0, "n": 0.035}},
-            {"name": "T1", "chainage": 10000, "geometry": {"shape": "trapezoid", "bed_elevation": 10.0,
-             "bottom_width": 15.0, "side_slope": 2.0, "n": 0.035}}
-        ],
-        "max_node_spacing": 250,
-        "downstream": {"kind": "normal_depth", "friction_slope": 0.001},
-        "points": [{"name": "Test Bridge", "chainage": 5000, "kind": "bridge",
-                    "low_chord": 19.5, "deck": 20.5,
-                    "thresholds": [{"name": "low", "elevation": 16.0},
-                                   {"name": "high", "elevation": 17.5}]}],
-        "routing": {"output_interval_s": 600},
-        "service": {"upstream_gauge": GAUGE, "time_zone": "+01:00"}
-    })
-}
-
-struct Setup {
-    app: TestApp,
-    admin: String,
-    gauge_key: String,
-    forecaster: String,
-    _dir: tempfile::TempDir,
+    bridge_reach("Test reach (invented)", "Test Bridge", GAUGE)
 }
 
 /// `debounce_ms`: 0 lets new readings run the forecast at once; tests that
 /// drive runs themselves with `wait=true` use a long debounce so no
 /// background run lands between their steps.
-async fn setup(stale_after_minutes: u64, debounce_ms: u64) -> Setup {
-    let dir = tempfile::tempdir().expect("temp dir");
-    let mut config = test_config(dir.path());
-    config.forecast.debounce_ms = debounce_ms;
-    config.forecast.stale_after_minutes = stale_after_minutes;
-    let app = spawn_app_with(config).await;
-    let admin = app.key(Role::Admin, &[]).await;
-    let gauge_key = app.key(Role::Gauge, &[GAUGE]).await;
-    let forecaster = app.key(Role::Forecaster, &[]).await;
-    let res = app
-        .client
-        .put(app.url(&format!("/api/reaches/{REACH}")))
-        .bearer_auth(&admin)
-        .json(&reach_doc())
-        .send()
-        .await
-        .expect("PUT reach");
-    assert_eq!(
-        res.status(),
-        201,
-        "{}",
-        res.text().await.unwrap_or_default()
-    );
-    let res = app
-        .client
-        .put(app.url(&format!("/api/gauges/{GAUGE}")))
-        .bearer_auth(&admin)
-        .json(
-            &json!({"name": "Test gauge", "reach": REACH, "chainage_m": 0.0,
-                      "measures": "discharge", "stage_min_m": 19.0, "stage_max_m": 30.0,
-                      "max_rise_m_per_h": 2.0}),
-        )
-        .send()
-        .await
-        .expect("PUT gauge");
-    assert!(
-        res.status().is_success(),
-        "{}",
-        res.text().await.unwrap_or_default()
-    );
-    Setup {
-        app,
-        admin,
-        gauge_key,
-        forecaster,
-        _dir: dir,
-    }
+async fn setup(stale_after_minutes: u64, debounce_ms: u64) -> ReachApp {
+    let gauge = reach_gauge("Test gauge", REACH, "discharge", 19.0, 2.0);
+    ReachApp::start(
+        |c| {
+            c.forecast.debounce_ms = debounce_ms;
+            c.forecast.stale_after_minutes = stale_after_minutes;
+        },
+        (REACH, &reach_doc()),
+        (GAUGE, &gauge),
+    )
+    .await
 }
 
 /// Discharge readings every 15 minutes over `hours` up to `end`, rising
@@ -110,34 +50,21 @@ fn rising(end: DateTime<Utc>, hours: i64, q0: f64, q1: f64) -> Value {
     json!({ "readings": readings })
 }
 
-async fn post_readings(s: &Setup, body: &Value) {
-    let res = s
-        .app
-        .client
-        .post(s.app.url(&format!("/api/gauges/{GAUGE}/readings")))
-        .bearer_auth(&s.gauge_key)
-        .json(body)
-        .send()
-        .await
-        .expect("POST readings");
-    assert!(
-        res.status().is_success(),
-        "{}",
-        res.text().await.unwrap_or_default()
-    );
+async fn post_readings(s: &ReachApp, body: &Value) {
+    assert_success(s.app.post_readings(&s.keys.gauge, GAUGE, body).await).await;
 }
 
-async fn get_json(app: &TestApp, path: &str) -> (u16, Value) {
-    let res = app.client.get(app.url(path)).send().await.expect("GET");
-    let status = res.status().as_u16();
-    (status, res.json().await.unwrap_or(Value::Null))
+/// The latest forecast of the test reach: status and body.
+async fn forecast(app: &TestApp) -> (u16, Value) {
+    app.get_json(&format!("/api/reaches/{REACH}/forecast"))
+        .await
 }
 
 /// Waits (with a deadline) until the latest forecast satisfies `ok`.
 async fn forecast_when(app: &TestApp, ok: impl Fn(&Value) -> bool) -> Value {
     let deadline = Instant::now() + Duration::from_secs(30);
     loop {
-        let (status, body) = get_json(app, &format!("/api/reaches/{REACH}/forecast")).await;
+        let (status, body) = forecast(app).await;
         if status == 200 && ok(&body) {
             return body;
         }
@@ -149,40 +76,17 @@ async fn forecast_when(app: &TestApp, ok: impl Fn(&Value) -> bool) -> Value {
     }
 }
 
-async fn run_now(s: &Setup) -> Value {
-    let res = s
-        .app
-        .client
-        .post(s.app.url(&format!("/api/reaches/{REACH}/runs?wait=true")))
-        .bearer_auth(&s.forecaster)
-        .send()
-        .await
-        .expect("trigger");
-    assert_eq!(res.status(), 200);
-    res.json().await.expect("json")
+async fn run_now(s: &ReachApp) -> Value {
+    json_of(s.app.run_and_wait(&s.keys.forecaster, REACH).await, 200).await
 }
 
-async fn upload(s: &Setup, series: &[(DateTime<Utc>, f64)], reason: &str) -> i64 {
+async fn upload(s: &ReachApp, series: &[(DateTime<Utc>, f64)], reason: &str) -> i64 {
     let body = json!({
         "reason": reason,
         "series": series.iter().map(|(t, q)| json!({"time": t.to_rfc3339(), "discharge": q})).collect::<Vec<_>>(),
     });
-    let res = s
-        .app
-        .client
-        .post(s.app.url(&format!("/api/reaches/{REACH}/inflows")))
-        .bearer_auth(&s.forecaster)
-        .json(&body)
-        .send()
-        .await
-        .expect("upload");
-    assert_eq!(
-        res.status(),
-        201,
-        "{}",
-        res.text().await.unwrap_or_default()
-    );
-    res.json::<Value>().await.expect("json")["version"]
+    let res = s.app.post_inflow(&s.keys.forecaster, REACH, &body).await;
+    json_of(res, 201).await["version"]
         .as_i64()
         .expect("version")
 }
@@ -299,7 +203,7 @@ async fn uploads_supersede_extrapolation_and_each_other() {
     post_readings(&s, &rising(now, 3, 20.0, 40.0)).await;
     let r = run_now(&s).await;
     assert_eq!(r["status"], "ok", "{r}");
-    let (_, f0) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    let (_, f0) = forecast(&s.app).await;
     assert_eq!(f0["run"]["inflow"]["source_beyond_now"], "persistence");
     // A triangular flood: 40 m³/s now, the peak 6 h ahead, back to 40 m³/s
     // at 18 h, then steady.
@@ -320,13 +224,13 @@ async fn uploads_supersede_extrapolation_and_each_other() {
     };
     let v1 = upload(&s, &flood(150.0), "first revision").await;
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f1) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    let (_, f1) = forecast(&s.app).await;
     assert_eq!(f1["run"]["inflow"]["source_beyond_now"], "upload");
     assert_eq!(f1["run"]["inflow"]["upload_version"], v1);
     let v2 = upload(&s, &flood(300.0), "second revision: bigger").await;
     assert_eq!(v2, v1 + 1);
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f2) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    let (_, f2) = forecast(&s.app).await;
     assert_eq!(f2["run"]["inflow"]["upload_version"], v2);
     let crest = |f: &Value| f["points"][0]["crest_stage"].as_f64().expect("crest");
     assert!(
@@ -339,35 +243,29 @@ async fn uploads_supersede_extrapolation_and_each_other() {
     // Withdraw v2: v1 is in force again.
     let res = s
         .app
-        .client
         .post(
-            s.app
-                .url(&format!("/api/reaches/{REACH}/inflows/{v2}/withdraw")),
+            &s.keys.forecaster,
+            &format!("/api/reaches/{REACH}/inflows/{v2}/withdraw"),
         )
-        .bearer_auth(&s.forecaster)
-        .send()
-        .await
-        .expect("withdraw");
+        .await;
     assert_eq!(res.status(), 200);
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f3) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    let (_, f3) = forecast(&s.app).await;
     assert_eq!(f3["run"]["inflow"]["upload_version"], v1);
     assert!((crest(&f3) - crest(&f1)).abs() < 0.05);
     // Both uploads are kept for audit.
-    let (_, list) = get_json(&s.app, &format!("/api/reaches/{REACH}/inflows")).await;
+    let (_, list) = s
+        .app
+        .get_json(&format!("/api/reaches/{REACH}/inflows"))
+        .await;
     let uploads = list["uploads"].as_array().expect("uploads");
     assert_eq!(uploads.len(), 2);
     assert_eq!(uploads[0]["withdrawn"], true);
     // A gauge key may not upload (role forecaster needed).
     let res = s
         .app
-        .client
-        .post(s.app.url(&format!("/api/reaches/{REACH}/inflows")))
-        .bearer_auth(&s.gauge_key)
-        .json(&json!({"reason": "x", "series": []}))
-        .send()
-        .await
-        .expect("upload");
+        .post_inflow(&s.keys.gauge, REACH, &json!({"reason": "x", "series": []}))
+        .await;
     assert_eq!(res.status(), 403);
     s.app.stop().await;
 }
@@ -380,7 +278,7 @@ async fn bad_upload_lists_every_bad_row() {
         .app
         .client
         .post(s.app.url(&format!("/api/reaches/{REACH}/inflows?reason=storm+update")))
-        .bearer_auth(&s.forecaster)
+        .bearer_auth(&s.keys.forecaster)
         .header("content-type", "text/csv")
         .body("time,discharge\n2026-03-01T00:00:00Z,10\n2026-03-01T01:00:00,20\n2026-03-01T02:00:00Z,-5\n")
         .send()
@@ -395,7 +293,10 @@ async fn bad_upload_lists_every_bad_row() {
     assert_eq!(errors.len(), 2);
     assert_eq!(errors[1]["row"], 3);
     assert_eq!(errors[1]["field"], "discharge");
-    let (_, list) = get_json(&s.app, &format!("/api/reaches/{REACH}/inflows")).await;
+    let (_, list) = s
+        .app
+        .get_json(&format!("/api/reaches/{REACH}/inflows"))
+        .await;
     assert_eq!(
         list["uploads"].as_array().map(Vec::len),
         Some(0),
@@ -412,14 +313,14 @@ async fn silent_gauge_marks_the_forecast_stale() {
     let now = Utc::now();
     post_readings(&s, &rising(now - chrono::Duration::hours(3), 4, 20.0, 60.0)).await;
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    let (_, f) = forecast(&s.app).await;
     assert_eq!(f["freshness"]["stale"], true, "{}", f["freshness"]);
     assert!(
         f["freshness"]["reasons"][0]
             .as_str()
             .is_some_and(|r| r.contains("silent"))
     );
-    let (_, ex) = get_json(&s.app, "/api/exceedances").await;
+    let (_, ex) = s.app.get_json("/api/exceedances").await;
     assert!(
         ex["items"]
             .as_array()
@@ -433,7 +334,7 @@ async fn silent_gauge_marks_the_forecast_stale() {
     )
     .await;
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, f) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    let (_, f) = forecast(&s.app).await;
     assert_eq!(f["freshness"]["stale"], false, "{}", f["freshness"]);
     s.app.stop().await;
 }
@@ -448,19 +349,8 @@ async fn failed_run_keeps_the_last_good_forecast() {
     assert_eq!(good["status"], "ok");
     // The gauge now reports stage but has no rating: the inflow cannot be
     // assembled and the run fails.
-    let res = s
-        .app
-        .client
-        .put(s.app.url(&format!("/api/gauges/{GAUGE}")))
-        .bearer_auth(&s.admin)
-        .json(
-            &json!({"name": "Test gauge", "reach": REACH, "chainage_m": 0.0,
-                      "measures": "stage", "stage_min_m": 19.0, "stage_max_m": 30.0,
-                      "max_rise_m_per_h": 2.0}),
-        )
-        .send()
-        .await
-        .expect("PUT gauge");
+    let gauge = reach_gauge("Test gauge", REACH, "stage", 19.0, 2.0);
+    let res = s.app.put_gauge(&s.keys.admin, GAUGE, &gauge).await;
     assert!(res.status().is_success());
     let bad = run_now(&s).await;
     assert_eq!(bad["status"], "failed");
@@ -468,13 +358,16 @@ async fn failed_run_keeps_the_last_good_forecast() {
         bad["error"].as_str().is_some_and(|e| e.contains("rating")),
         "{bad}"
     );
-    let (status, f) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
+    let (status, f) = forecast(&s.app).await;
     assert_eq!(status, 200);
     let served = f["run"]["id"].as_i64().expect("run id");
     assert!(served >= good["run_id"].as_i64().expect("id"));
     assert!(served < bad["run_id"].as_i64().expect("id"));
     assert_eq!(f["last_failure"]["run_id"], bad["run_id"]);
-    let (_, run) = get_json(&s.app, &format!("/api/runs/{}", bad["run_id"])).await;
+    let (_, run) = s
+        .app
+        .get_json(&format!("/api/runs/{}", bad["run_id"]))
+        .await;
     assert_eq!(run["status"], "failed");
     s.app.stop().await;
 }
@@ -486,13 +379,7 @@ async fn etags_give_304_until_something_changes() {
     let s = setup(60, 600_000).await;
     post_readings(&s, &rising(Utc::now(), 6, 20.0, 180.0)).await;
     assert_eq!(run_now(&s).await["status"], "ok");
-    let first = s
-        .app
-        .client
-        .get(s.app.url("/api/exceedances"))
-        .send()
-        .await
-        .expect("GET");
+    let first = s.app.get("/api/exceedances").await;
     assert_eq!(first.status(), 200);
     let etag = first.headers()["etag"].to_str().expect("ascii").to_owned();
     let body: Value = first.json().await.expect("json");
@@ -500,12 +387,8 @@ async fn etags_give_304_until_something_changes() {
     assert!(!body["items"].as_array().expect("items").is_empty());
     let again = s
         .app
-        .client
-        .get(s.app.url("/api/exceedances"))
-        .header("if-none-match", &etag)
-        .send()
-        .await
-        .expect("GET");
+        .get_with("/api/exceedances", "if-none-match", &etag)
+        .await;
     assert_eq!(again.status(), 304);
     post_readings(
         &s,
@@ -515,31 +398,21 @@ async fn etags_give_304_until_something_changes() {
     assert_eq!(run_now(&s).await["status"], "ok");
     let changed = s
         .app
-        .client
-        .get(s.app.url("/api/exceedances"))
-        .header("if-none-match", &etag)
-        .send()
-        .await
-        .expect("GET");
+        .get_with("/api/exceedances", "if-none-match", &etag)
+        .await;
     assert_eq!(changed.status(), 200);
     assert_ne!(changed.headers()["etag"].to_str().expect("ascii"), etag);
 
-    let f = s
-        .app
-        .client
-        .get(s.app.url(&format!("/api/reaches/{REACH}/forecast")))
-        .send()
-        .await
-        .expect("GET");
+    let f = s.app.get(&format!("/api/reaches/{REACH}/forecast")).await;
     let fe = f.headers()["etag"].to_str().expect("ascii").to_owned();
     let f2 = s
         .app
-        .client
-        .get(s.app.url(&format!("/api/reaches/{REACH}/forecast")))
-        .header("if-none-match", &fe)
-        .send()
-        .await
-        .expect("GET");
+        .get_with(
+            &format!("/api/reaches/{REACH}/forecast"),
+            "if-none-match",
+            &fe,
+        )
+        .await;
     assert_eq!(f2.status(), 304);
     s.app.stop().await;
 }
@@ -551,8 +424,11 @@ async fn us_units_and_csv() {
     let s = setup(60, 600_000).await;
     post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
     assert_eq!(run_now(&s).await["status"], "ok");
-    let (_, si) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast")).await;
-    let (_, us) = get_json(&s.app, &format!("/api/reaches/{REACH}/forecast?units=us")).await;
+    let (_, si) = forecast(&s.app).await;
+    let (_, us) = s
+        .app
+        .get_json(&format!("/api/reaches/{REACH}/forecast?units=us"))
+        .await;
     assert_eq!(us["units"]["stage"], "ft");
     let a = si["points"][0]["stage"][5].as_f64().expect("si");
     let b = us["points"][0]["stage"][5].as_f64().expect("us");
@@ -562,14 +438,8 @@ async fn us_units_and_csv() {
     assert!((qu * 0.3048_f64.powi(3) - q).abs() < 1e-9);
     let csv = s
         .app
-        .client
-        .get(
-            s.app
-                .url(&format!("/api/reaches/{REACH}/forecast?format=csv")),
-        )
-        .send()
+        .get(&format!("/api/reaches/{REACH}/forecast?format=csv"))
         .await
-        .expect("GET")
         .text()
         .await
         .expect("text");
@@ -587,11 +457,10 @@ async fn us_units_and_csv() {
         rows.iter()
             .all(|r| r.len() == 8 && r[7].starts_with("Advisory model output"))
     );
-    let (status, bad) = get_json(
-        &s.app,
-        &format!("/api/reaches/{REACH}/forecast?units=imperial"),
-    )
-    .await;
+    let (status, bad) = s
+        .app
+        .get_json(&format!("/api/reaches/{REACH}/forecast?units=imperial"))
+        .await;
     // Bad query parameters are 400 everywhere (README, "Errors").
     assert_eq!(status, 400);
     assert_eq!(bad["field"], "units");
@@ -604,15 +473,7 @@ async fn bad_reach_names_the_field() {
     let s = setup(60, 600_000).await;
     let mut doc = reach_doc();
     doc["points"][0]["thresholds"][1]["elevation"] = json!("high");
-    let res = s
-        .app
-        .client
-        .put(s.app.url("/api/reaches/other"))
-        .bearer_auth(&s.admin)
-        .json(&doc)
-        .send()
-        .await
-        .expect("PUT");
+    let res = s.app.put_reach(&s.keys.admin, "other", &doc).await;
     assert_eq!(res.status(), 422);
     let p: Value = res.json().await.expect("json");
     assert_eq!(p["field"], "points[0].thresholds[1].elevation");
@@ -621,17 +482,9 @@ async fn bad_reach_names_the_field() {
     let r = run_now(&s).await;
     let mut doc = reach_doc();
     doc["points"][0]["thresholds"][0]["name"] = json!("renamed");
-    let res = s
-        .app
-        .client
-        .put(s.app.url(&format!("/api/reaches/{REACH}")))
-        .bearer_auth(&s.admin)
-        .json(&doc)
-        .send()
-        .await
-        .expect("PUT");
+    let res = s.app.put_reach(&s.keys.admin, REACH, &doc).await;
     assert_eq!(res.status(), 200);
-    let (_, run) = get_json(&s.app, &format!("/api/runs/{}", r["run_id"])).await;
+    let (_, run) = s.app.get_json(&format!("/api/runs/{}", r["run_id"])).await;
     assert_eq!(run["reach_version"], 1);
     assert_eq!(run["results"]["points"][0]["thresholds"][0]["name"], "low");
     s.app.stop().await;
@@ -644,17 +497,12 @@ async fn bad_reach_names_the_field() {
 #[tokio::test]
 async fn reach_time_zone_must_be_a_known_zone() {
     let s = setup(60, 600_000).await;
-    let put = |zone: &str| {
+    let put = async |zone: &str| {
         let mut doc = reach_doc();
         doc["service"]["time_zone"] = json!(zone);
-        s.app
-            .client
-            .put(s.app.url("/api/reaches/other"))
-            .bearer_auth(&s.admin)
-            .json(&doc)
-            .send()
+        s.app.put_reach(&s.keys.admin, "other", &doc).await
     };
-    let res = put("Mars/Olympus_Mons").await.expect("PUT");
+    let res = put("Mars/Olympus_Mons").await;
     assert_eq!(res.status(), 422);
     // RFC 9457 §3: the problem document's media type.
     assert_eq!(res.headers()["content-type"], "application/problem+json");
@@ -667,12 +515,12 @@ async fn reach_time_zone_must_be_a_known_zone() {
             .contains("Mars/Olympus_Mons"),
         "{p}"
     );
-    let (status, _) = get_json(&s.app, "/api/reaches/other").await;
+    let (status, _) = s.app.get_json("/api/reaches/other").await;
     assert_eq!(status, 404, "nothing stored");
 
-    let res = put("Etc/GMT-1").await.expect("PUT");
+    let res = put("Etc/GMT-1").await;
     assert_eq!(res.status(), 201);
-    let (_, reach) = get_json(&s.app, "/api/reaches/other").await;
+    let (_, reach) = s.app.get_json("/api/reaches/other").await;
     assert_eq!(
         reach["document"]["service"]["time_zone"], "Etc/GMT-1",
         "{reach}"
@@ -701,12 +549,12 @@ async fn reaches_load_from_a_folder_at_start() {
             .map(|r| r["version"].clone())
     };
     let app = spawn_app_with(config()).await;
-    let (_, list) = get_json(&app, "/api/reaches").await;
+    let (_, list) = app.get_json("/api/reaches").await;
     assert_eq!(version(&list), Some(json!(1)));
     app.stop().await;
     // Unchanged file: no new version on restart.
     let app = spawn_app_with(config()).await;
-    let (_, list) = get_json(&app, "/api/reaches").await;
+    let (_, list) = app.get_json("/api/reaches").await;
     assert_eq!(version(&list), Some(json!(1)));
     app.stop().await;
     // Changed file: a new version.
@@ -714,7 +562,7 @@ async fn reaches_load_from_a_folder_at_start() {
     doc["points"][0]["thresholds"][0]["elevation"] = json!(16.2);
     std::fs::write(&file, doc.to_string()).expect("write reach");
     let app = spawn_app_with(config()).await;
-    let (_, list) = get_json(&app, "/api/reaches").await;
+    let (_, list) = app.get_json("/api/reaches").await;
     assert_eq!(version(&list), Some(json!(2)));
     app.stop().await;
     // A bad file stops the start.
@@ -751,7 +599,7 @@ async fn every_json_time_has_one_shape() {
     ];
     let mut seen = 0;
     for path in &paths {
-        let (status, doc) = get_json(&s.app, path).await;
+        let (status, doc) = s.app.get_json(path).await;
         assert_eq!(status, 200, "{path}");
         seen += check_times(&doc, path);
     }
@@ -821,12 +669,8 @@ async fn forecast_answers_vary_on_accept() {
     for accept in ["application/json", "text/csv"] {
         let res = s
             .app
-            .client
-            .get(s.app.url(&format!("/api/reaches/{REACH}/forecast")))
-            .header("accept", accept)
-            .send()
-            .await
-            .expect("GET");
+            .get_with(&format!("/api/reaches/{REACH}/forecast"), "accept", accept)
+            .await;
         assert_eq!(res.status(), 200);
         let vary = res
             .headers()
@@ -862,8 +706,8 @@ async fn crest_times_are_output_instants() {
     post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
     let run = run_now(&s).await;
     let id = run["run_id"].as_i64().expect("run id");
-    let (_, detail) = get_json(&s.app, &format!("/api/runs/{id}")).await;
-    let (_, board) = get_json(&s.app, "/api/exceedances").await;
+    let (_, detail) = s.app.get_json(&format!("/api/runs/{id}")).await;
+    let (_, board) = s.app.get_json("/api/exceedances").await;
     let items = board["items"].as_array().expect("items");
     assert!(!items.is_empty(), "the test reach has thresholds");
     for item in items {

@@ -2,9 +2,10 @@
 //! readings (JSON and CSV), idempotency, revisions, the rate-of-rise flag,
 //! paging, keys and roles, problem documents.
 
-mod common;
-
-use common::{TestApp, gauge_body, make_key, spawn_app, spawn_app_with, test_config};
+use crate::common::{
+    TestApp, assert_wire_time, gauge_body, make_key, open_store, problem, spawn_app,
+    spawn_app_with, test_config,
+};
 use serde_json::{Value, json};
 
 /// An app with one gauge `alder-weir`, an admin key, a gauge key for it and
@@ -70,15 +71,11 @@ impl Fixture {
     /// `POST …/readings/{time}/confirm` of `alder-weir` with `key`.
     async fn confirm(&self, key: &str, time: &str) -> reqwest::Response {
         self.app
-            .client
             .post(
-                self.app
-                    .url(&format!("/api/gauges/alder-weir/readings/{time}/confirm")),
+                key,
+                &format!("/api/gauges/alder-weir/readings/{time}/confirm"),
             )
-            .bearer_auth(key)
-            .send()
             .await
-            .expect("send")
     }
 }
 
@@ -86,37 +83,9 @@ fn owned(pairs: &[(&str, bool)]) -> Vec<(String, bool)> {
     pairs.iter().map(|(s, b)| ((*s).to_owned(), *b)).collect()
 }
 
-/// Asserts an RFC 9457 problem (§3: media type application/problem+json,
-/// members type, title, status) and returns its body.
-async fn problem(res: reqwest::Response, status: u16) -> Value {
-    assert_eq!(res.status().as_u16(), status);
-    assert_eq!(
-        res.headers()["content-type"],
-        "application/problem+json",
-        "RFC 9457 §3 media type"
-    );
-    let body: Value = res.json().await.expect("problem json");
-    assert_eq!(body["status"], status, "{body}");
-    assert!(
-        body["type"].is_string() && body["title"].is_string(),
-        "{body}"
-    );
-    body
-}
-
-/// Asserts the one wire form of a time (README, "API"): an RFC 3339 §5.6
-/// date-time in UTC with exactly three fraction digits and `Z`, e.g.
-/// `2026-03-01T03:15:00.000Z`.
-fn assert_wire_time(v: &Value) {
-    let s = v
-        .as_str()
-        .unwrap_or_else(|| panic!("a time string, got {v}"));
-    let shape: String = s
-        .chars()
-        .map(|c| if c.is_ascii_digit() { 'd' } else { c })
-        .collect();
-    assert_eq!(shape, "dddd-dd-ddTdd:dd:dd.dddZ", "{s}");
-    assert!(chrono::DateTime::parse_from_rfc3339(s).is_ok(), "{s}");
+/// The JSON report of a batch.
+async fn report(res: reqwest::Response) -> Value {
+    res.json().await.expect("json")
 }
 
 fn reading(time: &str, stage: f64) -> Value {
@@ -176,47 +145,28 @@ async fn json_batch_is_per_row_with_a_full_report() {
 async fn identical_resend_is_a_duplicate_and_changed_value_a_revision() {
     let f = fixture().await;
     let batch = json!({"readings": [reading("2025-03-01T00:00:00Z", 1.0), reading("2025-03-01T00:15:00Z", 1.1)]});
-    let first: Value = f
-        .app
-        .post_readings(&f.logger, "alder-weir", &batch)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let first = report(f.app.post_readings(&f.logger, "alder-weir", &batch).await).await;
     assert_eq!(
         (first["accepted"].as_u64(), first["duplicate"].as_u64()),
         (Some(2), Some(0))
     );
-    let again: Value = f
-        .app
-        .post_readings(&f.logger, "alder-weir", &batch)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let again = report(f.app.post_readings(&f.logger, "alder-weir", &batch).await).await;
     assert_eq!(
         (again["accepted"].as_u64(), again["duplicate"].as_u64()),
         (Some(0), Some(2))
     );
     // Same time, written with another offset: still the same instant.
     let same_instant = json!({"readings": [reading("2025-03-01T01:15:00+01:00", 1.1)]});
-    let r: Value = f
-        .app
-        .post_readings(&f.logger, "alder-weir", &same_instant)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = report(
+        f.app
+            .post_readings(&f.logger, "alder-weir", &same_instant)
+            .await,
+    )
+    .await;
     assert_eq!(r["duplicate"], 1);
 
     let changed = json!({"readings": [reading("2025-03-01T00:15:00Z", 1.15)]});
-    let r: Value = f
-        .app
-        .post_readings(&f.admin, "alder-weir", &changed)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = report(f.app.post_readings(&f.admin, "alder-weir", &changed).await).await;
     assert_eq!(
         (r["revised"].as_u64(), r["accepted"].as_u64()),
         (Some(1), Some(0))
@@ -253,13 +203,12 @@ async fn identical_resend_is_a_duplicate_and_changed_value_a_revision() {
     }
     // A batch contradicting itself: the second row for one time is rejected.
     let contradict = json!({"readings": [reading("2025-03-02T00:00:00Z", 1.0), reading("2025-03-02T00:00:00Z", 1.2)]});
-    let r: Value = f
-        .app
-        .post_readings(&f.logger, "alder-weir", &contradict)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = report(
+        f.app
+            .post_readings(&f.logger, "alder-weir", &contradict)
+            .await,
+    )
+    .await;
     assert_eq!(
         (r["accepted"].as_u64(), r["rejected"].as_u64()),
         (Some(1), Some(1))
@@ -655,9 +604,7 @@ async fn roles_and_keys_are_enforced() {
     // Every write is in the audit log with its key id and counts.
     let dir = f._dir.path().to_owned();
     f.app.stop().await;
-    let store = reachcast::store::Store::open_for_maintenance(&test_config(&dir).storage)
-        .await
-        .expect("open");
+    let store = open_store(&dir).await;
     let log = store.audit_log(100).await.expect("audit");
     let logger_id = f.logger.split('_').nth(1).expect("id");
     let ingest = log
@@ -694,20 +641,9 @@ async fn private_reads_need_a_key() {
     let mut config = test_config(dir.path());
     config.auth.public_reads = false;
     let app = spawn_app_with(config).await;
-    let res = app
-        .client
-        .get(app.url("/api/gauges"))
-        .send()
-        .await
-        .expect("send");
+    let res = app.get("/api/gauges").await;
     problem(res, 401).await;
-    let res = app
-        .client
-        .get(app.url("/api/gauges"))
-        .bearer_auth(&forecaster)
-        .send()
-        .await
-        .expect("send");
+    let res = app.get_as(&forecaster, "/api/gauges").await;
     assert_eq!(res.status(), 200);
     app.stop().await;
 }
@@ -722,22 +658,10 @@ async fn per_key_rate_limit_answers_429_with_retry_after() {
     config.auth.rate_limit_per_sec = 0.01;
     let app = spawn_app_with(config).await;
     for _ in 0..3 {
-        let res = app
-            .client
-            .get(app.url("/api/gauges"))
-            .bearer_auth(&admin)
-            .send()
-            .await
-            .expect("send");
+        let res = app.get_as(&admin, "/api/gauges").await;
         assert_eq!(res.status(), 200);
     }
-    let res = app
-        .client
-        .get(app.url("/api/gauges"))
-        .bearer_auth(&admin)
-        .send()
-        .await
-        .expect("send");
+    let res = app.get_as(&admin, "/api/gauges").await;
     // RFC 6585 §4: 429 Too Many Requests, MAY include Retry-After.
     let retry: u64 = res.headers()["retry-after"]
         .to_str()
@@ -747,13 +671,7 @@ async fn per_key_rate_limit_answers_429_with_retry_after() {
     assert!((1..=100).contains(&retry), "{retry}");
     problem(res, 429).await;
     // Another key has its own budget.
-    let res = app
-        .client
-        .get(app.url("/api/gauges"))
-        .bearer_auth(&other)
-        .send()
-        .await
-        .expect("send");
+    let res = app.get_as(&other, "/api/gauges").await;
     assert_eq!(res.status(), 200);
     app.stop().await;
 }
@@ -775,22 +693,16 @@ async fn csv_round_trip() {
                \"2025-03-01T00:00:00Z\",1.5,20.25,\"good\"\r\n\
                2025-03-01T01:15:00+01:00,1.55,,estimate\r\n\
                2025-03-01T00:30:00Z,,21.5,\r\n";
-    let r: Value = f
-        .app
-        .post_csv(&f.admin, "alder-weir", csv)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = report(f.app.post_csv(&f.admin, "alder-weir", csv).await).await;
     assert_eq!(r["accepted"], 3, "{r}");
     let res = f
         .app
-        .client
-        .get(f.app.url("/api/gauges/alder-weir/readings?order=oldest"))
-        .header("accept", "text/csv")
-        .send()
-        .await
-        .expect("GET csv");
+        .get_with(
+            "/api/gauges/alder-weir/readings?order=oldest",
+            "accept",
+            "text/csv",
+        )
+        .await;
     assert!(
         res.headers()["content-type"]
             .to_str()
@@ -808,36 +720,18 @@ async fn csv_round_trip() {
          2025-03-01T00:30:00.000Z,,21.5,unchecked,ok,0\r\n"
     );
     // What comes out goes back in unchanged, to another gauge.
-    let r: Value = f
-        .app
-        .post_csv(&f.admin, "brook-end", &out)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = report(f.app.post_csv(&f.admin, "brook-end", &out).await).await;
     assert_eq!(r["accepted"], 3, "{r}");
     let again = f
         .app
-        .client
-        .get(
-            f.app
-                .url("/api/gauges/brook-end/readings?order=oldest&format=csv"),
-        )
-        .send()
+        .get("/api/gauges/brook-end/readings?order=oldest&format=csv")
         .await
-        .expect("GET csv")
         .text()
         .await
         .expect("text");
     assert_eq!(again, out);
     // And resending it to the first gauge only finds duplicates.
-    let r: Value = f
-        .app
-        .post_csv(&f.admin, "alder-weir", &out)
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = report(f.app.post_csv(&f.admin, "alder-weir", &out).await).await;
     assert_eq!(
         (r["duplicate"].as_u64(), r["accepted"].as_u64()),
         (Some(3), Some(0))
@@ -856,13 +750,12 @@ async fn paging_walks_every_reading_once_in_both_orders() {
             )
         })
         .collect();
-    let r: Value = f
-        .app
-        .post_readings(&f.logger, "alder-weir", &json!({"readings": rows}))
-        .await
-        .json()
-        .await
-        .expect("json");
+    let r = report(
+        f.app
+            .post_readings(&f.logger, "alder-weir", &json!({"readings": rows}))
+            .await,
+    )
+    .await;
     assert_eq!(r["accepted"], 25);
     for order in ["newest", "oldest"] {
         let mut seen: Vec<String> = Vec::new();
@@ -928,11 +821,8 @@ async fn paging_walks_every_reading_once_in_both_orders() {
     ] {
         let res = f
             .app
-            .client
-            .get(f.app.url(&format!("/api/gauges/alder-weir/readings?{q}")))
-            .send()
-            .await
-            .expect("GET");
+            .get(&format!("/api/gauges/alder-weir/readings?{q}"))
+            .await;
         let p = problem(res, 400).await;
         assert_eq!(p["field"], field, "{q}");
         assert_eq!(p["type"], "/problems/invalid-parameter", "{q}");
@@ -964,12 +854,8 @@ async fn latest_readings_answer_follows_every_write() {
     ] {
         let res = f
             .app
-            .client
-            .get(f.app.url("/api/gauges/alder-weir/readings"))
-            .header("accept", accept)
-            .send()
-            .await
-            .expect("GET");
+            .get_with("/api/gauges/alder-weir/readings", "accept", accept)
+            .await;
         assert_eq!(res.status(), 200);
         assert_eq!(res.headers()["vary"], "accept", "{accept}");
     }

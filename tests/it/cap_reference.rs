@@ -6,12 +6,10 @@
 //! numbers; RFC 3339 for Atom dates. Details recalled rather than re-read are
 //! marked "(from memory)". All places are invented.
 
-mod common;
-
 use std::collections::HashMap;
 
+use crate::common::xml::{El, cap_time_value, is_cap_time, is_cap_token, parse_document as parse};
 use chrono::{DateTime, TimeZone, Utc};
-use common::xml::{El, cap_time_value, is_cap_time, is_cap_token, parse_document as parse};
 use reachcast::CAUTION;
 use reachcast::forecast::cap::{
     CAP_MEDIA_TYPE, CAP_NAMESPACE, CapOptions, Circle, Feed, FeedEntry, Issued, Issuer, MsgType,

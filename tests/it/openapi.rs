@@ -13,12 +13,13 @@
 //!   documented schema (a small JSON Schema checker below), and `ETag`
 //!   answers give the documented 304.
 
-mod common;
-
 use std::collections::{BTreeMap, BTreeSet};
 
+use crate::common::{
+    Keys, ReachApp, TestApp, body_of, bridge_reach, files::repo_path, json_of, reach_gauge,
+    spawn_app, spawn_app_with, test_config,
+};
 use chrono::{DateTime, SecondsFormat, Utc};
-use common::{TestApp, spawn_app_with, test_config};
 use reachcast::{auth::Role, http::openapi::DOCUMENT};
 use serde_json::{Value, json};
 
@@ -298,7 +299,7 @@ fn the_document_is_well_formed_openapi_3_1() {
 /// the source: `.route("/p", get(a).post(b))` in each module, prefixed with
 /// `/api` for the modules `mod.rs` merges into the nested `api` router.
 fn scan_routers() -> BTreeSet<(String, String)> {
-    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("src/http");
+    let dir = repo_path("src/http");
     let module = std::fs::read_to_string(dir.join("mod.rs")).expect("mod.rs");
     let api_start = module
         .find("let api = Router::new()")
@@ -614,25 +615,14 @@ const REACH: &str = "oa-reach";
 const GAUGE: &str = "oa-gauge";
 const POINT: &str = "Quillet Bridge";
 
-/// An invented 10 km trapezoidal reach with a bridge at mid-reach.
+/// An invented 10 km trapezoidal reach with a bridge at mid-reach
+/// (`common::bridge_reach`), the bridge watched by the gauge and its upper
+/// threshold given a severity.
 fn reach_doc() -> Value {
-    json!({
-        "name": "Quillet Water (invented)",
-        "sections": [
-            {"name": "Q0", "chainage": 0, "geometry": {"shape": "trapezoid", "bed_elevation": 20.0,
-             "bottom_width": 15.0, "side_slope": 2.0, "n": 0.035}},
-            {"name": "Q1", "chainage": 10000, "geometry": {"shape": "trapezoid", "bed_elevation": 10.0,
-             "bottom_width": 15.0, "side_slope": 2.0, "n": 0.035}}
-        ],
-        "max_node_spacing": 250,
-        "downstream": {"kind": "normal_depth", "friction_slope": 0.001},
-        "points": [{"name": POINT, "chainage": 5000, "kind": "bridge",
-                    "low_chord": 19.5, "deck": 20.5, "gauge": GAUGE,
-                    "thresholds": [{"name": "low", "elevation": 16.0},
-                                   {"name": "high", "elevation": 17.5, "severity": "severe"}]}],
-        "routing": {"output_interval_s": 600},
-        "service": {"upstream_gauge": GAUGE, "time_zone": "+01:00"}
-    })
+    let mut doc = bridge_reach("Quillet Water (invented)", POINT, GAUGE);
+    doc["points"][0]["gauge"] = json!(GAUGE);
+    doc["points"][0]["thresholds"][1]["severity"] = json!("severe");
+    doc
 }
 
 fn encode(s: &str) -> String {
@@ -761,43 +751,21 @@ struct Fixture {
 }
 
 async fn fixture() -> Fixture {
-    let dir = tempfile::tempdir().expect("temp dir");
-    let mut config = test_config(dir.path());
-    config.forecast.debounce_ms = 0;
-    config.forecast.stale_after_minutes = 60;
-    let app = spawn_app_with(config).await;
-    let admin = app.key(Role::Admin, &[]).await;
-    let gauge_key = app.key(Role::Gauge, &[GAUGE]).await;
-    let forecaster = app.key(Role::Forecaster, &[]).await;
-    let res = app
-        .client
-        .put(app.url(&format!("/api/reaches/{REACH}")))
-        .bearer_auth(&admin)
-        .json(&reach_doc())
-        .send()
-        .await
-        .expect("PUT reach");
-    assert_eq!(
-        res.status(),
-        201,
-        "{}",
-        res.text().await.unwrap_or_default()
-    );
-    let res = app
-        .put_gauge(
-            &admin,
-            GAUGE,
-            &json!({"name": "Quillet gauge", "reach": REACH, "chainage_m": 0.0,
-                    "measures": "both", "stage_min_m": 10.0, "stage_max_m": 30.0,
-                    "max_rise_m_per_h": 5.0}),
-        )
-        .await;
-    assert_eq!(
-        res.status(),
-        201,
-        "{}",
-        res.text().await.unwrap_or_default()
-    );
+    let gauge = reach_gauge("Quillet gauge", REACH, "both", 10.0, 5.0);
+    let ReachApp { app, keys, dir } = ReachApp::start(
+        |c| {
+            c.forecast.debounce_ms = 0;
+            c.forecast.stale_after_minutes = 60;
+        },
+        (REACH, &reach_doc()),
+        (GAUGE, &gauge),
+    )
+    .await;
+    let Keys {
+        admin,
+        gauge: gauge_key,
+        forecaster,
+    } = keys;
     let now = Utc::now();
     let readings: Vec<Value> = (0..=12_i32)
         .map(|k| {
@@ -810,12 +778,7 @@ async fn fixture() -> Fixture {
     let res = app
         .post_readings(&gauge_key, GAUGE, &json!({ "readings": readings }))
         .await;
-    assert_eq!(
-        res.status(),
-        200,
-        "{}",
-        res.text().await.unwrap_or_default()
-    );
+    body_of(res, 200).await;
     let series: Vec<Value> = (0..=24)
         .map(|h| {
             let t = now + chrono::Duration::hours(h);
@@ -823,41 +786,19 @@ async fn fixture() -> Fixture {
             json!({"time": t.to_rfc3339(), "discharge": q})
         })
         .collect();
-    let res = app
-        .client
-        .post(app.url(&format!("/api/reaches/{REACH}/inflows")))
-        .bearer_auth(&forecaster)
-        .json(&json!({"reason": "test flood", "series": series}))
-        .send()
-        .await
-        .expect("upload");
-    assert_eq!(
-        res.status(),
-        201,
-        "{}",
-        res.text().await.unwrap_or_default()
-    );
-    let version = res.json::<Value>().await.expect("json")["version"].to_string();
-    let res = app
-        .client
-        .post(app.url(&format!("/api/reaches/{REACH}/runs?wait=true")))
-        .bearer_auth(&forecaster)
-        .send()
-        .await
-        .expect("trigger");
-    assert_eq!(res.status(), 200);
-    let summary: Value = res.json().await.expect("json");
+    let upload = json!({"reason": "test flood", "series": series});
+    let res = app.post_inflow(&forecaster, REACH, &upload).await;
+    let version = json_of(res, 201).await["version"].to_string();
+    let res = app.run_and_wait(&forecaster, REACH).await;
+    let summary = json_of(res, 200).await;
     assert_eq!(summary["status"], "ok", "{summary}");
     let run_id = summary["run_id"].to_string();
 
     // A CAP message, if the run issued one (the flood crosses both
     // thresholds); an unknown identifier otherwise (a documented 404).
     let feed = app
-        .client
-        .get(app.url("/api/cap/feed.atom"))
-        .send()
+        .get("/api/cap/feed.atom")
         .await
-        .expect("feed")
         .text()
         .await
         .expect("feed text");
@@ -1140,13 +1081,8 @@ async fn security_requirements_match_the_server() {
 #[tokio::test]
 async fn the_document_is_served() {
     let dir = tempfile::tempdir().expect("temp dir");
-    let app = spawn_app_with(test_config(dir.path())).await;
-    let res = app
-        .client
-        .get(app.url("/api/openapi.json"))
-        .send()
-        .await
-        .expect("GET");
+    let app = spawn_app(dir.path()).await;
+    let res = app.get("/api/openapi.json").await;
     assert_eq!(res.status(), 200);
     assert_eq!(
         res.headers()

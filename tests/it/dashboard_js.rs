@@ -4,12 +4,13 @@
 
 use std::process::Command;
 
+use crate::common::files::{files_under, repo_path};
+
 #[test]
 fn dashboard_javascript_unit_tests_pass() {
-    let root = env!("CARGO_MANIFEST_DIR");
     let out = Command::new("node")
         .args(["--test", "tests/js/"])
-        .current_dir(root)
+        .current_dir(repo_path(""))
         .output()
         .expect("run `node --test`: is Node.js (18 or newer) installed and on the PATH?");
     let stdout = String::from_utf8_lossy(&out.stdout);
@@ -37,21 +38,10 @@ fn dashboard_javascript_unit_tests_pass() {
 /// under the 150 KB page-weight budget, uncompressed.
 #[test]
 fn dashboard_page_weight_is_under_150_kb() {
-    fn total(dir: &std::path::Path) -> u64 {
-        std::fs::read_dir(dir)
-            .expect("read static dir")
-            .map(|e| e.expect("dir entry").path())
-            .map(|p| {
-                if p.is_dir() {
-                    total(&p)
-                } else {
-                    std::fs::metadata(&p).expect("file size").len()
-                }
-            })
-            .sum()
-    }
-    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("static");
-    let bytes = total(&dir);
+    let bytes: u64 = files_under(&repo_path("static"))
+        .iter()
+        .map(|p| std::fs::metadata(p).expect("file size").len())
+        .sum();
     assert!(
         bytes > 10_000,
         "the dashboard files are there: {bytes} bytes"

@@ -1,17 +1,7 @@
 //! `reachcast keys create | list | revoke`, through the real binary on a
 //! real data directory.
 
-use std::process::{Command, Output};
-
-fn keys(dir: &std::path::Path, args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_reachcast"))
-        .arg("keys")
-        .args(args)
-        .arg("--data-dir")
-        .arg(dir)
-        .output()
-        .expect("run reachcast keys")
-}
+use crate::common::binary::{created_token, keys};
 
 #[test]
 fn create_list_revoke() {
@@ -26,7 +16,7 @@ fn create_list_revoke() {
     let out = keys(dir.path(), &["create", "--name", "x", "--role", "owner"]);
     assert!(!out.status.success());
 
-    let out = keys(
+    let token = created_token(keys(
         dir.path(),
         &[
             "create",
@@ -37,14 +27,7 @@ fn create_list_revoke() {
             "--gauge",
             "alder-weir",
         ],
-    );
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let stdout = String::from_utf8(out.stdout).expect("utf-8");
-    let token = stdout.lines().next().expect("token line").to_owned();
+    ));
     let (id, secret) = reachcast::auth::parse_token(&token).expect("rck_<id>_<secret>");
 
     let out = keys(dir.path(), &["list"]);

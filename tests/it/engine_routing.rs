@@ -17,6 +17,29 @@ use reachcast::engine::series::Series;
 // Analytic sections
 // ---------------------------------------------------------------------------
 
+/// Properties at `z` of a section that conveys all the water it stores
+/// (the storage area and width are the flow's), within its geometry.
+fn conveying(
+    z: f64,
+    area: f64,
+    top_width: f64,
+    wetted_perimeter: f64,
+    conveyance: f64,
+    dconveyance_dz: f64,
+) -> Props {
+    Props {
+        z,
+        flow_area: area,
+        storage_area: area,
+        flow_top_width: top_width,
+        storage_top_width: top_width,
+        wetted_perimeter,
+        conveyance,
+        dconveyance_dz,
+        extrapolated: false,
+    }
+}
+
 /// Wide rectangular channel: hydraulic radius taken equal to the depth, so
 /// Manning gives K = B h^{5/3} / n (common practice).
 struct WideRect {
@@ -31,17 +54,10 @@ impl Hydraulics for WideRect {
     }
     fn props(&self, z: f64) -> Props {
         let h = (z - self.bed).max(0.0);
-        Props {
-            z,
-            flow_area: self.width * h,
-            storage_area: self.width * h,
-            flow_top_width: self.width,
-            storage_top_width: self.width,
-            wetted_perimeter: self.width,
-            conveyance: self.width * h.powf(5.0 / 3.0) / self.n,
-            dconveyance_dz: 5.0 / 3.0 * self.width * h.powf(2.0 / 3.0) / self.n,
-            extrapolated: false,
-        }
+        let k = self.width * h.powf(5.0 / 3.0) / self.n;
+        let dk = 5.0 / 3.0 * self.width * h.powf(2.0 / 3.0) / self.n;
+        // Wide: the wetted perimeter is taken as the width.
+        conveying(z, self.width * h, self.width, self.width, k, dk)
     }
 }
 
@@ -84,17 +100,7 @@ impl Hydraulics for Trapezoid {
         } else {
             0.0
         };
-        Props {
-            z,
-            flow_area: a,
-            storage_area: a,
-            flow_top_width: t,
-            storage_top_width: t,
-            wetted_perimeter: p,
-            conveyance: k,
-            dconveyance_dz: dk,
-            extrapolated: false,
-        }
+        conveying(z, a, t, p, k, dk)
     }
 }
 
@@ -143,17 +149,8 @@ impl Hydraulics for Compound {
         } else {
             self.width
         };
-        Props {
-            z,
-            flow_area: ac + af,
-            storage_area: ac + af,
-            flow_top_width: t,
-            storage_top_width: t,
-            wetted_perimeter: pc + if hf > 0.0 { self.fp } else { 0.0 },
-            conveyance: kc + kf,
-            dconveyance_dz: dkc + dkf,
-            extrapolated: false,
-        }
+        let p = pc + if hf > 0.0 { self.fp } else { 0.0 };
+        conveying(z, ac + af, t, p, kc + kf, dkc + dkf)
     }
 }
 

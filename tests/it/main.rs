@@ -1,0 +1,22 @@
+//! The integration tests: one test binary, one module per area, so the
+//! crate and its dependencies are linked once, not once per file.
+//!
+//! `cargo test --test it MODULE::` runs one area (e.g. `ingest::`); the
+//! browser tests (`dashboard::`) are ignored by default, see `dashboard.rs`.
+//! `common` holds the set-up the areas share.
+
+mod common;
+
+mod cap_reference;
+mod cap_service;
+mod cli_keys;
+mod dashboard;
+mod dashboard_js;
+mod durability;
+mod engine_routing;
+mod engine_sections;
+mod forecast_cycle;
+mod foundation;
+mod ingest;
+mod openapi;
+mod route_command;
