@@ -724,3 +724,53 @@ async fn crest_times_are_output_instants() {
     }
     s.app.stop().await;
 }
+
+/// The exceedance `ETag` changes only when the meaning does (README,
+/// "Exceedances"): a second run over the same readings and the same upload
+/// says the same, so a poller holding the first `ETag` gets a 304 although
+/// the run id in the body moved on.
+#[tokio::test]
+async fn a_run_that_says_the_same_keeps_the_exceedance_etag() {
+    let s = setup(60, 600_000).await;
+    let now = Utc::now();
+    let base = DateTime::from_timestamp(now.timestamp() / 60 * 60, 0).expect("minute");
+    let h = chrono::Duration::hours;
+    post_readings(&s, &rising(base, 2, 20.0, 20.0)).await;
+    // A flood wave whose crest lies well ahead, then back to base flow.
+    let series = [
+        (base - h(1), 20.0),
+        (base + h(3), 150.0),
+        (base + h(9), 20.0),
+        (base + h(60), 20.0),
+    ];
+    upload(&s, &series, "wave ahead").await;
+    let first = run_now(&s).await["run_id"].clone();
+    let (etag1, body1) = exceedance_board(&s).await;
+    let second = run_now(&s).await["run_id"].clone();
+    let (etag2, body2) = exceedance_board(&s).await;
+    assert_ne!(first, second);
+    assert_eq!(body1["items"][0]["run_id"], first);
+    assert_eq!(body2["items"][0]["run_id"], second);
+    let exceeded = body2["items"]
+        .as_array()
+        .expect("items")
+        .iter()
+        .filter(|i| i["exceeded"] == true)
+        .count();
+    assert!(exceeded > 0, "the wave exceeds a threshold: {body2}");
+    assert!(etag1.starts_with("W/"), "{etag1}");
+    assert_eq!(etag1, etag2, "same meaning, same validator");
+    let res = s
+        .app
+        .get_with("/api/exceedances", "if-none-match", &etag1)
+        .await;
+    assert_eq!(res.status(), 304);
+    s.app.stop().await;
+}
+
+/// The exceedance board and its `ETag`.
+async fn exceedance_board(s: &ReachApp) -> (String, Value) {
+    let res = s.app.get("/api/exceedances").await;
+    let etag = res.headers()["etag"].to_str().expect("etag").to_owned();
+    (etag, res.json().await.expect("json"))
+}
