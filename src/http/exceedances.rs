@@ -1,8 +1,9 @@
 //! `GET /api/exceedances`: every (point, threshold) situation at the latest
 //! good run of each reach, for alerting clients that poll. The answer
 //! changes only when a run lands, so it is serialized once per board
-//! version and unit system, and served with a weak `ETag` that changes
-//! only when the meaning does (`If-None-Match` → 304).
+//! version, unit system and filter (`reach=`, `exceeded=`,
+//! `min_severity=`), and served with a weak `ETag` that changes only when
+//! the meaning does (`If-None-Match` → 304).
 
 use std::sync::RwLock;
 
@@ -37,10 +38,33 @@ pub fn router() -> Router<AppState> {
     Router::new().route("/exceedances", get(exceedances))
 }
 
-/// Serialized answers, keyed by board version and units.
+/// Serialized answers, keyed by board version, units and filter (a
+/// filter's reach must exist, so the entries of one version are bounded).
 #[derive(Default)]
 pub struct ExceedanceCache {
-    entries: RwLock<Vec<(u64, Units, Bytes, String)>>,
+    entries: RwLock<Vec<CachedBoard>>,
+}
+
+/// One cached answer: board version, units, filter, body, `ETag`.
+type CachedBoard = (u64, Units, Filter, Bytes, String);
+
+/// Which items an alerting client asks for; every part optional.
+#[derive(Debug, Clone, Default, PartialEq, Deserialize)]
+struct Filter {
+    /// Only this reach (its id).
+    reach: Option<String>,
+    /// Only items that are (or are not) exceeded from now on.
+    exceeded: Option<bool>,
+    /// Only levels of at least this CAP severity.
+    min_severity: Option<Severity>,
+}
+
+impl Filter {
+    fn keeps(&self, s: &Situation) -> bool {
+        self.reach.as_ref().is_none_or(|r| *r == s.reach_id)
+            && self.exceeded.is_none_or(|e| e == s.exceeded)
+            && self.min_severity.is_none_or(|m| s.severity >= m)
+    }
 }
 
 /// One situation as this endpoint names its fields (lengths in the unit
@@ -149,11 +173,15 @@ struct BoardParams {
     /// Accepted for clients that send it everywhere; the board is JSON.
     #[serde(rename = "format")]
     _format: Option<JsonOnly>,
+    reach: Option<String>,
+    exceeded: Option<bool>,
+    min_severity: Option<Severity>,
 }
 
 /// The serialized answer and its validator.
-fn render(state: &AppState, units: Units) -> Result<(Bytes, String), ApiError> {
-    let (situations, version) = state.forecaster.board();
+fn render(state: &AppState, units: Units, filter: Filter) -> Result<(Bytes, String), ApiError> {
+    let (mut situations, version) = state.forecaster.board();
+    situations.retain(|s| filter.keeps(s));
     let doc = Doc {
         caution: CAUTION,
         generated_at: situations.iter().map(|s| s.run_finished).max(),
@@ -163,8 +191,8 @@ fn render(state: &AppState, units: Units) -> Result<(Bytes, String), ApiError> {
     let body = Bytes::from(serde_json::to_vec(&doc).map_err(|e| ApiError::Internal(e.into()))?);
     let etag = meaning_etag(&doc.items, units)?;
     if let Ok(mut e) = state.exceedance_cache.entries.write() {
-        e.retain(|(v, _, _, _)| *v == version);
-        e.push((version, units, body.clone(), etag.clone()));
+        e.retain(|(v, _, _, _, _)| *v == version);
+        e.push((version, units, filter, body.clone(), etag.clone()));
     }
     Ok((body, etag))
 }
@@ -176,15 +204,23 @@ async fn exceedances(
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
     let units = params.units.unwrap_or_default();
+    let filter = Filter {
+        reach: params.reach,
+        exceeded: params.exceeded,
+        min_severity: params.min_severity,
+    };
+    if let Some(r) = &filter.reach {
+        super::reaches::find_reach(&state, r).await?;
+    }
     let version = state.forecaster.board_version();
     let cached = state.exceedance_cache.entries.read().ok().and_then(|e| {
         e.iter()
-            .find(|(v, u, _, _)| *v == version && *u == units)
-            .map(|(_, _, b, t)| (b.clone(), t.clone()))
+            .find(|(v, u, f, _, _)| *v == version && *u == units && *f == filter)
+            .map(|(_, _, _, b, t)| (b.clone(), t.clone()))
     });
     let (body, etag) = match cached {
         Some(hit) => hit,
-        None => render(&state, units)?,
+        None => render(&state, units, filter)?,
     };
     if not_modified(&headers, &etag) {
         return Ok(with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag));

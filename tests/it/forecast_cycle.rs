@@ -774,3 +774,50 @@ async fn exceedance_board(s: &ReachApp) -> (String, Value) {
     let etag = res.headers()["etag"].to_str().expect("etag").to_owned();
     (etag, res.json().await.expect("json"))
 }
+
+/// Alerting clients can ask for part of the board: `reach=`, `exceeded=`
+/// and `min_severity=` (CAP 1.2 §3.2.2 order: Minor < Moderate < Severe <
+/// Extreme); each filtered answer is exactly the matching part of the whole
+/// board, and a bad filter is a 400 or 404 problem naming it.
+#[tokio::test]
+async fn exceedance_filters_select_part_of_the_board() {
+    let s = setup(60, 600_000).await;
+    post_readings(&s, &rising(Utc::now(), 3, 20.0, 80.0)).await;
+    assert_eq!(run_now(&s).await["status"], "ok");
+    let (_, all) = exceedance_board(&s).await;
+    let all = all["items"].as_array().expect("items").clone();
+    assert!(!all.is_empty());
+    let rank = |v: &Value| {
+        ["minor", "moderate", "severe", "extreme"]
+            .iter()
+            .position(|s| v == s)
+    };
+    type Keep<'a> = Box<dyn Fn(&Value) -> bool + 'a>;
+    let cases: [(&str, Keep); 4] = [
+        (
+            &format!("reach={REACH}"),
+            Box::new(|i: &Value| i["reach"] == REACH),
+        ),
+        ("exceeded=true", Box::new(|i: &Value| i["exceeded"] == true)),
+        (
+            "exceeded=false",
+            Box::new(|i: &Value| i["exceeded"] == false),
+        ),
+        (
+            "min_severity=moderate",
+            Box::new(move |i: &Value| rank(&i["severity"]) >= Some(1)),
+        ),
+    ];
+    for (query, keep) in &cases {
+        let (status, doc) = s.app.get_json(&format!("/api/exceedances?{query}")).await;
+        assert_eq!(status, 200, "{query}");
+        let want: Vec<&Value> = all.iter().filter(|i| keep(i)).collect();
+        let got: Vec<&Value> = doc["items"].as_array().expect("items").iter().collect();
+        assert_eq!(got, want, "{query}");
+    }
+    let (status, p) = s.app.get_json("/api/exceedances?min_severity=dire").await;
+    assert_eq!((status, p["field"].as_str()), (400, Some("min_severity")));
+    let (status, p) = s.app.get_json("/api/exceedances?reach=nowhere").await;
+    assert_eq!((status, p["field"].as_str()), (404, Some("reach")));
+    s.app.stop().await;
+}
