@@ -5,7 +5,7 @@
 use chrono::{DateTime, Utc};
 use sqlx::Row;
 
-use super::{Audit, Store, StoreError, audit};
+use super::{Audit, Store, StoreError, audit, time};
 use crate::forecast::cap::{self, Issued, Key, Material, MsgType};
 
 /// A planned and rendered message, ready to store.
@@ -75,12 +75,6 @@ fn msg_type_of(text: &str) -> Result<MsgType, StoreError> {
     }
 }
 
-fn cap_time_of(column: &str, text: &str) -> Result<DateTime<Utc>, StoreError> {
-    DateTime::parse_from_rfc3339(text)
-        .map(|t| t.with_timezone(&Utc))
-        .map_err(|e| StoreError::Corrupt(format!("cap_messages.{column} `{text}`: {e}")))
-}
-
 impl Store {
     /// For each (point, threshold) of `reach_id`: the messages since its
     /// last `Cancel`, that `Cancel` included, oldest first, ties in `sent`
@@ -121,12 +115,12 @@ impl Store {
                         },
                         identifier: row.try_get("identifier")?,
                         sender: row.try_get("sender")?,
-                        sent: cap_time_of("sent", &sent)?,
+                        sent: time::read("cap_messages.sent", &sent)?,
                         msg_type: msg_type_of(&msg_type)?,
                         active: active != 0,
                         material,
                     },
-                    expires: cap_time_of("expires", &expires)?,
+                    expires: time::read("cap_messages.expires", &expires)?,
                 })
             })
             .collect()
@@ -227,8 +221,8 @@ impl Store {
                     identifier: row.try_get("identifier")?,
                     reach_id: row.try_get("reach_id")?,
                     msg_type: msg_type_of(&msg_type)?,
-                    sent: cap_time_of("sent", &sent)?,
-                    expires: cap_time_of("expires", &expires)?,
+                    sent: time::read("cap_messages.sent", &sent)?,
+                    expires: time::read("cap_messages.expires", &expires)?,
                     title: row.try_get("title")?,
                     summary: row.try_get("summary")?,
                 })
@@ -247,7 +241,9 @@ impl Store {
         .await?;
         Ok(CurrentCap {
             entries,
-            updated: updated.map(|t| cap_time_of("sent", &t)).transpose()?,
+            updated: updated
+                .map(|t| time::read("cap_messages.sent", &t))
+                .transpose()?,
         })
     }
 

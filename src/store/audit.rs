@@ -1,6 +1,5 @@
 //! The audit log: one row per write, in the same transaction as the write.
 
-use chrono::Utc;
 use sqlx::SqliteConnection;
 
 use super::{Store, StoreError};
@@ -56,7 +55,7 @@ async fn insert(conn: &mut SqliteConnection, audit: &Audit, actor: &str) -> Resu
         "INSERT INTO audit_log (at, key_id, actor, action, target, summary)
          VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
     )
-    .bind(crate::wire_time::format(Utc::now()))
+    .bind(super::time::now_text())
     .bind(&audit.key_id)
     .bind(actor)
     .bind(&audit.action)

@@ -4,7 +4,7 @@
 use chrono::{DateTime, Utc};
 use sqlx::Row;
 
-use super::{Audit, Store, StoreError, audit};
+use super::{Audit, Store, StoreError, audit, time};
 use crate::forecast::{
     hydrograph::Hydrograph,
     record::{RunProvenance, RunRecord, RunStatus, StoredResults},
@@ -38,23 +38,6 @@ fn corrupt(what: &str, e: impl std::fmt::Display) -> StoreError {
     StoreError::Corrupt(format!("{what}: {e}"))
 }
 
-/// A stored time: RFC 3339 text as written by [`now_text`] (older rows
-/// were written with `+00:00` and nanoseconds; both read).
-fn time(what: &str, text: &str) -> Result<DateTime<Utc>, StoreError> {
-    DateTime::parse_from_rfc3339(text)
-        .map(|t| t.with_timezone(&Utc))
-        .map_err(|e| corrupt(what, e))
-}
-
-fn time_opt(what: &str, text: Option<String>) -> Result<Option<DateTime<Utc>>, StoreError> {
-    text.map(|t| time(what, &t)).transpose()
-}
-
-/// Now, in the stored form of a time.
-fn now_text() -> String {
-    crate::wire_time::format(Utc::now())
-}
-
 fn encode<T: serde::Serialize>(what: &str, value: &T) -> Result<String, StoreError> {
     serde_json::to_string(value).map_err(|e| corrupt(what, e))
 }
@@ -71,11 +54,11 @@ fn run_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<RunRecord, StoreError> 
         reach_id: row.try_get("reach_id")?,
         reach_version: row.try_get("reach_version")?,
         inflow_forecast_id: row.try_get("inflow_forecast_id")?,
-        started_at: time(
+        started_at: time::read(
             "forecast_runs.started_at",
             &row.try_get::<String, _>("started_at")?,
         )?,
-        finished_at: time_opt("forecast_runs.finished_at", row.try_get("finished_at")?)?,
+        finished_at: time::read_opt("forecast_runs.finished_at", row.try_get("finished_at")?)?,
         status: status
             .parse::<RunStatus>()
             .map_err(|e| corrupt("forecast_runs.status", e))?,
@@ -100,7 +83,7 @@ impl Store {
         key_id: Option<&str>,
     ) -> Result<i64, StoreError> {
         let document = encode("reach document", spec)?;
-        let now = now_text();
+        let now = time::now_text();
         let (_guard, mut tx) = self.begin_write().await?;
         sqlx::query(
             "INSERT INTO reaches (id, name, created_at) VALUES (?1, ?2, ?3)
@@ -189,7 +172,7 @@ impl Store {
         )
         .bind(reach_id)
         .bind(version)
-        .bind(now_text())
+        .bind(time::now_text())
         .bind(key_id)
         .bind(reason)
         .bind(&json)
@@ -224,7 +207,7 @@ impl Store {
         )
         .bind(reach_id)
         .bind(version)
-        .bind(now_text())
+        .bind(time::now_text())
         .bind(key_id)
         .execute(&mut *tx)
         .await?
@@ -289,7 +272,7 @@ impl Store {
         .bind(reach_id)
         .bind(reach_version)
         .bind(inflow_forecast_id)
-        .bind(now_text())
+        .bind(time::now_text())
         .bind(provenance)
         .execute(&mut *tx)
         .await?
@@ -318,7 +301,7 @@ impl Store {
              WHERE id = ?1 RETURNING reach_id",
         )
         .bind(run_id)
-        .bind(now_text())
+        .bind(time::now_text())
         .bind(status.as_str())
         .bind(results)
         .bind(&error)
@@ -390,7 +373,7 @@ fn reach_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<ReachVersion, StoreEr
         reach_id: row.try_get("reach_id")?,
         version: row.try_get("version")?,
         spec: serde_json::from_str(&document).map_err(|e| corrupt("reach_versions.document", e))?,
-        created_at: time(
+        created_at: time::read(
             "reach_versions.created_at",
             &row.try_get::<String, _>("created_at")?,
         )?,
@@ -403,14 +386,14 @@ fn upload_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<InflowUpload, StoreE
     Ok(InflowUpload {
         id: row.try_get("id")?,
         version: row.try_get("version")?,
-        uploaded_at: time(
+        uploaded_at: time::read(
             "inflow_forecasts.uploaded_at",
             &row.try_get::<String, _>("uploaded_at")?,
         )?,
         uploaded_by: row.try_get("uploaded_by")?,
         reason: row.try_get("reason")?,
         withdrawn: row.try_get::<i64, _>("withdrawn")? != 0,
-        withdrawn_at: time_opt(
+        withdrawn_at: time::read_opt(
             "inflow_forecasts.withdrawn_at",
             row.try_get("withdrawn_at")?,
         )?,

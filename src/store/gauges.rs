@@ -1,10 +1,9 @@
 //! Gauges: create or replace, look up, list.
 
-use chrono::Utc;
 use sqlx::sqlite::SqliteRow;
 use sqlx::{Row, SqliteConnection};
 
-use super::{Audit, Store, StoreError, audit, parse_time};
+use super::{Audit, Store, StoreError, audit, time};
 use crate::gauge::{Gauge, GaugeSpec, Measures};
 
 /// What [`Store::put_gauge`] did.
@@ -41,8 +40,14 @@ fn gauge_from_row(row: &SqliteRow) -> Result<Gauge, StoreError> {
     Ok(Gauge {
         id: row.try_get("id")?,
         spec,
-        created_at: parse_time(row.try_get("created_at")?)?,
-        updated_at: parse_time(row.try_get("updated_at")?)?,
+        created_at: time::read(
+            "gauges.created_at",
+            &row.try_get::<String, _>("created_at")?,
+        )?,
+        updated_at: time::read(
+            "gauges.updated_at",
+            &row.try_get::<String, _>("updated_at")?,
+        )?,
     })
 }
 
@@ -91,7 +96,7 @@ impl Store {
         g: &GaugeSpec,
         key_id: &str,
     ) -> Result<SavedGauge, StoreError> {
-        let now = Utc::now().to_rfc3339();
+        let now = time::now_text();
         let (_writer, mut tx) = self.begin_write().await?;
         let existed = find_in(&mut tx, id).await?.is_some();
         sqlx::query(

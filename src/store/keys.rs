@@ -1,7 +1,5 @@
 //! API keys: creation, lookup by id, listing, revocation.
 
-use chrono::Utc;
-
 use super::{Audit, Store, StoreError, audit};
 use crate::auth::{KeyInfo, NewKey, Role};
 
@@ -23,7 +21,7 @@ impl Store {
         role: Role,
         gauges: &[String],
     ) -> Result<KeyInfo, StoreError> {
-        let now = Utc::now().to_rfc3339();
+        let now = super::time::now_text();
         let (_writer, mut tx) = self.begin_write().await?;
         sqlx::query(
             "INSERT INTO api_keys (id, name, role, secret_sha256, created_at)
@@ -121,7 +119,7 @@ impl Store {
         let done =
             sqlx::query("UPDATE api_keys SET revoked_at = coalesce(revoked_at, ?2) WHERE id = ?1")
                 .bind(id)
-                .bind(Utc::now().to_rfc3339())
+                .bind(super::time::now_text())
                 .execute(&mut *tx)
                 .await?
                 .rows_affected()

@@ -28,6 +28,7 @@ pub use forecasts::{InflowUpload, ReachVersion};
 mod gauges;
 mod keys;
 mod readings;
+mod time;
 
 pub use alerts::{CapEntry, CurrentCap, NewCapMessage, OpenMessage};
 pub use audit::{Audit, AuditEntry};
@@ -168,7 +169,7 @@ impl Store {
     }
 
     async fn record_start(&self) -> Result<(), StoreError> {
-        let now = Utc::now().to_rfc3339();
+        let now = time::now_text();
         sqlx::query(
             "INSERT INTO service_meta (id, instance_id, created_at, last_start, start_count)
              VALUES (1, lower(hex(randomblob(16))), ?1, ?1, 1)
@@ -190,8 +191,14 @@ impl Store {
         .await?;
         Ok(ServiceMeta {
             instance_id: row.try_get("instance_id")?,
-            created_at: parse_time(row.try_get("created_at")?)?,
-            last_start: parse_time(row.try_get("last_start")?)?,
+            created_at: time::read(
+                "service_meta.created_at",
+                &row.try_get::<String, _>("created_at")?,
+            )?,
+            last_start: time::read(
+                "service_meta.last_start",
+                &row.try_get::<String, _>("last_start")?,
+            )?,
             start_count: row.try_get("start_count")?,
         })
     }
@@ -231,12 +238,6 @@ impl Store {
             .await?;
         Ok(answer == "ok")
     }
-}
-
-fn parse_time(text: String) -> Result<DateTime<Utc>, sqlx::Error> {
-    DateTime::parse_from_rfc3339(&text)
-        .map(|t| t.with_timezone(&Utc))
-        .map_err(|e| sqlx::Error::Decode(Box::new(e)))
 }
 
 #[cfg(test)]
