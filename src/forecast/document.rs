@@ -212,7 +212,9 @@ mod tests {
         let times: Vec<_> = (0..7).map(|h| t0() + Duration::hours(h)).collect();
         let stage = vec![10.0, 11.0, 11.5, 12.0, 11.5, 11.0, 10.0];
         let level =
-            Trace::new(&times, &stage).level_from("bank full", 11.25, Severity::Moderate, t0());
+            Trace::new(&times, &stage)
+                .ahead(t0())
+                .level("bank full", 11.25, Severity::Moderate);
         PointForecast {
             name: name.into(),
             chainage: 1000.0,

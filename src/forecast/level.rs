@@ -24,26 +24,15 @@ pub struct Trace<'a> {
     pub stage: &'a [f64],
 }
 
-/// The trace from an instant on, in seconds from that instant.
-struct Ahead {
+/// The trace from an instant on, in seconds from that instant: computed
+/// once per viewing instant, then asked for the stage now, the crest and
+/// each level.
+pub struct Ahead {
     from_ms: i64,
     secs: Vec<f64>,
     stage: Vec<f64>,
     /// The trace has a sample at or before the instant.
     covers_from: bool,
-}
-
-impl Ahead {
-    /// The instant `s` seconds after `from`, to the millisecond.
-    fn instant(&self, s: f64) -> Option<DateTime<Utc>> {
-        DateTime::from_timestamp_millis(self.from_ms + (s * 1000.0).round() as i64)
-    }
-
-    /// An interpolated instant, to the second.
-    fn crossing(&self, s: f64) -> Option<DateTime<Utc>> {
-        let t = self.instant(s)?;
-        t.duration_round(Duration::seconds(1)).ok()
-    }
 }
 
 /// A level's identity and how the trace relates to it.
@@ -88,7 +77,8 @@ impl<'a> Trace<'a> {
         }
     }
 
-    fn ahead(&self, from: DateTime<Utc>) -> Ahead {
+    /// The trace seen from `from` on.
+    pub fn ahead(&self, from: DateTime<Utc>) -> Ahead {
         let from_ms = from.timestamp_millis();
         let secs: Vec<f64> = self
             .times
@@ -104,59 +94,63 @@ impl<'a> Trace<'a> {
             covers_from,
         }
     }
+}
 
-    /// The stage at `from` (interpolated; the first stage before the trace
-    /// starts, the last after it ends); NaN for an empty trace.
-    pub fn stage_at(&self, from: DateTime<Utc>) -> f64 {
-        self.ahead(from).stage.first().copied().unwrap_or(f64::NAN)
+impl Ahead {
+    /// The stage at the instant (interpolated; the first stage before the
+    /// trace starts, the last after it ends); NaN for an empty trace.
+    pub fn stage_now(&self) -> f64 {
+        self.stage.first().copied().unwrap_or(f64::NAN)
     }
 
-    /// The highest stage from `from` on; `None` for an empty or non-finite
-    /// trace.
-    pub fn crest_from(&self, from: DateTime<Utc>) -> Option<CrestAhead> {
-        let a = self.ahead(from);
-        let c = exceed::crest(&a.secs, &a.stage)?;
+    /// The highest stage from the instant on; `None` for an empty or
+    /// non-finite trace.
+    pub fn crest(&self) -> Option<CrestAhead> {
+        let c = exceed::crest(&self.secs, &self.stage)?;
         Some(CrestAhead {
             stage: c.stage,
-            time: a.instant(c.time)?,
+            time: self.instant(c.time)?,
         })
     }
 
-    /// How the trace relates to a level from `from` on.
-    pub fn level_from(
-        &self,
-        name: &str,
-        elevation: f64,
-        severity: Severity,
-        from: DateTime<Utc>,
-    ) -> LevelOutlook {
-        let a = self.ahead(from);
-        let e = exceed::exceedance(&a.secs, &a.stage, elevation);
-        let above_now = a.covers_from && e.above_at_start;
+    /// How the trace relates to a level from the instant on.
+    pub fn level(&self, name: &str, elevation: f64, severity: Severity) -> LevelOutlook {
+        let e = exceed::exceedance(&self.secs, &self.stage, elevation);
         LevelOutlook {
             name: name.to_owned(),
             elevation,
             severity,
             exceeded: e.exceeded,
-            above_now,
+            above_now: self.covers_from && e.above_at_start,
             first_above: e.first_above.and_then(|s| {
                 if e.above_at_start {
-                    a.instant(s)
+                    self.instant(s)
                 } else {
-                    a.crossing(s)
+                    self.crossing(s)
                 }
             }),
-            back_below: e.back_below.and_then(|s| a.crossing(s)),
+            back_below: e.back_below.and_then(|s| self.crossing(s)),
             duration_above_s: e.duration_above,
             margin: e.margin,
         }
     }
+
+    /// The instant `s` seconds after `from`, to the millisecond.
+    fn instant(&self, s: f64) -> Option<DateTime<Utc>> {
+        DateTime::from_timestamp_millis(self.from_ms + (s * 1000.0).round() as i64)
+    }
+
+    /// An interpolated instant, to the second.
+    fn crossing(&self, s: f64) -> Option<DateTime<Utc>> {
+        let t = self.instant(s)?;
+        t.duration_round(Duration::seconds(1)).ok()
+    }
 }
 
 impl LevelOutlook {
-    /// The same level seen on `trace` from `from` on.
-    pub fn seen_from(&self, trace: &Trace<'_>, from: DateTime<Utc>) -> LevelOutlook {
-        trace.level_from(&self.name, self.elevation, self.severity, from)
+    /// The same level seen on another view of a trace.
+    pub fn seen_on(&self, ahead: &Ahead) -> LevelOutlook {
+        ahead.level(&self.name, self.elevation, self.severity)
     }
 }
 
@@ -185,7 +179,7 @@ mod tests {
         let (times, stage) = hill();
         let trace = Trace::new(&times, &stage);
         let from = t("2026-03-01T00:17:31.123456789Z");
-        let c = trace.crest_from(from).unwrap();
+        let c = trace.ahead(from).crest().unwrap();
         assert_eq!(c.time, t("2026-03-01T03:00:00Z"));
         assert_eq!(c.stage, 3.0);
     }
@@ -198,7 +192,7 @@ mod tests {
         let (times, stage) = hill();
         let trace = Trace::new(&times, &stage);
         let from = t("2026-03-01T00:00:00.000400Z");
-        let l = trace.level_from("watch", 2.5, Severity::Moderate, from);
+        let l = trace.ahead(from).level("watch", 2.5, Severity::Moderate);
         assert!(l.exceeded && !l.above_now);
         assert_eq!(l.first_above, Some(t("2026-03-01T02:30:00Z")));
         assert_eq!(l.back_below, Some(t("2026-03-01T03:30:00Z")));
@@ -211,12 +205,14 @@ mod tests {
         let (times, stage) = hill();
         let trace = Trace::new(&times, &stage);
         let from = t("2026-03-01T03:10:00Z");
-        let l = trace.level_from("watch", 2.5, Severity::Moderate, from);
+        let l = trace.ahead(from).level("watch", 2.5, Severity::Moderate);
         assert!(l.above_now && l.exceeded);
         assert_eq!(l.first_above, Some(from));
         assert_eq!(l.back_below, Some(t("2026-03-01T03:30:00Z")));
         // Before the trace starts, nothing is "above now".
-        let early = trace.level_from("low", -1.0, Severity::Minor, t("2026-02-28T23:00:00Z"));
+        let early = trace
+            .ahead(t("2026-02-28T23:00:00Z"))
+            .level("low", -1.0, Severity::Minor);
         assert!(early.exceeded && !early.above_now);
     }
 

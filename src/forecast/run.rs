@@ -227,10 +227,10 @@ fn point_forecast(
     let stage: Vec<f64> = stage_rows.iter().map(lerp).collect();
     let discharge: Vec<f64> = discharge_rows.iter().map(lerp).collect();
     let bed = nodes[i].bed_elevation() * (1.0 - w) + nodes[i + 1].bed_elevation() * w;
-    let trace = Trace::new(times, &stage);
-    let t0 = times[0];
-    let crest = trace
-        .crest_from(t0)
+    // Seen from the run's own start.
+    let ahead = Trace::new(times, &stage).ahead(times[0]);
+    let crest = ahead
+        .crest()
         .ok_or_else(|| RunError::Routing(format!("non-finite stage at point `{}`", p.name)))?;
     let peak_discharge = discharge.iter().copied().fold(0.0, f64::max);
     let mut ranked: Vec<&ThresholdSpec> = p.thresholds.iter().collect();
@@ -239,9 +239,7 @@ fn point_forecast(
     let thresholds = ranked
         .into_iter()
         .enumerate()
-        .map(|(rank, t)| {
-            trace.level_from(&t.name, t.elevation, t.severity_at_rank(rank, count), t0)
-        })
+        .map(|(rank, t)| ahead.level(&t.name, t.elevation, t.severity_at_rank(rank, count)))
         .collect();
     Ok(PointForecast {
         name: p.name.clone(),

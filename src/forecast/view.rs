@@ -127,19 +127,15 @@ pub fn freshness(f: &FreshnessInput) -> Freshness {
 /// The view of one point of a stored run from `now` on. A point whose
 /// trace has no finite crest ahead keeps the run's own crest.
 pub fn point(p: &PointForecast, observed: Vec<ObservedStage>, now: DateTime<Utc>) -> PointView {
-    let trace = Trace::new(&p.times, &p.stage);
+    let ahead = Trace::new(&p.times, &p.stage).ahead(now);
     let mut forecast = p.clone();
-    if let Some(c) = trace.crest_from(now) {
+    if let Some(c) = ahead.crest() {
         forecast.crest_stage = c.stage;
         forecast.crest_time = c.time;
     }
     forecast.low_chord_margin = p.low_chord.map(|lc| lc - forecast.crest_stage);
     forecast.deck_margin = p.deck.map(|d| d - forecast.crest_stage);
-    forecast.thresholds = p
-        .thresholds
-        .iter()
-        .map(|t| t.seen_from(&trace, now))
-        .collect();
+    forecast.thresholds = p.thresholds.iter().map(|t| t.seen_on(&ahead)).collect();
     let highest_exceeded = forecast
         .thresholds
         .iter()
@@ -148,7 +144,7 @@ pub fn point(p: &PointForecast, observed: Vec<ObservedStage>, now: DateTime<Utc>
         .map(|t| t.name.clone());
     PointView {
         forecast,
-        current_stage: trace.stage_at(now),
+        current_stage: ahead.stage_now(),
         observed,
         highest_exceeded,
     }

@@ -159,11 +159,12 @@ impl Situation {
         if trace.times.is_empty() {
             return Err(CapError::EmptyForecast(point.name.clone()));
         }
-        let crest = trace.crest_from(now).ok_or_else(|| CapError::NonFinite {
+        let ahead = trace.ahead(now);
+        let crest = ahead.crest().ok_or_else(|| CapError::NonFinite {
             key: point.name.clone(),
             field: "stage",
         })?;
-        let level = threshold.seen_from(&trace, now);
+        let level = threshold.seen_on(&ahead);
         Ok(Situation {
             reach_id: ctx.reach_id.clone(),
             reach_name: ctx.reach_name.clone(),
