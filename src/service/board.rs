@@ -5,13 +5,13 @@
 
 use std::collections::HashMap;
 
-use chrono::Utc;
+use chrono::{DateTime, Utc};
 
 use super::Forecaster;
 use crate::{
     forecast::{
         cap::{RunContext, Situation},
-        record::RunRecord,
+        record::{RunProvenance, RunRecord, StoredResults},
     },
     store::ReachVersion,
 };
@@ -33,14 +33,31 @@ impl Board {
     }
 }
 
+/// A good run as the board needs it.
+#[derive(Debug, Clone, Copy)]
+pub struct GoodRun<'a> {
+    pub id: i64,
+    pub finished: DateTime<Utc>,
+    pub provenance: &'a RunProvenance,
+    pub results: &'a StoredResults,
+}
+
+impl<'a> GoodRun<'a> {
+    /// A stored run, if it has results.
+    pub fn of(run: &'a RunRecord) -> Option<Self> {
+        Some(GoodRun {
+            id: run.id,
+            finished: run.finished_at.unwrap_or_else(Utc::now),
+            provenance: &run.provenance,
+            results: run.results.as_ref()?,
+        })
+    }
+}
+
 /// The situations of a good run, seen from the time it finished: one per
-/// point and threshold. A run without results (or a point whose forecast
-/// cannot be read) gives none for it.
-pub fn situations_of(reach: &ReachVersion, run: &RunRecord) -> Vec<Situation> {
-    let Some(results) = &run.results else {
-        return Vec::new();
-    };
-    let finished = run.finished_at.unwrap_or_else(Utc::now);
+/// point and threshold (a point whose forecast cannot be read gives none).
+pub fn situations_of(reach: &ReachVersion, run: GoodRun<'_>) -> Vec<Situation> {
+    let (results, finished) = (run.results, run.finished);
     let ctx = RunContext {
         reach_id: reach.reach_id.clone(),
         reach_name: reach.spec.name.clone(),
@@ -63,7 +80,7 @@ pub fn situations_of(reach: &ReachVersion, run: &RunRecord) -> Vec<Situation> {
 impl Forecaster {
     /// Rebuilds the board of `reach` from `run` and returns the run's
     /// situations, which CAP planning uses.
-    pub(super) fn refresh_board(&self, reach: &ReachVersion, run: &RunRecord) -> Vec<Situation> {
+    pub(super) fn refresh_board(&self, reach: &ReachVersion, run: GoodRun<'_>) -> Vec<Situation> {
         let situations = situations_of(reach, run);
         if let Ok(mut board) = self.inner.board.write() {
             board

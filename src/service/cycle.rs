@@ -9,7 +9,7 @@ use std::time::Instant;
 
 use chrono::{DateTime, Utc};
 
-use super::{CycleError, Forecaster, RunSummary};
+use super::{CycleError, Forecaster, RunSummary, board::GoodRun};
 use crate::{
     forecast::{
         assemble::{self, Extrapolation, GaugeBasis, Reading, Rules},
@@ -139,14 +139,20 @@ impl Forecaster {
         wall: f64,
     ) -> Result<RunSummary, CycleError> {
         let store = &self.inner.store;
-        store.finish_run(run_id, Ok(results), provenance).await?;
-        if let Some(run) = store.run(run_id).await? {
-            let situations = self.refresh_board(reach, &run);
-            self.inner
-                .alerts
-                .after_run(store, reach, run_id, &situations)
-                .await;
-        }
+        let finished = store.finish_run(run_id, Ok(results), provenance).await?;
+        // The board is built from what was just stored, held in memory: no
+        // read-back of the run's results.
+        let good = GoodRun {
+            id: run_id,
+            finished,
+            provenance,
+            results,
+        };
+        let situations = self.refresh_board(reach, good);
+        self.inner
+            .alerts
+            .after_run(store, reach, run_id, &situations)
+            .await;
         tracing::info!(
             reach = %reach.reach_id,
             run_id,

@@ -19,7 +19,10 @@ use std::{
 use serde::Serialize;
 use tokio::sync::{Mutex, Notify, watch};
 
-use super::{alerts::Alerter, board::Board};
+use super::{
+    alerts::Alerter,
+    board::{Board, GoodRun},
+};
 use crate::{
     config::ForecastConfig,
     forecast::{cap::Situation, record::RunStatus},
@@ -91,13 +94,13 @@ impl Forecaster {
     /// Loads the board from the stored runs and starts a worker per reach.
     pub async fn start(&self) -> Result<(), StoreError> {
         for reach in self.inner.store.reaches().await? {
-            if let Some(run) = self
+            let run = self
                 .inner
                 .store
                 .latest_run(&reach.reach_id, Some(RunStatus::Ok))
-                .await?
-            {
-                self.refresh_board(&reach, &run);
+                .await?;
+            if let Some(good) = run.as_ref().and_then(GoodRun::of) {
+                self.refresh_board(&reach, good);
             }
             self.ensure_worker(&reach.reach_id);
         }

@@ -282,18 +282,23 @@ impl Store {
     }
 
     /// Records how a run ended: results on success, the error otherwise,
-    /// and an audit entry by the system actor.
+    /// and an audit entry by the system actor. Returns the finish time as
+    /// stored.
     pub async fn finish_run(
         &self,
         run_id: i64,
         outcome: Result<&StoredResults, &str>,
         provenance: &RunProvenance,
-    ) -> Result<(), StoreError> {
+    ) -> Result<DateTime<Utc>, StoreError> {
         let (status, results, error) = match outcome {
             Ok(r) => (RunStatus::Ok, Some(encode("run results", r)?), None),
             Err(e) => (RunStatus::Failed, None, Some(e.to_owned())),
         };
         let provenance = encode("run provenance", provenance)?;
+        // Taken before the write lock: the stored instant, to the
+        // millisecond, is the one returned.
+        let finished_text = time::now_text();
+        let finished = time::read("forecast_runs.finished_at", &finished_text)?;
         let (_guard, mut tx) = self.begin_write().await?;
         let (reach_id,): (String,) = sqlx::query_as(
             "UPDATE forecast_runs SET finished_at = ?2, status = ?3, results = ?4, error = ?5,
@@ -301,7 +306,7 @@ impl Store {
              WHERE id = ?1 RETURNING reach_id",
         )
         .bind(run_id)
-        .bind(time::now_text())
+        .bind(&finished_text)
         .bind(status.as_str())
         .bind(results)
         .bind(&error)
@@ -320,7 +325,7 @@ impl Store {
         )
         .await?;
         tx.commit().await?;
-        Ok(())
+        Ok(finished)
     }
 
     /// A run by id.
