@@ -209,18 +209,22 @@ async fn exceedances(
         exceeded: params.exceeded,
         min_severity: params.min_severity,
     };
-    if let Some(r) = &filter.reach {
-        super::reaches::find_reach(&state, r).await?;
-    }
     let version = state.forecaster.board_version();
     let cached = state.exceedance_cache.entries.read().ok().and_then(|e| {
         e.iter()
             .find(|(v, u, f, _, _)| *v == version && *u == units && *f == filter)
             .map(|(_, _, _, b, t)| (b.clone(), t.clone()))
     });
+    // Only a miss needs the store: an answer is cached only after its
+    // reach filter was found to exist, and reaches are never removed.
     let (body, etag) = match cached {
         Some(hit) => hit,
-        None => render(&state, units, filter)?,
+        None => {
+            if let Some(r) = &filter.reach {
+                super::reaches::find_reach(&state, r).await?;
+            }
+            render(&state, units, filter)?
+        }
     };
     if not_modified(&headers, &etag) {
         return Ok(with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag));

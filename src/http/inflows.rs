@@ -89,12 +89,6 @@ fn parse_body(
     match media {
         "application/json" => {
             let b: UploadBody = parse_json(body)?;
-            if b.series.len() > MAX_POINTS {
-                return Err(Problem::invalid(
-                    "series",
-                    format!("at most {MAX_POINTS} samples"),
-                ));
-            }
             let h = inflow::parse_json_samples(&b.series).map_err(|e| rows_refused(&e))?;
             Ok((b.reason, h))
         }
