@@ -4,7 +4,7 @@
 
 import { renderChart } from "./js/chart.js";
 import { formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
-import { clearance, pointStatus, thresholdNamed } from "./js/status.js";
+import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
 
 const $ = (id) => document.getElementById(id);
 const params = new URLSearchParams(location.search);
@@ -197,18 +197,14 @@ function renderOverview(f, zone) {
       ` ${st.text}`,
     );
     if (st.severity) status.append(h("span", { class: "sev", text: ` (${st.severity})` }));
-    const top = p.highest_exceeded ? thresholdNamed(p, p.highest_exceeded) : null;
+    const top = p.highest_exceeded ? levelWithId(p, p.highest_exceeded_id, p.highest_exceeded) : null;
     const highest = top
       ? h("span", {}, `${top.name} `, h("span", { class: "muted", text: `${formatLevel(top.elevation, u.elevation)}, ${top.severity}` }))
-      : h("span", { class: "muted", text: p.thresholds?.length ? "none" : "–" });
-    let crossing;
-    if (st.next) {
-      crossing = h("span", {}, h("strong", { text: `in ${formatDuration(st.next.inSeconds)}` }), h("br"), `${st.next.name}, ${formatTime(st.next.at, zone)}`);
-    } else if (st.state === "over") {
-      crossing = h("span", { text: "already over" });
-    } else {
-      crossing = h("span", { class: "muted", text: "none expected" });
-    }
+      : h("span", { class: "muted", text: levelsOf(p).length ? "none" : "–" });
+    const sentences = levelsOf(p).map((l) => levelSentence(l, f.now, zone)).filter(Boolean);
+    const crossing = sentences.length
+      ? h("span", { class: "when" }, ...sentences.flatMap((t, k) => (k ? [h("br"), t] : [t])))
+      : h("span", { class: "muted", text: "none expected" });
     const clear = [];
     const lc = clearance(p.low_chord_margin, u.elevation);
     const dk = clearance(p.deck_margin, u.elevation);
@@ -223,8 +219,8 @@ function renderOverview(f, zone) {
       h("td", { "data-label": "Status" }, status),
       h("td", { "data-label": "Stage now", class: "num", text: formatLevel(p.current_stage, u.stage) }),
       h("td", { "data-label": "Forecast crest" }, h("span", { class: "num", text: formatLevel(p.crest_stage, u.stage) }), h("br"), h("span", { class: "muted", text: formatTime(p.crest_time, zone) })),
-      h("td", { "data-label": "Highest threshold reached" }, highest),
-      h("td", { "data-label": "First crossing" }, crossing),
+      h("td", { "data-label": "Highest level reached" }, highest),
+      h("td", { "data-label": "When" }, crossing),
       h("td", { "data-label": "Bridge clearance" }, clearCell),
     );
   });
@@ -240,9 +236,9 @@ function renderSummary(f, zone) {
   let next = null;
   for (const [p, s] of st) if (s.next && (!next || s.next.at < next.at)) next = { ...s.next, point: p.name };
   const parts = [];
-  if (over.length) parts.push(`Over a threshold now: ${over.length} of ${f.points.length} points (${over.join(", ")}).`);
+  if (over.length) parts.push(`Over a level now: ${over.length} of ${f.points.length} points (${over.join(", ")}).`);
   if (next) parts.push(`Next crossing: ${next.name} at ${next.point} in ${formatDuration(next.inSeconds)}, ${formatTime(next.at, zone)}.`);
-  if (!parts.length) parts.push("All points clear: the forecast crosses no threshold.");
+  if (!parts.length) parts.push("All points clear: the forecast crosses no level.");
   const box = $("summary");
   box.textContent = parts.join(" ");
   box.className = `summary ${over.length ? "summary-over" : next ? "summary-rising" : "summary-clear"}`;
@@ -332,7 +328,7 @@ function legend(p) {
   const items = [
     (p.observed || []).length ? ["observed", "observed stage (solid)"] : null,
     ["forecast", "model stage (dashed)"],
-    (p.thresholds || []).length ? ["threshold", "threshold"] : null,
+    levelsOf(p).some((l) => !l.kind || l.kind === "threshold") ? ["threshold", "threshold"] : null,
     p.low_chord != null || p.deck != null ? ["structure", "low chord / deck"] : null,
     ["now", "now"],
     ["crest", "forecast crest"],

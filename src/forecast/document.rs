@@ -196,8 +196,14 @@ impl ForecastDoc {
 mod tests {
     use super::*;
     use crate::forecast::{
-        assemble::Provenance, level::Trace, record::RunProvenance, record::RunStatus,
-        run::PointForecast, spec::PointKind, spec::Severity,
+        assemble::Provenance,
+        level::Trace,
+        levels::{LevelDef, LevelKind},
+        record::RunProvenance,
+        record::RunStatus,
+        run::PointForecast,
+        spec::PointKind,
+        spec::Severity,
     };
     use chrono::Duration;
 
@@ -211,11 +217,16 @@ mod tests {
     fn point(name: &str) -> PointForecast {
         let times: Vec<_> = (0..7).map(|h| t0() + Duration::hours(h)).collect();
         let stage = vec![10.0, 11.0, 11.5, 12.0, 11.5, 11.0, 10.0];
-        let level =
-            Trace::new(&times, &stage)
-                .ahead(t0())
-                .level("bank full", 11.25, Severity::Moderate);
+        let level = Trace::new(&times, &stage).ahead(t0()).level(&LevelDef {
+            id: "bank-full".into(),
+            kind: LevelKind::Threshold,
+            name: "bank full".into(),
+            elevation: 11.25,
+            severity: Severity::Moderate,
+            also_named: vec![],
+        });
         PointForecast {
+            id: crate::gauge::slug_of(name),
             name: name.into(),
             chainage: 1000.0,
             kind: PointKind::Bridge,
@@ -230,7 +241,7 @@ mod tests {
             peak_discharge: 1.0,
             low_chord_margin: Some(0.5),
             deck_margin: None,
-            thresholds: vec![level],
+            levels: vec![level],
         }
     }
 
@@ -319,7 +330,7 @@ mod tests {
         let p = &d.points[0];
         assert_eq!(p.current_stage, 11.5);
         assert_eq!(p.forecast.crest_time, t0() + Duration::hours(3));
-        assert!(p.forecast.thresholds[0].above_now);
+        assert!(p.forecast.levels[0].above_now);
     }
 
     /// 1 ft = 0.3048 m exactly (NIST SP 811, appendix B).
@@ -328,7 +339,7 @@ mod tests {
         let d = doc(Units::Us);
         assert_eq!(d.units.stage, "ft");
         assert!((d.points[0].current_stage * 0.3048 - 11.5).abs() < 1e-12);
-        assert!((d.points[0].forecast.thresholds[0].elevation * 0.3048 - 11.25).abs() < 1e-12);
+        assert!((d.points[0].forecast.levels[0].elevation * 0.3048 - 11.25).abs() < 1e-12);
         let csv = d.csv(None).expect("csv");
         assert!(csv.starts_with(
             "reach,run,point,chainage_ft,time,stage_ft,discharge_ft3_per_s,caution\r\n"

@@ -14,7 +14,11 @@
 use chrono::{DateTime, Duration, DurationRound, Utc};
 use serde::{Deserialize, Serialize};
 
-use super::{exceed, spec::Severity};
+use super::{
+    exceed,
+    levels::{LevelDef, LevelKind},
+    spec::Severity,
+};
 
 /// A stage hydrograph as the model wrote it.
 #[derive(Debug, Clone, Copy)]
@@ -31,6 +35,8 @@ pub struct Ahead {
     from_ms: i64,
     secs: Vec<f64>,
     stage: Vec<f64>,
+    /// The samples at or before the instant (s, stage), for "since when".
+    past: Vec<(f64, f64)>,
     /// The trace has a sample at or before the instant.
     covers_from: bool,
 }
@@ -38,16 +44,34 @@ pub struct Ahead {
 /// A level's identity and how the trace relates to it.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct LevelOutlook {
+    /// Unique at the point ([`LevelDef::id`]); empty in runs stored before
+    /// levels had ids, until [`crate::forecast::record::StoredResults`]
+    /// fills it in.
+    #[serde(default)]
+    pub id: String,
+    #[serde(default)]
+    pub kind: LevelKind,
     pub name: String,
     /// Elevation of the level (m).
     pub elevation: f64,
     /// Configured or rank-derived CAP severity.
     pub severity: Severity,
+    /// Thresholds merged into this level (same elevation).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub also_named: Vec<String>,
     /// The stage is above the level at some time from the instant on.
     pub exceeded: bool,
     /// Above at the instant itself (for a run output: at its start).
     #[serde(alias = "above_at_start")]
     pub above_now: bool,
+    /// While above at the instant: when the water last rose above the
+    /// level, read on the whole trace (its look-back included).
+    #[serde(default, with = "crate::wire_time::option")]
+    pub above_since: Option<DateTime<Utc>>,
+    /// Above since the trace's first sample: the rise is older than the
+    /// trace, and `above_since` is that first sample.
+    #[serde(default)]
+    pub above_since_start: bool,
     /// First rise above the level, or the instant when already above.
     #[serde(with = "crate::wire_time::option")]
     pub first_above: Option<DateTime<Utc>>,
@@ -86,11 +110,18 @@ impl<'a> Trace<'a> {
             .map(|t| (t.timestamp_millis() - from_ms) as f64 / 1000.0)
             .collect();
         let covers_from = secs.first().is_some_and(|&s| s <= 0.0);
+        let past = secs
+            .iter()
+            .copied()
+            .zip(self.stage.iter().copied())
+            .take_while(|&(s, _)| s <= 0.0)
+            .collect();
         let (secs, stage) = exceed::from_now(&secs, self.stage);
         Ahead {
             from_ms,
             secs,
             stage,
+            past,
             covers_from,
         }
     }
@@ -114,14 +145,26 @@ impl Ahead {
     }
 
     /// How the trace relates to a level from the instant on.
-    pub fn level(&self, name: &str, elevation: f64, severity: Severity) -> LevelOutlook {
+    pub fn level(&self, def: &LevelDef) -> LevelOutlook {
+        let elevation = def.elevation;
         let e = exceed::exceedance(&self.secs, &self.stage, elevation);
+        let above_now = self.covers_from && e.above_at_start;
+        let (above_since, above_since_start) = if above_now {
+            self.above_since(elevation)
+        } else {
+            (None, false)
+        };
         LevelOutlook {
-            name: name.to_owned(),
+            id: def.id.clone(),
+            kind: def.kind,
+            name: def.name.clone(),
             elevation,
-            severity,
+            severity: def.severity,
+            also_named: def.also_named.clone(),
             exceeded: e.exceeded,
-            above_now: self.covers_from && e.above_at_start,
+            above_now,
+            above_since,
+            above_since_start,
             first_above: e.first_above.and_then(|s| {
                 if e.above_at_start {
                     self.instant(s)
@@ -133,6 +176,22 @@ impl Ahead {
             duration_above_s: e.duration_above,
             margin: e.margin,
         }
+    }
+
+    /// The last upward crossing of `elevation` at or before the instant,
+    /// interpolated like every crossing; the trace's first sample (and
+    /// `true`) when the stage is above all along. Called only while the
+    /// stage is above at the instant.
+    fn above_since(&self, elevation: f64) -> (Option<DateTime<Utc>>, bool) {
+        let mut later = (0.0, self.stage_now());
+        for &(s, z) in self.past.iter().rev() {
+            if z <= elevation {
+                let tc = s + (later.0 - s) * (elevation - z) / (later.1 - z);
+                return (self.crossing(tc), false);
+            }
+            later = (s, z);
+        }
+        (self.instant(later.0), true)
     }
 
     /// The instant `s` seconds after `from`, to the millisecond.
@@ -150,13 +209,36 @@ impl Ahead {
 impl LevelOutlook {
     /// The same level seen on another view of a trace.
     pub fn seen_on(&self, ahead: &Ahead) -> LevelOutlook {
-        ahead.level(&self.name, self.elevation, self.severity)
+        ahead.level(&self.def())
+    }
+
+    /// The level this outlook is about.
+    pub fn def(&self) -> LevelDef {
+        LevelDef {
+            id: self.id.clone(),
+            kind: self.kind,
+            name: self.name.clone(),
+            elevation: self.elevation,
+            severity: self.severity,
+            also_named: self.also_named.clone(),
+        }
     }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    fn watch(elevation: f64) -> LevelDef {
+        LevelDef {
+            id: "watch".into(),
+            kind: LevelKind::Threshold,
+            name: "watch".into(),
+            elevation,
+            severity: Severity::Moderate,
+            also_named: Vec::new(),
+        }
+    }
 
     fn t(s: &str) -> DateTime<Utc> {
         DateTime::parse_from_rfc3339(s).unwrap().with_timezone(&Utc)
@@ -192,7 +274,7 @@ mod tests {
         let (times, stage) = hill();
         let trace = Trace::new(&times, &stage);
         let from = t("2026-03-01T00:00:00.000400Z");
-        let l = trace.ahead(from).level("watch", 2.5, Severity::Moderate);
+        let l = trace.ahead(from).level(&watch(2.5));
         assert!(l.exceeded && !l.above_now);
         assert_eq!(l.first_above, Some(t("2026-03-01T02:30:00Z")));
         assert_eq!(l.back_below, Some(t("2026-03-01T03:30:00Z")));
@@ -205,15 +287,33 @@ mod tests {
         let (times, stage) = hill();
         let trace = Trace::new(&times, &stage);
         let from = t("2026-03-01T03:10:00Z");
-        let l = trace.ahead(from).level("watch", 2.5, Severity::Moderate);
+        let l = trace.ahead(from).level(&watch(2.5));
         assert!(l.above_now && l.exceeded);
         assert_eq!(l.first_above, Some(from));
         assert_eq!(l.back_below, Some(t("2026-03-01T03:30:00Z")));
         // Before the trace starts, nothing is "above now".
-        let early = trace
-            .ahead(t("2026-02-28T23:00:00Z"))
-            .level("low", -1.0, Severity::Minor);
+        let early = trace.ahead(t("2026-02-28T23:00:00Z")).level(&watch(-1.0));
         assert!(early.exceeded && !early.above_now);
+    }
+
+    /// Since when: seen at 03:10 the water rose above 2.5 m half-way
+    /// between 02:00 and 03:00 (similar triangles on the look-back), not
+    /// at the viewing instant; above 0.5 m since before the trace began.
+    #[test]
+    fn above_since_reads_the_look_back() {
+        let (times, stage) = hill();
+        let trace = Trace::new(&times, &stage);
+        let ahead = trace.ahead(t("2026-03-01T03:10:00Z"));
+        let l = ahead.level(&watch(2.5));
+        assert_eq!(l.above_since, Some(t("2026-03-01T02:30:00Z")));
+        assert!(!l.above_since_start);
+        // 0 m at 00:00 is above -0.5 m: above all along.
+        let l = ahead.level(&watch(-0.5));
+        assert_eq!(l.above_since, Some(t("2026-03-01T00:00:00Z")));
+        assert!(l.above_since_start);
+        // Not above now: no "since".
+        let l = trace.ahead(t("2026-03-01T01:00:00Z")).level(&watch(2.5));
+        assert_eq!((l.above_since, l.above_since_start), (None, false));
     }
 
     #[test]

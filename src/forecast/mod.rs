@@ -13,6 +13,7 @@ pub mod export;
 pub mod hydrograph;
 pub mod inflow;
 pub mod level;
+pub mod levels;
 pub mod record;
 pub mod report;
 pub mod run;

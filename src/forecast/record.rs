@@ -175,6 +175,22 @@ impl StoredResults {
             diagnostics,
         }
     }
+
+    /// Gives points and levels of a run stored before they had ids the
+    /// ids their names slug to, which is what the reach version of that
+    /// run gives them by default.
+    pub fn fill_legacy_ids(&mut self) {
+        for p in &mut self.points {
+            if p.id.is_empty() {
+                p.id = crate::gauge::slug_of(&p.name);
+            }
+            for l in &mut p.levels {
+                if l.id.is_empty() {
+                    l.id = crate::gauge::slug_of(&l.name);
+                }
+            }
+        }
+    }
 }
 
 /// One forecast run as recorded.

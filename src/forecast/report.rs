@@ -8,6 +8,7 @@ use chrono::{DateTime, Utc};
 use super::{
     export::{Rows, TableContext, table},
     level::LevelOutlook,
+    levels::LevelKind,
     run::{PointForecast, RunOutput},
     spec::Units,
 };
@@ -50,7 +51,8 @@ pub fn summary(out: &RunOutput, wall_time_s: f64) -> String {
     s
 }
 
-/// The lines of one point: crest, bridge margins, thresholds.
+/// The lines of one point: crest, then each level (thresholds, low chord
+/// and deck).
 fn point_lines(s: &mut String, p: &PointForecast) {
     let _ = writeln!(s);
     let _ = writeln!(
@@ -65,34 +67,38 @@ fn point_lines(s: &mut String, p: &PointForecast) {
         time(p.crest_time),
         p.peak_discharge
     );
-    if let (Some(lc), Some(m)) = (p.low_chord, p.low_chord_margin) {
-        let verdict = if m < 0.0 {
-            "WATER REACHES THE LOW CHORD"
-        } else {
-            "clear"
-        };
-        let _ = writeln!(s, "  low chord {lc:.2} m: margin {m:+.2} m ({verdict})");
+    if p.levels.is_empty() {
+        let _ = writeln!(s, "  no levels set");
     }
-    if let (Some(dk), Some(m)) = (p.deck, p.deck_margin) {
-        let verdict = if m < 0.0 { "DECK OVERTOPPED" } else { "clear" };
-        let _ = writeln!(s, "  deck {dk:.2} m: margin {m:+.2} m ({verdict})");
-    }
-    if p.thresholds.is_empty() {
-        let _ = writeln!(s, "  no thresholds set");
-    }
-    for t in &p.thresholds {
+    for t in &p.levels {
         level_line(s, t);
     }
 }
 
-/// One threshold: when it is crossed and for how long, or its clearance.
+/// How a level is called in a line: `low chord`, `deck`, or the
+/// threshold's name in quotes.
+fn level_label(t: &LevelOutlook) -> String {
+    match t.kind {
+        LevelKind::LowChord => "low chord".to_owned(),
+        LevelKind::Deck => "deck".to_owned(),
+        LevelKind::Threshold => format!("threshold \"{}\"", t.name),
+    }
+}
+
+/// One level: when it is crossed and for how long, or its clearance.
 fn level_line(s: &mut String, t: &LevelOutlook) {
     if t.exceeded {
         let first = t
             .first_above
             .map(|x| {
                 if t.above_now {
-                    format!("already above at {}", time(x))
+                    let since = t.above_since.unwrap_or(x);
+                    let start = if t.above_since_start {
+                        " (the start)"
+                    } else {
+                        ""
+                    };
+                    format!("above since {}{start}", time(since))
                 } else {
                     format!("first above {}", time(x))
                 }
@@ -104,8 +110,8 @@ fn level_line(s: &mut String, t: &LevelOutlook) {
             .unwrap_or_else(|| "still above at the end".to_owned());
         let _ = writeln!(
             s,
-            "  threshold \"{}\" {:.2} m: EXCEEDED, {first}, {back}, above for {} (crest {:+.2} m over)",
-            t.name,
+            "  {} {:.2} m: EXCEEDED, {first}, {back}, above for {} (crest {:+.2} m over)",
+            level_label(t),
             t.elevation,
             hours_minutes(t.duration_above_s),
             t.margin
@@ -113,8 +119,10 @@ fn level_line(s: &mut String, t: &LevelOutlook) {
     } else {
         let _ = writeln!(
             s,
-            "  threshold \"{}\" {:.2} m: not reached (crest {:.2} m below)",
-            t.name, t.elevation, -t.margin
+            "  {} {:.2} m: not reached (crest {:.2} m below)",
+            level_label(t),
+            t.elevation,
+            -t.margin
         );
     }
 }

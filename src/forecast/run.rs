@@ -1,6 +1,6 @@
 //! One routing run of a reach: from a reach description and an inflow
-//! hydrograph to stage and discharge hydrographs, crests and threshold
-//! crossings at every point of interest.
+//! hydrograph to stage and discharge hydrographs, crests and the
+//! crossings of every level at every point of interest.
 //!
 //! Pure: no I/O, no clock (the caller measures wall time), so the offline
 //! `route` command, the scheduler and the tests share it.
@@ -19,7 +19,8 @@ use crate::engine::{
 use super::{
     hydrograph::{Hydrograph, seconds},
     level::{LevelOutlook, Trace},
-    spec::{DownstreamSpec, Method, PointKind, PointSpec, ReachSpec, SpecError, ThresholdSpec},
+    levels::levels_of,
+    spec::{DownstreamSpec, Method, PointKind, PointSpec, ReachSpec, SpecError},
 };
 
 /// Why a run could not be made.
@@ -34,6 +35,10 @@ pub enum RunError {
 /// Forecast at one point of interest.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct PointForecast {
+    /// The point's id ([`PointSpec::point_id`]); empty in runs stored
+    /// before points had ids, until `StoredResults` fills it in.
+    #[serde(default)]
+    pub id: String,
     pub name: String,
     pub chainage: f64,
     pub kind: PointKind,
@@ -56,8 +61,10 @@ pub struct PointForecast {
     pub low_chord_margin: Option<f64>,
     /// Deck minus crest stage (m): negative means overtopping.
     pub deck_margin: Option<f64>,
-    /// Ranked by elevation, lowest first; seen from the run's start.
-    pub thresholds: Vec<LevelOutlook>,
+    /// Every level of the point ([`levels_of`]): thresholds, low chord
+    /// and deck, lowest first; seen from the run's start.
+    #[serde(alias = "thresholds")]
+    pub levels: Vec<LevelOutlook>,
 }
 
 /// Result of one run.
@@ -233,15 +240,9 @@ fn point_forecast(
         .crest()
         .ok_or_else(|| RunError::Routing(format!("non-finite stage at point `{}`", p.name)))?;
     let peak_discharge = discharge.iter().copied().fold(0.0, f64::max);
-    let mut ranked: Vec<&ThresholdSpec> = p.thresholds.iter().collect();
-    ranked.sort_by(|a, b| a.elevation.total_cmp(&b.elevation));
-    let count = ranked.len();
-    let thresholds = ranked
-        .into_iter()
-        .enumerate()
-        .map(|(rank, t)| ahead.level(&t.name, t.elevation, t.severity_at_rank(rank, count)))
-        .collect();
+    let levels = levels_of(p).iter().map(|l| ahead.level(l)).collect();
     Ok(PointForecast {
+        id: p.point_id(),
         name: p.name.clone(),
         chainage: p.chainage,
         kind: p.kind,
@@ -256,7 +257,7 @@ fn point_forecast(
         peak_discharge,
         low_chord_margin: p.low_chord.map(|lc| lc - crest.stage),
         deck_margin: p.deck.map(|d| d - crest.stage),
-        thresholds,
+        levels,
     })
 }
 

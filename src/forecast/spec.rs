@@ -11,6 +11,7 @@ use chrono::{DateTime, FixedOffset};
 use serde::{Deserialize, Serialize};
 
 use crate::engine::{rating::RatingCurve, section::CrossSection};
+use crate::gauge::{slug_of, valid_slug};
 
 /// A reach: surveyed sections, the downstream boundary, tributaries and the
 /// points of interest whose stages the forecast reports.
@@ -157,6 +158,11 @@ impl std::fmt::Display for PointKind {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct PointSpec {
+    /// Stable identifier (a slug, unique in the reach); alerting clients
+    /// and CAP chains key on it, so renaming `name` keeps them. Defaults to
+    /// the slug of `name` ([`crate::gauge::slug_of`]).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub id: Option<String>,
     pub name: String,
     /// Chainage (m); must lie within the first and last section.
     pub chainage: f64,
@@ -167,6 +173,14 @@ pub struct PointSpec {
     /// Elevation of the top of a bridge deck or road (m).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub deck: Option<f64>,
+    /// CAP severity when the low chord is forecast to be reached; default
+    /// [`LOW_CHORD_SEVERITY`].
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub low_chord_severity: Option<Severity>,
+    /// CAP severity when the deck is forecast under water; default
+    /// [`DECK_SEVERITY`].
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub deck_severity: Option<Severity>,
     /// The user's own named levels, any number.
     #[serde(default)]
     pub thresholds: Vec<ThresholdSpec>,
@@ -180,6 +194,10 @@ pub struct PointSpec {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct ThresholdSpec {
+    /// Stable identifier (a slug, unique at the point; `low_chord` and
+    /// `deck` are reserved). Defaults to the slug of `name`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub id: Option<String>,
     pub name: String,
     pub elevation: f64,
     /// Severity to state in CAP alerts when this level is forecast to be
@@ -189,6 +207,14 @@ pub struct ThresholdSpec {
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub severity: Option<Severity>,
 }
+
+/// Default CAP severity of a bridge's low chord: water against the
+/// structure threatens it and closes the crossing to traffic under it
+/// (a project convention, documented in the README).
+pub const LOW_CHORD_SEVERITY: Severity = Severity::Severe;
+/// Default CAP severity of a deck or road under water: a crossing that
+/// people may try to use while it is submerged (a project convention).
+pub const DECK_SEVERITY: Severity = Severity::Extreme;
 
 /// CAP 1.2 `severity` values that a threshold may carry (OASIS CAP 1.2,
 /// §3.2.2; `Unknown` is not offered: a configured level is never unknown).
@@ -515,6 +541,13 @@ impl PointSpec {
                 format!("`{}` is used by an earlier point", self.name),
             ));
         }
+        let id = checked_id(at, self.id.as_deref(), &self.name)?;
+        if earlier.iter().any(|q| q.point_id() == id) {
+            return Err(SpecError::new(
+                format!("{at}.id"),
+                format!("`{id}` is the id of an earlier point; set a different `id`"),
+            ));
+        }
         within(&format!("{at}.chainage"), self.chainage, extent)?;
         if let Some(v) = self.low_chord {
             finite(&format!("{at}.low_chord"), v)?;
@@ -544,8 +577,62 @@ impl PointSpec {
                 ));
             }
             finite(&format!("{at}.thresholds[{j}].elevation"), t.elevation)?;
+            let tat = format!("{at}.thresholds[{j}]");
+            let id = checked_id(&tat, t.id.as_deref(), &t.name)?;
+            if id == LOW_CHORD_ID || id == DECK_ID {
+                return Err(SpecError::new(
+                    format!("{tat}.id"),
+                    format!("`{id}` is reserved for the point's own `{id}` level"),
+                ));
+            }
+            if self.thresholds[..j].iter().any(|u| u.level_id() == id) {
+                return Err(SpecError::new(
+                    format!("{tat}.id"),
+                    format!("`{id}` is the id of an earlier threshold here; set a different `id`"),
+                ));
+            }
         }
         Ok(())
+    }
+
+    /// The point's id: `id`, or the slug of its name.
+    pub fn point_id(&self) -> String {
+        self.id.clone().unwrap_or_else(|| slug_of(&self.name))
+    }
+}
+
+impl ThresholdSpec {
+    /// The threshold's id: `id`, or the slug of its name.
+    pub fn level_id(&self) -> String {
+        self.id.clone().unwrap_or_else(|| slug_of(&self.name))
+    }
+}
+
+/// Id of a bridge's low-chord level.
+pub const LOW_CHORD_ID: &str = "low_chord";
+/// Id of a bridge's deck level.
+pub const DECK_ID: &str = "deck";
+
+/// The id of the thing at `at`: a given `id` must be a slug; a default one
+/// (the slug of `name`) must not be empty.
+fn checked_id(at: &str, id: Option<&str>, name: &str) -> Result<String, SpecError> {
+    match id {
+        Some(id) if valid_slug(id) => Ok(id.to_owned()),
+        Some(_) => Err(SpecError::new(
+            format!("{at}.id"),
+            "an id is 1 to 64 of a-z, 0-9 and -, not starting with -",
+        )),
+        None => {
+            let id = slug_of(name);
+            if id.is_empty() {
+                Err(SpecError::new(
+                    format!("{at}.name"),
+                    "has no letter a-z or digit to make an id from; set `id`",
+                ))
+            } else {
+                Ok(id)
+            }
+        }
     }
 }
 
@@ -622,6 +709,7 @@ mod tests {
     #[test]
     fn severity_by_rank_unless_configured() {
         let t = |s: Option<Severity>| ThresholdSpec {
+            id: None,
             name: "x".into(),
             elevation: 1.0,
             severity: s,

@@ -1,5 +1,5 @@
 //! What the API and the dashboard show of a stored run: per point the
-//! stage now, the crest ahead, each threshold seen from now on, the bridge
+//! stage now, the crest ahead, each level seen from now on, the bridge
 //! margins, observations, and the run's freshness; in SI or US customary
 //! units. Pure: the handler passes `now` and what it loaded.
 
@@ -60,8 +60,10 @@ pub struct PointView {
     /// Forecast stage at `now`.
     pub current_stage: f64,
     pub observed: Vec<ObservedStage>,
-    /// Name of the highest threshold exceeded from now on.
+    /// Name of the highest level exceeded from now on.
     pub highest_exceeded: Option<String>,
+    /// Its id.
+    pub highest_exceeded_id: Option<String>,
 }
 
 #[derive(Debug, Clone, Serialize, PartialEq)]
@@ -135,18 +137,18 @@ pub fn point(p: &PointForecast, observed: Vec<ObservedStage>, now: DateTime<Utc>
     }
     forecast.low_chord_margin = p.low_chord.map(|lc| lc - forecast.crest_stage);
     forecast.deck_margin = p.deck.map(|d| d - forecast.crest_stage);
-    forecast.thresholds = p.thresholds.iter().map(|t| t.seen_on(&ahead)).collect();
-    let highest_exceeded = forecast
-        .thresholds
+    forecast.levels = p.levels.iter().map(|t| t.seen_on(&ahead)).collect();
+    let highest = forecast
+        .levels
         .iter()
-        .rev()
-        .find(|t| t.exceeded)
-        .map(|t| t.name.clone());
+        .filter(|t| t.exceeded)
+        .max_by(|a, b| a.elevation.total_cmp(&b.elevation));
     PointView {
-        forecast,
         current_stage: ahead.stage_now(),
         observed,
-        highest_exceeded,
+        highest_exceeded: highest.map(|t| t.name.clone()),
+        highest_exceeded_id: highest.map(|t| t.id.clone()),
+        forecast,
     }
 }
 
@@ -165,7 +167,7 @@ pub fn points(
             let gauge = spec
                 .points
                 .iter()
-                .find(|s| s.name == p.name)
+                .find(|s| s.point_id() == p.id)
                 .and_then(|s| s.gauge.as_deref());
             point(p, gauge.map(observed).unwrap_or_default(), now)
         })
@@ -196,7 +198,7 @@ impl PointView {
         f.stage.iter_mut().for_each(l);
         f.discharge.iter_mut().for_each(|q| *q *= FT3_PER_M3);
         self.observed.iter_mut().for_each(|o| o.stage *= FT_PER_M);
-        for t in &mut f.thresholds {
+        for t in &mut f.levels {
             t.elevation *= FT_PER_M;
             t.margin *= FT_PER_M;
         }

@@ -129,6 +129,26 @@ pub fn valid_slug(id: &str) -> bool {
         && !id.starts_with('-')
 }
 
+/// The slug of a display name: ASCII letters lower-cased and digits kept,
+/// every other run of characters one `-`, no `-` at either end, cut to 64
+/// bytes. Empty when the name has no ASCII letter or digit. Points of
+/// interest and their levels take it as their default id.
+pub fn slug_of(name: &str) -> String {
+    let mut out = String::new();
+    for c in name.chars() {
+        if c.is_ascii_alphanumeric() {
+            out.push(c.to_ascii_lowercase());
+        } else if !out.is_empty() && !out.ends_with('-') {
+            out.push('-');
+        }
+    }
+    out.truncate(64);
+    while out.ends_with('-') {
+        out.pop();
+    }
+    out
+}
+
 /// Checks a gauge id (the path segment, named `gauge`).
 pub fn check_id(id: &str) -> Result<(), FieldError> {
     if valid_slug(id) {
@@ -347,6 +367,19 @@ mod tests {
             ..spec()
         };
         assert_eq!(field_of(s), "rating_curve");
+    }
+
+    #[test]
+    fn names_slug_to_ids() {
+        assert_eq!(slug_of("Sallowgate Bridge"), "sallowgate-bridge");
+        assert_eq!(
+            slug_of("  0.5 m below levee crest "),
+            "0-5-m-below-levee-crest"
+        );
+        assert_eq!(slug_of("Île—Ford"), "le-ford");
+        assert_eq!(slug_of("→ ←"), "");
+        let long = slug_of(&"ab ".repeat(40));
+        assert!(long.len() <= 64 && valid_slug(&long), "{long}");
     }
 
     #[test]

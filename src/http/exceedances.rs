@@ -1,4 +1,4 @@
-//! `GET /api/exceedances`: every (point, threshold) situation at the latest
+//! `GET /api/exceedances`: every (point, level) situation at the latest
 //! good run of each reach, for alerting clients that poll. The answer
 //! changes only when a run lands, so it is serialized once per board
 //! version, unit system and filter (`reach=`, `exceeded=`,
@@ -29,6 +29,7 @@ use crate::{
     CAUTION,
     forecast::{
         cap::Situation,
+        levels::LevelKind,
         spec::{Severity, Units},
         view::{FT_PER_M, UnitNames},
     },
@@ -71,14 +72,25 @@ impl Filter {
 /// system asked for).
 #[derive(Debug, Clone, Serialize)]
 struct Item<'a> {
+    /// `{reach}/{point_id}/{level_id}`: stable across display renames.
+    id: String,
     reach: &'a str,
     reach_name: &'a str,
+    point_id: &'a str,
     point: &'a str,
+    level_id: &'a str,
+    level_kind: LevelKind,
+    /// The level's display name.
+    level: &'a str,
+    /// Deprecated copy of `level`, kept for clients of the first release.
     threshold: &'a str,
     elevation: f64,
     severity: Severity,
     exceeded: bool,
     above_now: bool,
+    #[serde(with = "crate::wire_time::option")]
+    above_since: Option<DateTime<Utc>>,
+    above_since_start: bool,
     #[serde(with = "crate::wire_time::option")]
     first_above: Option<DateTime<Utc>>,
     #[serde(with = "crate::wire_time::option")]
@@ -97,14 +109,21 @@ impl<'a> Item<'a> {
     fn of(s: &'a Situation, units: Units) -> Self {
         let l = if units == Units::Us { FT_PER_M } else { 1.0 };
         Item {
+            id: s.key().to_string(),
             reach: &s.reach_id,
             reach_name: &s.reach_name,
+            point_id: &s.point_id,
             point: &s.point_name,
+            level_id: &s.level_id,
+            level_kind: s.level_kind,
+            level: &s.threshold_name,
             threshold: &s.threshold_name,
             elevation: s.elevation * l,
             severity: s.severity,
             exceeded: s.exceeded,
             above_now: s.above_now,
+            above_since: s.above_since,
+            above_since_start: s.above_since_start,
             first_above: s.first_above,
             back_below: s.back_below,
             crest_stage: s.crest_stage * l,
@@ -127,6 +146,11 @@ impl Item<'_> {
         let now = m.run_finished;
         if m.above_now {
             m.first_above = None;
+        }
+        // "Above since the start of the trace" moves with each run's
+        // look-back without news.
+        if m.above_since_start {
+            m.above_since = None;
         }
         if m.crest_time == now {
             m.crest_time = DateTime::<Utc>::UNIX_EPOCH;

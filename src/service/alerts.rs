@@ -22,6 +22,7 @@ use chrono::{DateTime, Duration, Utc};
 
 use crate::{
     config::{AlertsConfig, Config},
+    forecast::levels::levels_of,
     forecast::{
         cap::{
             self, AtomIds, CapError, CapOptions, Feed, FeedEntry, Issued, Issuer, Key, Situation,
@@ -115,7 +116,12 @@ impl Alerter {
         now: DateTime<Utc>,
     ) -> Result<Vec<NewCapMessage>, AlertError> {
         let reach_id = reach.reach_id.as_str();
-        let open = store.cap_open_chains(reach_id).await?;
+        let mut open = store.cap_open_chains(reach_id).await?;
+        let renames = legacy_renames(&open, &reach.spec);
+        if !renames.is_empty() {
+            store.rekey_cap_chains(reach_id, &renames).await?;
+            open = store.cap_open_chains(reach_id).await?;
+        }
         check_complete(&open, situations, &reach.spec)?;
         let previous = with_renewals(&open, now, self.renew_within);
         // The database's identity goes into every identifier, so that two
@@ -221,7 +227,7 @@ pub fn check_complete(
     let configured = |k: &Key| {
         spec.points
             .iter()
-            .any(|p| p.name == k.point && p.thresholds.iter().any(|t| t.name == k.threshold))
+            .any(|p| p.point_id() == k.point && levels_of(p).iter().any(|l| l.id == k.level))
     };
     match open
         .iter()
@@ -231,6 +237,39 @@ pub fn check_complete(
         Some(i) => Err(AlertError::Incomplete(i.key.to_string())),
         None => Ok(()),
     }
+}
+
+/// Open chains stored before CAP keys were ids carry the point's and the
+/// threshold's display names; each such key that names a point and one of
+/// its levels of `spec` (or a threshold merged into its low chord or deck)
+/// maps to that level's id key, so the chain goes on instead of being
+/// withdrawn and alerted again. Keys already made of ids are left alone.
+pub fn legacy_renames(open: &[OpenMessage], spec: &ReachSpec) -> Vec<(Key, Key)> {
+    let mut out: Vec<(Key, Key)> = Vec::new();
+    for k in open.iter().map(|m| &m.issued.key) {
+        if out.iter().any(|(old, _)| old == k) {
+            continue;
+        }
+        let by_id = spec.points.iter().find(|p| p.point_id() == k.point);
+        if by_id.is_some_and(|p| levels_of(p).iter().any(|l| l.id == k.level)) {
+            continue;
+        }
+        let Some(p) = spec.points.iter().find(|p| p.name == k.point) else {
+            continue;
+        };
+        let level = levels_of(p)
+            .into_iter()
+            .find(|l| l.name == k.level || l.also_named.contains(&k.level));
+        if let Some(l) = level {
+            let new = Key {
+                reach: k.reach.clone(),
+                point: p.point_id(),
+                level: l.id,
+            };
+            out.push((k.clone(), new));
+        }
+    }
+    out
 }
 
 /// The stored messages as the plan's `previous`, with the current message
@@ -271,14 +310,14 @@ mod tests {
             .expect("valid time")
     }
 
-    fn msg(threshold: &str, id: &str, sent: u32, msg_type: MsgType, expires: u32) -> OpenMessage {
+    fn msg(level: &str, id: &str, sent: u32, msg_type: MsgType, expires: u32) -> OpenMessage {
         let active = msg_type != MsgType::Cancel;
         OpenMessage {
             issued: Issued {
                 key: Key {
                     reach: "fernhollow".into(),
-                    point: "Quillby Weir".into(),
-                    threshold: threshold.into(),
+                    point: "quillby-weir".into(),
+                    level: level.into(),
                 },
                 identifier: id.into(),
                 sender: "reachcast@localhost".into(),
@@ -370,6 +409,23 @@ mod tests {
     }
 
     #[test]
+    fn chains_stored_under_names_are_rekeyed_to_ids_once() {
+        let mut legacy = msg("Lock Gate 2", "a1", 1, MsgType::Alert, 7);
+        legacy.issued.key.point = "Quillby Weir".into();
+        let current = msg("towpath", "b1", 1, MsgType::Alert, 7);
+        let gone = {
+            let mut m = msg("old level", "c1", 1, MsgType::Alert, 7);
+            m.issued.key.point = "Quillby Weir".into();
+            m
+        };
+        let spec = spec(&["towpath", "Lock Gate 2"]);
+        let r = legacy_renames(&[legacy.clone(), current, gone], &spec);
+        assert_eq!(r.len(), 1, "{r:?}");
+        assert_eq!(r[0].0, legacy.issued.key);
+        assert_eq!(r[0].1.to_string(), "fernhollow/quillby-weir/lock-gate-2");
+    }
+
+    #[test]
     fn a_restated_chain_gets_an_update_from_the_plan() {
         let open = vec![msg("towpath", "a1", 1, MsgType::Alert, 7)];
         let p = with_renewals(&open, t(7), Duration::minutes(30));
@@ -378,14 +434,19 @@ mod tests {
         let s = Situation {
             reach_id: "fernhollow".into(),
             reach_name: "Fernhollow Water".into(),
+            point_id: "quillby-weir".into(),
             point_name: "Quillby Weir".into(),
             point_kind: crate::forecast::spec::PointKind::Other,
             chainage: 1000.0,
+            level_id: "towpath".into(),
+            level_kind: crate::forecast::levels::LevelKind::Threshold,
             threshold_name: "towpath".into(),
             elevation: 11.0,
             severity: Severity::Minor,
             exceeded: true,
             above_now: true,
+            above_since: Some(t(2)),
+            above_since_start: false,
             first_above: Some(t(2)),
             back_below: None,
             crest_stage: 12.0,

@@ -1,4 +1,4 @@
-//! The exceedance board: the situation of every (point, threshold) at the
+//! The exceedance board: the situation of every (point, level) at the
 //! latest good run of each reach, rebuilt when a run lands. Alerting
 //! clients poll it often; it changes only when a run lands, so the API
 //! serves it from a cache keyed by the board's version.
@@ -55,7 +55,7 @@ impl<'a> GoodRun<'a> {
 }
 
 /// The situations of a good run, seen from the time it finished: one per
-/// point and threshold (a point whose forecast cannot be read gives none).
+/// point and level (a point whose forecast cannot be read gives none).
 pub fn situations_of(reach: &ReachVersion, run: GoodRun<'_>) -> Vec<Situation> {
     let (results, finished) = (run.results, run.finished);
     let ctx = RunContext {
@@ -69,7 +69,7 @@ pub fn situations_of(reach: &ReachVersion, run: GoodRun<'_>) -> Vec<Situation> {
         .points
         .iter()
         .flat_map(|p| {
-            p.thresholds
+            p.levels
                 .iter()
                 .filter_map(|t| Situation::from_forecast(&ctx, p, t, finished).ok())
                 .collect::<Vec<_>>()

@@ -52,7 +52,7 @@ pub struct OpenMessage {
     pub expires: DateTime<Utc>,
 }
 
-/// `reach/point/threshold`, each part with `%` and `/` percent-encoded, so
+/// `reach/point/level`, each part with `%` and `/` percent-encoded, so
 /// that the text identifies the key unambiguously.
 pub fn key_text(key: &Key) -> String {
     let enc = |s: &str| s.replace('%', "%25").replace('/', "%2F");
@@ -60,7 +60,7 @@ pub fn key_text(key: &Key) -> String {
         "{}/{}/{}",
         enc(&key.reach),
         enc(&key.point),
-        enc(&key.threshold)
+        enc(&key.level)
     )
 }
 
@@ -76,13 +76,13 @@ fn msg_type_of(text: &str) -> Result<MsgType, StoreError> {
 }
 
 impl Store {
-    /// For each (point, threshold) of `reach_id`: the messages since its
+    /// For each (point, level) of `reach_id`: the messages since its
     /// last `Cancel`, that `Cancel` included, oldest first, ties in `sent`
     /// broken by run. Older, closed chains are left out: the plan needs only
     /// the open chain (and whether one is open).
     pub async fn cap_open_chains(&self, reach_id: &str) -> Result<Vec<OpenMessage>, StoreError> {
         let rows = sqlx::query(
-            "SELECT m.identifier, m.reach_id, m.point_name, m.threshold_name, m.sender,
+            "SELECT m.identifier, m.reach_id, m.point_id, m.level_id, m.sender,
                     m.sent, m.expires, m.msg_type, m.active, m.material
              FROM cap_messages m
              WHERE m.reach_id = ?1
@@ -110,8 +110,8 @@ impl Store {
                     issued: Issued {
                         key: Key {
                             reach: row.try_get("reach_id")?,
-                            point: row.try_get("point_name")?,
-                            threshold: row.try_get("threshold_name")?,
+                            point: row.try_get("point_id")?,
+                            level: row.try_get("level_id")?,
                         },
                         identifier: row.try_get("identifier")?,
                         sender: row.try_get("sender")?,
@@ -124,6 +124,44 @@ impl Store {
                 })
             })
             .collect()
+    }
+
+    /// Rewrites the key of every message of `reach_id` stored under each
+    /// old key to the new one (all or none, audited as `cap.rekey`): a
+    /// chain keyed by display names before keys were ids goes on under its
+    /// ids.
+    pub async fn rekey_cap_chains(
+        &self,
+        reach_id: &str,
+        renames: &[(Key, Key)],
+    ) -> Result<(), StoreError> {
+        let (_guard, mut tx) = self.begin_write().await?;
+        for (old, new) in renames {
+            sqlx::query(
+                "UPDATE cap_messages SET key = ?3, point_id = ?4, level_id = ?5
+                 WHERE reach_id = ?1 AND key = ?2",
+            )
+            .bind(reach_id)
+            .bind(key_text(old))
+            .bind(key_text(new))
+            .bind(&new.point)
+            .bind(&new.level)
+            .execute(&mut *tx)
+            .await?;
+            audit::record_system(
+                &mut tx,
+                "alerts",
+                &Audit {
+                    key_id: None,
+                    action: "cap.rekey".to_owned(),
+                    target: format!("reach:{reach_id}"),
+                    summary: serde_json::json!({"from": key_text(old), "to": key_text(new)}),
+                },
+            )
+            .await?;
+        }
+        tx.commit().await?;
+        Ok(())
     }
 
     /// Stores the messages of one plan, all or none, each with its audit
@@ -142,7 +180,7 @@ impl Store {
                 .transpose()
                 .map_err(|e| StoreError::Corrupt(format!("cap material: {e}")))?;
             sqlx::query(
-                "INSERT INTO cap_messages (identifier, reach_id, key, point_name, threshold_name,
+                "INSERT INTO cap_messages (identifier, reach_id, key, point_id, level_id,
                      sender, sent, expires, msg_type, active, material, document, title,
                      summary, run_id)
                  VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15)",
@@ -151,7 +189,7 @@ impl Store {
             .bind(&i.key.reach)
             .bind(key_text(&i.key))
             .bind(&i.key.point)
-            .bind(&i.key.threshold)
+            .bind(&i.key.level)
             .bind(&i.sender)
             .bind(cap::cap_time(i.sent))
             .bind(cap::cap_time(m.expires))
@@ -175,7 +213,7 @@ impl Store {
                         "msg_type": i.msg_type.cap_value(),
                         "reach": i.key.reach,
                         "point": i.key.point,
-                        "threshold": i.key.threshold,
+                        "level": i.key.level,
                         "run_id": m.run_id,
                     }),
                 },
@@ -187,7 +225,7 @@ impl Store {
     }
 
     /// The current messages of one reach, or of all with `None`: for each
-    /// (reach, point, threshold) its newest message, if that is an `Alert`
+    /// (reach, point, level) its newest message, if that is an `Alert`
     /// or `Update` (the chain is open: it is the current statement), or a
     /// `Cancel` that has not yet expired at `now` (so that consumers polling
     /// the index see the chain end). Newest first.
@@ -267,19 +305,19 @@ mod tests {
         let a = Key {
             reach: "r".into(),
             point: "Mill/Ford".into(),
-            threshold: "t".into(),
+            level: "t".into(),
         };
         let b = Key {
             reach: "r".into(),
             point: "Mill".into(),
-            threshold: "Ford/t".into(),
+            level: "Ford/t".into(),
         };
         assert_eq!(key_text(&a), "r/Mill%2FFord/t");
         assert_ne!(key_text(&a), key_text(&b));
         let c = Key {
             reach: "r".into(),
             point: "50%".into(),
-            threshold: "x".into(),
+            level: "x".into(),
         };
         assert_eq!(key_text(&c), "r/50%25/x");
     }

@@ -66,7 +66,12 @@ fn run_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<RunRecord, StoreError> 
         provenance: serde_json::from_str(&provenance)
             .map_err(|e| corrupt("forecast_runs.provenance", e))?,
         results: results
-            .map(|r| serde_json::from_str(&r))
+            .map(|r| {
+                serde_json::from_str(&r).map(|mut r: StoredResults| {
+                    r.fill_legacy_ids();
+                    r
+                })
+            })
             .transpose()
             .map_err(|e| corrupt("forecast_runs.results", e))?,
     })
@@ -476,7 +481,9 @@ mod tests {
         assert_eq!(inflow.source_beyond_now, Source::Persistence);
         assert!(run.provenance.inflow_stale());
         let results = run.results.expect("results");
-        let t = &results.points[0].thresholds[0];
+        let t = &results.points[0].levels[0];
+        assert_eq!(results.points[0].id, "test-bridge", "legacy ids filled");
+        assert_eq!(t.id, crate::gauge::slug_of(&t.name));
         assert!(
             !t.above_now && t.exceeded,
             "above_at_start reads as above_now"

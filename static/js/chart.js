@@ -160,7 +160,11 @@ export function renderChart(doc, point, ctx) {
   const stage = point.stage || [];
   const obs = (point.observed || []).map((o) => [toMs(o.time), o.stage]);
   const levels = [];
-  for (const th of point.thresholds || []) levels.push({ kind: "threshold", label: th.name, value: th.elevation, severity: th.severity });
+  // Low chord and deck come from the point's own fields below (drawn as a
+  // structure), so only the user's thresholds are taken from the levels.
+  for (const th of point.levels || point.thresholds || []) {
+    if (!th.kind || th.kind === "threshold") levels.push({ kind: "threshold", label: th.name, value: th.elevation, severity: th.severity });
+  }
   if (point.low_chord != null) levels.push({ kind: "structure", label: "low chord", value: point.low_chord });
   if (point.deck != null) levels.push({ kind: "structure", label: "deck", value: point.deck });
 

@@ -15,6 +15,7 @@ use reachcast::forecast::cap::{
     CAP_MEDIA_TYPE, CAP_NAMESPACE, CapOptions, Circle, Feed, FeedEntry, Issued, Issuer, MsgType,
     Planned, Situation, Status, plan, render_atom, render_cap,
 };
+use reachcast::forecast::levels::LevelKind;
 use reachcast::forecast::spec::{PointKind, Severity};
 
 const ATOM_NS: &str = "http://www.w3.org/2005/Atom";
@@ -77,14 +78,19 @@ fn bridge() -> Situation {
     Situation {
         reach_id: "brindlemoor".into(),
         reach_name: "Brindlemoor River".into(),
+        point_id: "sallowgate-bridge".into(),
         point_name: "Sallowgate Bridge".into(),
         point_kind: PointKind::Bridge,
         chainage: 4200.0,
+        level_id: "road-closed".into(),
+        level_kind: LevelKind::Threshold,
         threshold_name: "Road closed".into(),
         elevation: 12.0,
         severity: Severity::Moderate,
         exceeded: true,
         above_now: false,
+        above_since: None,
+        above_since_start: false,
         first_above: Some(t(9, 0)),
         back_below: Some(t(14, 0)),
         crest_stage: 12.4,
@@ -103,6 +109,8 @@ fn bridge() -> Situation {
 
 fn town() -> Situation {
     Situation {
+        point_id: "hollin-vale-quay".into(),
+        level_id: "gardens-wet".into(),
         point_name: "Hollin & <Vale> \"Quay\"".into(),
         point_kind: PointKind::Town,
         chainage: 9100.0,
@@ -432,7 +440,7 @@ fn special_characters_survive_a_round_trip() {
     let msgs = scenario();
     let town = msgs
         .iter()
-        .find(|m| m.key.point.starts_with("Hollin"))
+        .find(|m| m.key.point.starts_with("hollin"))
         .expect("town message");
     let (alert, _, _) = parse(&render_cap(town, &CapOptions::default()).expect("render"));
     let info = alert.one("info");

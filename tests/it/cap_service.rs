@@ -223,7 +223,7 @@ impl Service {
             status,
             msg_type,
             references,
-            threshold: params["reachcast:threshold_name"].clone(),
+            level: params["reachcast:level_id"].clone(),
             severity,
         }
     }
@@ -237,7 +237,8 @@ struct Message {
     status: String,
     msg_type: String,
     references: Vec<String>,
-    threshold: String,
+    /// The level id the message is about (`reachcast:level_id`).
+    level: String,
     severity: String,
 }
 
@@ -253,9 +254,9 @@ fn by_threshold(messages: &[Message]) -> HashMap<String, Message> {
     for m in messages {
         // One current message per (point, threshold).
         assert!(
-            map.insert(m.threshold.clone(), m.clone()).is_none(),
+            map.insert(m.level.clone(), m.clone()).is_none(),
             "two current messages for {}",
-            m.threshold
+            m.level
         );
     }
     map
@@ -320,7 +321,7 @@ async fn alert_update_cancel_chain_through_the_service() {
     let alerts = by_threshold(&messages);
     let mut names: Vec<&str> = alerts.keys().map(String::as_str).collect();
     names.sort_unstable();
-    assert_eq!(names, ["Lock gate", "Towpath"], "{messages:#?}");
+    assert_eq!(names, ["lock-gate", "towpath"], "{messages:#?}");
     for m in alerts.values() {
         assert_eq!(m.msg_type, "Alert");
         // `alerts.cap_status = "Exercise"` in this test's configuration.
@@ -330,8 +331,8 @@ async fn alert_update_cancel_chain_through_the_service() {
     }
     // Severity from the rank among the point's four thresholds (lowest
     // Minor, middle Moderate).
-    assert_eq!(alerts["Towpath"].severity, "Minor");
-    assert_eq!(alerts["Lock gate"].severity, "Moderate");
+    assert_eq!(alerts["towpath"].severity, "Minor");
+    assert_eq!(alerts["lock-gate"].severity, "Moderate");
 
     // 2. The same data again: nothing new, and the feed answers 304 to its
     // ETag (RFC 9110 §13.1.2).
@@ -351,7 +352,7 @@ async fn alert_update_cancel_chain_through_the_service() {
     assert_ne!(etag2, etag1);
     let updates = by_threshold(&messages);
     assert_eq!(updates.len(), 3, "{messages:#?}");
-    for name in ["Towpath", "Lock gate"] {
+    for name in ["towpath", "lock-gate"] {
         let u = &updates[name];
         assert_eq!(u.msg_type, "Update", "{name}");
         // CAP §3.2.1: `references` names the earlier message by sender,
@@ -359,8 +360,8 @@ async fn alert_update_cancel_chain_through_the_service() {
         assert_eq!(u.references, [alerts[name].triple()], "{name}");
         assert!(time_of(&u.sent) >= time_of(&alerts[name].sent));
     }
-    assert_eq!(updates["Mill lane"].msg_type, "Alert");
-    assert!(updates["Mill lane"].references.is_empty());
+    assert_eq!(updates["mill-lane"].msg_type, "Alert");
+    assert!(updates["mill-lane"].references.is_empty());
     // The earlier Alerts stay retrievable by identifier.
     for a in alerts.values() {
         let res = s.app.get(&format!("/api/cap/{}", a.identifier)).await;
@@ -375,7 +376,7 @@ async fn alert_update_cancel_chain_through_the_service() {
     assert_ne!(etag3, etag2);
     let cancels = by_threshold(&messages);
     assert_eq!(cancels.len(), 3, "{messages:#?}");
-    for name in ["Towpath", "Lock gate"] {
+    for name in ["towpath", "lock-gate"] {
         let c = &cancels[name];
         assert_eq!(c.msg_type, "Cancel", "{name}");
         assert_eq!(
@@ -384,10 +385,10 @@ async fn alert_update_cancel_chain_through_the_service() {
             "{name}"
         );
     }
-    assert_eq!(cancels["Mill lane"].msg_type, "Cancel");
+    assert_eq!(cancels["mill-lane"].msg_type, "Cancel");
     assert_eq!(
-        cancels["Mill lane"].references,
-        [updates["Mill lane"].triple()]
+        cancels["mill-lane"].references,
+        [updates["mill-lane"].triple()]
     );
 
     // 5. Low flow again: nothing new.
@@ -483,7 +484,7 @@ async fn removing_a_threshold_withdraws_its_chain_only() {
     let alerts = by_threshold(&before);
     assert_eq!(alerts.len(), 2);
 
-    // A new reach version without "Lock gate".
+    // A new reach version without "lock-gate".
     let admin = s.app.key(Role::Admin, &[]).await;
     let mut reach = reach_json();
     let thresholds = reach["points"][0]["thresholds"]
@@ -499,11 +500,11 @@ async fn removing_a_threshold_withdraws_its_chain_only() {
     assert_eq!(now.len(), 2, "{after:#?}");
     // The removed threshold's chain ends with a Cancel referencing it
     // (CAP §3.2.1 msgType Cancel, references).
-    let gone = &now["Lock gate"];
+    let gone = &now["lock-gate"];
     assert_eq!(gone.msg_type, "Cancel");
-    assert_eq!(gone.references, [alerts["Lock gate"].triple()]);
+    assert_eq!(gone.references, [alerts["lock-gate"].triple()]);
     // The other chain is untouched: its Alert is still the current message.
-    assert_eq!(now["Towpath"].identifier, alerts["Towpath"].identifier);
+    assert_eq!(now["towpath"].identifier, alerts["towpath"].identifier);
     s.app.stop().await;
 }
 
@@ -641,7 +642,7 @@ async fn every_issued_message_is_in_the_audit_log() {
         assert_eq!(entry.actor, "system:alerts");
         assert_eq!(entry.key_id, None);
         assert_eq!(entry.summary["msg_type"], "Alert");
-        assert_eq!(entry.summary["threshold"], m.threshold.as_str());
+        assert_eq!(entry.summary["level"], m.level.as_str());
         // The run that issued it: the one waited for, or one the reach's
         // worker started on its own just before.
         let issued_by = entry.summary["run_id"].as_i64().expect("run id");

@@ -559,7 +559,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         .expect("points")
         .iter()
         .filter(|p| {
-            p["thresholds"]
+            p["levels"]
                 .as_array()
                 .is_some_and(|t| t.iter().any(|t| t["above_now"] == true))
         })
@@ -574,7 +574,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
             "summary counts {over_now} points over: {summary}"
         );
     } else {
-        assert!(!summary.contains("Over a threshold now"), "{summary}");
+        assert!(!summary.contains("Over a level now"), "{summary}");
     }
     // The first point's crest as the API gives it appears in its row.
     let crest = forecast["points"][0]["crest_stage"]
@@ -605,11 +605,11 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         assert!(c["forecast"].is_string(), "forecast drawn dashed: {c}");
         assert_eq!(c["now"], true, "now line: {c}");
         assert_eq!(c["crest"], true, "crest marker: {c}");
-        let structures = usize::from(!p["low_chord"].is_null()) + usize::from(!p["deck"].is_null());
-        let thresholds = p["thresholds"].as_array().map_or(0, Vec::len);
+        // Every level (thresholds, low chord, deck) has its labelled line.
+        let levels = p["levels"].as_array().map_or(0, Vec::len);
         assert_eq!(
             c["levels"].as_u64(),
-            Some((thresholds + structures) as u64),
+            Some(levels as u64),
             "labelled level lines: {c}"
         );
         assert!(c["ticks"].as_u64().unwrap_or(0) >= 2, "time ticks: {c}");

@@ -108,7 +108,7 @@ async fn readings_lead_to_a_forecast_with_consistent_crossings() {
     post_readings(&s, &rising(now, 6, 20.0, 180.0)).await;
     let f = forecast_when(&s.app, |f| {
         f["run"]["inflow"]["source_beyond_now"] == "persistence"
-            && f["points"][0]["thresholds"][0]["exceeded"] == true
+            && f["points"][0]["levels"][0]["exceeded"] == true
     })
     .await;
     assert!(
@@ -132,7 +132,7 @@ async fn readings_lead_to_a_forecast_with_consistent_crossings() {
         .filter_map(Value::as_f64)
         .collect();
     assert_eq!(times.len(), stage.len());
-    for t in p["thresholds"].as_array().expect("thresholds") {
+    for t in p["levels"].as_array().expect("levels") {
         let z = t["elevation"].as_f64().expect("elevation");
         // Independent: first upward crossing at or after now, by linear
         // interpolation between samples.
@@ -486,7 +486,7 @@ async fn bad_reach_names_the_field() {
     assert_eq!(res.status(), 200);
     let (_, run) = s.app.get_json(&format!("/api/runs/{}", r["run_id"])).await;
     assert_eq!(run["reach_version"], 1);
-    assert_eq!(run["results"]["points"][0]["thresholds"][0]["name"], "low");
+    assert_eq!(run["results"]["points"][0]["levels"][0]["name"], "low");
     s.app.stop().await;
 }
 

@@ -165,7 +165,7 @@ fn the_document_is_well_formed_openapi_3_1() {
         "ReachDocument",
         "Forecast",
         "PointForecast",
-        "Threshold",
+        "Level",
         "Exceedances",
         "Run",
         "Upload",

@@ -191,7 +191,10 @@ fn write_info(x: &mut XmlDoc, msg: &Planned, opts: &CapOptions) -> Result<(), Ca
     x.start("area", &[])?;
     let area_desc = match &msg.subject {
         Subject::Forecast(s) => format!("{}, {}", s.point_name, s.reach_name),
-        Subject::Withdrawn { reach_name } => format!("{}, {}", msg.key.point, reach_name),
+        Subject::Withdrawn {
+            reach_name,
+            point_name,
+        } => format!("{point_name}, {reach_name}"),
     };
     x.text("areaDesc", &area_desc)?;
     if let Some(c) = msg.situation().and_then(|s| s.location) {

@@ -3,6 +3,7 @@
 use chrono::{DateTime, TimeZone, Utc};
 
 use super::{Issued, Issuer, Planned, Situation};
+use crate::forecast::levels::LevelKind;
 use crate::forecast::spec::{PointKind, Severity};
 
 pub const SENDER: &str = "reachcast@brindlemoor.example";
@@ -28,14 +29,19 @@ pub fn situation() -> Situation {
     Situation {
         reach_id: "brindlemoor".into(),
         reach_name: "Brindlemoor River".into(),
+        point_id: "sallowgate-bridge".into(),
         point_name: "Sallowgate Bridge".into(),
         point_kind: PointKind::Bridge,
         chainage: 4200.0,
+        level_id: "road-closed".into(),
+        level_kind: LevelKind::Threshold,
         threshold_name: "Road closed".into(),
         elevation: 12.0,
         severity: Severity::Moderate,
         exceeded: true,
         above_now: false,
+        above_since: None,
+        above_since_start: false,
         first_above: Some(t(9, 0)),
         back_below: Some(t(14, 0)),
         crest_stage: 12.4,

@@ -131,6 +131,9 @@ pub enum Subject {
         /// Display name of the reach if it is still configured, else the
         /// slug.
         reach_name: String,
+        /// Display name of the point if it is still configured, else its
+        /// id.
+        point_name: String,
     },
 }
 
@@ -347,6 +350,10 @@ pub fn plan(
             .iter()
             .find(|s| s.reach_id == key.reach)
             .map_or_else(|| key.reach.clone(), |s| s.reach_name.clone());
+        let point_name = current
+            .iter()
+            .find(|s| s.reach_id == key.reach && s.point_id == key.point)
+            .map_or_else(|| key.point.clone(), |s| s.point_name.clone());
         out.push(Planned {
             key: (*key).clone(),
             identifier: ids.mint(key, &format!("w{}", sent.timestamp())),
@@ -354,7 +361,10 @@ pub fn plan(
             sent,
             msg_type: MsgType::Cancel,
             references: references_of(chain, sent)?,
-            subject: Subject::Withdrawn { reach_name },
+            subject: Subject::Withdrawn {
+                reach_name,
+                point_name,
+            },
         });
     }
     Ok(out)
@@ -410,7 +420,7 @@ mod tests {
         assert!(m.references.is_empty());
         assert_eq!(
             m.identifier,
-            format!("reachcast-{INSTANCE}-brindlemoor-r7-f255937f9c274c04")
+            format!("reachcast-{INSTANCE}-brindlemoor-r7-2fa42d3a144bea9c")
         );
         assert!(is_cap_token(&m.identifier));
         assert_eq!(m.sent, t(6, 0));
@@ -557,6 +567,7 @@ mod tests {
     fn removed_threshold_is_withdrawn() {
         let history = issued(&plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan"));
         let mut other = situation();
+        other.level_id = "deck-awash".into();
         other.threshold_name = "Deck awash".into();
         other.exceeded = false;
         other.first_above = None;
@@ -568,7 +579,8 @@ mod tests {
         assert_eq!(
             c.subject,
             Subject::Withdrawn {
-                reach_name: "Brindlemoor River".into()
+                reach_name: "Brindlemoor River".into(),
+                point_name: "Sallowgate Bridge".into(),
             }
         );
         assert_eq!(

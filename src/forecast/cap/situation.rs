@@ -1,24 +1,27 @@
-//! One (point, threshold) pair as the latest forecast run sees it: the
-//! input of [`super::plan`] and of everything a message says.
+//! One (point, level) pair as the latest forecast run sees it: the input
+//! of [`super::plan`] and of everything a message says.
 
 use chrono::{DateTime, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::{CapError, Material};
 use crate::forecast::level::{LevelOutlook, Trace};
+use crate::forecast::levels::LevelKind;
 use crate::forecast::run::PointForecast;
 use crate::forecast::spec::{PointKind, Severity};
 
-/// Identifies one (reach, point, threshold) across runs. Names, not
-/// database ids, so that a reach re-uploaded with the same names keeps its
-/// message chains; renaming a threshold therefore cancels the old chain and
-/// starts a new one, which is what a consumer should see.
+/// Identifies one (reach, point, level) across runs by ids, not display
+/// names, so that renaming a point or a threshold keeps its message chain;
+/// removing a level (or changing its id) withdraws the old chain.
 #[derive(Debug, Clone, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
 pub struct Key {
     /// Reach slug.
     pub reach: String,
+    /// Point id.
     pub point: String,
-    pub threshold: String,
+    /// Level id (`low_chord`, `deck`, or a threshold's id).
+    #[serde(alias = "threshold")]
+    pub level: String,
 }
 
 impl Key {
@@ -29,7 +32,7 @@ impl Key {
         const OFFSET: u64 = 0xcbf2_9ce4_8422_2325;
         const PRIME: u64 = 0x0000_0100_0000_01b3;
         let mut h = OFFSET;
-        let parts = [&self.reach, &self.point, &self.threshold];
+        let parts = [&self.reach, &self.point, &self.level];
         for (i, part) in parts.iter().enumerate() {
             if i > 0 {
                 h ^= 0x1f;
@@ -46,7 +49,7 @@ impl Key {
 
 impl std::fmt::Display for Key {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        write!(f, "{}/{}/{}", self.reach, self.point, self.threshold)
+        write!(f, "{}/{}/{}", self.reach, self.point, self.level)
     }
 }
 
@@ -70,12 +73,18 @@ pub struct Situation {
     pub reach_id: String,
     /// Reach display name.
     pub reach_name: String,
+    /// Point id (stable across renames).
+    pub point_id: String,
     pub point_name: String,
     pub point_kind: PointKind,
     /// Chainage of the point (m).
     pub chainage: f64,
+    /// Level id (stable across renames).
+    pub level_id: String,
+    pub level_kind: LevelKind,
+    /// The level's display name (`low chord`, `deck`, or the threshold's).
     pub threshold_name: String,
-    /// Threshold elevation (m).
+    /// Level elevation (m).
     pub elevation: f64,
     pub severity: Severity,
     /// The forecast stage is above the threshold at some time from `now`
@@ -83,6 +92,10 @@ pub struct Situation {
     pub exceeded: bool,
     /// The stage is above the threshold at `now`.
     pub above_now: bool,
+    /// While above now: since when (the last rise on the whole trace).
+    pub above_since: Option<DateTime<Utc>>,
+    /// Above since the trace began: the rise is older than the trace.
+    pub above_since_start: bool,
     /// When the stage is forecast to rise above the threshold (or `now`
     /// when already above).
     pub first_above: Option<DateTime<Utc>>,
@@ -120,8 +133,8 @@ impl Situation {
     pub fn key(&self) -> Key {
         Key {
             reach: self.reach_id.clone(),
-            point: self.point_name.clone(),
-            threshold: self.threshold_name.clone(),
+            point: self.point_id.clone(),
+            level: self.level_id.clone(),
         }
     }
 
@@ -168,14 +181,19 @@ impl Situation {
         Ok(Situation {
             reach_id: ctx.reach_id.clone(),
             reach_name: ctx.reach_name.clone(),
+            point_id: point.id.clone(),
             point_name: point.name.clone(),
             point_kind: point.kind,
             chainage: point.chainage,
+            level_id: level.id,
+            level_kind: level.kind,
             threshold_name: level.name,
             elevation: level.elevation,
             severity: level.severity,
             exceeded: level.exceeded,
             above_now: level.above_now,
+            above_since: level.above_since,
+            above_since_start: level.above_since_start,
             first_above: level.first_above,
             back_below: level.back_below,
             crest_stage: crest.stage,
@@ -214,6 +232,7 @@ mod tests {
 
     fn point(times: Vec<DateTime<Utc>>, stage: Vec<f64>) -> (PointForecast, LevelOutlook) {
         let point = PointForecast {
+            id: "sallowgate-bridge".into(),
             name: "Sallowgate Bridge".into(),
             chainage: 4200.0,
             kind: PointKind::Bridge,
@@ -228,14 +247,19 @@ mod tests {
             peak_discharge: 0.0,
             low_chord_margin: None,
             deck_margin: None,
-            thresholds: vec![],
+            levels: vec![],
         };
         let th = LevelOutlook {
+            id: "road-closed".into(),
+            kind: LevelKind::Threshold,
             name: "Road closed".into(),
             elevation: 12.0,
             severity: Severity::Moderate,
+            also_named: vec![],
             exceeded: true,
             above_now: false,
+            above_since: None,
+            above_since_start: false,
             first_above: None,
             back_below: None,
             duration_above_s: 0.0,
@@ -281,8 +305,9 @@ mod tests {
 
     #[test]
     fn key_digest_is_fnv1a_with_unit_separators() {
-        // Cross-checked with an independent FNV-1a 64 implementation, which
+        // Cross-checked with an independent FNV-1a 64 implementation (Python,
+        // over "brindlemoor␟sallowgate-bridge␟road-closed"), which
         // also gives the published test vector FNV-1a("a") = af63dc4c8601ec8c.
-        assert_eq!(situation().key().digest(), 0xf255_937f_9c27_4c04);
+        assert_eq!(situation().key().digest(), 0x2fa4_2d3a_144b_ea9c);
     }
 }

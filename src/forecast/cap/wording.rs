@@ -8,8 +8,9 @@ use std::fmt::Write as _;
 use chrono::{DateTime, Duration, Utc};
 
 use super::lexical::cap_time;
-use super::{MsgType, Planned, Subject};
+use super::{MsgType, Planned, Situation, Subject};
 use crate::CAUTION;
+use crate::forecast::levels::LevelKind;
 use crate::forecast::spec::PointKind;
 
 /// A first crossing at most this far ahead makes the urgency `Expected`
@@ -78,10 +79,19 @@ pub fn categories(msg: &Planned) -> Vec<&'static str> {
     c
 }
 
-/// CAP `event`: the same text for every message of a chain, naming the
-/// user's threshold.
+/// CAP `event`: what kind of event the chain is about, naming the user's
+/// threshold (or the structure's part).
 pub fn event(msg: &Planned) -> String {
-    format!("River stage forecast to exceed {}", msg.key.threshold)
+    match msg.situation() {
+        Some(s) if s.level_kind == LevelKind::LowChord => {
+            "River stage forecast to reach a bridge low chord".to_owned()
+        }
+        Some(s) if s.level_kind == LevelKind::Deck => {
+            "Bridge deck or road forecast under water".to_owned()
+        }
+        Some(s) => format!("River stage forecast to exceed {}", s.threshold_name),
+        None => format!("River stage forecast to exceed {}", msg.key.level),
+    }
 }
 
 fn short_time(t: DateTime<Utc>) -> String {
@@ -92,31 +102,30 @@ fn long_time(t: DateTime<Utc>) -> String {
     t.format("%Y-%m-%d %H:%M UTC").to_string()
 }
 
+/// How a level is named in a sentence: `the low chord`, `the deck`, or the
+/// threshold's name.
+fn level_words(s: &Situation) -> String {
+    match s.level_kind {
+        LevelKind::LowChord => "the low chord".to_owned(),
+        LevelKind::Deck => "the deck".to_owned(),
+        LevelKind::Threshold => s.threshold_name.clone(),
+    }
+}
+
 /// CAP `headline`, under 160 characters (CAP §3.2.2 suggests 160 as a
 /// target for short displays, from memory); longer names are cut with `…`.
 pub fn headline(msg: &Planned) -> String {
-    let k = &msg.key;
     let text = match (&msg.subject, msg.msg_type) {
-        (Subject::Withdrawn { .. }, _) => format!(
-            "Advisory withdrawn: {} at {} is no longer forecast",
-            k.threshold, k.point
+        (Subject::Withdrawn { point_name, .. }, _) => format!(
+            "Advisory withdrawn: level {} at {point_name} is no longer forecast",
+            msg.key.level
         ),
-        (Subject::Forecast(_), MsgType::Cancel) => format!(
+        (Subject::Forecast(s), MsgType::Cancel) => format!(
             "Advisory ended: {} no longer forecast above {}",
-            k.point, k.threshold
+            s.point_name,
+            level_words(s)
         ),
-        (Subject::Forecast(s), _) if s.above_now => {
-            format!("Advisory: {} forecast above {} now", k.point, k.threshold)
-        }
-        (Subject::Forecast(s), _) => match s.first_above {
-            Some(t) => format!(
-                "Advisory: {} forecast to exceed {} from {}",
-                k.point,
-                k.threshold,
-                short_time(t)
-            ),
-            None => format!("Advisory: {} forecast to exceed {}", k.point, k.threshold),
-        },
+        (Subject::Forecast(s), _) => forecast_headline(s),
     };
     if text.chars().count() < 160 {
         text
@@ -124,6 +133,29 @@ pub fn headline(msg: &Planned) -> String {
         let mut cut: String = text.chars().take(158).collect();
         cut.push('…');
         cut
+    }
+}
+
+/// The headline of an `Alert` or `Update`: the structure's parts in the
+/// words a planner uses ("reaches the low chord", "deck under water").
+fn forecast_headline(s: &Situation) -> String {
+    let p = &s.point_name;
+    let from = s.first_above.map(short_time);
+    match (s.level_kind, s.above_now, from) {
+        (LevelKind::LowChord, true, _) => format!("Advisory: {p}: water at the low chord now"),
+        (LevelKind::LowChord, false, Some(t)) => {
+            format!("Advisory: {p}: water forecast to reach the low chord from {t}")
+        }
+        (LevelKind::Deck, true, _) => format!("Advisory: {p}: deck under water now"),
+        (LevelKind::Deck, false, Some(t)) => {
+            format!("Advisory: {p}: deck forecast under water from {t}")
+        }
+        (_, true, _) => format!("Advisory: {p} forecast above {} now", s.threshold_name),
+        (_, false, Some(t)) => format!(
+            "Advisory: {p} forecast to exceed {} from {t}",
+            s.threshold_name
+        ),
+        (_, false, None) => format!("Advisory: {p} forecast to exceed {}", level_words(s)),
     }
 }
 
@@ -144,13 +176,16 @@ pub fn description(msg: &Planned) -> String {
     let mut d = String::new();
     let k = &msg.key;
     match &msg.subject {
-        Subject::Withdrawn { reach_name } => {
+        Subject::Withdrawn {
+            reach_name,
+            point_name,
+        } => {
             let _ = writeln!(
                 d,
-                "The threshold \"{}\" at {} on {} is no longer part of this forecast's \
+                "The level `{}` at {} on {} is no longer part of this forecast's \
                  configuration, so the earlier messages about it are withdrawn. This says \
                  nothing about the river stage there.",
-                k.threshold, k.point, reach_name
+                k.level, point_name, reach_name
             );
         }
         Subject::Forecast(s) => {
@@ -159,46 +194,10 @@ pub fn description(msg: &Planned) -> String {
                 "{} ({}) on {}, chainage {:.0} m.",
                 s.point_name, s.point_kind, s.reach_name, s.chainage
             );
+            forecast_lines(&mut d, msg.msg_type, s);
             let _ = writeln!(
                 d,
-                "Threshold \"{}\": elevation {:.2} m.",
-                s.threshold_name, s.elevation
-            );
-            if msg.msg_type == MsgType::Cancel {
-                let _ = writeln!(
-                    d,
-                    "The stage is no longer forecast to exceed this threshold; the earlier \
-                     messages about it are cancelled."
-                );
-            } else if s.above_now {
-                let _ = writeln!(d, "The stage is above this threshold now.");
-            }
-            if msg.msg_type != MsgType::Cancel
-                && !s.above_now
-                && let Some(t) = s.first_above
-            {
-                let _ = writeln!(
-                    d,
-                    "Forecast to rise above the threshold at {}.",
-                    long_time(t)
-                );
-            }
-            if msg.msg_type != MsgType::Cancel {
-                match s.back_below {
-                    Some(t) => {
-                        let _ = writeln!(d, "Forecast to fall back below at {}.", long_time(t));
-                    }
-                    None => {
-                        let _ = writeln!(
-                            d,
-                            "Forecast to stay above it to the end of the forecast period."
-                        );
-                    }
-                }
-            }
-            let _ = writeln!(
-                d,
-                "Forecast crest {:.2} m at {}, {:+.2} m relative to the threshold.",
+                "Forecast crest {:.2} m at {}, {:+.2} m relative to this level.",
                 s.crest_stage,
                 long_time(s.crest_time),
                 s.margin
@@ -222,6 +221,80 @@ pub fn description(msg: &Planned) -> String {
     d
 }
 
+/// What the forecast says about the level: its elevation, since when it
+/// is above, when it is reached and when the water falls back below.
+fn forecast_lines(d: &mut String, msg_type: MsgType, s: &Situation) {
+    let _ = match s.level_kind {
+        LevelKind::LowChord => writeln!(
+            d,
+            "Low chord of the bridge: elevation {:.2} m.",
+            s.elevation
+        ),
+        LevelKind::Deck => writeln!(d, "Deck: elevation {:.2} m.", s.elevation),
+        LevelKind::Threshold => writeln!(
+            d,
+            "Threshold \"{}\": elevation {:.2} m.",
+            s.threshold_name, s.elevation
+        ),
+    };
+    if msg_type == MsgType::Cancel {
+        let _ = writeln!(
+            d,
+            "The stage is no longer forecast to exceed this level; the earlier messages about \
+             it are cancelled."
+        );
+        return;
+    }
+    if s.above_now {
+        let _ = match (s.above_since, s.above_since_start) {
+            (Some(t), false) => writeln!(
+                d,
+                "The stage is above this level now, since {}.",
+                long_time(t)
+            ),
+            (Some(t), true) => writeln!(
+                d,
+                "The stage is above this level now, and has been since at least {} (the start \
+                 of the modelled look-back).",
+                long_time(t)
+            ),
+            (None, _) => writeln!(d, "The stage is above this level now."),
+        };
+    } else if let Some(t) = s.first_above {
+        let _ = match s.level_kind {
+            LevelKind::LowChord => {
+                writeln!(d, "Forecast to reach the low chord at {}.", long_time(t))
+            }
+            LevelKind::Deck => match s.back_below {
+                Some(b) => {
+                    let _ = writeln!(
+                        d,
+                        "Deck forecast under water from {} to {}.",
+                        long_time(t),
+                        long_time(b)
+                    );
+                    return;
+                }
+                None => writeln!(d, "Deck forecast under water from {}.", long_time(t)),
+            },
+            LevelKind::Threshold => {
+                writeln!(
+                    d,
+                    "Forecast to rise above the threshold at {}.",
+                    long_time(t)
+                )
+            }
+        };
+    }
+    let _ = match s.back_below {
+        Some(t) => writeln!(d, "Forecast to fall back below at {}.", long_time(t)),
+        None => writeln!(
+            d,
+            "Forecast to stay above it to the end of the forecast period."
+        ),
+    };
+}
+
 /// CAP `instruction`: the caution itself, so that a consumer that shows
 /// only the instruction still shows it.
 pub fn instruction() -> &'static str {
@@ -235,13 +308,16 @@ pub fn parameters(msg: &Planned) -> Vec<(&'static str, String)> {
     let mut p = vec![("reachcast:reach_id", msg.key.reach.clone())];
     match &msg.subject {
         Subject::Withdrawn { .. } => {
-            p.push(("reachcast:point_name", msg.key.point.clone()));
-            p.push(("reachcast:threshold_name", msg.key.threshold.clone()));
+            p.push(("reachcast:point_id", msg.key.point.clone()));
+            p.push(("reachcast:level_id", msg.key.level.clone()));
         }
         Subject::Forecast(s) => {
+            p.push(("reachcast:point_id", s.point_id.clone()));
             p.push(("reachcast:point_name", s.point_name.clone()));
             p.push(("reachcast:point_kind", s.point_kind.to_string()));
             p.push(("reachcast:chainage_m", format!("{:.1}", s.chainage)));
+            p.push(("reachcast:level_id", s.level_id.clone()));
+            p.push(("reachcast:level_kind", kind_word(s.level_kind).to_owned()));
             p.push(("reachcast:threshold_name", s.threshold_name.clone()));
             p.push((
                 "reachcast:threshold_elevation_m",
@@ -257,12 +333,24 @@ pub fn parameters(msg: &Planned) -> Vec<(&'static str, String)> {
                 p.push(("reachcast:back_below", cap_time(t)));
             }
             p.push(("reachcast:above_now", s.above_now.to_string()));
+            if let Some(t) = s.above_since {
+                p.push(("reachcast:above_since", cap_time(t)));
+            }
             p.push(("reachcast:run_id", s.run_id.to_string()));
             p.push(("reachcast:run_finished", cap_time(s.run_finished)));
             p.push(("reachcast:forecast_stale", s.stale.to_string()));
         }
     }
     p
+}
+
+/// The wire spelling of a level kind (as in the API).
+fn kind_word(k: LevelKind) -> &'static str {
+    match k {
+        LevelKind::Threshold => "threshold",
+        LevelKind::LowChord => "low_chord",
+        LevelKind::Deck => "deck",
+    }
 }
 
 #[cfg(test)]
