@@ -12,6 +12,7 @@ use serde::Serialize;
 use super::{
     assemble::Source,
     export::{self, Rows, TableContext},
+    levels_csv,
     record::{RunDiagnostics, RunRecord, StoredResults},
     spec::{Method, ReachSpec, Units},
     view::{self, Freshness, ObservedStage, PointView, UnitNames},
@@ -162,8 +163,9 @@ pub fn build(i: &Inputs<'_>, freshness: Freshness) -> ForecastDoc {
 
 impl ForecastDoc {
     /// The document of one point, if the reach has it.
-    pub fn point(&self, name: &str) -> Option<PointDoc<'_>> {
-        let point = self.points.iter().find(|p| p.forecast.name == name)?;
+    /// The point with id or name `key`.
+    pub fn point(&self, key: &str) -> Option<PointDoc<'_>> {
+        let point = self.points.iter().find(|p| p.is(key))?;
         Some(PointDoc {
             caution: crate::CAUTION,
             reach: &self.reach,
@@ -186,9 +188,26 @@ impl ForecastDoc {
         let rows = self
             .points
             .iter()
-            .filter(|p| only.is_none_or(|n| n == p.forecast.name))
+            .filter(|p| only.is_none_or(|n| p.is(n)))
             .map(Rows::from);
         export::table(&ctx, rows)
+    }
+
+    /// The CSV table of the levels of the points named (all when `only`
+    /// is `None`): one row per (point, level), seen from now.
+    pub fn levels_csv(&self, only: Option<&str>) -> Result<String, csv::Error> {
+        let ctx = TableContext {
+            reach: &self.reach.name,
+            run: Some(self.run.id),
+            units: self.unit_system,
+            caution: export::caution_cell(&self.freshness.reasons),
+        };
+        let points = self
+            .points
+            .iter()
+            .filter(|p| only.is_none_or(|n| p.is(n)))
+            .map(|p| &p.forecast);
+        levels_csv::table(&ctx, points)
     }
 }
 

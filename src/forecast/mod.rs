@@ -14,6 +14,7 @@ pub mod hydrograph;
 pub mod inflow;
 pub mod level;
 pub mod levels;
+pub mod levels_csv;
 pub mod record;
 pub mod report;
 pub mod run;

@@ -175,6 +175,11 @@ pub fn points(
 }
 
 impl PointView {
+    /// Whether `key` is this point's id or its display name.
+    pub fn is(&self, key: &str) -> bool {
+        self.forecast.id == key || self.forecast.name == key
+    }
+
     /// Converts lengths to feet and discharges to ft³/s.
     pub fn to_us(&mut self) {
         let f = &mut self.forecast;

@@ -48,6 +48,19 @@ pub fn router() -> Router<AppState> {
 pub(super) struct ForecastParams {
     units: Option<Units>,
     format: Option<Format>,
+    /// Which CSV table: the hydrographs (default) or the levels.
+    table: Option<Table>,
+}
+
+/// The CSV tables of a forecast.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub(super) enum Table {
+    /// One row per (point, output time): stage and discharge.
+    #[default]
+    Hydrographs,
+    /// One row per (point, level): crossing facts seen from now.
+    Levels,
 }
 
 /// The latest good run of a reach and everything the document needs.
@@ -168,14 +181,18 @@ async fn build_doc(
 /// A weak validator: the representation changes with every request (ages,
 /// `now`) but means the same until the run, the stale verdict or the
 /// newest reading changes (RFC 9110 §8.8.1).
-fn forecast_etag(run_id: i64, fresh: &Freshness, units: Units, csv: bool) -> String {
+fn forecast_etag(run_id: i64, fresh: &Freshness, units: Units, csv: Option<Table>) -> String {
     // The stale reasons quote ages in whole minutes, so they are part of
     // the validator: a page polling with If-None-Match sees them change.
     let reasons = fnv(fresh.reasons.join("|").as_bytes());
     format!(
         "W/\"run{run_id}-{}-{}-{}-{}-{reasons:x}\"",
         if units == Units::Us { "us" } else { "si" },
-        if csv { "csv" } else { "json" },
+        match csv {
+            None => "json",
+            Some(Table::Hydrographs) => "csv",
+            Some(Table::Levels) => "levels-csv",
+        },
         u8::from(fresh.stale),
         fresh.last_reading_at.map_or(0, |t| t.timestamp_millis())
     )
@@ -198,7 +215,8 @@ fn csv_response(body: Result<String, csv::Error>) -> Result<Response, ApiError> 
 struct Request {
     loaded: Loaded,
     units: Units,
-    csv: bool,
+    /// The CSV table asked for; `None` for JSON.
+    csv: Option<Table>,
     now: DateTime<Utc>,
     fresh: Freshness,
 }
@@ -214,7 +232,8 @@ async fn prepare(
     let fresh = freshness_of(state, &loaded, now).await?;
     Ok(Request {
         units: params.units.unwrap_or(loaded.reach.spec.service.units),
-        csv: Format::choose(params.format, headers) == Format::Csv,
+        csv: (Format::choose(params.format, headers) == Format::Csv)
+            .then(|| params.table.unwrap_or_default()),
         loaded,
         now,
         fresh,
@@ -236,10 +255,10 @@ async fn forecast(
         return Ok(r);
     }
     let doc = build_doc(&state, &r.loaded, r.units, r.now, r.fresh).await?;
-    let response = if r.csv {
-        csv_response(doc.csv(None))?
-    } else {
-        Json(&doc).into_response()
+    let response = match r.csv {
+        Some(Table::Hydrographs) => csv_response(doc.csv(None))?,
+        Some(Table::Levels) => csv_response(doc.levels_csv(None))?,
+        None => Json(&doc).into_response(),
     };
     let mut response = with_etag(response, &etag);
     vary_accept(response.headers_mut());
@@ -258,14 +277,14 @@ async fn point_forecast(
     let Some(p) = doc.point(&point) else {
         return Err(Problem::missing(
             "point",
-            format!("reach `{id}` has no point of interest named `{point}`"),
+            format!("reach `{id}` has no point of interest with id or name `{point}`"),
         )
         .into());
     };
-    let response = if r.csv {
-        csv_response(doc.csv(Some(&point)))?
-    } else {
-        Json(&p).into_response()
+    let response = match r.csv {
+        Some(Table::Hydrographs) => csv_response(doc.csv(Some(&point)))?,
+        Some(Table::Levels) => csv_response(doc.levels_csv(Some(&point)))?,
+        None => Json(&p).into_response(),
     };
     let mut response = response;
     vary_accept(response.headers_mut());

@@ -7,6 +7,7 @@
 
 mod common;
 
+mod bridge_levels;
 mod cap_reference;
 mod cap_service;
 mod cli_keys;
