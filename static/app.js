@@ -4,6 +4,7 @@
 
 import { renderChart } from "./js/chart.js";
 import { formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
+import { nextCheckMs } from "./js/retry.js";
 import { clearance, pointStatus, thresholdNamed } from "./js/status.js";
 
 const $ = (id) => document.getElementById(id);
@@ -21,6 +22,7 @@ const state = {
   etags: new Map(), // url -> { etag, body }
   timer: null,
   lastOk: 0,
+  misses: 0, // checks in a row that found no forecast to show
 };
 
 function h(tag, attrs = {}, ...children) {
@@ -103,13 +105,18 @@ async function refresh() {
       await refreshForecast();
     }
     state.lastOk = Date.now();
-    setConn(`Checked ${formatClock(Date.now(), currentReach()?.time_zone)} (${offsetLabel(offsetMinutes(currentReach()?.time_zone, Date.now()))}); checks again every ${Math.round(POLL_MS / 1000)} s.`, false);
+    state.misses = state.forecast ? 0 : state.misses + 1;
+    const zone = currentReach()?.time_zone;
+    const again = state.misses ? `no forecast yet, checks again in ${nextCheckMs(state.misses, POLL_MS) / 1000} s` : `checks again every ${Math.round(POLL_MS / 1000)} s`;
+    setConn(`Checked ${formatClock(Date.now(), zone)} (${offsetLabel(offsetMinutes(zone, Date.now()))}); ${again}.`, false);
   } catch (err) {
+    if (!state.forecast) state.misses += 1;
     const since = state.lastOk ? ` Last successful check ${formatDuration((Date.now() - state.lastOk) / 1000)} ago; the figures below may be old.` : "";
     setConn(`Could not reach the server (${err.message}).${since}`, true);
   } finally {
     clearTimeout(state.timer); // an overlapping refresh may have set one
-    state.timer = setTimeout(refresh, POLL_MS);
+    // Soon while there is no forecast to show yet, then the normal interval.
+    state.timer = setTimeout(refresh, nextCheckMs(state.misses, POLL_MS));
   }
 }
 
@@ -148,6 +155,7 @@ function setConn(text, bad) {
 }
 
 function showNoForecast(text) {
+  state.forecast = null;
   const p = $("no-forecast");
   p.textContent = text;
   p.hidden = false;

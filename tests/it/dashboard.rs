@@ -21,9 +21,9 @@ use std::{
 };
 
 use crate::common::{
-    TestApp,
+    ReachApp, TestApp, assert_success, bridge_reach,
     files::{demo_reach_json, repo_path},
-    make_key, spawn_app, spawn_app_with, test_config,
+    make_key, reach_gauge, spawn_app, spawn_app_with, test_config,
 };
 use base64::Engine as _;
 use serde_json::{Value, json};
@@ -1179,4 +1179,89 @@ async fn reach_picker_switches_reach_with_its_own_units_and_time_zone() {
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
     app.stop().await;
+}
+
+/// The invented bridge reach of `common::bridge_reach` with its upstream
+/// discharge gauge, and no readings yet: so no forecast until the test
+/// posts readings and asks for a run.
+async fn bridge_app_without_forecast() -> ReachApp {
+    let gauge = reach_gauge("Test gauge", "test-reach", "discharge", 19.0, 2.0);
+    let reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    // A long debounce: only the test's own run request produces a forecast.
+    ReachApp::start(
+        |c| c.forecast.debounce_ms = 600_000,
+        ("test-reach", &reach),
+        ("test-gauge", &gauge),
+    )
+    .await
+}
+
+/// Six hours of steady discharge readings every 15 min up to now.
+fn steady_readings(q: f64) -> Value {
+    let now = chrono::Utc::now();
+    let readings: Vec<Value> = (0..=24)
+        .map(|k| {
+            let t = now - chrono::Duration::minutes(15 * (24 - k));
+            json!({"time": t.to_rfc3339(), "discharge": q, "quality": "good"})
+        })
+        .collect();
+    json!({ "readings": readings })
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn first_forecast_appears_soon_after_the_page_opened_without_one() {
+    let _one = BROWSER.lock().await;
+    let s = bridge_app_without_forecast().await;
+    let (status, _) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    assert_eq!(status, 404, "no forecast before any reading");
+    let b = Browser::start().await;
+    // The normal 30 s poll interval: without the quick retries the page
+    // would not ask again for 30 s.
+    b.goto(&s.app.url("/")).await;
+    b.wait_for(
+        "the no-forecast notice",
+        "const p = document.getElementById('no-forecast'); return p.hidden ? null : p.textContent.includes('No forecast yet')",
+        30,
+    )
+    .await;
+    b.eval("window.__noReload = 'still here'").await;
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &steady_readings(40.0))
+            .await,
+    )
+    .await;
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200);
+    let (_, f) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    let run_id = f["run"]["id"].as_i64().expect("run id");
+    // The back-off (0.5, 1, 2, 4, 8 s ...) asks again within 16 s of any
+    // moment in the first half minute; 20 s is still well under the 30 s
+    // a plain poll would take.
+    let shown = b
+        .wait_for(
+            "the first forecast on the page",
+            "const r = document.getElementById('run-id'); return r && document.querySelectorAll('#overview-body tr').length ? Number(r.dataset.run) : null",
+            20,
+        )
+        .await;
+    assert_eq!(shown.as_i64(), Some(run_id), "the page shows the API's run");
+    let marker = b.eval("return window.__noReload || null").await;
+    assert_eq!(marker, "still here", "updated in place, not reloaded");
+    let conn = b
+        .eval("return document.getElementById('conn').textContent")
+        .await;
+    assert!(
+        conn.as_str()
+            .unwrap_or_default()
+            .contains("checks again every 30 s"),
+        "back to the normal interval once a forecast is shown: {conn}"
+    );
+    let errors = b
+        .page_errors(&["/api/reaches/test-reach/forecast?units=si - Failed to load resource: the server responded with a status of 404"])
+        .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
 }
