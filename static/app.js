@@ -3,7 +3,7 @@
 // when an answer changed.
 
 import { renderChart } from "./js/chart.js";
-import { formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
+import { formatChainage, formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, pointStatus, thresholdNamed } from "./js/status.js";
 
@@ -227,7 +227,7 @@ function renderOverview(f, zone) {
     return h(
       "tr",
       { "data-point": p.name, class: `row-${st.state}` },
-      h("th", { scope: "row", "data-label": "Point" }, h("a", { href: `#chart-${i}`, text: p.name }), h("br"), h("span", { class: "muted", text: `${kind} · km ${(p.chainage / 1000).toFixed(1)}` })),
+      h("th", { scope: "row", "data-label": "Point" }, h("a", { href: `#chart-${i}`, text: p.name }), h("br"), h("span", { class: "muted", text: `${kind} · ${formatChainage(p.chainage, u.stage)}` })),
       h("td", { "data-label": "Status" }, status),
       h("td", { "data-label": "Stage now", class: "num", text: formatLevel(p.current_stage, u.stage) }),
       h("td", { "data-label": "Forecast crest" }, h("span", { class: "num", text: formatLevel(p.crest_stage, u.stage) }), h("br"), h("span", { class: "muted", text: formatTime(p.crest_time, zone) })),

@@ -1175,6 +1175,39 @@ async fn reach_picker_switches_reach_with_its_own_units_and_time_zone() {
         .eval("return document.getElementById('reach-title').textContent")
         .await;
     assert_eq!(title, "Tansy Beck test copy (invented)");
+    // Chainage in US units: miles (5280 ft each, NIST SP 811 appendix B),
+    // whole feet under one mile; never feet / 1000 labelled "km".
+    let places = b
+        .eval("return [...document.querySelectorAll('#overview-body tr th .muted')].map(e => e.textContent)")
+        .await;
+    let places: Vec<String> = places
+        .as_array()
+        .expect("row labels")
+        .iter()
+        .map(|v| v.as_str().unwrap_or_default().to_owned())
+        .collect();
+    let expected: Vec<String> = us["points"]
+        .as_array()
+        .expect("points")
+        .iter()
+        .map(|p| {
+            let ft = p["chainage"].as_f64().expect("chainage in ft");
+            if ft < 5280.0 {
+                format!("ft {}", ft.round())
+            } else {
+                format!("mi {:.1}", ft / 5280.0)
+            }
+        })
+        .collect();
+    assert_eq!(places.len(), expected.len(), "{places:?}");
+    for (shown, want) in places.iter().zip(&expected) {
+        assert!(shown.ends_with(want), "{shown} shows {want}");
+        assert!(!shown.contains("km"), "no km in feet mode: {shown}");
+    }
+    assert!(
+        expected.iter().any(|e| e.starts_with("mi ")),
+        "some point lies over a mile downstream: {expected:?}"
+    );
     let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
