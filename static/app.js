@@ -307,13 +307,19 @@ function renderCharts(f, zone) {
       "section",
       { class: "point", id: `chart-${i}`, "aria-labelledby": `chart-h-${i}` },
       h("h3", { id: `chart-h-${i}`, text: p.name }),
-      h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)}; peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}.` }),
+      h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)};${lowChordText(p, f.units.elevation)} peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}.` }),
       h("div", { class: "chart-box" }, svg),
       legend(p),
       dataTable(p, f, zone),
     );
   });
   box.replaceChildren(...sections);
+}
+
+/** " low chord 51.64 m, 0.05 m to spare;" for a bridge, else "". */
+function lowChordText(p, unit) {
+  const lc = clearance(p.low_chord_margin, unit);
+  return p.low_chord == null || !lc ? "" : ` low chord ${formatLevel(p.low_chord, unit)}, ${lc.text};`;
 }
 
 function swatch(kind) {

@@ -211,6 +211,17 @@ impl Browser {
         .await
     }
 
+    /// Runs an async `script` whose last argument is the callback taking
+    /// the result.
+    async fn eval_async(&self, script: &str) -> Value {
+        self.cmd(
+            "POST",
+            "/execute/async",
+            Some(json!({"script": script, "args": []})),
+        )
+        .await
+    }
+
     /// [`Browser::js`] without arguments.
     async fn eval(&self, script: &str) -> Value {
         self.js(script, json!([])).await
@@ -1294,6 +1305,126 @@ async fn first_forecast_appears_soon_after_the_page_opened_without_one() {
     let errors = b
         .page_errors(&["/api/reaches/test-reach/forecast?units=si - Failed to load resource: the server responded with a status of 404"])
         .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
+
+/// Script: the time labels of every chart whose box leaves its svg's box.
+const LABELS_OUTSIDE: &str = r#"
+const out = []; let checked = 0;
+for (const svg of document.querySelectorAll('svg.chart')) {
+  const box = svg.getBoundingClientRect();
+  for (const t of svg.querySelectorAll('.x-axis text.tick')) {
+    const r = t.getBoundingClientRect(); checked++;
+    if (r.left < box.left - 0.5 || r.right > box.right + 0.5 || r.top < box.top - 0.5 || r.bottom > box.bottom + 0.5)
+      out.push(`${svg.dataset.point}: "${t.textContent}" ${r.left.toFixed(1)}..${r.right.toFixed(1)} outside ${box.left.toFixed(1)}..${box.right.toFixed(1)}`);
+  }
+}
+return {checked, out};
+"#;
+
+/// Async script: draws, with the page's chart module, an invented point
+/// over one whole day (ticks at both ends of the axis) into `#charts`.
+const EDGE_TICK_CHART: &str = r#"
+const done = arguments[arguments.length - 1];
+import('/js/chart.js').then(m => {
+  const t0 = Date.parse('2026-03-14T00:00:00Z');
+  const times = [], stage = [];
+  for (let k = 0; k <= 24; k++) { times.push(new Date(t0 + k * 3600e3).toISOString()); stage.push(10 + Math.sin(k / 4)); }
+  const point = { name: 'edge ticks (invented)', times, stage, observed: [], thresholds: [], crest_stage: 11, crest_time: times[6] };
+  const width = Math.min(document.getElementById('charts').clientWidth - 2, 360);
+  const svg = m.renderChart(document, point, { zone: '+00:00', units: { stage: 'm' }, now: times[12], width, titleId: 'edge-title' });
+  document.getElementById('charts').append(svg);
+  done(svg.querySelectorAll('.x-axis text.tick').length >= 2);
+}).catch(e => done(String(e)));
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn phone_charts_keep_time_labels_inside_and_resolve_a_5_cm_clearance() {
+    let _one = BROWSER.lock().await;
+    let s = bridge_app_without_forecast().await;
+    let reading = steady_readings(40.0);
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &reading)
+            .await,
+    )
+    .await;
+    assert_eq!(
+        s.app
+            .run_and_wait(&s.keys.forecaster, "test-reach")
+            .await
+            .status(),
+        200
+    );
+    let (_, f) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    let crest = f["points"][0]["crest_stage"].as_f64().expect("crest");
+    // Put the low chord 5 cm above that crest (the deck 1 m higher): the
+    // steady inflow keeps the crest where it was.
+    let mut reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    reach["points"][0]["low_chord"] = json!(crest + 0.05);
+    reach["points"][0]["deck"] = json!(crest + 1.05);
+    let put = s.app.put_reach(&s.keys.admin, "test-reach", &reach).await;
+    assert!(put.status().is_success(), "PUT reach: {}", put.status());
+    assert_eq!(
+        s.app
+            .run_and_wait(&s.keys.forecaster, "test-reach")
+            .await
+            .status(),
+        200
+    );
+    let (_, f) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    let margin = f["points"][0]["low_chord_margin"]
+        .as_f64()
+        .expect("low chord margin");
+    assert!(
+        (0.0..0.1).contains(&margin),
+        "a clearance of about 5 cm: {margin}"
+    );
+
+    let b = Browser::start().await;
+    b.resize(360, 780).await;
+    b.goto(&s.app.url("/")).await;
+    b.wait_for(
+        "a chart drawn at phone width",
+        "const s = document.querySelector('svg.chart'); return s && Number(s.getAttribute('width')) <= 360",
+        30,
+    )
+    .await;
+    // Also a chart whose first and last ticks fall exactly on the ends of
+    // its time axis (midnight to midnight, each a new day), drawn by the
+    // page's own module into the page.
+    let drawn = b.eval_async(EDGE_TICK_CHART).await;
+    assert_eq!(drawn, json!(true), "edge-tick chart drawn: {drawn}");
+    let labels = b.eval(LABELS_OUTSIDE).await;
+    assert!(
+        labels["checked"].as_u64().unwrap_or(0) >= 2,
+        "time labels checked: {labels}"
+    );
+    assert_eq!(labels["out"], json!([]), "time labels inside their chart");
+    // The crest marker and the low chord line are apart by at least the
+    // chart's minimum gap (6 px for 5 cm, less half a pixel of rounding),
+    // measured on screen.
+    let gap = b
+        .eval("const s = document.querySelector('svg.chart'); const c = s.querySelector('.crest').getBoundingClientRect(); const lows = [...s.querySelectorAll('line.level-structure')].map(l => l.getBoundingClientRect().top); return {px: Math.abs(Math.max(...lows) - (c.top + c.height / 2)), axis: s.querySelector('.axis-title').textContent, text: s.closest('section').querySelector('p').textContent}")
+        .await;
+    let px = gap["px"].as_f64().unwrap_or(0.0);
+    assert!(
+        px >= 5.5 * margin.max(0.05) / 0.05,
+        "5 cm between crest and low chord is visible: {gap}"
+    );
+    assert!(
+        gap["text"].as_str().unwrap_or_default().contains(&format!(
+            "low chord {:.2} m, {margin:.2} m to spare",
+            crest + 0.05
+        )),
+        "the clearance in words above the chart: {gap}"
+    );
+    b.screenshot("chart-clearance-360.png", Some("#chart-0"))
+        .await;
+    let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
     s.app.stop().await;
