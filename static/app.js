@@ -161,6 +161,7 @@ function showNoForecast(text) {
   p.hidden = false;
   $("overview-body").replaceChildren();
   $("summary").textContent = "";
+  $("data-age").hidden = true;
   $("charts").replaceChildren();
   $("stale").hidden = true;
 }
@@ -228,7 +229,7 @@ function renderOverview(f, zone) {
       "tr",
       { "data-point": p.name, class: `row-${st.state}` },
       h("th", { scope: "row", "data-label": "Point" }, h("a", { href: `#chart-${i}`, text: p.name }), h("br"), h("span", { class: "muted", text: `${kind} · ${formatChainage(p.chainage, u.stage)}` })),
-      h("td", { "data-label": "Status" }, status),
+      h("td", { "data-label": "Status" }, status, staleMark(f)),
       h("td", { "data-label": "Stage now", class: "num", text: formatLevel(p.current_stage, u.stage) }),
       h("td", { "data-label": "Forecast crest" }, h("span", { class: "num", text: formatLevel(p.crest_stage, u.stage) }), h("br"), h("span", { class: "muted", text: formatTime(p.crest_time, zone) })),
       h("td", { "data-label": "Highest threshold reached" }, highest),
@@ -239,6 +240,12 @@ function renderOverview(f, zone) {
   $("overview-body").replaceChildren(...rows);
   renderSummary(f, zone);
   $("overview-caption").textContent = `Points of interest on ${f.reach.name}, upstream first. Times in ${zone}.`;
+}
+
+/** On each row of a stale forecast: the word, not colour alone. */
+function staleMark(f) {
+  if (!f.freshness?.stale) return null;
+  return h("span", { class: "row-stale" }, h("br"), h("strong", { class: "stale-mark", text: "stale data" }), " (may be out of date)");
 }
 
 /** One sentence for a glance: what is over now, and the next crossing. */
@@ -281,12 +288,25 @@ function renderFreshness() {
   const notes = [...(inf.warnings || []), ...(run.diagnostics?.warnings || [])];
   $("f-notes").replaceChildren(...(notes.length ? [h("ul", {}, ...notes.map((n) => h("li", { text: n })))] : ["none"]));
 
+  renderDataAge(run, fr, drift);
   const stale = $("stale");
   stale.hidden = !fr.stale;
   $("stale-reasons").replaceChildren(...(fr.reasons || []).map((r) => h("li", { text: r })));
   const fail = f.last_failure;
   $("failure").hidden = !fail;
   if (fail) $("failure-text").textContent = `Run #${fail.run_id} at ${formatTime(fail.at, zone)}: ${fail.error}`;
+}
+
+/** The ages that matter at a glance, at the top of the page. */
+function renderDataAge(run, fr, drift) {
+  const reading = fr.last_reading_at ? `newest upstream reading ${formatDuration((fr.last_reading_age_s ?? 0) + drift)} old` : "no upstream reading";
+  const box = $("data-age");
+  box.replaceChildren(
+    ...(fr.stale ? [h("strong", { class: "stale-mark", text: "Stale data" }), " "] : []),
+    `Run #${run.id} finished ${formatDuration(fr.run_age_s + drift)} ago · ${reading}.`,
+  );
+  box.classList.toggle("is-stale", !!fr.stale);
+  box.hidden = false;
 }
 
 function renderCharts(f, zone) {

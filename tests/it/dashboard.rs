@@ -885,6 +885,36 @@ async fn stale_forecast_shows_the_warning() {
         "the page lists the API's reasons"
     );
     b.screenshot("stale.png", None).await;
+
+    // A 360 x 640 phone: the data age is above the fold, and every row of
+    // the overview says the data are stale, in words.
+    b.resize(360, 640).await;
+    let age = b
+        .wait_for(
+            "the data age above the fold at 360 x 640",
+            "window.scrollTo(0, 0); const e = document.getElementById('data-age'); const r = e.getBoundingClientRect(); return window.innerHeight <= 640 && window.innerWidth <= 360 && !e.hidden && r.height > 0 && r.top >= 0 && r.bottom <= window.innerHeight ? {text: e.textContent, bottom: r.bottom, vh: window.innerHeight} : null",
+            10,
+        )
+        .await;
+    let age_text = age["text"].as_str().unwrap_or_default();
+    assert!(
+        age_text.contains("Stale data")
+            && age_text.contains("Run #")
+            && age_text.contains("upstream reading"),
+        "run and reading ages, marked stale: {age}"
+    );
+    let marks = b
+        .eval("return [...document.querySelectorAll('#overview-body tr')].map(r => r.querySelector('.stale-mark')?.textContent || '')")
+        .await;
+    let marks = marks.as_array().expect("rows");
+    assert!(!marks.is_empty());
+    assert!(
+        marks
+            .iter()
+            .all(|m| m.as_str().unwrap_or_default() == "stale data"),
+        "every overview row carries the stale mark: {marks:?}"
+    );
+    b.screenshot("stale-360x640.png", None).await;
     let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
@@ -1422,6 +1452,27 @@ async fn phone_charts_keep_time_labels_inside_and_resolve_a_5_cm_clearance() {
         )),
         "the clearance in words above the chart: {gap}"
     );
+    // A fresh forecast on a 360 x 640 phone: the data age is above the
+    // fold and no row is marked stale.
+    b.resize(360, 640).await;
+    let age = b
+        .wait_for(
+            "the data age above the fold at 360 x 640",
+            "window.scrollTo(0, 0); const e = document.getElementById('data-age'); const r = e.getBoundingClientRect(); return window.innerHeight <= 640 && !e.hidden && r.height > 0 && r.top >= 0 && r.bottom <= window.innerHeight ? e.textContent : null",
+            10,
+        )
+        .await;
+    let run_id = f["run"]["id"].as_i64().expect("run id");
+    assert!(
+        age.as_str()
+            .unwrap_or_default()
+            .starts_with(&format!("Run #{run_id} finished")),
+        "{age}"
+    );
+    let marks = b
+        .eval("return document.querySelectorAll('#overview-body .stale-mark').length")
+        .await;
+    assert_eq!(marks, json!(0), "a fresh forecast has no stale mark");
     b.screenshot("chart-clearance-360.png", Some("#chart-0"))
         .await;
     let errors = b.page_errors(&[]).await;
