@@ -11,6 +11,11 @@ const $ = (id) => document.getElementById(id);
 const params = new URLSearchParams(location.search);
 const POLL_MS = Math.max(1000, Number(params.get("poll")) || 30_000);
 const KEY_SLOT = "reachcast.key";
+// /?view=briefing: the print layout on screen (static/briefing.css).
+const BRIEFING = params.get("view") === "briefing";
+// Charts are redrawn this wide for printing: A4 less 12 mm margins each
+// side is 186 mm, 703 px at 96 px per inch.
+const PRINT_CHART_PX = 700;
 
 const state = {
   reaches: [],
@@ -179,6 +184,7 @@ function renderReachPicker() {
   $("reach-pick").hidden = state.reaches.length < 2;
   const r = currentReach();
   $("reach-title").textContent = r ? r.name : "";
+  if (r) $("briefing-link").href = `${BRIEFING ? "/" : "/?view=briefing"}#reach=${encodeURIComponent(r.id)}`;
   const u = unitsWanted();
   $("units-si").checked = u === "si";
   $("units-us").checked = u === "us";
@@ -309,9 +315,9 @@ function renderDataAge(run, fr, drift) {
   box.hidden = false;
 }
 
-function renderCharts(f, zone) {
+function renderCharts(f, zone, printWidth) {
   const box = $("charts");
-  const width = Math.min(Math.max((box.clientWidth || 720) - 2, 280), 1400);
+  const width = printWidth || Math.min(Math.max((box.clientWidth || 720) - 2, 280), 1400);
   const sections = f.points.map((p, i) => {
     const titleId = `chart-title-${i}`;
     const st = pointStatus(p, f.now);
@@ -553,6 +559,22 @@ function withdrawButton(version, cell) {
   return b;
 }
 
+// ---------------------------------------------------------------- briefing
+
+/** The briefing view and printing: one stylesheet serves both. */
+function setupBriefing() {
+  if (BRIEFING) {
+    $("briefing-css").media = "all";
+    document.documentElement.classList.add("briefing");
+    $("briefing-link").textContent = "Full dashboard";
+  }
+  $("print-briefing").addEventListener("click", () => window.print());
+  // Drawn at the paper's width, chart text prints at its normal size.
+  const redraw = (width) => state.forecast && renderCharts(state.forecast, state.forecast.reach.time_zone, width);
+  window.addEventListener("beforeprint", () => redraw(PRINT_CHART_PX));
+  window.addEventListener("afterprint", () => redraw());
+}
+
 // ---------------------------------------------------------------- wiring
 
 function wire() {
@@ -607,5 +629,6 @@ function wire() {
   showKeyState();
 }
 
+setupBriefing();
 wire();
 refresh();

@@ -1480,3 +1480,150 @@ async fn phone_charts_keep_time_labels_inside_and_resolve_a_5_cm_clearance() {
     drop(b);
     s.app.stop().await;
 }
+
+/// A4 width at 96 CSS px per inch: 210 mm / 25.4 mm per inch * 96 = 793.7,
+/// so 794 px (CSS Values 4 fixes 1 in = 96 px; ISO 216 fixes A4 at 210 mm).
+/// US Letter, 8.5 in, is wider (816 px), so fitting A4 fits both.
+const A4_PX: u64 = 794;
+
+/// Script: what the briefing layout shows and how wide the page is.
+const BRIEFING_STATE: &str = r#"
+const shown = sel => { const e = document.querySelector(sel); return !!e && getComputedStyle(e).display !== 'none' && e.getBoundingClientRect().height > 0; };
+const svgs = [...document.querySelectorAll('svg.chart')];
+return {
+  scroll: document.documentElement.scrollWidth,
+  inner: window.innerWidth,
+  forecaster: shown('.forecaster'), upload: shown('#upload-form'), key: shown('#key-form'),
+  controls: shown('#controls'), conn: shown('#conn'),
+  caution: shown('#caution') ? document.getElementById('caution').textContent : null,
+  summary: shown('#summary') ? document.getElementById('summary').textContent : null,
+  age: shown('#data-age') ? document.getElementById('data-age').textContent : null,
+  rows: document.querySelectorAll('#overview-body tr').length,
+  charts: svgs.length,
+  chartsFit: svgs.every(s => s.getBoundingClientRect().right <= document.documentElement.clientWidth + 0.5),
+  profile: !!document.querySelector('section#profile'), profileShown: shown('#profile'),
+  profileAfterOverview: !!(document.getElementById('overview').compareDocumentPosition(document.getElementById('profile')) & Node.DOCUMENT_POSITION_FOLLOWING),
+};
+"#;
+
+/// The briefing as `BRIEFING_STATE` reports it has what a planner needs and
+/// none of the forecaster tools, within A4 width.
+fn assert_briefing(state: &Value, run_id: i64, points: usize, how: &str) {
+    assert_eq!(
+        state["forecaster"], false,
+        "{how}: forecaster tools left out: {state}"
+    );
+    assert_eq!(state["upload"], false, "{how}: {state}");
+    assert_eq!(state["key"], false, "{how}: {state}");
+    assert_eq!(
+        state["controls"], false,
+        "{how}: reach and unit controls left out: {state}"
+    );
+    assert!(
+        state["caution"]
+            .as_str()
+            .is_some_and(|c| c.contains("not an official warning")),
+        "{how}: the caution is kept: {state}"
+    );
+    assert!(
+        state["summary"].as_str().is_some_and(|s| !s.is_empty()),
+        "{how}: summary sentence: {state}"
+    );
+    assert!(
+        state["age"]
+            .as_str()
+            .is_some_and(|a| a.contains(&format!("Run #{run_id} finished"))),
+        "{how}: data age and run id: {state}"
+    );
+    assert_eq!(
+        state["rows"].as_u64(),
+        Some(points as u64),
+        "{how}: {state}"
+    );
+    assert_eq!(
+        state["charts"].as_u64(),
+        Some(points as u64),
+        "{how}: {state}"
+    );
+    assert_eq!(
+        state["chartsFit"], true,
+        "{how}: charts within the page: {state}"
+    );
+    assert_eq!(
+        state["profile"], true,
+        "{how}: the profile section is there: {state}"
+    );
+    assert_eq!(
+        state["profileShown"], false,
+        "{how}: empty profile hidden: {state}"
+    );
+    assert_eq!(state["profileAfterOverview"], true, "{how}: {state}");
+    assert!(
+        state["inner"].as_u64().unwrap_or(u64::MAX) <= A4_PX
+            && state["scroll"].as_u64().unwrap_or(u64::MAX) <= A4_PX,
+        "{how}: page no wider than A4 at 96 dpi ({A4_PX} px): {state}"
+    );
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn briefing_view_and_print_fit_a4_without_the_forecaster_tools() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (app, key) = demo_app(dir.path(), quiet_replay).await;
+    wait_for_forecast(&app, &key).await;
+    let b = Browser::start().await;
+    b.resize(A4_PX as u32, 1000).await;
+
+    // On screen at /?view=briefing.
+    b.goto(&app.url("/?view=briefing")).await;
+    let f = settle_on_latest_run(&app, &b, "/api/reaches/brindlemoor/forecast").await;
+    let run_id = f["run"]["id"].as_i64().expect("run id");
+    let points = point_names(&f).len();
+    let state = b
+        .wait_for(
+            "the briefing with its charts",
+            &format!("const s = (() => {{ {BRIEFING_STATE} }})(); return s.charts === {points} && s.age ? s : null"),
+            30,
+        )
+        .await;
+    assert_briefing(&state, run_id, points, "briefing view");
+    b.screenshot("briefing.png", None).await;
+
+    // The full dashboard printed (print media emulated over CDP): the same
+    // briefing layout, and the print button hidden on paper.
+    b.goto(&app.url("/")).await;
+    b.wait_for(
+        "the dashboard with its charts",
+        &format!("return document.querySelectorAll('svg.chart').length === {points}"),
+        30,
+    )
+    .await;
+    let screen = b.eval(BRIEFING_STATE).await;
+    assert_eq!(
+        screen["forecaster"], true,
+        "on screen the tools are there: {screen}"
+    );
+    // The button calls the browser's print (stubbed: a real dialog would block).
+    b.eval("window.print = () => { window.__printed = true; }")
+        .await;
+    b.click("#print-briefing").await;
+    assert_eq!(
+        b.eval("return window.__printed === true").await,
+        json!(true)
+    );
+    b.cdp("Emulation.setEmulatedMedia", json!({"media": "print"}))
+        .await;
+    let printed = b.eval(BRIEFING_STATE).await;
+    assert_briefing(&printed, run_id, points, "print media");
+    let button = b
+        .eval("return document.getElementById('print-briefing').getClientRects().length")
+        .await;
+    assert_eq!(button, json!(0), "no print button on paper");
+    b.cdp("Emulation.setEmulatedMedia", json!({"media": ""}))
+        .await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    app.stop().await;
+}
