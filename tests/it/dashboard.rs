@@ -1482,8 +1482,9 @@ async fn phone_charts_keep_time_labels_inside_and_resolve_a_5_cm_clearance() {
 }
 
 /// A4 width at 96 CSS px per inch: 210 mm / 25.4 mm per inch * 96 = 793.7,
-/// so 794 px (CSS Values 4 fixes 1 in = 96 px; ISO 216 fixes A4 at 210 mm).
-/// US Letter, 8.5 in, is wider (816 px), so fitting A4 fits both.
+/// so 794 px (CSS Values 4 fixes 1 in = 96 px; ISO 216 fixes A4 at 210 mm;
+/// both from memory). US Letter, 8.5 in, is wider (816 px), so fitting A4
+/// fits both.
 const A4_PX: u64 = 794;
 
 /// Script: what the briefing layout shows and how wide the page is.
@@ -1622,6 +1623,18 @@ async fn briefing_view_and_print_fit_a4_without_the_forecaster_tools() {
     assert_eq!(button, json!(0), "no print button on paper");
     b.cdp("Emulation.setEmulatedMedia", json!({"media": ""}))
         .await;
+    // Before printing the charts are redrawn 700 px wide (within A4 less
+    // 12 mm margins, 703 px), and after it at the screen's width again.
+    let widths = b
+        .eval("const w = () => [...document.querySelectorAll('svg.chart')].map(s => Number(s.getAttribute('width'))); const screen = w(); window.dispatchEvent(new Event('beforeprint')); const paper = w(); window.dispatchEvent(new Event('afterprint')); return {screen, paper, after: w()}")
+        .await;
+    assert!(
+        widths["paper"]
+            .as_array()
+            .is_some_and(|p| p.len() == points && p.iter().all(|w| w.as_u64() == Some(700))),
+        "charts drawn for paper: {widths}"
+    );
+    assert_eq!(widths["after"], widths["screen"], "and back: {widths}");
     let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
