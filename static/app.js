@@ -3,13 +3,19 @@
 // when an answer changed.
 
 import { renderChart } from "./js/chart.js";
-import { formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
+import { formatChainage, formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
+import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
 
 const $ = (id) => document.getElementById(id);
 const params = new URLSearchParams(location.search);
 const POLL_MS = Math.max(1000, Number(params.get("poll")) || 30_000);
 const KEY_SLOT = "reachcast.key";
+// /?view=briefing: the print layout on screen (static/briefing.css).
+const BRIEFING = params.get("view") === "briefing";
+// Charts are redrawn this wide for printing: A4 less 12 mm margins each
+// side is 186 mm, 703 px at 96 px per inch.
+const PRINT_CHART_PX = 700;
 
 const state = {
   reaches: [],
@@ -21,6 +27,7 @@ const state = {
   etags: new Map(), // url -> { etag, body }
   timer: null,
   lastOk: 0,
+  misses: 0, // checks in a row that found no forecast to show
 };
 
 function h(tag, attrs = {}, ...children) {
@@ -103,13 +110,18 @@ async function refresh() {
       await refreshForecast();
     }
     state.lastOk = Date.now();
-    setConn(`Checked ${formatClock(Date.now(), currentReach()?.time_zone)} (${offsetLabel(offsetMinutes(currentReach()?.time_zone, Date.now()))}); checks again every ${Math.round(POLL_MS / 1000)} s.`, false);
+    state.misses = state.forecast ? 0 : state.misses + 1;
+    const zone = currentReach()?.time_zone;
+    const again = state.misses ? `no forecast yet, checks again in ${nextCheckMs(state.misses, POLL_MS) / 1000} s` : `checks again every ${Math.round(POLL_MS / 1000)} s`;
+    setConn(`Checked ${formatClock(Date.now(), zone)} (${offsetLabel(offsetMinutes(zone, Date.now()))}); ${again}.`, false);
   } catch (err) {
+    if (!state.forecast) state.misses += 1;
     const since = state.lastOk ? ` Last successful check ${formatDuration((Date.now() - state.lastOk) / 1000)} ago; the figures below may be old.` : "";
     setConn(`Could not reach the server (${err.message}).${since}`, true);
   } finally {
     clearTimeout(state.timer); // an overlapping refresh may have set one
-    state.timer = setTimeout(refresh, POLL_MS);
+    // Soon while there is no forecast to show yet, then the normal interval.
+    state.timer = setTimeout(refresh, nextCheckMs(state.misses, POLL_MS));
   }
 }
 
@@ -148,11 +160,13 @@ function setConn(text, bad) {
 }
 
 function showNoForecast(text) {
+  state.forecast = null;
   const p = $("no-forecast");
   p.textContent = text;
   p.hidden = false;
   $("overview-body").replaceChildren();
   $("summary").textContent = "";
+  $("data-age").hidden = true;
   $("charts").replaceChildren();
   $("stale").hidden = true;
 }
@@ -170,6 +184,7 @@ function renderReachPicker() {
   $("reach-pick").hidden = state.reaches.length < 2;
   const r = currentReach();
   $("reach-title").textContent = r ? r.name : "";
+  if (r) $("briefing-link").href = `${BRIEFING ? "/" : "/?view=briefing"}#reach=${encodeURIComponent(r.id)}`;
   const u = unitsWanted();
   $("units-si").checked = u === "si";
   $("units-us").checked = u === "us";
@@ -215,8 +230,8 @@ function renderOverview(f, zone) {
     return h(
       "tr",
       { "data-point": p.name, class: `row-${st.state}` },
-      h("th", { scope: "row", "data-label": "Point" }, h("a", { href: `#chart-${i}`, text: p.name }), h("br"), h("span", { class: "muted", text: `${kind} · km ${(p.chainage / 1000).toFixed(1)}` })),
-      h("td", { "data-label": "Status" }, status),
+      h("th", { scope: "row", "data-label": "Point" }, h("a", { href: `#chart-${i}`, text: p.name }), h("br"), h("span", { class: "muted", text: `${kind} · ${formatChainage(p.chainage, u.stage)}` })),
+      h("td", { "data-label": "Status" }, status, staleMark(f)),
       h("td", { "data-label": "Stage now", class: "num", text: formatLevel(p.current_stage, u.stage) }),
       h("td", { "data-label": "Forecast crest" }, h("span", { class: "num", text: formatLevel(p.crest_stage, u.stage) }), h("br"), h("span", { class: "muted", text: formatTime(p.crest_time, zone) })),
       h("td", { "data-label": "Highest level reached" }, highest),
@@ -227,6 +242,12 @@ function renderOverview(f, zone) {
   $("overview-body").replaceChildren(...rows);
   renderSummary(f, zone);
   $("overview-caption").textContent = `Points of interest on ${f.reach.name}, upstream first. Times in ${zone}.`;
+}
+
+/** On each row of a stale forecast: the word, not colour alone. */
+function staleMark(f) {
+  if (!f.freshness?.stale) return null;
+  return h("span", { class: "row-stale" }, h("br"), h("strong", { class: "stale-mark", text: "stale data" }), " (may be out of date)");
 }
 
 /** One sentence for a glance: what is over now, and the next crossing. */
@@ -269,6 +290,7 @@ function renderFreshness() {
   const notes = [...(inf.warnings || []), ...(run.diagnostics?.warnings || [])];
   $("f-notes").replaceChildren(...(notes.length ? [h("ul", {}, ...notes.map((n) => h("li", { text: n })))] : ["none"]));
 
+  renderDataAge(run, fr, drift);
   const stale = $("stale");
   stale.hidden = !fr.stale;
   $("stale-reasons").replaceChildren(...(fr.reasons || []).map((r) => h("li", { text: r })));
@@ -277,9 +299,21 @@ function renderFreshness() {
   if (fail) $("failure-text").textContent = `Run #${fail.run_id} at ${formatTime(fail.at, zone)}: ${fail.error}`;
 }
 
-function renderCharts(f, zone) {
+/** The ages that matter at a glance, at the top of the page. */
+function renderDataAge(run, fr, drift) {
+  const reading = fr.last_reading_at ? `newest upstream reading ${formatDuration((fr.last_reading_age_s ?? 0) + drift)} old` : "no upstream reading";
+  const box = $("data-age");
+  box.replaceChildren(
+    ...(fr.stale ? [h("strong", { class: "stale-mark", text: "Stale data" }), " "] : []),
+    `Run #${run.id} finished ${formatDuration(fr.run_age_s + drift)} ago · ${reading}.`,
+  );
+  box.classList.toggle("is-stale", !!fr.stale);
+  box.hidden = false;
+}
+
+function renderCharts(f, zone, printWidth) {
   const box = $("charts");
-  const width = Math.min(Math.max((box.clientWidth || 720) - 2, 280), 1400);
+  const width = printWidth || Math.min(Math.max((box.clientWidth || 720) - 2, 280), 1400);
   const sections = f.points.map((p, i) => {
     const titleId = `chart-title-${i}`;
     const st = pointStatus(p, f.now);
@@ -295,13 +329,19 @@ function renderCharts(f, zone) {
       "section",
       { class: "point", id: `chart-${i}`, "aria-labelledby": `chart-h-${i}` },
       h("h3", { id: `chart-h-${i}`, text: p.name }),
-      h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)}; peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}.` }),
+      h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)};${lowChordText(p, f.units.elevation)} peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}.` }),
       h("div", { class: "chart-box" }, svg),
       legend(p),
       dataTable(p, f, zone),
     );
   });
   box.replaceChildren(...sections);
+}
+
+/** " low chord 51.64 m, 0.05 m to spare;" for a bridge, else "". */
+function lowChordText(p, unit) {
+  const lc = clearance(p.low_chord_margin, unit);
+  return p.low_chord == null || !lc ? "" : ` low chord ${formatLevel(p.low_chord, unit)}, ${lc.text};`;
 }
 
 function swatch(kind) {
@@ -515,6 +555,22 @@ function withdrawButton(version, cell) {
   return b;
 }
 
+// ---------------------------------------------------------------- briefing
+
+/** The briefing view and printing: one stylesheet serves both. */
+function setupBriefing() {
+  if (BRIEFING) {
+    $("briefing-css").media = "all";
+    document.documentElement.classList.add("briefing");
+    $("briefing-link").textContent = "Full dashboard";
+  }
+  $("print-briefing").addEventListener("click", () => window.print());
+  // Drawn at the paper's width, chart text prints at its normal size.
+  const redraw = (width) => state.forecast && renderCharts(state.forecast, state.forecast.reach.time_zone, width);
+  window.addEventListener("beforeprint", () => redraw(PRINT_CHART_PX));
+  window.addEventListener("afterprint", () => redraw());
+}
+
 // ---------------------------------------------------------------- wiring
 
 function wire() {
@@ -569,5 +625,6 @@ function wire() {
   showKeyState();
 }
 
+setupBriefing();
 wire();
 refresh();

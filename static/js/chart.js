@@ -52,6 +52,41 @@ export function niceTicks(min, max, target = 5) {
   return { min: start, max: end, step, decimals: dec, ticks };
 }
 
+/** Fewest pixels a bridge's clearance (or 5 cm, if less) gets on the stage axis. */
+export const MIN_GAP_PX = 6;
+
+/**
+ * Stage-axis ticks that resolve a bridge's clearance: as niceTicks(lo, hi),
+ * unless that would draw the gap between the crest and the low chord (or
+ * `resolution`, e.g. 5 cm, when the gap is smaller) on fewer than
+ * MIN_GAP_PX of the `plotPx` pixels; then the axis is zoomed on the crest
+ * and the low chord (`zoomed: true`). The chart also labels both values.
+ */
+export function stageTicks(lo, hi, { crest, lowChord, plotPx, resolution, target = 5 }) {
+  const full = niceTicks(lo, hi, target);
+  if (crest == null || lowChord == null || !Number.isFinite(crest) || !Number.isFinite(lowChord)) return full;
+  const gap = Math.max(Math.abs(lowChord - crest), resolution);
+  if ((gap * plotPx) / (full.max - full.min) >= MIN_GAP_PX) return full;
+  // The widest span still showing `gap` on MIN_GAP_PX; a third of it
+  // around the pair, because whole steps widen the domain (by less than
+  // 2.25 times for target >= 4).
+  const maxSpan = (plotPx * gap) / MIN_GAP_PX;
+  const mid = (crest + lowChord) / 2;
+  const half = Math.max(maxSpan / 6, Math.abs(lowChord - crest) / 2);
+  return { ...niceTicks(mid - half, mid + half, Math.max(4, target)), zoomed: true };
+}
+
+/**
+ * Anchor for a time label centred on `px` whose half width is about
+ * `half`, so that it stays within [left, right]: "middle" where it fits,
+ * else "start" or "end" at the tick.
+ */
+export function tickAnchor(px, half, left, right) {
+  if (px - half < left) return "start";
+  if (px + half > right) return "end";
+  return "middle";
+}
+
 /** A linear map from [d0, d1] to [r0, r1]. */
 export function linearScale(d0, d1, r0, r1) {
   const k = d1 === d0 ? 0 : (r1 - r0) / (d1 - d0);
@@ -173,7 +208,10 @@ export function renderChart(doc, point, ctx) {
   const t0 = Math.min(...allT);
   const t1 = Math.max(...allT);
   const vals = stage.concat(obs.map((o) => o[1]), levels.map((l) => l.value)).filter((v) => v != null && Number.isFinite(v));
-  const yt = niceTicks(Math.min(...vals), Math.max(...vals), narrow ? 4 : 6);
+  // 5 cm, or the same length in feet (0.3048 m each, NIST SP 811).
+  const resolution = unit === "ft" ? 0.05 / 0.3048 : 0.05;
+  const plotPx = height - m.bottom - m.top;
+  const yt = stageTicks(Math.min(...vals), Math.max(...vals), { crest: point.crest_stage, lowChord: point.low_chord, plotPx, resolution, target: narrow ? 4 : 6 });
 
   const x = linearScale(t0, t1, m.left, width - m.right);
   const y = linearScale(yt.min, yt.max, height - m.bottom, m.top);
@@ -196,7 +234,7 @@ export function renderChart(doc, point, ctx) {
     el(doc, "line", { x1: m.left, x2: width - m.right, y1: py, y2: py, stroke: "#d9dde2", "stroke-width": 1 }, grid);
     el(doc, "text", { x: m.left - 6, y: py, dy: "0.32em", "text-anchor": "end", class: "tick" }, grid, v.toFixed(yt.decimals));
   }
-  el(doc, "text", { x: 12, y: (m.top + height - m.bottom) / 2, transform: `rotate(-90 12 ${(m.top + height - m.bottom) / 2})`, "text-anchor": "middle", class: "axis-title" }, svg, `Stage (${unit})`);
+  el(doc, "text", { x: 12, y: (m.top + height - m.bottom) / 2, transform: `rotate(-90 12 ${(m.top + height - m.bottom) / 2})`, "text-anchor": "middle", class: "axis-title" }, svg, yt.zoomed ? `Stage (${unit}), zoomed` : `Stage (${unit})`);
 
   // Time axis: ticks on whole hours of the reach's clock.
   const maxTicks = Math.max(2, Math.floor((width - m.left - m.right) / 64));
@@ -207,9 +245,13 @@ export function renderChart(doc, point, ctx) {
     const px = x(t).toFixed(1);
     el(doc, "line", { x1: px, x2: px, y1: m.top, y2: height - m.bottom, stroke: "#eceef1", "stroke-width": 1 }, axis);
     el(doc, "line", { x1: px, x2: px, y1: height - m.bottom, y2: height - m.bottom + 5, stroke: "#4d5b6a" }, axis);
-    const label = el(doc, "text", { x: px, y: height - m.bottom + 17, "text-anchor": "middle", class: "tick" }, axis, formatClock(t, ctx.zone));
     const day = formatDay(t, ctx.zone);
-    if (day !== lastDay) {
+    const newDay = day !== lastDay;
+    // Half the wider of the two lines, with room for bold digits.
+    const half = 0.6 * textWidth(newDay ? day : "00:00");
+    const anchor = tickAnchor(Number(px), half, 0, width);
+    const label = el(doc, "text", { x: px, y: height - m.bottom + 17, "text-anchor": anchor, class: "tick" }, axis, formatClock(t, ctx.zone));
+    if (newDay) {
       const w = wallClock(t, ctx.zone);
       const tspan = el(doc, "tspan", { x: px, dy: "1.2em" }, label, tt.stepHours >= 24 || w.hour === 0 || !lastDay ? day : "");
       tspan.setAttribute("class", "tick-day");
@@ -220,24 +262,16 @@ export function renderChart(doc, point, ctx) {
   el(doc, "text", { x: width - m.right, y: height - 4, "text-anchor": "end", class: "axis-title" }, axis, `Time (${zoneLabel(ctx.zone, nowMs)})`);
 
   // Threshold and structure lines, labelled at the right.
-  const lv = el(doc, "g", { class: "levels" }, svg);
-  const labelYs = spreadLabels(levels.map((l) => y(l.value) - 4), 12, m.top + 10, height - m.bottom - 2);
-  const labelBoxes = [];
-  levels.forEach((l, i) => {
-    const text = `${l.label} ${formatLevel(l.value, unit)}`;
-    const right = width - m.right - 4;
-    labelBoxes.push({ x0: right - textWidth(text), x1: right, y0: labelYs[i] - 11, y1: labelYs[i] + 3 });
-    const py = y(l.value).toFixed(1);
-    const colour = l.kind === "structure" ? "#4d5b6a" : "#8a5a00";
-    el(doc, "line", { x1: m.left, x2: width - m.right, y1: py, y2: py, stroke: colour, "stroke-width": l.kind === "structure" ? 2 : 1.25, class: `level level-${l.kind}` }, lv);
-    el(doc, "text", { x: width - m.right - 4, y: labelYs[i].toFixed(1), "text-anchor": "end", class: "level-label", "paint-order": "stroke", stroke: "#ffffff", "stroke-width": 3 }, lv, text);
-  });
+  const labelBoxes = drawLevels(doc, svg, levels, { x0: m.left, x1: width - m.right, top: m.top, bottom: height - m.bottom, y, yt, unit });
 
   // Series: model stage dashed, observed solid on top of it.
+  // A zoomed axis cuts the series off at the plot's edges.
+  const clip = yt.zoomed ? { "clip-path": `url(#clip-${ctx.titleId})` } : {};
+  if (yt.zoomed) el(doc, "rect", { x: m.left, y: m.top, width: width - m.left - m.right, height: plotPx }, el(doc, "clipPath", { id: `clip-${ctx.titleId}` }, svg));
   const fcPath = pathOf(times, stage, x, y);
-  if (fcPath) el(doc, "path", { d: fcPath, fill: "none", stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5", class: "series-forecast" }, svg);
+  if (fcPath) el(doc, "path", { d: fcPath, fill: "none", stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5", class: "series-forecast", ...clip }, svg);
   const obsPath = pathOf(obs.map((o) => o[0]), obs.map((o) => o[1]), x, y);
-  if (obsPath) el(doc, "path", { d: obsPath, fill: "none", stroke: "#1d2733", "stroke-width": 2.5, class: "series-observed" }, svg);
+  if (obsPath) el(doc, "path", { d: obsPath, fill: "none", stroke: "#1d2733", "stroke-width": 2.5, class: "series-observed", ...clip }, svg);
 
   // Now line.
   if (Number.isFinite(nowMs)) {
@@ -267,6 +301,31 @@ export function renderChart(doc, point, ctx) {
     if (ly !== undefined) el(doc, "text", { x: (right ? cx - 9 : cx + 9).toFixed(1), y: ly.toFixed(1), "text-anchor": right ? "end" : "start", class: "crest-label", "paint-order": "stroke", stroke: "#ffffff", "stroke-width": 3 }, svg, text);
   }
   return svg;
+}
+
+/**
+ * Draws each level as a line labelled with its value at the right; a level
+ * beyond a zoomed axis gets only its label, pinned to that edge with an
+ * arrow. Returns the label boxes, for keeping the crest label clear.
+ */
+function drawLevels(doc, svg, levels, { x0, x1, top, bottom, y, yt, unit }) {
+  const lv = el(doc, "g", { class: "levels" }, svg);
+  const at = (v) => Math.min(Math.max(v, yt.min), yt.max);
+  const labelYs = spreadLabels(levels.map((l) => y(at(l.value)) - 4), 12, top + 10, bottom - 2);
+  const boxes = [];
+  levels.forEach((l, i) => {
+    const arrow = l.value < yt.min ? "↓ " : l.value > yt.max ? "↑ " : "";
+    const text = `${arrow}${l.label} ${formatLevel(l.value, unit)}`;
+    const right = x1 - 4;
+    boxes.push({ x0: right - textWidth(text), x1: right, y0: labelYs[i] - 11, y1: labelYs[i] + 3 });
+    if (!arrow) {
+      const py = y(l.value).toFixed(1);
+      const colour = l.kind === "structure" ? "#4d5b6a" : "#8a5a00";
+      el(doc, "line", { x1: x0, x2: x1, y1: py, y2: py, stroke: colour, "stroke-width": l.kind === "structure" ? 2 : 1.25, class: `level level-${l.kind}` }, lv);
+    }
+    el(doc, "text", { x: right, y: labelYs[i].toFixed(1), "text-anchor": "end", class: "level-label", "paint-order": "stroke", stroke: "#ffffff", "stroke-width": 3 }, lv, text);
+  });
+  return boxes;
 }
 
 /** Rough width in px of a 12 px label, for placing labels apart. */

@@ -123,3 +123,17 @@ export function formatFlow(v, unit) {
   const text = Math.abs(v) >= 100 ? v.toFixed(0) : v.toPrecision(3);
   return `${text} ${unit.replace("3/s", "³/s")}`;
 }
+
+/** Feet in a statute mile: exactly 5280 (NIST SP 811, appendix B). */
+export const FT_PER_MILE = 5280;
+
+/**
+ * A chainage (distance along the reach) in the units the forecast came in:
+ * metres ("m") are shown as kilometres, "km 6.2"; feet ("ft") as miles,
+ * "mi 3.9", or under one mile in whole feet, "ft 2640".
+ */
+export function formatChainage(v, unit) {
+  if (v == null || !Number.isFinite(v)) return "–";
+  if (unit === "ft") return v < FT_PER_MILE ? `ft ${Math.round(v)}` : `mi ${(v / FT_PER_MILE).toFixed(1)}`;
+  return `km ${(v / 1000).toFixed(1)}`;
+}

@@ -21,9 +21,9 @@ use std::{
 };
 
 use crate::common::{
-    TestApp,
+    ReachApp, TestApp, assert_success, bridge_reach,
     files::{demo_reach_json, repo_path},
-    make_key, spawn_app, spawn_app_with, test_config,
+    make_key, reach_gauge, spawn_app, spawn_app_with, test_config,
 };
 use base64::Engine as _;
 use serde_json::{Value, json};
@@ -207,6 +207,17 @@ impl Browser {
             "POST",
             "/execute/sync",
             Some(json!({"script": script, "args": args})),
+        )
+        .await
+    }
+
+    /// Runs an async `script` whose last argument is the callback taking
+    /// the result.
+    async fn eval_async(&self, script: &str) -> Value {
+        self.cmd(
+            "POST",
+            "/execute/async",
+            Some(json!({"script": script, "args": []})),
         )
         .await
     }
@@ -874,6 +885,36 @@ async fn stale_forecast_shows_the_warning() {
         "the page lists the API's reasons"
     );
     b.screenshot("stale.png", None).await;
+
+    // A 360 x 640 phone: the data age is above the fold, and every row of
+    // the overview says the data are stale, in words.
+    b.resize(360, 640).await;
+    let age = b
+        .wait_for(
+            "the data age above the fold at 360 x 640",
+            "window.scrollTo(0, 0); const e = document.getElementById('data-age'); const r = e.getBoundingClientRect(); return window.innerHeight <= 640 && window.innerWidth <= 360 && !e.hidden && r.height > 0 && r.top >= 0 && r.bottom <= window.innerHeight ? {text: e.textContent, bottom: r.bottom, vh: window.innerHeight} : null",
+            10,
+        )
+        .await;
+    let age_text = age["text"].as_str().unwrap_or_default();
+    assert!(
+        age_text.contains("Stale data")
+            && age_text.contains("Run #")
+            && age_text.contains("upstream reading"),
+        "run and reading ages, marked stale: {age}"
+    );
+    let marks = b
+        .eval("return [...document.querySelectorAll('#overview-body tr')].map(r => r.querySelector('.stale-mark')?.textContent || '')")
+        .await;
+    let marks = marks.as_array().expect("rows");
+    assert!(!marks.is_empty());
+    assert!(
+        marks
+            .iter()
+            .all(|m| m.as_str().unwrap_or_default() == "stale data"),
+        "every overview row carries the stale mark: {marks:?}"
+    );
+    b.screenshot("stale-360x640.png", None).await;
     let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
@@ -1175,6 +1216,425 @@ async fn reach_picker_switches_reach_with_its_own_units_and_time_zone() {
         .eval("return document.getElementById('reach-title').textContent")
         .await;
     assert_eq!(title, "Tansy Beck test copy (invented)");
+    // Chainage in US units: miles (5280 ft each, NIST SP 811 appendix B),
+    // whole feet under one mile; never feet / 1000 labelled "km".
+    let places = b
+        .eval("return [...document.querySelectorAll('#overview-body tr th .muted')].map(e => e.textContent)")
+        .await;
+    let places: Vec<String> = places
+        .as_array()
+        .expect("row labels")
+        .iter()
+        .map(|v| v.as_str().unwrap_or_default().to_owned())
+        .collect();
+    let expected: Vec<String> = us["points"]
+        .as_array()
+        .expect("points")
+        .iter()
+        .map(|p| {
+            let ft = p["chainage"].as_f64().expect("chainage in ft");
+            if ft < 5280.0 {
+                format!("ft {}", ft.round())
+            } else {
+                format!("mi {:.1}", ft / 5280.0)
+            }
+        })
+        .collect();
+    assert_eq!(places.len(), expected.len(), "{places:?}");
+    for (shown, want) in places.iter().zip(&expected) {
+        assert!(shown.ends_with(want), "{shown} shows {want}");
+        assert!(!shown.contains("km"), "no km in feet mode: {shown}");
+    }
+    assert!(
+        expected.iter().any(|e| e.starts_with("mi ")),
+        "some point lies over a mile downstream: {expected:?}"
+    );
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    app.stop().await;
+}
+
+/// The invented bridge reach of `common::bridge_reach` with its upstream
+/// discharge gauge, and no readings yet: so no forecast until the test
+/// posts readings and asks for a run.
+async fn bridge_app_without_forecast() -> ReachApp {
+    let gauge = reach_gauge("Test gauge", "test-reach", "discharge", 19.0, 2.0);
+    let reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    // A long debounce: only the test's own run request produces a forecast.
+    ReachApp::start(
+        |c| c.forecast.debounce_ms = 600_000,
+        ("test-reach", &reach),
+        ("test-gauge", &gauge),
+    )
+    .await
+}
+
+/// Six hours of steady discharge readings every 15 min up to now.
+fn steady_readings(q: f64) -> Value {
+    let now = chrono::Utc::now();
+    let readings: Vec<Value> = (0..=24)
+        .map(|k| {
+            let t = now - chrono::Duration::minutes(15 * (24 - k));
+            json!({"time": t.to_rfc3339(), "discharge": q, "quality": "good"})
+        })
+        .collect();
+    json!({ "readings": readings })
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn first_forecast_appears_soon_after_the_page_opened_without_one() {
+    let _one = BROWSER.lock().await;
+    let s = bridge_app_without_forecast().await;
+    let (status, _) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    assert_eq!(status, 404, "no forecast before any reading");
+    let b = Browser::start().await;
+    // The normal 30 s poll interval: without the quick retries the page
+    // would not ask again for 30 s.
+    b.goto(&s.app.url("/")).await;
+    b.wait_for(
+        "the no-forecast notice",
+        "const p = document.getElementById('no-forecast'); return p.hidden ? null : p.textContent.includes('No forecast yet')",
+        30,
+    )
+    .await;
+    b.eval("window.__noReload = 'still here'").await;
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &steady_readings(40.0))
+            .await,
+    )
+    .await;
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200);
+    let (_, f) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    let run_id = f["run"]["id"].as_i64().expect("run id");
+    // The back-off (0.5, 1, 2, 4, 8 s ...) asks again within 16 s of any
+    // moment in the first half minute; 20 s is still well under the 30 s
+    // a plain poll would take.
+    let shown = b
+        .wait_for(
+            "the first forecast on the page",
+            "const r = document.getElementById('run-id'); return r && document.querySelectorAll('#overview-body tr').length ? Number(r.dataset.run) : null",
+            20,
+        )
+        .await;
+    assert_eq!(shown.as_i64(), Some(run_id), "the page shows the API's run");
+    let marker = b.eval("return window.__noReload || null").await;
+    assert_eq!(marker, "still here", "updated in place, not reloaded");
+    let conn = b
+        .eval("return document.getElementById('conn').textContent")
+        .await;
+    assert!(
+        conn.as_str()
+            .unwrap_or_default()
+            .contains("checks again every 30 s"),
+        "back to the normal interval once a forecast is shown: {conn}"
+    );
+    let errors = b
+        .page_errors(&["/api/reaches/test-reach/forecast?units=si - Failed to load resource: the server responded with a status of 404"])
+        .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
+
+/// Script: the time labels of every chart whose box leaves its svg's box.
+const LABELS_OUTSIDE: &str = r#"
+const out = []; let checked = 0;
+for (const svg of document.querySelectorAll('svg.chart')) {
+  const box = svg.getBoundingClientRect();
+  for (const t of svg.querySelectorAll('.x-axis text.tick')) {
+    const r = t.getBoundingClientRect(); checked++;
+    if (r.left < box.left - 0.5 || r.right > box.right + 0.5 || r.top < box.top - 0.5 || r.bottom > box.bottom + 0.5)
+      out.push(`${svg.dataset.point}: "${t.textContent}" ${r.left.toFixed(1)}..${r.right.toFixed(1)} outside ${box.left.toFixed(1)}..${box.right.toFixed(1)}`);
+  }
+}
+return {checked, out};
+"#;
+
+/// Async script: draws, with the page's chart module, an invented point
+/// over one whole day (ticks at both ends of the axis) into `#charts`.
+const EDGE_TICK_CHART: &str = r#"
+const done = arguments[arguments.length - 1];
+import('/js/chart.js').then(m => {
+  const t0 = Date.parse('2026-03-14T00:00:00Z');
+  const times = [], stage = [];
+  for (let k = 0; k <= 24; k++) { times.push(new Date(t0 + k * 3600e3).toISOString()); stage.push(10 + Math.sin(k / 4)); }
+  const point = { name: 'edge ticks (invented)', times, stage, observed: [], thresholds: [], crest_stage: 11, crest_time: times[6] };
+  const width = Math.min(document.getElementById('charts').clientWidth - 2, 360);
+  const svg = m.renderChart(document, point, { zone: '+00:00', units: { stage: 'm' }, now: times[12], width, titleId: 'edge-title' });
+  document.getElementById('charts').append(svg);
+  done(svg.querySelectorAll('.x-axis text.tick').length >= 2);
+}).catch(e => done(String(e)));
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn phone_charts_keep_time_labels_inside_and_resolve_a_5_cm_clearance() {
+    let _one = BROWSER.lock().await;
+    let s = bridge_app_without_forecast().await;
+    let reading = steady_readings(40.0);
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &reading)
+            .await,
+    )
+    .await;
+    assert_eq!(
+        s.app
+            .run_and_wait(&s.keys.forecaster, "test-reach")
+            .await
+            .status(),
+        200
+    );
+    let (_, f) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    let crest = f["points"][0]["crest_stage"].as_f64().expect("crest");
+    // Put the low chord 5 cm above that crest (the deck 1 m higher): the
+    // steady inflow keeps the crest where it was.
+    let mut reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    reach["points"][0]["low_chord"] = json!(crest + 0.05);
+    reach["points"][0]["deck"] = json!(crest + 1.05);
+    let put = s.app.put_reach(&s.keys.admin, "test-reach", &reach).await;
+    assert!(put.status().is_success(), "PUT reach: {}", put.status());
+    assert_eq!(
+        s.app
+            .run_and_wait(&s.keys.forecaster, "test-reach")
+            .await
+            .status(),
+        200
+    );
+    let (_, f) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    let margin = f["points"][0]["low_chord_margin"]
+        .as_f64()
+        .expect("low chord margin");
+    assert!(
+        (0.0..0.1).contains(&margin),
+        "a clearance of about 5 cm: {margin}"
+    );
+
+    let b = Browser::start().await;
+    b.resize(360, 780).await;
+    b.goto(&s.app.url("/")).await;
+    b.wait_for(
+        "a chart drawn at phone width",
+        "const s = document.querySelector('svg.chart'); return s && Number(s.getAttribute('width')) <= 360",
+        30,
+    )
+    .await;
+    // Also a chart whose first and last ticks fall exactly on the ends of
+    // its time axis (midnight to midnight, each a new day), drawn by the
+    // page's own module into the page.
+    let drawn = b.eval_async(EDGE_TICK_CHART).await;
+    assert_eq!(drawn, json!(true), "edge-tick chart drawn: {drawn}");
+    let labels = b.eval(LABELS_OUTSIDE).await;
+    assert!(
+        labels["checked"].as_u64().unwrap_or(0) >= 2,
+        "time labels checked: {labels}"
+    );
+    assert_eq!(labels["out"], json!([]), "time labels inside their chart");
+    // The crest marker and the low chord line are apart by at least the
+    // chart's minimum gap (6 px for 5 cm, less half a pixel of rounding),
+    // measured on screen.
+    let gap = b
+        .eval("const s = document.querySelector('svg.chart'); const c = s.querySelector('.crest').getBoundingClientRect(); const lows = [...s.querySelectorAll('line.level-structure')].map(l => l.getBoundingClientRect().top); return {px: Math.abs(Math.max(...lows) - (c.top + c.height / 2)), axis: s.querySelector('.axis-title').textContent, text: s.closest('section').querySelector('p').textContent}")
+        .await;
+    let px = gap["px"].as_f64().unwrap_or(0.0);
+    assert!(
+        px >= 5.5 * margin.max(0.05) / 0.05,
+        "5 cm between crest and low chord is visible: {gap}"
+    );
+    assert!(
+        gap["text"].as_str().unwrap_or_default().contains(&format!(
+            "low chord {:.2} m, {margin:.2} m to spare",
+            crest + 0.05
+        )),
+        "the clearance in words above the chart: {gap}"
+    );
+    // A fresh forecast on a 360 x 640 phone: the data age is above the
+    // fold and no row is marked stale.
+    b.resize(360, 640).await;
+    let age = b
+        .wait_for(
+            "the data age above the fold at 360 x 640",
+            "window.scrollTo(0, 0); const e = document.getElementById('data-age'); const r = e.getBoundingClientRect(); return window.innerHeight <= 640 && !e.hidden && r.height > 0 && r.top >= 0 && r.bottom <= window.innerHeight ? e.textContent : null",
+            10,
+        )
+        .await;
+    let run_id = f["run"]["id"].as_i64().expect("run id");
+    assert!(
+        age.as_str()
+            .unwrap_or_default()
+            .starts_with(&format!("Run #{run_id} finished")),
+        "{age}"
+    );
+    let marks = b
+        .eval("return document.querySelectorAll('#overview-body .stale-mark').length")
+        .await;
+    assert_eq!(marks, json!(0), "a fresh forecast has no stale mark");
+    b.screenshot("chart-clearance-360.png", Some("#chart-0"))
+        .await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
+
+/// A4 width at 96 CSS px per inch: 210 mm / 25.4 mm per inch * 96 = 793.7,
+/// so 794 px (CSS Values 4 fixes 1 in = 96 px; ISO 216 fixes A4 at 210 mm;
+/// both from memory). US Letter, 8.5 in, is wider (816 px), so fitting A4
+/// fits both.
+const A4_PX: u64 = 794;
+
+/// Script: what the briefing layout shows and how wide the page is.
+const BRIEFING_STATE: &str = r#"
+const shown = sel => { const e = document.querySelector(sel); return !!e && getComputedStyle(e).display !== 'none' && e.getBoundingClientRect().height > 0; };
+const svgs = [...document.querySelectorAll('svg.chart')];
+return {
+  scroll: document.documentElement.scrollWidth,
+  inner: window.innerWidth,
+  forecaster: shown('.forecaster'), upload: shown('#upload-form'), key: shown('#key-form'),
+  controls: shown('#controls'), conn: shown('#conn'),
+  caution: shown('#caution') ? document.getElementById('caution').textContent : null,
+  summary: shown('#summary') ? document.getElementById('summary').textContent : null,
+  age: shown('#data-age') ? document.getElementById('data-age').textContent : null,
+  rows: document.querySelectorAll('#overview-body tr').length,
+  charts: svgs.length,
+  chartsFit: svgs.every(s => s.getBoundingClientRect().right <= document.documentElement.clientWidth + 0.5),
+  profile: !!document.querySelector('section#profile'), profileShown: shown('#profile'),
+  profileAfterOverview: !!(document.getElementById('overview').compareDocumentPosition(document.getElementById('profile')) & Node.DOCUMENT_POSITION_FOLLOWING),
+};
+"#;
+
+/// The briefing as `BRIEFING_STATE` reports it has what a planner needs and
+/// none of the forecaster tools, within A4 width.
+fn assert_briefing(state: &Value, run_id: i64, points: usize, how: &str) {
+    assert_eq!(
+        state["forecaster"], false,
+        "{how}: forecaster tools left out: {state}"
+    );
+    assert_eq!(state["upload"], false, "{how}: {state}");
+    assert_eq!(state["key"], false, "{how}: {state}");
+    assert_eq!(
+        state["controls"], false,
+        "{how}: reach and unit controls left out: {state}"
+    );
+    assert!(
+        state["caution"]
+            .as_str()
+            .is_some_and(|c| c.contains("not an official warning")),
+        "{how}: the caution is kept: {state}"
+    );
+    assert!(
+        state["summary"].as_str().is_some_and(|s| !s.is_empty()),
+        "{how}: summary sentence: {state}"
+    );
+    assert!(
+        state["age"]
+            .as_str()
+            .is_some_and(|a| a.contains(&format!("Run #{run_id} finished"))),
+        "{how}: data age and run id: {state}"
+    );
+    assert_eq!(
+        state["rows"].as_u64(),
+        Some(points as u64),
+        "{how}: {state}"
+    );
+    assert_eq!(
+        state["charts"].as_u64(),
+        Some(points as u64),
+        "{how}: {state}"
+    );
+    assert_eq!(
+        state["chartsFit"], true,
+        "{how}: charts within the page: {state}"
+    );
+    assert_eq!(
+        state["profile"], true,
+        "{how}: the profile section is there: {state}"
+    );
+    assert_eq!(
+        state["profileShown"], false,
+        "{how}: empty profile hidden: {state}"
+    );
+    assert_eq!(state["profileAfterOverview"], true, "{how}: {state}");
+    assert!(
+        state["inner"].as_u64().unwrap_or(u64::MAX) <= A4_PX
+            && state["scroll"].as_u64().unwrap_or(u64::MAX) <= A4_PX,
+        "{how}: page no wider than A4 at 96 dpi ({A4_PX} px): {state}"
+    );
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn briefing_view_and_print_fit_a4_without_the_forecaster_tools() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (app, key) = demo_app(dir.path(), quiet_replay).await;
+    wait_for_forecast(&app, &key).await;
+    let b = Browser::start().await;
+    b.resize(A4_PX as u32, 1000).await;
+
+    // On screen at /?view=briefing.
+    b.goto(&app.url("/?view=briefing")).await;
+    let f = settle_on_latest_run(&app, &b, "/api/reaches/brindlemoor/forecast").await;
+    let run_id = f["run"]["id"].as_i64().expect("run id");
+    let points = point_names(&f).len();
+    let state = b
+        .wait_for(
+            "the briefing with its charts",
+            &format!("const s = (() => {{ {BRIEFING_STATE} }})(); return s.charts === {points} && s.age ? s : null"),
+            30,
+        )
+        .await;
+    assert_briefing(&state, run_id, points, "briefing view");
+    b.screenshot("briefing.png", None).await;
+
+    // The full dashboard printed (print media emulated over CDP): the same
+    // briefing layout, and the print button hidden on paper.
+    b.goto(&app.url("/")).await;
+    b.wait_for(
+        "the dashboard with its charts",
+        &format!("return document.querySelectorAll('svg.chart').length === {points}"),
+        30,
+    )
+    .await;
+    let screen = b.eval(BRIEFING_STATE).await;
+    assert_eq!(
+        screen["forecaster"], true,
+        "on screen the tools are there: {screen}"
+    );
+    // The button calls the browser's print (stubbed: a real dialog would block).
+    b.eval("window.print = () => { window.__printed = true; }")
+        .await;
+    b.click("#print-briefing").await;
+    assert_eq!(
+        b.eval("return window.__printed === true").await,
+        json!(true)
+    );
+    b.cdp("Emulation.setEmulatedMedia", json!({"media": "print"}))
+        .await;
+    let printed = b.eval(BRIEFING_STATE).await;
+    assert_briefing(&printed, run_id, points, "print media");
+    let button = b
+        .eval("return document.getElementById('print-briefing').getClientRects().length")
+        .await;
+    assert_eq!(button, json!(0), "no print button on paper");
+    b.cdp("Emulation.setEmulatedMedia", json!({"media": ""}))
+        .await;
+    // Before printing the charts are redrawn 700 px wide (within A4 less
+    // 12 mm margins, 703 px), and after it at the screen's width again.
+    let widths = b
+        .eval("const w = () => [...document.querySelectorAll('svg.chart')].map(s => Number(s.getAttribute('width'))); const screen = w(); window.dispatchEvent(new Event('beforeprint')); const paper = w(); window.dispatchEvent(new Event('afterprint')); return {screen, paper, after: w()}")
+        .await;
+    assert!(
+        widths["paper"]
+            .as_array()
+            .is_some_and(|p| p.len() == points && p.iter().all(|w| w.as_u64() == Some(700))),
+        "charts drawn for paper: {widths}"
+    );
+    assert_eq!(widths["after"], widths["screen"], "and back: {widths}");
     let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);

@@ -3,7 +3,7 @@
 import { test } from "node:test";
 import assert from "node:assert/strict";
 
-import { HOUR_STEPS, linearScale, niceStep, niceTicks, spreadLabels, timeTicks } from "../../static/js/chart.js";
+import { HOUR_STEPS, MIN_GAP_PX, linearScale, niceStep, niceTicks, spreadLabels, stageTicks, tickAnchor, timeTicks } from "../../static/js/chart.js";
 import { formatDuration, formatTime, offsetLabel, offsetMinutes, wallClock } from "../../static/js/format.js";
 
 const H = 3_600_000;
@@ -127,4 +127,48 @@ test("labels are spread apart and kept inside the plot", () => {
   assert.ok(out[1] - out[0] >= 12);
   assert.ok(out[2] <= 290);
   assert.ok(out[2] - out[1] >= 12);
+});
+
+// An invented bridge: data from 47.0 m (bed side of the hydrograph) to the
+// deck at 52.64 m, low chord 51.64 m, drawn on a 194 px high phone plot.
+const PHONE_PLOT_PX = 194;
+const pxOf = (t, len) => (len * PHONE_PLOT_PX) / (t.max - t.min);
+
+test("a crest 5 cm under the low chord gets an axis that shows the gap", () => {
+  const full = niceTicks(47.0, 52.64, 4);
+  assert.ok(pxOf(full, 0.05) < 2, "on the full axis 5 cm is under 2 px");
+  const t = stageTicks(47.0, 52.64, { crest: 51.59, lowChord: 51.64, plotPx: PHONE_PLOT_PX, resolution: 0.05, target: 4 });
+  assert.equal(t.zoomed, true);
+  assert.ok(t.min <= 51.59 && t.max >= 51.64, `crest and low chord on the axis: ${t.min}..${t.max}`);
+  assert.ok(pxOf(t, 0.05) >= MIN_GAP_PX, `5 cm is ${pxOf(t, 0.05).toFixed(1)} px`);
+  const mantissa = t.step / 10 ** Math.floor(Math.log10(t.step) + 1e-9);
+  assert.ok([1, 2, 5].some((m) => Math.abs(mantissa - m) < 1e-9), `nice step ${t.step}`);
+  assert.ok(t.ticks.length >= 3, `enough labelled ticks: ${t.ticks}`);
+});
+
+test("a crest over the low chord by 1 cm still gets 5 cm resolved; feet too", () => {
+  const t = stageTicks(47.0, 52.64, { crest: 51.65, lowChord: 51.64, plotPx: PHONE_PLOT_PX, resolution: 0.05 });
+  assert.ok(pxOf(t, 0.05) >= MIN_GAP_PX && t.min <= 51.64 && t.max >= 51.65);
+  // The same bridge in feet (0.3048 m each, NIST SP 811): 5 cm = 0.164 ft.
+  const ft = (m) => m / 0.3048;
+  const u = stageTicks(ft(47.0), ft(52.64), { crest: ft(51.6), lowChord: ft(51.64), plotPx: PHONE_PLOT_PX, resolution: ft(0.05) });
+  assert.equal(u.zoomed, true);
+  assert.ok(pxOf(u, ft(0.05)) >= MIN_GAP_PX, `${pxOf(u, ft(0.05))} px`);
+  assert.ok(u.min <= ft(51.6) && u.max >= ft(51.64));
+});
+
+test("the axis is not zoomed when the clearance already shows, or there is no bridge", () => {
+  const far = stageTicks(47.0, 52.64, { crest: 49.0, lowChord: 51.64, plotPx: PHONE_PLOT_PX, resolution: 0.05, target: 4 });
+  assert.deepEqual(far, niceTicks(47.0, 52.64, 4));
+  const none = stageTicks(47.0, 52.64, { crest: 51.6, lowChord: null, plotPx: PHONE_PLOT_PX, resolution: 0.05, target: 4 });
+  assert.deepEqual(none, niceTicks(47.0, 52.64, 4));
+  // A big plot resolves 5 cm on the full axis by itself: 0.05 * 2000 / 6 = 16.7 px.
+  const tall = stageTicks(47.0, 52.64, { crest: 51.6, lowChord: 51.64, plotPx: 2000, resolution: 0.05, target: 4 });
+  assert.equal(tall.zoomed, undefined);
+});
+
+test("time labels near the chart's edges are anchored inwards", () => {
+  assert.equal(tickAnchor(20, 30, 0, 360), "start");
+  assert.equal(tickAnchor(345, 30, 0, 360), "end");
+  assert.equal(tickAnchor(180, 30, 0, 360), "middle");
 });
