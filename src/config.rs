@@ -218,6 +218,9 @@ pub struct IngestConfig {
     pub max_rows_per_request: usize,
     /// Most readings returned in one page of `GET .../readings`.
     pub max_page_size: usize,
+    /// Readings dated before 1 January of this year (UTC) are refused as
+    /// implausible (a gauge clock reset to year 0 or 1970, say).
+    pub earliest_year: u64,
 }
 
 impl Default for AuthConfig {
@@ -236,6 +239,7 @@ impl Default for IngestConfig {
             max_future_secs: 600,
             max_rows_per_request: 50_000,
             max_page_size: 10_000,
+            earliest_year: 1900,
         }
     }
 }
@@ -303,6 +307,7 @@ pub const KEYS: &[&str] = &[
     "ingest.max_future_secs",
     "ingest.max_rows_per_request",
     "ingest.max_page_size",
+    "ingest.earliest_year",
     "forecast.interval_minutes",
     "forecast.debounce_ms",
     "forecast.lookback_hours",
@@ -420,6 +425,7 @@ impl Config {
             ("ingest.max_future_secs", i.max_future_secs, 0, 86_400),
             ("ingest.max_rows_per_request", i.max_rows_per_request as u64, 1, u64::MAX),
             ("ingest.max_page_size", i.max_page_size as u64, 1, 1_000_000),
+            ("ingest.earliest_year", i.earliest_year, 1, 9_999),
             ("forecast.interval_minutes", f.interval_minutes, 1, 1_440),
             ("forecast.debounce_ms", f.debounce_ms, 0, 600_000),
             ("forecast.lookback_hours", f.lookback_hours, 1, 720),

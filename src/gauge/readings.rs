@@ -175,6 +175,16 @@ pub struct Limits {
     pub now_ms: i64,
     /// How far ahead of `now_ms` a reading may lie.
     pub max_future_ms: i64,
+    /// The earliest plausible reading time, Unix ms.
+    pub earliest_ms: i64,
+}
+
+/// 1 January of `year`, 00:00 UTC, in Unix ms (year 1 to 9999).
+pub fn earliest_ms(year: u64) -> i64 {
+    let year = i32::try_from(year.clamp(1, 9_999)).unwrap_or(1);
+    chrono::NaiveDate::from_ymd_opt(year, 1, 1)
+        .and_then(|d| d.and_hms_opt(0, 0, 0))
+        .map_or(i64::MIN, |t| t.and_utc().timestamp_millis())
 }
 
 /// Parses an RFC 3339 date-time (RFC 3339 §5.6: the offset, `Z` or
@@ -233,6 +243,16 @@ pub fn check(
         Field::Invalid(why) => return Err(err("time", why.clone())),
         Field::Value(t) => parse_time(t).map_err(|why| err("time", why))?,
     };
+    if time_ms < limits.earliest_ms {
+        return Err(err(
+            "time",
+            format!(
+                "{} is before the earliest plausible time {} (ingest.earliest_year)",
+                format_time(time_ms),
+                format_time(limits.earliest_ms)
+            ),
+        ));
+    }
     if time_ms > limits.now_ms.saturating_add(limits.max_future_ms) {
         return Err(err(
             "time",
@@ -485,7 +505,30 @@ mod tests {
     const LIMITS: Limits = Limits {
         now_ms: 1_900_000_000_000,
         max_future_ms: 600_000,
+        // 1900-01-01T00:00:00Z is 2,208,988,800 s before the Unix epoch:
+        // the offset between the NTP and Unix epochs (RFC 5905 §6).
+        earliest_ms: -2_208_988_800_000,
     };
+
+    /// Year 0000 (a gauge clock reset) is refused naming `time`; the first
+    /// instant of the earliest year is accepted.
+    #[test]
+    fn implausibly_early_times_are_refused() {
+        assert_eq!(earliest_ms(1900), LIMITS.earliest_ms);
+        assert_eq!(earliest_ms(1970), 0);
+        for (time, ok) in [
+            ("0000-01-01T00:00:00Z", false),
+            ("1899-12-31T23:59:59Z", false),
+            ("1900-01-01T00:00:00Z", true),
+        ] {
+            let r = check(1, &raw(time, Some(1.0)), &gauge(), LIMITS);
+            assert_eq!(r.is_ok(), ok, "{time}: {r:?}");
+            if let Err(e) = r {
+                assert_eq!(e.field, "time");
+                assert!(e.message.contains("earliest plausible"), "{}", e.message);
+            }
+        }
+    }
 
     /// RFC 3339 §5.6: time-offset is required ("Z" / time-numoffset);
     /// §5.8 examples: 1996-12-19T16:39:57-08:00 is 1996-12-20T00:39:57Z.

@@ -226,9 +226,24 @@ pub fn parse_json<T: serde::de::DeserializeOwned>(body: &[u8]) -> Result<T, Prob
             if inner.is_syntax() || inner.is_eof() {
                 Err(json_syntax(inner))
             } else {
-                Err(Problem::invalid(path, inner.to_string()))
+                let message = inner.to_string();
+                Err(Problem::invalid(member_path(&path, &message), message))
             }
         }
+    }
+}
+
+/// The path of the member a serde error is about. serde names an unknown
+/// or repeated member only in its message ("duplicate field `time`"), its
+/// path stopping at the object that holds it ("." at the top, or
+/// `readings[3]`): the member's name is appended so that `field` names it.
+pub fn member_path(path: &str, message: &str) -> String {
+    let about_member =
+        message.starts_with("duplicate field") || message.starts_with("unknown field");
+    match (about_member, message.split('`').nth(1)) {
+        (true, Some(name)) if path == "." => name.to_owned(),
+        (true, Some(name)) if !path.ends_with(name) => format!("{path}.{name}"),
+        _ => path.to_owned(),
     }
 }
 
@@ -523,6 +538,41 @@ async fn page(Path(slug): Path<String>) -> Response {
 
 #[cfg(test)]
 mod tests {
+    /// A repeated or unknown member is named in `field` (it used to be
+    /// reported as ".").
+    #[test]
+    fn duplicated_and_unknown_members_are_named() {
+        #[derive(Debug, serde::Deserialize)]
+        #[serde(deny_unknown_fields)]
+        #[allow(dead_code)]
+        struct Row {
+            time: String,
+            stage: f64,
+        }
+        #[derive(Debug, serde::Deserialize)]
+        #[serde(deny_unknown_fields)]
+        #[allow(dead_code)]
+        struct Batch {
+            readings: Vec<Row>,
+        }
+        let field = |body: &str| {
+            let p = super::parse_json::<Batch>(body.as_bytes()).expect_err("refused");
+            p.field.clone()
+        };
+        assert_eq!(
+            field(r#"{"readings": [], "readings": []}"#).as_deref(),
+            Some("readings")
+        );
+        assert_eq!(
+            field(r#"{"readings": [{"time": "t", "stage": 1, "stage": 2}]}"#).as_deref(),
+            Some("readings[0].stage")
+        );
+        assert_eq!(
+            field(r#"{"readings": [{"time": "t", "stage": 1, "colour": 2}]}"#).as_deref(),
+            Some("readings[0].colour")
+        );
+    }
+
     use super::*;
 
     const LIMITS: Limits = Limits {

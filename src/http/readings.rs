@@ -334,6 +334,7 @@ async fn ingest(
         max_future_ms: i64::try_from(state.config.ingest.max_future_secs)
             .unwrap_or(i64::MAX / 1000)
             .saturating_mul(1000),
+        earliest_ms: crate::gauge::readings::earliest_ms(state.config.ingest.earliest_year),
     };
     let (rows, in_batch_dupes, errors) = checked_rows(raw_rows, &gauge, limits);
     let outcome = if rows.is_empty() && in_batch_dupes == 0 {
