@@ -47,7 +47,7 @@ impl Application {
                 .await
                 .context("seeding the demo reach")?;
         }
-        load_reach_dir(&store, &config.forecast.reach_dir).await?;
+        load_reach_dir(&store, &config.forecast).await?;
         forecaster
             .start()
             .await
@@ -130,7 +130,11 @@ impl Application {
 /// version only when the description differs from the stored one, so a
 /// restart with unchanged files adds nothing. A bad file stops the start
 /// with an error naming the file and the field.
-pub async fn load_reach_dir(store: &Store, dir: &std::path::Path) -> anyhow::Result<usize> {
+pub async fn load_reach_dir(
+    store: &Store,
+    forecast: &crate::config::ForecastConfig,
+) -> anyhow::Result<usize> {
+    let dir = forecast.reach_dir.as_path();
     if dir.as_os_str().is_empty() {
         return Ok(0);
     }
@@ -158,7 +162,8 @@ pub async fn load_reach_dir(store: &Store, dir: &std::path::Path) -> anyhow::Res
             .with_context(|| format!("reading {}", path.display()))?;
         let spec = crate::forecast::spec::ReachSpec::from_json(&text)
             .with_context(|| format!("in {}", path.display()))?;
-        crate::forecast::run::nodes_for(&spec).with_context(|| format!("in {}", path.display()))?;
+        crate::forecast::budget::admit(&spec, &forecast.budget(), forecast.window_s())
+            .with_context(|| format!("in {}", path.display()))?;
         let current = store.latest_reach(&id).await?;
         if current.as_ref().is_none_or(|c| c.spec != spec) {
             let version = store.put_reach(&id, &spec, None).await?;

@@ -131,6 +131,30 @@ pub struct ForecastConfig {
     /// it is the reach `NAME`, stored as a new version when it differs from
     /// the stored one. Empty: none.
     pub reach_dir: PathBuf,
+    /// A reach with more computational nodes than this is refused.
+    pub max_nodes: u64,
+    /// A reach whose run would store more output values (nodes × output
+    /// instants over look-back and horizon) is refused.
+    pub max_output_values: u64,
+    /// A reach whose run needs more time steps at least (look-back and
+    /// horizon over the largest step) is refused.
+    pub max_steps: u64,
+}
+
+impl ForecastConfig {
+    /// The cost budgets of one run.
+    pub fn budget(&self) -> crate::forecast::budget::Budget {
+        crate::forecast::budget::Budget {
+            max_nodes: self.max_nodes,
+            max_output_values: self.max_output_values,
+            max_steps: self.max_steps,
+        }
+    }
+
+    /// The window one run routes: look-back plus horizon (s).
+    pub fn window_s(&self) -> f64 {
+        (self.lookback_hours + self.horizon_hours) as f64 * 3600.0
+    }
 }
 
 impl Default for ForecastConfig {
@@ -147,6 +171,9 @@ impl Default for ForecastConfig {
             recession_hours: 24.0,
             base_flow_m3s: 0.0,
             reach_dir: PathBuf::new(),
+            max_nodes: 5_000,
+            max_output_values: 5_000_000,
+            max_steps: 200_000,
         }
     }
 }
@@ -319,6 +346,9 @@ pub const KEYS: &[&str] = &[
     "forecast.recession_hours",
     "forecast.base_flow_m3s",
     "forecast.reach_dir",
+    "forecast.max_nodes",
+    "forecast.max_output_values",
+    "forecast.max_steps",
     "alerts.sender",
     "alerts.cap_status",
     "alerts.base_url",
@@ -433,6 +463,9 @@ impl Config {
             ("forecast.max_gap_minutes", f.max_gap_minutes, 0, 10_080),
             ("forecast.stale_after_minutes", f.stale_after_minutes, 1, 10_080),
             ("forecast.step_minutes", f.step_minutes, 1, 1_440),
+            ("forecast.max_nodes", f.max_nodes, 2, 1_000_000),
+            ("forecast.max_output_values", f.max_output_values, 1, u64::MAX),
+            ("forecast.max_steps", f.max_steps, 1, u64::MAX),
         ];
         for (key, v, lo, hi) in ranges {
             if !(lo..=hi).contains(&v) {

@@ -6,6 +6,7 @@
 //! (`crate::service`) and the offline `route` command add the I/O.
 
 pub mod assemble;
+pub mod budget;
 pub mod cap;
 pub mod document;
 pub mod exceed;

@@ -127,10 +127,13 @@ pub fn run_on_nodes(
     let result = match method {
         Method::Diffusive => {
             let downstream = downstream_boundary(spec, t0)?;
+            let defaults = Options::default();
             let options = Options {
                 theta: spec.routing.theta,
                 dt_max: spec.routing.dt_max_s,
-                ..Options::default()
+                // A largest step below the usual first step starts there.
+                dt_initial: defaults.dt_initial.min(spec.routing.dt_max_s),
+                ..defaults
             };
             let problem = diffusive::Problem {
                 reach,

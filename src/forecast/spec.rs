@@ -647,6 +647,18 @@ impl RoutingSpec {
         };
         positive("routing.output_interval_s", self.output_interval_s)?;
         positive("routing.dt_max_s", self.dt_max_s)?;
+        // The solver halves a failing step down to its smallest; a largest
+        // step below that could never run.
+        let dt_min = crate::engine::diffusive::Options::default().dt_min;
+        if self.dt_max_s < dt_min {
+            return Err(SpecError::new(
+                "routing.dt_max_s",
+                format!(
+                    "must be at least the solver's smallest step, {dt_min} s, got {}",
+                    self.dt_max_s
+                ),
+            ));
+        }
         positive("routing.kinematic_dt_s", self.kinematic_dt_s)?;
         if !(0.55..=1.0).contains(&self.theta) {
             return Err(SpecError::new(

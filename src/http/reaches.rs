@@ -20,6 +20,7 @@ use super::{
 use crate::{
     CAUTION,
     forecast::{
+        budget::Refusal,
         record::{RunRecord, RunStatus},
         spec::{ReachSpec, Units},
     },
@@ -124,9 +125,13 @@ async fn put_reach(
         .map_err(|_| Problem::malformed("body", "the body is not UTF-8".to_owned()))?;
     let spec = ReachSpec::from_json(text)
         .map_err(|e| Problem::invalid(e.field.clone(), e.message.clone()))?;
-    // Geometry is checked by building the computational nodes once.
-    crate::forecast::run::nodes_for(&spec)
-        .map_err(|e| Problem::invalid("sections", e.to_string()))?;
+    // Geometry is checked by building the computational nodes once, and
+    // the cost of a run against the budgets.
+    let f = &state.config.forecast;
+    crate::forecast::budget::admit(&spec, &f.budget(), f.window_s()).map_err(|e| match e {
+        Refusal::Invalid(s) => Problem::invalid(s.field, s.message),
+        Refusal::OverBudget(o) => Problem::invalid(o.field, o.message).with("budget", o.budget),
+    })?;
     let existed = state.store.latest_reach(&id).await?.is_some();
     let version = state
         .store

@@ -821,3 +821,30 @@ async fn exceedance_filters_select_part_of_the_board() {
     assert_eq!((status, p["field"].as_str()), (404, Some("reach")));
     s.app.stop().await;
 }
+
+/// Numerical settings are checked against each other and against the run
+/// budgets when the reach is stored: a largest step below the solver's
+/// first step runs (it used to fail every run), one below its smallest
+/// step and an output interval that would store millions of values are
+/// refused naming the field and the budget.
+#[tokio::test]
+async fn costly_or_unrunnable_numbers_are_refused_at_put() {
+    let s = setup(60, 600_000).await;
+    let mut doc = reach_doc();
+    doc["routing"]["dt_max_s"] = json!(30.0);
+    assert_eq!(s.app.put_reach(&s.keys.admin, REACH, &doc).await.status(), 200);
+    post_readings(&s, &rising(Utc::now(), 3, 20.0, 50.0)).await;
+    let r = run_now(&s).await;
+    assert_eq!(r["status"], "ok", "{r}");
+
+    doc["routing"]["dt_max_s"] = json!(0.1);
+    let p = crate::common::problem(s.app.put_reach(&s.keys.admin, REACH, &doc).await, 422).await;
+    assert_eq!(p["field"], "routing.dt_max_s");
+
+    let mut doc = reach_doc();
+    doc["routing"]["output_interval_s"] = json!(1.0);
+    let p = crate::common::problem(s.app.put_reach(&s.keys.admin, REACH, &doc).await, 422).await;
+    assert_eq!(p["field"], "routing.output_interval_s");
+    assert_eq!(p["budget"], "forecast.max_output_values");
+    s.app.stop().await;
+}
