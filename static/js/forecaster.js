@@ -6,7 +6,7 @@
 
 import { $, h, HttpError, readBody } from "./dom.js";
 import { formatTime } from "./format.js";
-import { joinSentences, plainProblem, textKind } from "./panel_text.js";
+import { joinSentences, plainProblem, uploadRequest } from "./panel_text.js";
 import { renderPreviewChart } from "./preview_chart.js";
 
 const KEY_SLOT = "reachcast.key";
@@ -66,15 +66,6 @@ async function checkKey() {
 }
 
 // ---------------------------------------------------------------- upload
-
-/** The request for the text in the box: CSV as it is, a JSON array inside
- * {reason, series} on the same first line, so line numbers do not move. */
-function uploadRequest(reason, text) {
-  if (textKind(text) === "json") {
-    return { query: "", type: "application/json", body: `{"reason": ${JSON.stringify(reason)}, "series": ${text}}` };
-  }
-  return { query: `reason=${encodeURIComponent(reason)}`, type: "text/csv", body: text };
-}
 
 function showRefusal(err, text) {
   $("up-result").textContent = `Not accepted: ${problemText(err, text)}`;

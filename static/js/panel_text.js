@@ -13,6 +13,18 @@ export function textKind(text) {
   return text.trimStart().startsWith("[") ? "json" : "csv";
 }
 
+/**
+ * The request for the text in the box: CSV as it is (reason in the query),
+ * a JSON list inside {"reason", "series"} on the same first line, so the
+ * server's line numbers (JSON syntax errors) are the box's lines too.
+ */
+export function uploadRequest(reason, text) {
+  if (textKind(text) === "json") {
+    return { query: "", type: "application/json", body: `{"reason": ${JSON.stringify(reason)}, "series": ${text}}` };
+  }
+  return { query: `reason=${encodeURIComponent(reason)}`, type: "text/csv", body: text };
+}
+
 /** Lines (1-based) where each CSV record starts; [0] is the header's. */
 export function csvRecordLines(text) {
   const lines = text.split(/\r\n|\n|\r/);

@@ -1169,6 +1169,26 @@ async fn upload_preview_states_the_jump_and_the_list_marks_the_upload_in_force()
         30,
     )
     .await;
+    // The upload in force comes into the box as the API's CSV, to revise.
+    let current = app
+        .get_with(
+            "/api/reaches/brindlemoor/inflows/current",
+            "accept",
+            "text/csv",
+        )
+        .await
+        .text()
+        .await
+        .expect("CSV of the upload in force");
+    b.click("#up-revise").await;
+    let boxed = b
+        .wait_for(
+            "the upload in force in the box",
+            "const v = document.getElementById('up-csv').value; return v.startsWith('time,discharge') ? v : null",
+            30,
+        )
+        .await;
+    assert_eq!(boxed.as_str(), Some(current.as_str()));
     b.js(
         "document.getElementById('up-csv').value = arguments[0]",
         json!([csv]),

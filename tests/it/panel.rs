@@ -283,3 +283,32 @@ async fn keys_self_names_the_key_or_refuses_it() {
     );
     s.app.stop().await;
 }
+
+/// The panel sends a pasted JSON list as `{"reason": …, "series": <the
+/// text>}` with nothing added after the first line, so a syntax error's
+/// line in the problem is the line of the box (the JS side is checked in
+/// tests/js/panel.test.mjs).
+#[tokio::test]
+async fn a_json_syntax_error_names_the_line_as_the_box_counts_it() {
+    let (s, key) = start().await;
+    // Line 3 of the box lacks the comma after the discharge value.
+    let boxed = "[\n {\"time\": \"2026-03-14T06:00:00Z\", \"discharge\": 1},\n {\"time\": \"2026-03-14T07:00:00Z\", \"discharge\": 2 \"x\": 1}\n]";
+    let body = format!("{{\"reason\": \"storm\", \"series\": {boxed}}}");
+    let res = s
+        .app
+        .client
+        .post(
+            s.app
+                .url(&format!("/api/reaches/{REACH}/inflows?dry_run=true")),
+        )
+        .bearer_auth(&key)
+        .header("content-type", "application/json")
+        .body(body)
+        .send()
+        .await
+        .expect("upload");
+    let p = problem(res, 400).await;
+    assert_eq!(p["type"], "/problems/malformed-json", "{p}");
+    assert_eq!(p["line"], 3, "{p}");
+    s.app.stop().await;
+}

@@ -4,7 +4,7 @@
 import { test } from "node:test";
 import assert from "node:assert/strict";
 
-import { csvRecordLines, joinSentences, jsonElementLines, lineOfRow, plainProblem, textKind } from "../../static/js/panel_text.js";
+import { csvRecordLines, joinSentences, jsonElementLines, lineOfRow, plainProblem, textKind, uploadRequest } from "../../static/js/panel_text.js";
 
 const csv = [
   "# storm revision", // line 1: comment
@@ -85,4 +85,18 @@ test("the join is stated in numbers, with a caution above the warning fraction",
   assert.match(s[1], /more than 25 %/);
   assert.match(joinSentences({ ...join, used: false })[0], /would not use/);
   assert.match(joinSentences({ ...join, last_observed: null })[0], /no usable observed flow/);
+});
+
+test("a JSON list is sent inside {reason, series} without moving its lines", () => {
+  const text = '[\n {"time": "2026-03-14T06:00:00Z", "discharge": 1},\n {"time": "2026-03-14T07:00:00Z", "discharge": 2}\n]';
+  const r = uploadRequest('storm "B"\nrevised', text);
+  assert.equal(r.type, "application/json");
+  const body = JSON.parse(r.body);
+  assert.equal(body.reason, 'storm "B"\nrevised');
+  assert.equal(body.series.length, 2);
+  assert.equal(r.body.split("\n").length, text.split("\n").length, "same number of lines");
+  assert.deepEqual(r.body.split("\n").slice(1, -1), text.split("\n").slice(1, -1), "inner lines unchanged");
+  assert.equal(r.body.split("\n").at(-1), "]}", "the last line only gains the closing brace");
+  const csv = uploadRequest("a b", "time,discharge\n");
+  assert.deepEqual([csv.type, csv.query, csv.body], ["text/csv", "reason=a%20b", "time,discharge\n"]);
 });
