@@ -6,11 +6,11 @@ import { renderChart } from "./js/chart.js";
 import { formatChainage, formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
+import { $, h, HttpError, readBody } from "./js/dom.js";
+import { loadUploads, wireForecaster } from "./js/forecaster.js";
 
-const $ = (id) => document.getElementById(id);
 const params = new URLSearchParams(location.search);
 const POLL_MS = Math.max(1000, Number(params.get("poll")) || 30_000);
-const KEY_SLOT = "reachcast.key";
 // /?view=briefing: the print layout on screen (static/briefing.css).
 const BRIEFING = params.get("view") === "briefing";
 // Charts are redrawn this wide for printing: A4 less 12 mm margins each
@@ -30,26 +30,6 @@ const state = {
   misses: 0, // checks in a row that found no forecast to show
 };
 
-function h(tag, attrs = {}, ...children) {
-  const e = document.createElement(tag);
-  for (const [k, v] of Object.entries(attrs)) {
-    if (v == null || v === false) continue;
-    if (k === "class") e.className = v;
-    else if (k === "text") e.textContent = v;
-    else e.setAttribute(k, v === true ? "" : String(v));
-  }
-  for (const c of children) if (c != null) e.append(c);
-  return e;
-}
-
-class HttpError extends Error {
-  constructor(status, problem) {
-    super(problem?.detail || problem?.title || `HTTP ${status}`);
-    this.status = status;
-    this.problem = problem;
-  }
-}
-
 /** GET with If-None-Match; returns { body, changed, at (local ms the body arrived) }. */
 async function getJson(url) {
   const cached = state.etags.get(url);
@@ -63,19 +43,6 @@ async function getJson(url) {
   const at = Date.now();
   if (etag) state.etags.set(url, { etag, body, at });
   return { body, changed: true, at };
-}
-
-async function readBody(res) {
-  const type = res.headers.get("Content-Type") || "";
-  if (type.includes("json")) {
-    try {
-      return await res.json();
-    } catch {
-      return null;
-    }
-  }
-  const text = await res.text();
-  return text ? { detail: text } : null;
 }
 
 function currentReach() {
@@ -422,141 +389,6 @@ function dataTable(p, f, zone) {
   );
 }
 
-// ---------------------------------------------------------------- forecaster
-
-function key() {
-  return sessionStorage.getItem(KEY_SLOT) || "";
-}
-
-function showKeyState() {
-  $("key-state").textContent = key() ? "A key is set for this tab." : "No key set.";
-}
-
-async function call(method, url, { body, type } = {}) {
-  const headers = { Accept: "application/json" };
-  if (key()) headers.Authorization = `Bearer ${key()}`;
-  if (type) headers["Content-Type"] = type;
-  const res = await fetch(url, { method, headers, body, cache: "no-store" });
-  const data = await readBody(res);
-  if (!res.ok) throw new HttpError(res.status, data);
-  return data;
-}
-
-function problemText(err) {
-  if (err instanceof HttpError) {
-    if (err.status === 401) return "The server did not accept the key (missing or unknown). Enter a forecaster key above.";
-    if (err.status === 403) return "This key is not allowed to do that (a forecaster key is needed).";
-    return `${err.message} (HTTP ${err.status})`;
-  }
-  return `Could not reach the server: ${err.message}`;
-}
-
-function busy(button, on) {
-  button.disabled = on;
-  button.setAttribute("aria-busy", on ? "true" : "false");
-}
-
-async function upload(ev) {
-  ev.preventDefault();
-  const btn = $("up-send");
-  const out = $("up-result");
-  $("up-errors").hidden = true;
-  const reason = $("up-reason").value.trim();
-  const csv = $("up-csv").value;
-  if (!reason) {
-    out.textContent = "Give a reason for the upload.";
-    $("up-reason").focus();
-    return;
-  }
-  busy(btn, true);
-  out.textContent = "Uploading…";
-  try {
-    const url = `/api/reaches/${encodeURIComponent(state.reachId)}/inflows?reason=${encodeURIComponent(reason)}`;
-    const r = await call("POST", url, { body: csv, type: "text/csv" });
-    out.textContent = `Accepted: inflow version ${r.version} (${r.points} rows).`;
-    loadUploads();
-    if ($("up-run").checked) await runNow();
-  } catch (err) {
-    out.textContent = `Not accepted: ${problemText(err)}`;
-    const errors = err instanceof HttpError ? err.problem?.errors : null;
-    if (Array.isArray(errors) && errors.length) {
-      $("up-errors-body").replaceChildren(
-        ...errors.map((e) => h("tr", {}, h("td", { class: "num", text: e.row ?? "–" }), h("td", { text: e.field ?? "–" }), h("td", { text: e.message ?? "" }))),
-      );
-      $("up-errors").hidden = false;
-    }
-  } finally {
-    busy(btn, false);
-  }
-}
-
-async function runNow() {
-  const btn = $("run-now");
-  const out = $("run-result");
-  busy(btn, true);
-  out.textContent = "Running… (this waits for the run to finish)";
-  try {
-    const r = await call("POST", `/api/reaches/${encodeURIComponent(state.reachId)}/runs?wait=true`);
-    out.textContent = r.status === "ok" ? `Run #${r.run_id} finished; the page now shows it.` : `Run #${r.run_id} failed: ${r.error ?? "no detail"}`;
-    await refresh();
-  } catch (err) {
-    out.textContent = `Run not started: ${problemText(err)}`;
-  } finally {
-    busy(btn, false);
-  }
-}
-
-async function loadUploads() {
-  if (!state.reachId) return;
-  const body = $("uploads-body");
-  try {
-    const r = await call("GET", `/api/reaches/${encodeURIComponent(state.reachId)}/inflows`);
-    const zone = currentReach()?.time_zone;
-    const list = r.uploads || [];
-    if (!list.length) {
-      body.replaceChildren(h("tr", {}, h("td", { colspan: 6, class: "muted", text: "No uploads for this reach." })));
-      return;
-    }
-    body.replaceChildren(
-      ...list.map((u) => {
-        const cell = h("td", {});
-        if (u.withdrawn) cell.append("withdrawn");
-        else cell.append(withdrawButton(u.version, cell));
-        return h("tr", { "data-version": u.version }, h("td", { class: "num", text: `v${u.version}` }), h("td", { text: formatTime(u.uploaded_at, zone) }), h("td", { text: u.uploaded_by }), h("td", { text: u.reason }), h("td", { class: "num", text: u.points }), cell);
-      }),
-    );
-  } catch (err) {
-    body.replaceChildren(h("tr", {}, h("td", { colspan: 6, text: problemText(err) })));
-  }
-}
-
-function withdrawButton(version, cell) {
-  const b = h("button", { type: "button", class: "withdraw", text: `Withdraw v${version}…` });
-  b.addEventListener("click", () => {
-    const yes = h("button", { type: "button", class: "danger", text: `Yes, withdraw v${version}` });
-    const no = h("button", { type: "button", text: "Keep it" });
-    no.addEventListener("click", () => {
-      cell.replaceChildren(withdrawButton(version, cell));
-      cell.querySelector("button")?.focus();
-    });
-    yes.addEventListener("click", async () => {
-      busy(yes, true);
-      try {
-        await call("POST", `/api/reaches/${encodeURIComponent(state.reachId)}/inflows/${version}/withdraw`);
-        $("up-result").textContent = `Withdrew inflow version ${version}. Run the forecast to use the change.`;
-        await loadUploads();
-      } catch (err) {
-        cell.replaceChildren(`Not withdrawn: ${problemText(err)}`);
-      }
-    });
-    cell.replaceChildren(yes, " ", no);
-    yes.focus();
-  });
-  return b;
-}
-
-// ---------------------------------------------------------------- briefing
-
 /** The briefing view and printing: one stylesheet serves both. */
 function setupBriefing() {
   if (BRIEFING) {
@@ -588,28 +420,7 @@ function wire() {
     });
   }
   $("controls").addEventListener("submit", (e) => e.preventDefault());
-  $("key-form").addEventListener("submit", (e) => {
-    e.preventDefault();
-    const v = $("key-input").value.trim();
-    if (v) sessionStorage.setItem(KEY_SLOT, v);
-    $("key-input").value = "";
-    showKeyState();
-    loadUploads();
-  });
-  $("key-forget").addEventListener("click", () => {
-    sessionStorage.removeItem(KEY_SLOT);
-    showKeyState();
-  });
-  $("upload-form").addEventListener("submit", upload);
-  $("up-file").addEventListener("change", async (e) => {
-    const file = e.target.files?.[0];
-    if (file) $("up-csv").value = await file.text();
-  });
-  $("run-now").addEventListener("click", runNow);
-  $("uploads-refresh").addEventListener("click", loadUploads);
-  $("forecaster").addEventListener("toggle", (e) => {
-    if (e.target.open) loadUploads();
-  });
+  wireForecaster({ reachId: () => state.reachId, zone: () => currentReach()?.time_zone, refresh });
   let resizeTimer = null;
   let lastWidth = $("charts").clientWidth;
   window.addEventListener("resize", () => {
@@ -622,7 +433,6 @@ function wire() {
       }
     }, 150);
   });
-  showKeyState();
 }
 
 setupBriefing();

@@ -70,6 +70,9 @@ impl<P> RequireRole<P> {
     }
 }
 
+/// Extractor: any valid key, whatever its role (401 without one).
+pub struct Authenticated(pub Caller);
+
 /// Extractor for reads: the caller if a key was given; a key is required
 /// only when `auth.public_reads` is false.
 pub struct ReadAccess(pub Option<Caller>);
@@ -163,5 +166,16 @@ impl FromRequestParts<AppState> for ReadAccess {
             ));
         }
         Ok(ReadAccess(caller))
+    }
+}
+
+impl FromRequestParts<AppState> for Authenticated {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        authenticate(parts, state)
+            .await?
+            .map(Authenticated)
+            .ok_or_else(|| unauthorized("this endpoint needs `Authorization: Bearer <key>`"))
     }
 }

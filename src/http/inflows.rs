@@ -5,7 +5,14 @@
 //!   `text/csv` with a `time,discharge` header and `?reason=...`. The whole
 //!   upload is accepted or refused: a forecast hydrograph with a bad row is
 //!   not a forecast. A refusal lists every bad row in `errors`.
-//! - `GET /api/reaches/{reach}/inflows`: every upload, newest first.
+//!   With `?dry_run=true` the upload is checked and joined to the observed
+//!   inflow as the next run would join it, and the join is reported;
+//!   nothing is stored.
+//! - `GET /api/reaches/{reach}/inflows`: every upload, newest first, the one
+//!   in force marked.
+//! - `GET /api/reaches/{reach}/inflows/{version}` (`current` for the one in
+//!   force): its series as JSON, or as the upload's own CSV
+//!   (`format=csv` or `Accept: text/csv`).
 //! - `POST /api/reaches/{reach}/inflows/{version}/withdraw` (forecaster).
 //!
 //! Each upload is a new version; the newest one not withdrawn is used by
@@ -25,7 +32,8 @@ use super::{
     AppState,
     auth::{Forecasting, ReadAccess, RequireRole},
     error::{ApiError, Problem, parse_json},
-    query::Params,
+    inflow_csv::csv_of,
+    query::{Format, Params, vary_accept},
 };
 use crate::{
     CAUTION,
@@ -40,6 +48,7 @@ use crate::{
 pub fn router() -> Router<AppState> {
     Router::new()
         .route("/reaches/{reach}/inflows", get(list).post(upload))
+        .route("/reaches/{reach}/inflows/{version}", get(one))
         .route(
             "/reaches/{reach}/inflows/{version}/withdraw",
             post(withdraw),
@@ -61,6 +70,14 @@ struct UploadBody {
 #[serde(deny_unknown_fields)]
 struct UploadParams {
     reason: Option<String>,
+    dry_run: Option<bool>,
+}
+
+/// Query parameters of a download.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct OneParams {
+    format: Option<Format>,
 }
 
 /// The one problem for an upload refused row by row: every bad row listed
@@ -132,6 +149,18 @@ async fn upload(
     if series.len() > MAX_POINTS {
         return Err(Problem::invalid("series", format!("at most {MAX_POINTS} samples")).into());
     }
+    if params.dry_run == Some(true) {
+        let join = state
+            .forecaster
+            .preview_join(&reach, &series)
+            .await
+            .map_err(|e| ApiError::Internal(anyhow::anyhow!(e)))?;
+        return Ok(Json(serde_json::json!({
+            "caution": CAUTION, "reach": reach, "dry_run": true, "stored": false,
+            "points": series.len(), "series": series, "join": join,
+        }))
+        .into_response());
+    }
     let version = state
         .store
         .insert_upload(&reach, &series, &reason, auth.caller().key_id())
@@ -151,6 +180,8 @@ struct UploadView<'a> {
     #[serde(with = "crate::wire_time")]
     uploaded_at: chrono::DateTime<chrono::Utc>,
     uploaded_by: &'a str,
+    uploaded_by_name: Option<&'a str>,
+    in_force: bool,
     reason: &'a str,
     withdrawn: bool,
     #[serde(with = "crate::wire_time::option")]
@@ -164,6 +195,8 @@ impl<'a> UploadView<'a> {
             version: u.version,
             uploaded_at: u.uploaded_at,
             uploaded_by: &u.uploaded_by,
+            uploaded_by_name: u.uploaded_by_name.as_deref(),
+            in_force: u.in_force,
             reason: &u.reason,
             withdrawn: u.withdrawn,
             withdrawn_at: u.withdrawn_at,
@@ -184,6 +217,64 @@ async fn list(
         Json(serde_json::json!({"caution": CAUTION, "reach": reach, "uploads": uploads}))
             .into_response(),
     )
+}
+
+/// `current` or a version number.
+async fn find_upload(
+    state: &AppState,
+    reach: &str,
+    version: &str,
+) -> Result<InflowUpload, ApiError> {
+    let found = if version == "current" {
+        state.store.newest_upload(reach).await?
+    } else {
+        let v: i64 = version.parse().map_err(|_| {
+            Problem::invalid(
+                "version",
+                format!("`{version}` is neither a version number nor `current`"),
+            )
+        })?;
+        state.store.upload(reach, v).await?
+    };
+    found.ok_or_else(|| {
+        Problem::missing(
+            "version",
+            format!("reach `{reach}` has no upload `{version}`"),
+        )
+        .into()
+    })
+}
+
+async fn one(
+    _: ReadAccess,
+    State(state): State<AppState>,
+    Path((reach, version)): Path<(String, String)>,
+    headers: HeaderMap,
+    Params(params): Params<OneParams>,
+) -> Result<Response, ApiError> {
+    super::reaches::find_reach(&state, &reach).await?;
+    let u = find_upload(&state, &reach, &version).await?;
+    let mut response = if Format::choose(params.format, &headers) == Format::Csv {
+        let name = format!("attachment; filename=\"{reach}-inflow-v{}.csv\"", u.version);
+        (
+            [
+                (
+                    header::CONTENT_TYPE,
+                    "text/csv; charset=utf-8; header=present".to_owned(),
+                ),
+                (header::CONTENT_DISPOSITION, name),
+            ],
+            csv_of(&u.series),
+        )
+            .into_response()
+    } else {
+        Json(serde_json::json!({
+            "caution": CAUTION, "reach": reach, "upload": UploadView::of(&u), "series": u.series,
+        }))
+        .into_response()
+    };
+    vary_accept(response.headers_mut());
+    Ok(response)
 }
 
 async fn withdraw(

@@ -15,7 +15,9 @@ pub mod exceedances;
 pub mod forecast;
 pub mod gauges;
 pub mod health;
+pub mod inflow_csv;
 pub mod inflows;
+pub mod keys;
 pub mod openapi;
 pub mod profile;
 pub mod query;
@@ -119,6 +121,7 @@ pub fn router(state: AppState) -> Router {
         .merge(runs::router())
         .merge(exceedances::router())
         .merge(inflows::router())
+        .merge(keys::router())
         .merge(cap::router())
         .merge(openapi::router())
         .fallback(any(|OriginalUri(uri): OriginalUri| error::not_found(uri)));

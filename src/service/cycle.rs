@@ -26,7 +26,7 @@ use crate::{
 type Observed = Result<(Vec<Reading>, GaugeBasis), String>;
 
 impl Forecaster {
-    fn rules(&self) -> Rules {
+    pub(super) fn rules(&self) -> Rules {
         let c = &self.inner.config;
         let minutes =
             |m: u64| chrono::Duration::minutes(i64::try_from(m).unwrap_or(i64::MAX / 60_000));
@@ -186,7 +186,7 @@ impl Forecaster {
 
     /// Observed readings of the upstream gauge and how to turn them into
     /// discharge; `Err` says why the gauge cannot be used.
-    async fn observed(
+    pub(super) async fn observed(
         &self,
         spec: &ReachSpec,
         now: DateTime<Utc>,

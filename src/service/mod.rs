@@ -8,5 +8,6 @@ pub mod alerts;
 pub mod board;
 mod cycle;
 pub mod forecaster;
+pub mod preview;
 
 pub use forecaster::{CycleError, Forecaster, RunSummary};

@@ -32,6 +32,28 @@ pub struct InflowUpload {
     pub withdrawn: bool,
     pub withdrawn_at: Option<DateTime<Utc>>,
     pub series: Hydrograph,
+    /// The name of the key that uploaded it (`None` if the key is gone).
+    pub uploaded_by_name: Option<String>,
+    /// Whether this is the upload in force: the one the next run uses.
+    pub in_force: bool,
+}
+
+/// `SELECT` of uploads as `upload_from_row` reads them, from
+/// `inflow_forecasts f` with the reach bound as `?1`, then `$tail`. The
+/// upload in force is the newest one not withdrawn: the `in_force` column
+/// is the one home of that rule, used by the list and by `newest_upload`
+/// (which the forecast cycle reads).
+macro_rules! select_uploads {
+    ($tail:literal) => {
+        concat!(
+            "SELECT f.id, f.version, f.uploaded_at, f.uploaded_by, f.reason, f.withdrawn,
+                    f.withdrawn_at, f.series, k.name AS uploaded_by_name,
+                    f.version IS (SELECT MAX(version) FROM inflow_forecasts
+                                  WHERE reach_id = ?1 AND withdrawn = 0) AS in_force
+             FROM inflow_forecasts f LEFT JOIN api_keys k ON k.id = f.uploaded_by ",
+            $tail
+        )
+    };
 }
 
 fn corrupt(what: &str, e: impl std::fmt::Display) -> StoreError {
@@ -236,26 +258,35 @@ impl Store {
 
     /// Every upload of a reach, newest first.
     pub async fn uploads(&self, reach_id: &str) -> Result<Vec<InflowUpload>, StoreError> {
-        let rows = sqlx::query(
-            "SELECT id, version, uploaded_at, uploaded_by, reason, withdrawn, withdrawn_at, series
-             FROM inflow_forecasts WHERE reach_id = ?1 ORDER BY version DESC",
-        )
+        let rows = sqlx::query(select_uploads!(
+            "WHERE f.reach_id = ?1 ORDER BY f.version DESC"
+        ))
         .bind(reach_id)
         .fetch_all(&self.pool)
         .await?;
         rows.iter().map(upload_from_row).collect()
     }
 
-    /// The newest upload that has not been withdrawn.
+    /// The upload in force: the newest one that has not been withdrawn.
     pub async fn newest_upload(&self, reach_id: &str) -> Result<Option<InflowUpload>, StoreError> {
-        let row = sqlx::query(
-            "SELECT id, version, uploaded_at, uploaded_by, reason, withdrawn, withdrawn_at, series
-             FROM inflow_forecasts WHERE reach_id = ?1 AND withdrawn = 0
-             ORDER BY version DESC LIMIT 1",
-        )
-        .bind(reach_id)
-        .fetch_optional(&self.pool)
-        .await?;
+        let row = sqlx::query(select_uploads!("WHERE f.reach_id = ?1 AND in_force"))
+            .bind(reach_id)
+            .fetch_optional(&self.pool)
+            .await?;
+        row.as_ref().map(upload_from_row).transpose()
+    }
+
+    /// One upload of a reach by version, withdrawn or not.
+    pub async fn upload(
+        &self,
+        reach_id: &str,
+        version: i64,
+    ) -> Result<Option<InflowUpload>, StoreError> {
+        let row = sqlx::query(select_uploads!("WHERE f.reach_id = ?1 AND f.version = ?2"))
+            .bind(reach_id)
+            .bind(version)
+            .fetch_optional(&self.pool)
+            .await?;
         row.as_ref().map(upload_from_row).transpose()
     }
 
@@ -408,6 +439,8 @@ fn upload_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<InflowUpload, StoreE
             row.try_get("withdrawn_at")?,
         )?,
         series: serde_json::from_str(&series).map_err(|e| corrupt("inflow_forecasts.series", e))?,
+        uploaded_by_name: row.try_get("uploaded_by_name")?,
+        in_force: row.try_get::<i64, _>("in_force")? != 0,
     })
 }
 

@@ -954,6 +954,13 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
         5,
     )
     .await;
+    // The key is checked when entered and named (`make_key` names it).
+    b.wait_for(
+        "the key accepted by name",
+        "const t = document.getElementById('key-state').textContent; return t.startsWith('Key accepted: test forecaster') ? t : null",
+        30,
+    )
+    .await;
 
     // A CSV with two bad rows: every bad row is listed.
     let t = |h: i64| {
@@ -976,6 +983,21 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
         .await;
     let errs = errs.as_array().expect("error rows");
     assert!(errs.len() >= 2, "both bad rows listed: {errs:?}");
+    // Numbered as the box counts lines (header on line 1: rows 2 and 3 of
+    // the data are lines 3 and 4), in plain words.
+    assert_eq!(errs[0][0], "3", "{errs:?}");
+    assert_eq!(errs[1][0], "4", "{errs:?}");
+    assert!(
+        errs[0][2]
+            .as_str()
+            .unwrap_or_default()
+            .starts_with("Line 3: the time"),
+        "{errs:?}"
+    );
+    assert!(
+        !json!(errs).to_string().contains("RFC"),
+        "no jargon: {errs:?}"
+    );
     b.screenshot("upload-errors.png", Some("#forecaster")).await;
 
     // A much larger inflow from now on: the forecast crest must rise.
@@ -992,6 +1014,7 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
     b.type_into("#up-reason", "test: revised upstream storm")
         .await;
     b.click("#up-send").await;
+    confirm_preview(&b).await;
     let new_run = b
         .wait_for(
             "the next forecast run on the page",
@@ -1111,8 +1134,160 @@ async fn forecaster_upload_through_the_panel_changes_the_next_forecast() {
     // The 422 answer to the malformed upload is expected in the browser's
     // log (Chromium logs every non-2xx fetch); nothing else is.
     let errors = b
-        .page_errors(&["inflows?reason=test%3A%20malformed%20rows - Failed to load resource: the server responded with a status of 422"])
+        .page_errors(&["inflows?reason=test%3A%20malformed%20rows&dry_run=true - Failed to load resource: the server responded with a status of 422"])
         .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    app.stop().await;
+}
+
+/// Waits for the upload preview (the dry run's join) and confirms it.
+async fn confirm_preview(b: &Browser) -> String {
+    let jump = b
+        .wait_for(
+            "the preview of the join",
+            "const p = document.getElementById('up-preview'); return p.hidden ? null : document.getElementById('up-jump').textContent",
+            60,
+        )
+        .await;
+    b.click("#up-confirm").await;
+    jump.as_str().unwrap_or_default().to_owned()
+}
+
+/// The panel states the jump at the join in numbers before anything is
+/// stored, draws the three inflows, and after confirmation marks the new
+/// upload as the one in force, by the key's name.
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn upload_preview_states_the_jump_and_the_list_marks_the_upload_in_force() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (app, key) = demo_app(dir.path(), quiet_replay).await;
+    let before = wait_for_forecast(&app, &key).await;
+    let now = chrono::DateTime::parse_from_rfc3339(before["now"].as_str().expect("now"))
+        .expect("RFC 3339 now")
+        .with_timezone(&chrono::Utc);
+    let t = |h: i64| {
+        (now + chrono::Duration::hours(h)).to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
+    };
+    // Starts an hour after the last reading: it meets it with its first value.
+    let csv = format!(
+        "time,discharge\n{},450\n{},300\n{},120\n",
+        t(1),
+        t(6),
+        t(30)
+    );
+    // The API's own dry run of the same text gives the observed side.
+    let res = app
+        .client
+        .post(app.url("/api/reaches/brindlemoor/inflows?reason=check&dry_run=true"))
+        .bearer_auth(&key)
+        .header("content-type", "text/csv")
+        .body(csv.clone())
+        .send()
+        .await
+        .expect("dry run");
+    let dry: Value = res.json().await.expect("dry run JSON");
+    let q_obs = dry["join"]["last_observed"]["discharge"]
+        .as_f64()
+        .unwrap_or_else(|| panic!("an observed flow: {dry}"));
+    // Hand arithmetic: |450 - q| / max(450, q), in per cent to one decimal.
+    let pct = format!(
+        "({:.1} %)",
+        100.0 * (450.0 - q_obs).abs() / q_obs.max(450.0)
+    );
+    let (_, list) = app.get_json("/api/reaches/brindlemoor/inflows").await;
+    let count = list["uploads"].as_array().map_or(0, Vec::len);
+
+    let b = Browser::start().await;
+    b.goto(&app.url("/")).await;
+    b.click("#forecaster > summary").await;
+    b.type_into("#key-input", &key).await;
+    b.click("#key-save").await;
+    b.wait_for(
+        "the key accepted",
+        "return document.getElementById('key-state').textContent.startsWith('Key accepted') || null",
+        30,
+    )
+    .await;
+    // The upload in force comes into the box as the API's CSV, to revise.
+    let current = app
+        .get_with(
+            "/api/reaches/brindlemoor/inflows/current",
+            "accept",
+            "text/csv",
+        )
+        .await
+        .text()
+        .await
+        .expect("CSV of the upload in force");
+    b.click("#up-revise").await;
+    let boxed = b
+        .wait_for(
+            "the upload in force in the box",
+            "const v = document.getElementById('up-csv').value; return v.startsWith('time,discharge') ? v : null",
+            30,
+        )
+        .await;
+    assert_eq!(boxed.as_str(), Some(current.as_str()));
+    b.js(
+        "document.getElementById('up-csv').value = arguments[0]",
+        json!([csv]),
+    )
+    .await;
+    b.js(
+        "document.getElementById('up-run').checked = false",
+        json!([]),
+    )
+    .await;
+    b.type_into("#up-reason", "test: preview then confirm")
+        .await;
+    b.click("#up-send").await;
+    let jump = b
+        .wait_for(
+            "the jump stated before sending",
+            "const p = document.getElementById('up-preview'); return p.hidden ? null : document.getElementById('up-jump').textContent",
+            60,
+        )
+        .await;
+    let jump = jump.as_str().unwrap_or_default();
+    assert!(jump.contains("to 450 m³/s in the new inflow"), "{jump}");
+    assert!(jump.contains(&pct), "{jump} should say {pct}");
+    let paths = b
+        .eval("return document.querySelectorAll('#up-chart svg path').length")
+        .await;
+    assert_eq!(paths, 3, "observed, in force and new inflow drawn");
+    // Nothing is stored until the hydrologist confirms.
+    let (_, still) = app.get_json("/api/reaches/brindlemoor/inflows").await;
+    assert_eq!(still["uploads"].as_array().map_or(0, Vec::len), count);
+    b.screenshot("upload-preview.png", Some("#forecaster"))
+        .await;
+    b.click("#up-confirm").await;
+
+    let marked = b
+        .wait_for(
+            "the new upload marked in force",
+            &format!(
+                "const r = [...document.querySelectorAll('#uploads-body tr.in-force')]; return r.length === 1 && Number(r[0].dataset.version) > {count} ? [r[0].dataset.version, r[0].innerText] : null"
+            ),
+            30,
+        )
+        .await;
+    let (_, after) = app.get_json("/api/reaches/brindlemoor/inflows").await;
+    let in_force: Vec<&Value> = after["uploads"]
+        .as_array()
+        .expect("uploads")
+        .iter()
+        .filter(|u| u["in_force"] == true)
+        .collect();
+    assert_eq!(in_force.len(), 1, "{after}");
+    assert_eq!(marked[0], in_force[0]["version"].to_string(), "{marked}");
+    let row = marked[1].as_str().unwrap_or_default();
+    assert!(
+        row.contains("in force") && row.contains("test forecaster"),
+        "{row}"
+    );
+    let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
     app.stop().await;

@@ -1,5 +1,6 @@
 //! Runs the dashboard's JavaScript unit tests (chart scales and ticks, time
-//! formatting, status wording) with Node's built-in test runner, so that
+//! formatting, status wording, the forecaster panel's line numbers and plain
+//! words) with Node's built-in test runner, so that
 //! `cargo test` covers them. Needs `node` (18 or newer) on the PATH.
 
 use std::process::Command;

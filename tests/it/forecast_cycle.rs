@@ -832,7 +832,10 @@ async fn costly_or_unrunnable_numbers_are_refused_at_put() {
     let s = setup(60, 600_000).await;
     let mut doc = reach_doc();
     doc["routing"]["dt_max_s"] = json!(30.0);
-    assert_eq!(s.app.put_reach(&s.keys.admin, REACH, &doc).await.status(), 200);
+    assert_eq!(
+        s.app.put_reach(&s.keys.admin, REACH, &doc).await.status(),
+        200
+    );
     post_readings(&s, &rising(Utc::now(), 3, 20.0, 50.0)).await;
     let r = run_now(&s).await;
     assert_eq!(r["status"], "ok", "{r}");

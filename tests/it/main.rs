@@ -20,4 +20,5 @@ mod forecast_cycle;
 mod foundation;
 mod ingest;
 mod openapi;
+mod panel;
 mod route_command;
