@@ -3,6 +3,7 @@
 // when an answer changed.
 
 import { renderChart } from "./js/chart.js";
+import { crossingRows } from "./js/crossings.js";
 import { formatChainage, formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
@@ -360,6 +361,10 @@ function swatch(kind) {
   if (kind === "threshold") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#8a5a00", "stroke-width": 1.25 });
   if (kind === "structure") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#4d5b6a", "stroke-width": 2 });
   if (kind === "now") add("line", { x1: 14, x2: 14, y1: 0, y2: 12, stroke: "#1f4f8a", "stroke-width": 2 });
+  if (kind === "crossing") {
+    add("circle", { cx: 7, cy: 6, r: 3.5, fill: "#1d2733", stroke: "#1d2733", "stroke-width": 1.5 });
+    add("circle", { cx: 21, cy: 6, r: 3.5, fill: "#ffffff", stroke: "#1d2733", "stroke-width": 1.5 });
+  }
   if (kind === "crest") add("path", { d: "M14,0l6,6l-6,6l-6,-6z", fill: "#b03a12" });
   return s;
 }
@@ -372,6 +377,7 @@ function legend(p) {
     p.low_chord != null || p.deck != null ? ["structure", "low chord / deck"] : null,
     ["now", "now"],
     ["crest", "forecast crest"],
+    levelsOf(p).some((l) => l.exceeded) ? ["crossing", "rises above (●) / back below (○) a level"] : null,
   ].filter(Boolean);
   return h("ul", { class: "legend", "aria-label": "Chart key" }, ...items.map(([k, t]) => h("li", {}, swatch(k), ` ${t}`)));
 }
@@ -419,7 +425,20 @@ function dataTable(p, f, zone) {
         h("tbody", {}, ...body),
       ),
     ),
+    crossingTable(p, f, zone),
   );
+}
+
+/** When the forecast rises above and falls back below each level. */
+function crossingTable(p, f, zone) {
+  const rows = crossingRows(levelsOf(p), zone);
+  const caption = h("caption", { text: `Level crossings at ${p.name}; times in ${zone}` });
+  if (!rows.length) return h("p", { class: "muted crossings-none", text: `No level crossed at ${p.name} from now on.` });
+  const head = ["Level", `Elevation (${f.units.elevation})`, "Above from", "Back below"].map((c) => h("th", { scope: "col", text: c }));
+  const body = rows.map((r) =>
+    h("tr", { "data-level": r.id }, h("th", { scope: "row", text: r.name }), h("td", { class: "num", text: r.elevation.toFixed(2) }), h("td", { text: r.above }), h("td", { text: r.below })),
+  );
+  return h("div", { class: "table-wrap" }, h("table", { class: "crossings" }, caption, h("thead", {}, h("tr", {}, ...head)), h("tbody", {}, ...body)));
 }
 
 // ---------------------------------------------------------------- forecaster

@@ -1,7 +1,9 @@
 // A small hydrograph chart: scales and ticks (pure, unit tested with
 // node --test) and an inline-SVG renderer that takes the document to draw in.
 
+import { crossingMarks, drawCrossings } from "./crossings.js";
 import { HOUR, formatClock, formatDay, formatLevel, offsetLabel, offsetMinutes, toMs, wallClock } from "./format.js";
+import { el, pathOf } from "./svg.js";
 
 /**
  * A "nice" step for covering `span` with about `target` intervals: 1, 2 or
@@ -154,29 +156,24 @@ export function spreadLabels(ys, gap, top, bottom) {
   return out;
 }
 
-const SVGNS = "http://www.w3.org/2000/svg";
-
-function el(doc, name, attrs, parent, text) {
-  const e = doc.createElementNS(SVGNS, name);
-  for (const [k, v] of Object.entries(attrs)) e.setAttribute(k, String(v));
-  if (text != null) e.textContent = text;
-  if (parent) parent.appendChild(e);
-  return e;
-}
-
-function pathOf(xs, ys, x, y) {
-  let d = "";
-  let pen = false;
-  for (let i = 0; i < xs.length; i += 1) {
-    const v = ys[i];
-    if (v == null || !Number.isFinite(v) || !Number.isFinite(xs[i])) {
-      pen = false;
-      continue;
-    }
-    d += `${pen ? "L" : "M"}${x(xs[i]).toFixed(1)},${y(v).toFixed(1)}`;
-    pen = true;
+/**
+ * The lines a hydrograph draws: the user's thresholds, then the low chord
+ * and deck (from the point's own fields, drawn as a structure). Each
+ * carries the API's level as `source` (when the answer has levels), for
+ * its crossing times.
+ */
+export function chartLevels(point) {
+  const levels = [];
+  const api = point.levels || point.thresholds || [];
+  for (const th of api) {
+    if (!th.kind || th.kind === "threshold") levels.push({ kind: "threshold", label: th.name, value: th.elevation, severity: th.severity, source: th });
   }
-  return d;
+  const structure = (kind, label, value) => {
+    if (value != null) levels.push({ kind: "structure", label, value, source: api.find((l) => l.kind === kind) });
+  };
+  structure("low_chord", "low chord", point.low_chord);
+  structure("deck", "deck", point.deck);
+  return levels;
 }
 
 /**
@@ -194,14 +191,7 @@ export function renderChart(doc, point, ctx) {
   const times = (point.times || []).map(toMs);
   const stage = point.stage || [];
   const obs = (point.observed || []).map((o) => [toMs(o.time), o.stage]);
-  const levels = [];
-  // Low chord and deck come from the point's own fields below (drawn as a
-  // structure), so only the user's thresholds are taken from the levels.
-  for (const th of point.levels || point.thresholds || []) {
-    if (!th.kind || th.kind === "threshold") levels.push({ kind: "threshold", label: th.name, value: th.elevation, severity: th.severity });
-  }
-  if (point.low_chord != null) levels.push({ kind: "structure", label: "low chord", value: point.low_chord });
-  if (point.deck != null) levels.push({ kind: "structure", label: "deck", value: point.deck });
+  const levels = chartLevels(point);
 
   const allT = times.concat(obs.map((o) => o[0])).filter(Number.isFinite);
   if (Number.isFinite(nowMs)) allT.push(nowMs);
@@ -262,7 +252,7 @@ export function renderChart(doc, point, ctx) {
   el(doc, "text", { x: width - m.right, y: height - 4, "text-anchor": "end", class: "axis-title" }, axis, `Time (${zoneLabel(ctx.zone, nowMs)})`);
 
   // Threshold and structure lines, labelled at the right.
-  const labelBoxes = drawLevels(doc, svg, levels, { x0: m.left, x1: width - m.right, top: m.top, bottom: height - m.bottom, y, yt, unit });
+  const levelBoxes = drawLevels(doc, svg, levels, { x0: m.left, x1: width - m.right, top: m.top, bottom: height - m.bottom, y, yt, unit });
 
   // Series: model stage dashed, observed solid on top of it.
   // A zoomed axis cuts the series off at the plot's edges.
@@ -272,6 +262,12 @@ export function renderChart(doc, point, ctx) {
   if (fcPath) el(doc, "path", { d: fcPath, fill: "none", stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5", class: "series-forecast", ...clip }, svg);
   const obsPath = pathOf(obs.map((o) => o[0]), obs.map((o) => o[1]), x, y);
   if (obsPath) el(doc, "path", { d: obsPath, fill: "none", stroke: "#1d2733", "stroke-width": 2.5, class: "series-observed", ...clip }, svg);
+
+  // On top of the series: where the forecast rises above and falls back below each level.
+  const inView = levels.filter((l) => l.value >= yt.min && l.value <= yt.max);
+  const plotBox = { left: m.left, right: width - m.right, top: m.top, bottom: height - m.bottom };
+  const markBoxes = drawCrossings(doc, svg, crossingMarks(inView, t0, t1), { x, y, box: plotBox, blocked: levelBoxes, zone: ctx.zone, unit });
+  const labelBoxes = levelBoxes.concat(markBoxes);
 
   // Now line.
   if (Number.isFinite(nowMs)) {

@@ -1640,3 +1640,144 @@ async fn briefing_view_and_print_fit_a4_without_the_forecaster_tools() {
     drop(b);
     app.stop().await;
 }
+
+/// The bridge reach with readings at 40 m³/s up to now and an upload
+/// rising to 400 m³/s four hours ahead, holding four hours and falling
+/// back to 20 m³/s at sixteen (as in `bridge_levels.rs`: by Manning's
+/// formula the crest passes the low chord, 19.5 m, and falls back below it
+/// within the forecast); run, and the forecast it served.
+async fn bridge_app_flooded() -> (ReachApp, Value) {
+    let s = bridge_app_without_forecast().await;
+    let now = chrono::Utc::now();
+    let readings: Vec<Value> = (0..=12)
+        .map(|k| {
+            let t = now - chrono::Duration::minutes(15 * (12 - k));
+            json!({"time": t.to_rfc3339(), "discharge": 40.0, "quality": "good"})
+        })
+        .collect();
+    let body = json!({ "readings": readings });
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &body)
+            .await,
+    )
+    .await;
+    let h = |x: i64| (now + chrono::Duration::hours(x)).to_rfc3339();
+    let series = [(0, 40.0), (4, 400.0), (8, 400.0), (16, 20.0), (48, 20.0)];
+    let upload = json!({
+        "reason": "invented flood over the low chord",
+        "series": series.iter().map(|(t, q)| json!({"time": h(*t), "discharge": q})).collect::<Vec<_>>(),
+    });
+    let res = s
+        .app
+        .post_inflow(&s.keys.forecaster, "test-reach", &upload)
+        .await;
+    assert_eq!(res.status(), 201, "upload accepted");
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200, "run finished");
+    let (status, f) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    assert_eq!(status, 200);
+    (s, f)
+}
+
+/// An RFC 3339 time as the overview writes it, "Sat 15:10", on the
+/// +01:00 clock of `bridge_reach`: formatted here with chrono, not with
+/// the page's code.
+fn weekday_clock_plus_one(t: &Value) -> String {
+    let zone = chrono::FixedOffset::east_opt(3600).expect("+01:00");
+    chrono::DateTime::parse_from_rfc3339(t.as_str().expect("a time"))
+        .expect("RFC 3339")
+        .with_timezone(&zone)
+        .format("%a %H:%M")
+        .to_string()
+}
+
+/// Script: the overview row's "When" text and the chart's crossing marks
+/// of level `arguments[0]` (time, label, title, label inside the svg).
+const CROSSING_STATE: &str = r#"
+const row = document.querySelector('#overview-body tr');
+const svg = document.querySelector('svg.chart');
+const box = svg.getBoundingClientRect();
+const marks = [...svg.querySelectorAll(`.crossing[data-level="${arguments[0]}"]`)].map(g => {
+  const t = g.querySelector('text'); const r = t && t.getBoundingClientRect();
+  return { dir: g.classList.contains('crossing-up') ? 'up' : 'down', time: g.dataset.time,
+    label: t ? t.textContent : null, title: g.querySelector('title').textContent,
+    inside: !!r && r.left >= box.left - 0.5 && r.right <= box.right + 0.5 && r.top >= box.top - 0.5 && r.bottom <= box.bottom + 0.5 };
+});
+const table = [...document.querySelectorAll(`table.crossings tr[data-level="${arguments[0]}"] td`)].map(td => td.textContent);
+return { when: row.querySelector('td[data-label="When"]').textContent, marks, table };
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn a_bridge_whose_crest_passes_the_low_chord_shows_its_crossing_time_and_reopening_time() {
+    let _one = BROWSER.lock().await;
+    let (s, f) = bridge_app_flooded().await;
+    let lc = f["points"][0]["levels"]
+        .as_array()
+        .expect("levels")
+        .iter()
+        .find(|l| l["id"] == "low_chord")
+        .expect("a low chord level")
+        .clone();
+    assert_eq!(lc["exceeded"], true, "the flood passes the low chord: {lc}");
+    let (up, down) = (
+        weekday_clock_plus_one(&lc["first_above"]),
+        weekday_clock_plus_one(&lc["back_below"]),
+    );
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/")).await;
+    b.wait_for(
+        "the bridge's row and chart",
+        "return document.querySelector('#overview-body tr') && document.querySelector('svg.chart .crossing')",
+        30,
+    )
+    .await;
+    let state = b.js(CROSSING_STATE, json!(["low_chord"])).await;
+    let when = state["when"].as_str().unwrap_or_default();
+    assert!(
+        when.contains(&format!("({up}), back below {down}")),
+        "the low chord's crossing {up} and reopening {down} in the row: {state}"
+    );
+    let marks = state["marks"].as_array().expect("marks");
+    assert_eq!(marks.len(), 2, "a rise and a fall mark: {state}");
+    for (mark, dir, t, clock) in [
+        (&marks[0], "up", &lc["first_above"], &up),
+        (&marks[1], "down", &lc["back_below"], &down),
+    ] {
+        assert_eq!(mark["dir"], dir, "{state}");
+        let at = |v: &Value| {
+            chrono::DateTime::parse_from_rfc3339(v.as_str().unwrap_or_default()).expect("time")
+        };
+        assert!(
+            (at(&mark["time"]) - at(t)).num_milliseconds().abs() <= 1,
+            "mark at the API's time {t}: {mark}"
+        );
+        let hhmm = &clock[4..];
+        let arrow = if dir == "up" { "↑" } else { "↓" };
+        assert_eq!(mark["label"], format!("{hhmm} {arrow}"), "{mark}");
+        assert_eq!(mark["inside"], true, "label inside the chart: {mark}");
+        assert!(
+            mark["title"]
+                .as_str()
+                .unwrap_or_default()
+                .contains(&format!("{hhmm} (+01:00)")),
+            "the full time in the mark's title: {mark}"
+        );
+    }
+    let table = state["table"].as_array().expect("table cells");
+    assert!(
+        table.len() == 3
+            && table[1]
+                .as_str()
+                .unwrap_or_default()
+                .ends_with(&format!("{} (+01:00)", &up[4..])),
+        "the crossing in the table under the chart: {state}"
+    );
+    b.screenshot("chart-low-chord-crossings.png", Some("#chart-0"))
+        .await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
