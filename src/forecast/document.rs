@@ -287,6 +287,7 @@ mod tests {
             nodes: 10,
             points: vec![point("Sallowgate Bridge"), point("Second")],
             diagnostics: RunDiagnostics::default(),
+            profile: None,
         }
     }
 

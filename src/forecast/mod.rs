@@ -15,6 +15,7 @@ pub mod inflow;
 pub mod level;
 pub mod levels;
 pub mod levels_csv;
+pub mod profile;
 pub mod record;
 pub mod report;
 pub mod run;

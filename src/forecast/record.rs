@@ -12,6 +12,7 @@ use serde::{Deserialize, Deserializer, Serialize};
 
 use super::{
     assemble,
+    profile::StoredProfile,
     run::{PointForecast, RunOutput},
     spec::{Method, RoutingSpec},
 };
@@ -160,13 +161,20 @@ pub struct StoredResults {
     pub points: Vec<PointForecast>,
     #[serde(default)]
     pub diagnostics: RunDiagnostics,
+    /// What the longitudinal profile needs; absent in runs stored before
+    /// the profile existed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub profile: Option<StoredProfile>,
 }
 
 impl StoredResults {
-    /// The stored form of a routing output.
-    pub fn of(out: RunOutput) -> Self {
+    /// The stored form of a routing output of a run issued at `issued`
+    /// (the instant the forecast is for; its look-back lies before it).
+    pub fn of(out: RunOutput, issued: DateTime<Utc>) -> Self {
         let diagnostics = RunDiagnostics::of(&out);
+        let profile = StoredProfile::keep(&out.node_rows, issued);
         Self {
+            profile,
             method: out.method,
             start: out.start,
             end: out.end,

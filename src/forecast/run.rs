@@ -20,6 +20,7 @@ use super::{
     hydrograph::{Hydrograph, seconds},
     level::{LevelOutlook, Trace},
     levels::levels_of,
+    profile::NodeRows,
     spec::{DownstreamSpec, Method, PointKind, PointSpec, ReachSpec, SpecError},
 };
 
@@ -82,6 +83,9 @@ pub struct RunOutput {
     pub diagnostics: Diagnostics,
     /// Water-surface elevation at every node at the end (hot start).
     pub final_state: Vec<f64>,
+    /// Every node's stage hydrograph, for the longitudinal profile.
+    #[serde(skip)]
+    pub node_rows: NodeRows,
 }
 
 /// Builds the computational nodes of a reach (validated).
@@ -206,6 +210,12 @@ pub fn run_on_nodes(
         })
         .collect::<Result<Vec<_>, _>>()?;
 
+    let node_rows = NodeRows {
+        bed: nodes.iter().map(|n| n.bed_elevation()).collect(),
+        chainage,
+        times,
+        stage: result.stage,
+    };
     Ok(RunOutput {
         reach: spec.name.clone(),
         method,
@@ -215,6 +225,7 @@ pub fn run_on_nodes(
         points,
         diagnostics: result.diagnostics,
         final_state: result.final_state,
+        node_rows,
     })
 }
 

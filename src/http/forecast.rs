@@ -64,21 +64,21 @@ pub(super) enum Table {
 }
 
 /// The latest good run of a reach and everything the document needs.
-struct Loaded {
-    reach: ReachVersion,
-    run: RunRecord,
+pub(super) struct Loaded {
+    pub(super) reach: ReachVersion,
+    pub(super) run: RunRecord,
     last_failure: Option<RunRecord>,
 }
 
 impl Loaded {
-    fn results(&self) -> Result<&StoredResults, ApiError> {
+    pub(super) fn results(&self) -> Result<&StoredResults, ApiError> {
         self.run.results.as_ref().ok_or_else(|| {
             ApiError::Internal(anyhow::anyhow!("run {} has no results", self.run.id))
         })
     }
 }
 
-async fn load_latest(state: &AppState, id: &str) -> Result<Loaded, ApiError> {
+pub(super) async fn load_latest(state: &AppState, id: &str) -> Result<Loaded, ApiError> {
     let reach = find_reach(state, id).await?;
     let run = state
         .store
@@ -101,7 +101,7 @@ async fn load_latest(state: &AppState, id: &str) -> Result<Loaded, ApiError> {
 
 /// The freshness verdict of a loaded run: cheap (one indexed query), so it
 /// is computed before the validator and a 304 costs no more than this.
-async fn freshness_of(
+pub(super) async fn freshness_of(
     state: &AppState,
     l: &Loaded,
     now: DateTime<Utc>,
@@ -155,7 +155,7 @@ async fn observations(
     Ok(observed)
 }
 
-async fn build_doc(
+pub(super) async fn build_doc(
     state: &AppState,
     l: &Loaded,
     units: Units,
@@ -181,18 +181,14 @@ async fn build_doc(
 /// A weak validator: the representation changes with every request (ages,
 /// `now`) but means the same until the run, the stale verdict or the
 /// newest reading changes (RFC 9110 §8.8.1).
-fn forecast_etag(run_id: i64, fresh: &Freshness, units: Units, csv: Option<Table>) -> String {
+pub(super) fn forecast_etag(run_id: i64, fresh: &Freshness, units: Units, repr: &str) -> String {
     // The stale reasons quote ages in whole minutes, so they are part of
     // the validator: a page polling with If-None-Match sees them change.
     let reasons = fnv(fresh.reasons.join("|").as_bytes());
     format!(
         "W/\"run{run_id}-{}-{}-{}-{}-{reasons:x}\"",
         if units == Units::Us { "us" } else { "si" },
-        match csv {
-            None => "json",
-            Some(Table::Hydrographs) => "csv",
-            Some(Table::Levels) => "levels-csv",
-        },
+        repr,
         u8::from(fresh.stale),
         fresh.last_reading_at.map_or(0, |t| t.timestamp_millis())
     )
@@ -212,16 +208,16 @@ fn csv_response(body: Result<String, csv::Error>) -> Result<Response, ApiError> 
 
 /// What both reads decide before building anything: the run, the
 /// representation asked for, and the freshness verdict at `now`.
-struct Request {
-    loaded: Loaded,
-    units: Units,
+pub(super) struct Request {
+    pub(super) loaded: Loaded,
+    pub(super) units: Units,
     /// The CSV table asked for; `None` for JSON.
-    csv: Option<Table>,
-    now: DateTime<Utc>,
-    fresh: Freshness,
+    pub(super) csv: Option<Table>,
+    pub(super) now: DateTime<Utc>,
+    pub(super) fresh: Freshness,
 }
 
-async fn prepare(
+pub(super) async fn prepare(
     state: &AppState,
     id: &str,
     params: &ForecastParams,
@@ -248,7 +244,12 @@ async fn forecast(
     headers: HeaderMap,
 ) -> Result<Response, ApiError> {
     let r = prepare(&state, &id, &params, &headers).await?;
-    let etag = forecast_etag(r.loaded.run.id, &r.fresh, r.units, r.csv);
+    let repr = match r.csv {
+        None => "json",
+        Some(Table::Hydrographs) => "csv",
+        Some(Table::Levels) => "levels-csv",
+    };
+    let etag = forecast_etag(r.loaded.run.id, &r.fresh, r.units, repr);
     if not_modified(&headers, &etag) {
         let mut r = with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag);
         vary_accept(r.headers_mut());

@@ -17,6 +17,7 @@ pub mod gauges;
 pub mod health;
 pub mod inflows;
 pub mod openapi;
+pub mod profile;
 pub mod query;
 pub mod reaches;
 pub mod readings;
@@ -114,6 +115,7 @@ pub fn router(state: AppState) -> Router {
         .merge(readings::router())
         .merge(reaches::router())
         .merge(forecast::router())
+        .merge(profile::router())
         .merge(runs::router())
         .merge(exceedances::router())
         .merge(inflows::router())

@@ -122,7 +122,7 @@ impl Forecaster {
             Ok(mut out) => {
                 out.diagnostics.wall_time_s = Some(wall);
                 provenance.diagnostics = Some(RunDiagnostics::of(&out));
-                let results = StoredResults::of(out);
+                let results = StoredResults::of(out, now);
                 self.succeeded(&reach, run_id, &results, &provenance, wall)
                     .await
             }

@@ -2,8 +2,9 @@
 //! server on a real SQLite file: the forecast says when the water reaches
 //! each and when it falls back below, the exceedance board and CAP report
 //! them with stable ids and their default severities, a threshold typed at
-//! the low chord's elevation is not reported twice, and renaming the
-//! bridge keeps every id and message chain.
+//! the low chord's elevation is not reported twice, renaming the bridge
+//! keeps every id and message chain, and the longitudinal profile shows
+//! the envelope meeting the bridge's crest above its low chord.
 
 use std::collections::HashMap;
 
@@ -325,4 +326,85 @@ async fn cap_messages(s: &ReachApp) -> HashMap<String, Cap> {
         );
     }
     out
+}
+
+/// The profile's envelope: at each point it is the point's forecast crest
+/// (within 1 mm); the node envelope interpolated to the point is not
+/// below it (a linear blend of two nodes' maxima is at least the maximum
+/// of their blend); everywhere it is above the bed and the water now; at
+/// the bridge it stands above the low chord. US units scale every length
+/// by 1/0.3048 (the international foot, NIST SP 811).
+#[tokio::test]
+async fn the_profile_envelope_meets_each_crest() {
+    let s = setup().await;
+    flood(&s).await;
+    let (status, prof) = s
+        .app
+        .get_json(&format!("/api/reaches/{REACH}/profile"))
+        .await;
+    assert_eq!(status, 200, "{prof}");
+    let (_, f) = s
+        .app
+        .get_json(&format!("/api/reaches/{REACH}/forecast"))
+        .await;
+    assert!(
+        prof["caution"]
+            .as_str()
+            .expect("caution")
+            .contains("not an official warning")
+    );
+    let num = |v: &Value| v.as_f64().expect("number");
+    let nodes = prof["nodes"].as_array().expect("nodes");
+    assert!(nodes.len() >= 40, "every node: {}", nodes.len());
+    for n in nodes {
+        let (bed, high, now) = (num(&n["bed"]), num(&n["highest"]), num(&n["stage_now"]));
+        assert!(high >= now - 1e-12 && now >= bed, "{n}");
+    }
+    let p = &prof["points"][0];
+    let crest = num(&f["points"][0]["crest_stage"]);
+    assert!(
+        (num(&p["highest"]) - crest).abs() < 1e-3,
+        "{} vs {crest}",
+        p["highest"]
+    );
+    assert_eq!(p["highest_time"], f["points"][0]["crest_time"]);
+    // The node envelope at the bridge's chainage, linear between nodes.
+    let x = num(&p["chainage"]);
+    let k = nodes
+        .iter()
+        .position(|n| num(&n["chainage"]) >= x)
+        .expect("a node past the bridge");
+    let (a, b) = (&nodes[k.saturating_sub(1)], &nodes[k]);
+    let (xa, xb) = (num(&a["chainage"]), num(&b["chainage"]));
+    let w = if xb > xa { (x - xa) / (xb - xa) } else { 0.0 };
+    let envelope = num(&a["highest"]) * (1.0 - w) + num(&b["highest"]) * w;
+    assert!(envelope >= crest - 1e-3, "{envelope} vs crest {crest}");
+    assert!(envelope > 19.5, "above the low chord: {envelope}");
+    assert_eq!(num(&p["low_chord"]), 19.5);
+    let kinds: Vec<&str> = p["levels"]
+        .as_array()
+        .expect("levels")
+        .iter()
+        .filter_map(|l| l["kind"].as_str())
+        .collect();
+    assert_eq!(kinds, ["threshold", "threshold", "low_chord", "deck"]);
+    // The test reach's trapezoids have no bank height: no bank tops.
+    assert_eq!(prof["banks"].as_array().expect("banks").len(), 2);
+    assert!(prof["banks"][0]["left_top"].is_null());
+
+    let (_, us) = s
+        .app
+        .get_json(&format!("/api/reaches/{REACH}/profile?units=us"))
+        .await;
+    assert_eq!(us["units"]["elevation"], "ft");
+    let last = nodes.len() - 1;
+    for (i, field) in [(last, "chainage"), (last, "bed"), (0, "highest")] {
+        let si = num(&nodes[i][field]);
+        let ft = num(&us["nodes"][i][field]);
+        assert!(
+            (ft * 0.3048 - si).abs() < 1e-9,
+            "{field}: {ft} ft vs {si} m"
+        );
+    }
+    s.app.stop().await;
 }

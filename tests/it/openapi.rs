@@ -44,6 +44,7 @@ const ROUTES: &[(&str, &str)] = &[
     ("PUT", "/api/reaches/{reach}"),
     ("GET", "/api/reaches/{reach}/forecast"),
     ("GET", "/api/reaches/{reach}/forecast/points/{point}"),
+    ("GET", "/api/reaches/{reach}/profile"),
     ("GET", "/api/reaches/{reach}/runs"),
     ("POST", "/api/reaches/{reach}/runs"),
     ("GET", "/api/runs/{id}"),

@@ -96,6 +96,38 @@ impl SectionGeometry {
     }
 }
 
+impl SectionGeometry {
+    /// Elevations of the left and right bank tops (m): the survey at the
+    /// bank stations (linear between survey points), or a trapezoid's bed
+    /// plus its height; `None` for a trapezoid without a height.
+    pub fn bank_tops(&self) -> [Option<f64>; 2] {
+        match self.shape() {
+            Shape::Surveyed(s) => [
+                survey_elevation(s.points, s.left_bank),
+                survey_elevation(s.points, s.right_bank),
+            ],
+            Shape::Trapezoid(t) => {
+                let top = t.height.map(|h| t.bed + h);
+                [top, top]
+            }
+        }
+    }
+}
+
+/// The surveyed elevation at `station`, linear between points; `None`
+/// outside the survey.
+fn survey_elevation(points: &[[f64; 2]], station: f64) -> Option<f64> {
+    let k = points.partition_point(|p| p[0] < station);
+    if k < points.len() && points[k][0] == station {
+        return Some(points[k][1]);
+    }
+    if k == 0 || k == points.len() {
+        return None;
+    }
+    let ([x0, z0], [x1, z1]) = (points[k - 1], points[k]);
+    Some(z0 + (z1 - z0) * (station - x0) / (x1 - x0))
+}
+
 /// A [`SectionGeometry`] seen through its fields.
 pub(super) enum Shape<'a> {
     Surveyed(Survey<'a>),
@@ -332,6 +364,39 @@ pub enum GeometryError {
 mod tests {
     use super::*;
     use crate::engine::section::fixtures::{v_profile, xs};
+
+    /// Bank tops read off the survey by hand: the left bank at station
+    /// 15 lies half-way between (10, 10.0) and (20, 6.0), so 8.0 m; the
+    /// right bank is on the survey point (30, 6.5). A trapezoid's banks are
+    /// its bed plus its height, unknown without one.
+    #[test]
+    fn bank_tops_interpolate_the_survey() {
+        let g = SectionGeometry::StationElevation {
+            points: vec![
+                [0.0, 12.0],
+                [10.0, 10.0],
+                [20.0, 6.0],
+                [30.0, 6.5],
+                [40.0, 11.0],
+            ],
+            left_bank: 15.0,
+            right_bank: 30.0,
+            n_left: 0.06,
+            n_channel: 0.035,
+            n_right: 0.06,
+            storage: vec![],
+        };
+        assert_eq!(g.bank_tops(), [Some(8.0), Some(6.5)]);
+        let trapezoid = |height| SectionGeometry::Trapezoid {
+            bed_elevation: 3.0,
+            bottom_width: 4.0,
+            side_slope: 1.5,
+            n: 0.03,
+            height,
+        };
+        assert_eq!(trapezoid(Some(2.5)).bank_tops(), [Some(5.5), Some(5.5)]);
+        assert_eq!(trapezoid(None).bank_tops(), [None, None]);
+    }
 
     #[test]
     fn serde_round_trip_and_tags() {
