@@ -5,6 +5,7 @@
 import { renderChart } from "./js/chart.js";
 import { crossingRows } from "./js/crossings.js";
 import { formatChainage, formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
+import { profileRows, renderProfile } from "./js/profile.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
 
@@ -24,6 +25,8 @@ const state = {
   units: null, // null: the reach's preference
   forecast: null,
   forecastUrl: null,
+  profile: null, // the longitudinal profile answer, or null: section hidden
+  profileUrl: null,
   fetchedAt: 0, // local clock when `forecast` arrived
   etags: new Map(), // url -> { etag, body }
   timer: null,
@@ -92,6 +95,10 @@ function forecastUrl() {
   return `/api/reaches/${encodeURIComponent(state.reachId)}/forecast?units=${unitsWanted() === "us" ? "us" : "si"}`;
 }
 
+function profileUrl() {
+  return `/api/reaches/${encodeURIComponent(state.reachId)}/profile?units=${unitsWanted() === "us" ? "us" : "si"}`;
+}
+
 // ---------------------------------------------------------------- polling
 
 async function refresh() {
@@ -109,6 +116,7 @@ async function refresh() {
       showNoForecast("No reach is configured on this server yet.");
     } else {
       await refreshForecast();
+      if (state.forecast) await refreshProfile();
     }
     state.lastOk = Date.now();
     state.misses = state.forecast ? 0 : state.misses + 1;
@@ -151,6 +159,38 @@ async function refreshForecast() {
   }
 }
 
+/**
+ * The profile beside the forecast, through the same ETag cache. Without
+ * one (404 before the first run, or a server without the endpoint) or on
+ * any failure the section is emptied, which hides it; the forecast above
+ * stays as it is.
+ */
+async function refreshProfile() {
+  const url = profileUrl();
+  let res;
+  try {
+    res = await getJson(url);
+  } catch {
+    clearProfile();
+    return;
+  }
+  if (!Array.isArray(res.body?.nodes) || !res.body.nodes.length) {
+    clearProfile();
+    return;
+  }
+  if (res.changed || !state.profile || state.profileUrl !== url) {
+    state.profile = res.body;
+    state.profileUrl = url;
+    renderProfileSection();
+  }
+}
+
+function clearProfile() {
+  state.profile = null;
+  state.profileUrl = null;
+  $("profile").replaceChildren();
+}
+
 function setConn(text, bad) {
   const c = $("conn");
   c.textContent = text;
@@ -170,6 +210,7 @@ function showNoForecast(text) {
   $("data-age").hidden = true;
   $("charts").replaceChildren();
   $("stale").hidden = true;
+  clearProfile();
 }
 
 // ---------------------------------------------------------------- rendering
@@ -441,6 +482,66 @@ function crossingTable(p, f, zone) {
   return h("div", { class: "table-wrap" }, h("table", { class: "crossings" }, caption, h("thead", {}, h("tr", {}, ...head)), h("tbody", {}, ...body)));
 }
 
+// ---------------------------------------------------------------- profile
+
+/** The longitudinal profile: heading, chart, key and its data table. */
+function renderProfileSection(printWidth) {
+  const d = state.profile;
+  if (!d) return;
+  const box = $("profile");
+  const width = printWidth || Math.min(Math.max((box.clientWidth || $("charts").clientWidth || 720) - 2, 280), 1400);
+  const zone = state.forecast?.reach.time_zone;
+  const svg = renderProfile(document, d, {
+    width,
+    titleId: "profile-title",
+    title: `Longitudinal profile of ${d.reach_name}, upstream to downstream: bed, bank tops, water surface now and the highest forecast water surface, run #${d.run_id}.`,
+  });
+  box.replaceChildren(
+    h("h2", { id: "profile-h", text: "Longitudinal profile" }),
+    h("p", { class: "muted", text: `Run #${d.run_id}, issued ${formatTime(d.issued_at, zone)}. Elevations in ${d.units.elevation}; upstream at the left.` }),
+    h("div", { class: "chart-box" }, svg),
+    profileLegend(d),
+    profileTable(d),
+  );
+}
+
+function profileLegend(d) {
+  const line = (attrs) => {
+    const s = swatch("none");
+    const e = document.createElementNS("http://www.w3.org/2000/svg", "line");
+    for (const [k, v] of Object.entries({ x1: 0, x2: 28, y1: 6, y2: 6, ...attrs })) e.setAttribute(k, v);
+    s.append(e);
+    return s;
+  };
+  const items = [
+    [line({ stroke: "#6b5b40", "stroke-width": 6 }), "bed (filled)"],
+    (d.banks || []).some((b) => b.left_top != null || b.right_top != null) ? [line({ stroke: "#4d5b6a", "stroke-width": 1.5, "stroke-dasharray": "6 3" }), "left bank top (dashed) / right (dotted)"] : null,
+    [line({ stroke: "#1f4f8a", "stroke-width": 2 }), "water surface now (solid)"],
+    [line({ stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5" }), "highest forecast water surface (dashed)"],
+    (d.points || []).some((p) => p.low_chord != null) ? [line({ stroke: "#9aa5b1", "stroke-width": 8 }), "bridge, low chord to deck"] : null,
+    [line({ x1: 7, x2: 21, stroke: "#8a5a00", "stroke-width": 2 }), "threshold at a point"],
+  ].filter(Boolean);
+  return h("ul", { class: "legend", "aria-label": "Profile key" }, ...items.map(([s, t]) => h("li", {}, s, ` ${t}`)));
+}
+
+function profileTable(d) {
+  const u = d.units.elevation;
+  const rows = profileRows(d, u).map((r) =>
+    h("tr", { "data-point": r.name }, h("th", { scope: "row", text: r.name }), ...[r.chainage, r.bed, r.now, r.highest, r.lowChord, r.deck, r.room].map((t) => h("td", { class: "num", text: t }))),
+  );
+  const head = ["Point", "Chainage", `Bed (${u})`, `Stage now (${u})`, `Highest forecast (${u})`, `Low chord (${u})`, `Deck (${u})`, "Room under the low chord at the highest"];
+  return h(
+    "details",
+    { class: "data" },
+    h("summary", { text: `Data table for the profile (${rows.length} ${rows.length === 1 ? "point" : "points"})` }),
+    h(
+      "div",
+      { class: "table-wrap" },
+      h("table", { class: "profile-table" }, h("caption", { text: `Longitudinal profile of ${d.reach_name} at the points of interest, upstream first` }), h("thead", {}, h("tr", {}, ...head.map((c) => h("th", { scope: "col", text: c })))), h("tbody", {}, ...rows)),
+    ),
+  );
+}
+
 // ---------------------------------------------------------------- forecaster
 
 function key() {
@@ -585,7 +686,10 @@ function setupBriefing() {
   }
   $("print-briefing").addEventListener("click", () => window.print());
   // Drawn at the paper's width, chart text prints at its normal size.
-  const redraw = (width) => state.forecast && renderCharts(state.forecast, state.forecast.reach.time_zone, width);
+  const redraw = (width) => {
+    if (state.forecast) renderCharts(state.forecast, state.forecast.reach.time_zone, width);
+    renderProfileSection(width);
+  };
   window.addEventListener("beforeprint", () => redraw(PRINT_CHART_PX));
   window.addEventListener("afterprint", () => redraw());
 }
@@ -638,6 +742,7 @@ function wire() {
       if (state.forecast && w !== lastWidth) {
         lastWidth = w;
         renderCharts(state.forecast, state.forecast.reach.time_zone);
+        renderProfileSection();
       }
     }, 150);
   });

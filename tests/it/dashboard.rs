@@ -1503,6 +1503,7 @@ return {
   charts: svgs.length,
   chartsFit: svgs.every(s => s.getBoundingClientRect().right <= document.documentElement.clientWidth + 0.5),
   profile: !!document.querySelector('section#profile'), profileShown: shown('#profile'),
+  profileFits: (() => { const s = document.querySelector('#profile svg.profile-chart'); return !!s && s.getBoundingClientRect().right <= document.documentElement.clientWidth + 0.5; })(),
   profileAfterOverview: !!(document.getElementById('overview').compareDocumentPosition(document.getElementById('profile')) & Node.DOCUMENT_POSITION_FOLLOWING),
 };
 "#;
@@ -1555,8 +1556,12 @@ fn assert_briefing(state: &Value, run_id: i64, points: usize, how: &str) {
         "{how}: the profile section is there: {state}"
     );
     assert_eq!(
-        state["profileShown"], false,
-        "{how}: empty profile hidden: {state}"
+        state["profileShown"], true,
+        "{how}: the longitudinal profile is in the briefing: {state}"
+    );
+    assert_eq!(
+        state["profileFits"], true,
+        "{how}: profile within the page: {state}"
     );
     assert_eq!(state["profileAfterOverview"], true, "{how}: {state}");
     assert!(
@@ -1584,7 +1589,7 @@ async fn briefing_view_and_print_fit_a4_without_the_forecaster_tools() {
     let state = b
         .wait_for(
             "the briefing with its charts",
-            &format!("const s = (() => {{ {BRIEFING_STATE} }})(); return s.charts === {points} && s.age ? s : null"),
+            &format!("const s = (() => {{ {BRIEFING_STATE} }})(); return s.charts === {points} && s.age && s.profileShown ? s : null"),
             30,
         )
         .await;
@@ -1596,7 +1601,7 @@ async fn briefing_view_and_print_fit_a4_without_the_forecaster_tools() {
     b.goto(&app.url("/")).await;
     b.wait_for(
         "the dashboard with its charts",
-        &format!("return document.querySelectorAll('svg.chart').length === {points}"),
+        &format!("return document.querySelectorAll('svg.chart').length === {points} && !!document.querySelector('svg.profile-chart')"),
         30,
     )
     .await;
@@ -1776,6 +1781,83 @@ async fn a_bridge_whose_crest_passes_the_low_chord_shows_its_crossing_time_and_r
     );
     b.screenshot("chart-low-chord-crossings.png", Some("#chart-0"))
         .await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
+
+/// Script: the profile read off its SVG at the bridge: the envelope
+/// path's y at the bridge's x (linear between the path's vertices, parsed
+/// here), the low chord line's y there, and the page's caution and table.
+const PROFILE_AT_BRIDGE: &str = r#"
+const svg = document.querySelector('#profile svg.profile-chart');
+if (!svg) return null;
+const lc = svg.querySelector('.poi-bridge .low-chord');
+const bx = (Number(lc.getAttribute('x1')) + Number(lc.getAttribute('x2'))) / 2;
+const pts = svg.querySelector('path.envelope').getAttribute('d').split(/(?=[ML])/).map(s => s.slice(1).split(',').map(Number));
+let ey = null;
+for (let i = 1; i < pts.length; i++) {
+  const [x0, y0] = pts[i - 1], [x1, y1] = pts[i];
+  if (bx >= x0 && bx <= x1) { ey = x1 === x0 ? y0 : y0 + (y1 - y0) * (bx - x0) / (x1 - x0); break; }
+}
+const c = document.getElementById('caution');
+const row = [...document.querySelectorAll('#profile table.profile-table tbody tr')].map(r => r.textContent);
+return { bx, envelopeY: ey, lowChordY: Number(lc.getAttribute('y1')), poiX: Number(svg.querySelector('.poi-bridge line').getAttribute('x1')),
+  shown: getComputedStyle(document.getElementById('profile')).display !== 'none',
+  caution: c.getBoundingClientRect().height > 0 && getComputedStyle(c).visibility !== 'hidden' ? c.textContent : null,
+  legend: document.querySelector('#profile .legend').textContent, rows: row };
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn the_profile_draws_the_envelope_above_the_low_chord_at_that_bridges_chainage() {
+    let _one = BROWSER.lock().await;
+    let (s, _) = bridge_app_flooded().await;
+    let (status, prof) = s.app.get_json("/api/reaches/test-reach/profile").await;
+    assert_eq!(status, 200, "the profile endpoint answers: {prof}");
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/")).await;
+    let at = b.wait_for("the profile drawn", PROFILE_AT_BRIDGE, 30).await;
+    assert_eq!(at["shown"], true, "{at}");
+    let (ey, ly) = (
+        at["envelopeY"].as_f64().expect("envelope y at the bridge"),
+        at["lowChordY"].as_f64().expect("low chord y"),
+    );
+    assert!(
+        ey < ly,
+        "the envelope is drawn above the low chord at the bridge (smaller y): {at}"
+    );
+    let (bx, px) = (
+        at["bx"].as_f64().unwrap_or(-1.0),
+        at["poiX"].as_f64().unwrap_or(-2.0),
+    );
+    assert!(
+        (bx - px).abs() < 0.6,
+        "the bridge drawn at its point's chainage: {at}"
+    );
+    assert!(
+        at["caution"]
+            .as_str()
+            .is_some_and(|c| c.contains("not an official warning")),
+        "the caution stays visible: {at}"
+    );
+    assert!(
+        at["legend"]
+            .as_str()
+            .is_some_and(|l| l.contains("highest forecast water surface (dashed)")),
+        "the envelope has a key entry that does not rely on colour: {at}"
+    );
+    // The table under it: the flood's highest is above the low chord.
+    let highest = prof["points"][0]["highest"].as_f64().expect("highest");
+    let room = format!("water {:.2} m above", highest - 19.5);
+    assert!(
+        at["rows"][0]
+            .as_str()
+            .is_some_and(|r| r.contains("km 5.0") && r.contains(&room)),
+        "the table row says {room}: {at}"
+    );
+    b.screenshot("profile-bridge.png", Some("#profile")).await;
     let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
