@@ -498,7 +498,12 @@ function renderProfileSection(printWidth) {
   });
   box.replaceChildren(
     h("h2", { id: "profile-h", text: "Longitudinal profile" }),
-    h("p", { class: "muted", text: `Run #${d.run_id}, issued ${formatTime(d.issued_at, zone)}. Elevations in ${d.units.elevation}; upstream at the left.` }),
+    h(
+      "p",
+      { class: "muted" },
+      ...(d.freshness?.stale ? [h("strong", { class: "stale-mark", text: "stale data" }), " (may be out of date). "] : []),
+      `Run #${d.run_id}, issued ${formatTime(d.issued_at, zone)}. Elevations in ${d.units.elevation}; upstream at the left.`,
+    ),
     h("div", { class: "chart-box" }, svg),
     profileLegend(d),
     profileTable(d),

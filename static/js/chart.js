@@ -266,7 +266,9 @@ export function renderChart(doc, point, ctx) {
   // On top of the series: where the forecast rises above and falls back below each level.
   const inView = levels.filter((l) => l.value >= yt.min && l.value <= yt.max);
   const plotBox = { left: m.left, right: width - m.right, top: m.top, bottom: height - m.bottom };
-  const markBoxes = drawCrossings(doc, svg, crossingMarks(inView, t0, t1), { x, y, box: plotBox, blocked: levelBoxes, zone: ctx.zone, unit });
+  // The "now" label (drawn below) stays clear too.
+  const nowBox = Number.isFinite(nowMs) ? [{ x0: x(nowMs), x1: x(nowMs) + 4 + textWidth("now"), y0: m.top, y1: m.top + 13 }] : [];
+  const markBoxes = drawCrossings(doc, svg, crossingMarks(inView, t0, t1), { x, y, box: plotBox, blocked: levelBoxes.concat(nowBox), zone: ctx.zone, unit });
   const labelBoxes = levelBoxes.concat(markBoxes);
 
   // Now line.

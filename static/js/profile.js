@@ -159,12 +159,14 @@ function drawWater(doc, svg, nodes, { x, y }) {
 
 function drawPoints(doc, svg, points, L) {
   const { x, m, height, width } = L;
-  const xs = spreadLabels(points.map((p) => x(p.chainage)), 13, m.left + 10, width - m.right - 2);
+  // Names read upwards just right of their marker (a rotated glyph's
+  // height lies left of its baseline), spread so neighbours do not touch.
+  const xs = spreadLabels(points.map((p) => x(p.chainage) + 12), 13, m.left + 12, width - 2);
   points.forEach((p, i) => {
     const g = el(doc, "g", { class: `poi poi-${p.kind}`, "data-point": p.name }, svg);
     const px = x(p.chainage).toFixed(1);
     el(doc, "line", { x1: px, x2: px, y1: m.top, y2: height - m.bottom, stroke: "#6b7785", "stroke-width": 1, "stroke-dasharray": "1 3" }, g);
-    const lx = (xs[i] - 3).toFixed(1);
+    const lx = xs[i].toFixed(1);
     const ly = m.top + 2;
     el(doc, "text", { x: lx, y: ly, transform: `rotate(-90 ${lx} ${ly})`, "text-anchor": "end", class: "poi-label", "paint-order": "stroke", stroke: "#ffffff", "stroke-width": 3 }, g, p.name);
     drawStructure(doc, g, p, L);

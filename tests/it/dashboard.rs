@@ -730,6 +730,20 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         Some(&format!("#chart-{bridge}")),
     )
     .await;
+    // The longitudinal profile: a marker per point, upstream first as
+    // the API lists them, and a table row per point.
+    let pois = b
+        .wait_for(
+            "the profile with a marker per point",
+            &format!(
+                "const p = [...document.querySelectorAll('#profile svg.profile-chart .poi')].map(g => g.dataset.point); return p.length === {} && document.querySelectorAll('#profile table.profile-table tbody tr').length === p.length ? p : null",
+                names.len()
+            ),
+            30,
+        )
+        .await;
+    assert_eq!(pois, json!(names), "profile markers in the API's order");
+    b.screenshot("profile-demo.png", Some("#profile")).await;
     b.resize(1280, 1000).await;
 
     // The units toggle asks for US units and the rows follow the API's figures.
@@ -757,6 +771,12 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         axis.to_string().contains("Stage (ft)"),
         "chart axis in feet: {axis}"
     );
+    b.wait_for(
+        "the profile in feet, chainage in miles",
+        "const s = document.querySelector('#profile svg.profile-chart'); const t = s && [...s.querySelectorAll('.x-axis text.tick')].map(e => e.textContent); return s && s.querySelector('.axis-title').textContent === 'Elevation (ft)' && t.some(x => x.startsWith('mi ')) ? t : null",
+        30,
+    )
+    .await;
     b.click("#units-si").await;
     b.wait_for(
         "the overview back in metres",
@@ -772,7 +792,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     let fits = b
         .wait_for(
             "the page to fit 360 px",
-            "return document.documentElement.clientWidth <= 360 && document.querySelector('svg.chart').getAttribute('width') <= document.documentElement.clientWidth ? {scroll: document.documentElement.scrollWidth, client: document.documentElement.clientWidth} : null",
+            "return document.documentElement.clientWidth <= 360 && document.querySelector('svg.chart').getAttribute('width') <= document.documentElement.clientWidth && document.querySelector('svg.profile-chart').getAttribute('width') <= document.documentElement.clientWidth ? {scroll: document.documentElement.scrollWidth, client: document.documentElement.clientWidth} : null",
             10,
         )
         .await;
@@ -784,6 +804,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     b.screenshot("overview-360.png", None).await;
     b.screenshot("chart-360.png", Some(&format!("#chart-{bridge}")))
         .await;
+    b.screenshot("profile-360.png", Some("#profile")).await;
     let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
 
@@ -885,6 +906,13 @@ async fn stale_forecast_shows_the_warning() {
         "the page lists the API's reasons"
     );
     b.screenshot("stale.png", None).await;
+    // The profile says so too, in words.
+    b.wait_for(
+        "the profile marked stale",
+        "const m = document.querySelector('#profile .stale-mark'); return m && m.textContent === 'stale data'",
+        30,
+    )
+    .await;
 
     // A 360 x 640 phone: the data age is above the fold, and every row of
     // the overview says the data are stale, in words.
