@@ -12,6 +12,7 @@ use crate::engine::{
     diffusive::{self, Diagnostics, DownstreamBoundary, InitialState, Lateral, Options, Reach},
     kinematic,
     props::Hydraulics,
+    routing::RoutingResult,
     section::{Node, build_nodes},
     series::Series,
 };
@@ -117,41 +118,8 @@ pub fn run_on_nodes(
     let (t0, t_end) = (inflow.start(), inflow.end());
     let upstream = inflow.to_series(t0);
 
-    // Output every interval from the start, plus the end itself.
-    let horizon = seconds(t_end, t0);
-    let step = spec.routing.output_interval_s;
-    let mut output_times: Vec<f64> = Vec::new();
-    let mut k = 0u32;
-    loop {
-        let t = f64::from(k) * step;
-        if t >= horizon - 1e-6 {
-            break;
-        }
-        output_times.push(t);
-        k += 1;
-    }
-    output_times.push(horizon);
-
-    let mut laterals = Vec::with_capacity(spec.laterals.len());
-    for (i, l) in spec.laterals.iter().enumerate() {
-        let series = Series::new(
-            l.inflow
-                .iter()
-                .map(|p| seconds(p.time.with_timezone(&Utc), t0))
-                .collect(),
-            l.inflow.iter().map(|p| p.discharge).collect(),
-        )
-        .map_err(|e| {
-            RunError::Spec(SpecError::new(
-                format!("laterals[{i}].inflow"),
-                e.to_string(),
-            ))
-        })?;
-        laterals.push(Lateral {
-            chainage: l.chainage,
-            inflow: series,
-        });
-    }
+    let output_times = output_times(seconds(t_end, t0), spec.routing.output_interval_s);
+    let laterals = laterals_of(spec, t0)?;
 
     let chainage: Vec<f64> = nodes.iter().map(|n| n.chainage).collect();
     let reach = Reach::new(&chainage, nodes).map_err(|e| RunError::Routing(e.to_string()))?;
@@ -189,6 +157,19 @@ pub fn run_on_nodes(
         }
     };
 
+    output_of(spec, nodes, method, (t0, t_end), result)
+}
+
+/// The run's output from the router's result: time stamps, each point's
+/// forecast (ordered downstream) and the node rows for the profile.
+fn output_of(
+    spec: &ReachSpec,
+    nodes: &[Node],
+    method: Method,
+    (t0, t_end): (DateTime<Utc>, DateTime<Utc>),
+    result: RoutingResult,
+) -> Result<RunOutput, RunError> {
+    let chainage: Vec<f64> = nodes.iter().map(|n| n.chainage).collect();
     let times: Vec<DateTime<Utc>> = result
         .output_times
         .iter()
@@ -227,6 +208,50 @@ pub fn run_on_nodes(
         final_state: result.final_state,
         node_rows,
     })
+}
+
+/// Output instants (s from the start): every `step` from 0, plus the end
+/// itself.
+fn output_times(horizon: f64, step: f64) -> Vec<f64> {
+    let mut out: Vec<f64> = Vec::new();
+    let mut k = 0u32;
+    loop {
+        let t = f64::from(k) * step;
+        if t >= horizon - 1e-6 {
+            break;
+        }
+        out.push(t);
+        k += 1;
+    }
+    out.push(horizon);
+    out
+}
+
+/// The tributary inflows of `spec` in seconds from `t0`.
+fn laterals_of(spec: &ReachSpec, t0: DateTime<Utc>) -> Result<Vec<Lateral>, RunError> {
+    spec.laterals
+        .iter()
+        .enumerate()
+        .map(|(i, l)| {
+            let series = Series::new(
+                l.inflow
+                    .iter()
+                    .map(|p| seconds(p.time.with_timezone(&Utc), t0))
+                    .collect(),
+                l.inflow.iter().map(|p| p.discharge).collect(),
+            )
+            .map_err(|e| {
+                RunError::Spec(SpecError::new(
+                    format!("laterals[{i}].inflow"),
+                    e.to_string(),
+                ))
+            })?;
+            Ok(Lateral {
+                chainage: l.chainage,
+                inflow: series,
+            })
+        })
+        .collect()
 }
 
 /// The forecast at one point: node results interpolated to its chainage,

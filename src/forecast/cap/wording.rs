@@ -245,54 +245,44 @@ fn forecast_lines(d: &mut String, msg_type: MsgType, s: &Situation) {
         );
         return;
     }
+    let _ = writeln!(d, "{}", when_sentence(s));
+}
+
+/// When the water is above the level: since when (while above now) or
+/// from when, and until when, in one or two sentences.
+fn when_sentence(s: &Situation) -> String {
+    let until = match s.back_below {
+        Some(t) => format!("Forecast to fall back below at {}.", long_time(t)),
+        None => "Forecast to stay above it to the end of the forecast period.".to_owned(),
+    };
     if s.above_now {
-        let _ = match (s.above_since, s.above_since_start) {
-            (Some(t), false) => writeln!(
-                d,
-                "The stage is above this level now, since {}.",
-                long_time(t)
-            ),
-            (Some(t), true) => writeln!(
-                d,
+        let since = match (s.above_since, s.above_since_start) {
+            (Some(t), false) => {
+                format!("The stage is above this level now, since {}.", long_time(t))
+            }
+            (Some(t), true) => format!(
                 "The stage is above this level now, and has been since at least {} (the start \
                  of the modelled look-back).",
                 long_time(t)
             ),
-            (None, _) => writeln!(d, "The stage is above this level now."),
+            (None, _) => "The stage is above this level now.".to_owned(),
         };
-    } else if let Some(t) = s.first_above {
-        let _ = match s.level_kind {
-            LevelKind::LowChord => {
-                writeln!(d, "Forecast to reach the low chord at {}.", long_time(t))
-            }
-            LevelKind::Deck => match s.back_below {
-                Some(b) => {
-                    let _ = writeln!(
-                        d,
-                        "Deck forecast under water from {} to {}.",
-                        long_time(t),
-                        long_time(b)
-                    );
-                    return;
-                }
-                None => writeln!(d, "Deck forecast under water from {}.", long_time(t)),
-            },
-            LevelKind::Threshold => {
-                writeln!(
-                    d,
-                    "Forecast to rise above the threshold at {}.",
-                    long_time(t)
-                )
-            }
-        };
+        return format!("{since}\n{until}");
     }
-    let _ = match s.back_below {
-        Some(t) => writeln!(d, "Forecast to fall back below at {}.", long_time(t)),
-        None => writeln!(
-            d,
-            "Forecast to stay above it to the end of the forecast period."
-        ),
+    let Some(t) = s.first_above else {
+        return until;
     };
+    let from = long_time(t);
+    match (s.level_kind, s.back_below) {
+        (LevelKind::Deck, Some(b)) => {
+            format!("Deck forecast under water from {from} to {}.", long_time(b))
+        }
+        (LevelKind::Deck, None) => format!("Deck forecast under water from {from}.\n{until}"),
+        (LevelKind::LowChord, _) => format!("Forecast to reach the low chord at {from}.\n{until}"),
+        (LevelKind::Threshold, _) => {
+            format!("Forecast to rise above the threshold at {from}.\n{until}")
+        }
+    }
 }
 
 /// CAP `instruction`: the caution itself, so that a consumer that shows
@@ -384,6 +374,40 @@ mod tests {
             headline(&plan(&[], &[situation()], t(6, 0), &ISSUER).expect("plan")[0])
                 .contains("Sallowgate Bridge")
         );
+    }
+
+    /// The planner's words for a bridge: the low chord is "reached", the
+    /// deck is "under water from … to …"; since when while above now.
+    #[test]
+    fn bridge_levels_are_worded_as_planners_say_them() {
+        let mut lc = situation();
+        lc.level_id = "low_chord".into();
+        lc.level_kind = LevelKind::LowChord;
+        lc.threshold_name = "low chord".into();
+        let p = plan(&[], &[lc.clone()], t(6, 0), &ISSUER).expect("plan");
+        assert_eq!(
+            headline(&p[0]),
+            "Advisory: Sallowgate Bridge: water forecast to reach the low chord from 14 Mar 09:00 UTC"
+        );
+        assert!(
+            description(&p[0]).contains("Forecast to reach the low chord at 2031-03-14 09:00 UTC.")
+        );
+        let mut deck = lc.clone();
+        deck.level_id = "deck".into();
+        deck.level_kind = LevelKind::Deck;
+        let p = plan(&[], &[deck], t(6, 0), &ISSUER).expect("plan");
+        assert!(
+            description(&p[0]).contains(
+                "Deck forecast under water from 2031-03-14 09:00 UTC to 2031-03-14 14:00 UTC."
+            ),
+            "{}",
+            description(&p[0])
+        );
+        lc.above_now = true;
+        lc.above_since = Some(t(4, 30));
+        let p = plan(&[], &[lc], t(6, 0), &ISSUER).expect("plan");
+        assert!(description(&p[0]).contains("above this level now, since 2031-03-14 04:30 UTC"));
+        assert!(headline(&p[0]).ends_with("water at the low chord now"));
     }
 
     #[test]
