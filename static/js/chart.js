@@ -194,7 +194,8 @@ export function renderChart(doc, point, ctx) {
   const plotBox = { left: m.left, right: width - m.right, top: m.top, bottom: height - m.bottom };
   const nowBox = Number.isFinite(c.nowMs) ? [{ x0: c.x(c.nowMs), x1: c.x(c.nowMs) + 4 + textWidth("now"), y0: m.top, y1: m.top + 13 }] : [];
   const marks = crossingMarks(inView, c.t0, c.t1);
-  const markBoxes = drawCrossings(doc, c.svg, marks, { x: c.x, y: c.y, box: plotBox, blocked: levelBoxes.concat(nowBox), zone: ctx.zone, unit: c.unit });
+  const blocked = levelBoxes.concat(nowBox, crestBox(c, point));
+  const markBoxes = drawCrossings(doc, c.svg, marks, { x: c.x, y: c.y, box: plotBox, blocked, zone: ctx.zone, unit: c.unit });
   drawNow(c);
   drawCrest(c, point, levelBoxes.concat(markBoxes));
   return c.svg;
@@ -277,6 +278,15 @@ function drawSeries({ doc, svg, m, width, plotPx, x, y, yt, times, obs }, point,
   if (fcPath) el(doc, "path", { d: fcPath, fill: "none", stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5", class: "series-forecast", ...clip }, svg);
   const obsPath = pathOf(obs.map((o) => o[0]), obs.map((o) => o[1]), x, y);
   if (obsPath) el(doc, "path", { d: obsPath, fill: "none", stroke: "#1d2733", "stroke-width": 2.5, class: "series-observed", ...clip }, svg);
+}
+
+/** The crest marker's box (drawn last), for keeping labels off it. */
+function crestBox({ x, y }, point) {
+  const ct = toMs(point.crest_time);
+  if (!Number.isFinite(ct) || point.crest_stage == null) return [];
+  const cx = x(ct);
+  const cy = y(point.crest_stage);
+  return [{ x0: cx - 7, x1: cx + 7, y0: cy - 8, y1: cy + 8 }];
 }
 
 function drawNow({ doc, svg, m, height, x, nowMs }) {

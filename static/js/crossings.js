@@ -48,27 +48,38 @@ function overlaps(a, b) {
 
 /**
  * Places each mark's label next to its mark: above the line, else below,
- * else further out, so that no label leaves the plot box or covers another
- * label or a `blocked` box; kept inside horizontally by its anchor. A
- * label with no free place is left out (its <title> still tells).
+ * else beside the dot (right, then left), else further out, so that no
+ * label leaves the plot box or covers another label, another mark's dot
+ * or a `blocked` box. A label with no free place is left out (its <title>
+ * and the table under the chart still tell).
  * marks: [{ px, py, text }]; box: { left, right, top, bottom }.
  * Returns per mark { x, y (baseline), anchor, box } or null.
  */
 export function placeMarkLabels(marks, box, blocked = []) {
-  const taken = blocked.slice();
+  // Every mark's dot stays uncovered too (its own included: labels sit
+  // just off it).
+  const dots = marks.map((m) => ({ x0: m.px - 4, x1: m.px + 4, y0: m.py - 4, y1: m.py + 4 }));
+  const taken = blocked.concat(dots);
   return marks.map((m) => {
-    const w = labelWidth(m.text);
-    const anchor = m.px - w / 2 < box.left ? "start" : m.px + w / 2 > box.right ? "end" : "middle";
-    const x0 = anchor === "start" ? m.px : anchor === "end" ? m.px - w : m.px - w / 2;
-    for (const dy of [-6, LABEL_H + 6, -6 - LABEL_H, 2 * LABEL_H + 6]) {
-      const y = m.py + dy;
-      const b = { x0, x1: x0 + w, y0: y - LABEL_H + 2, y1: y + 2 };
-      if (b.y0 < box.top || b.y1 > box.bottom || taken.some((t) => overlaps(t, b))) continue;
-      taken.push(b);
-      return { x: m.px, y, anchor, box: b };
-    }
-    return null;
+    const free = labelCandidates(m, box).find((c) => c.box.x0 >= box.left && c.box.x1 <= box.right && c.box.y0 >= box.top && c.box.y1 <= box.bottom && !taken.some((t) => overlaps(t, c.box)));
+    if (!free) return null;
+    taken.push(free.box);
+    return free;
   });
+}
+
+/** Where a mark's label may go, best first: { x, y, anchor, box }. */
+function labelCandidates(m, box) {
+  const w = labelWidth(m.text);
+  const at = (x, y, anchor) => {
+    const x0 = anchor === "start" ? x : anchor === "end" ? x - w : x - w / 2;
+    return { x, y, anchor, box: { x0, x1: x0 + w, y0: y - LABEL_H + 2, y1: y + 2 } };
+  };
+  // Centred on the mark where that fits, else anchored inwards.
+  const centre = m.px - w / 2 < box.left ? "start" : m.px + w / 2 > box.right ? "end" : "middle";
+  const out = [at(m.px, m.py - 6, centre), at(m.px, m.py + LABEL_H + 6, centre), at(m.px + 7, m.py + 4, "start"), at(m.px - 7, m.py + 4, "end")];
+  for (const dy of [-6 - LABEL_H, 2 * LABEL_H + 6, -6 - 2 * LABEL_H]) out.push(at(m.px, m.py + dy, centre));
+  return out;
 }
 
 /**

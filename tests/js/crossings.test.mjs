@@ -67,7 +67,7 @@ test("mark labels stay inside the plot and off each other and off blocked boxes"
 });
 
 test("a label with no free place is left out", () => {
-  const out = placeMarkLabels([{ px: 100, py: 20, text: "15:10 ↑" }], { left: 0, right: 200, top: 10, bottom: 30 });
+  const out = placeMarkLabels([{ px: 100, py: 20, text: "15:10 ↑" }], { left: 0, right: 200, top: 15, bottom: 25 });
   assert.deepEqual(out, [null]);
 });
 
@@ -83,4 +83,24 @@ test("the table rows name each crossed level with its times", () => {
     ["deck", "Sat 14 Mar 17:00 (+01:00)", "still above at the end of the forecast"],
     ["low", "above now", "Sun 15 Mar 04:00 (+01:00)"],
   ]);
+});
+
+test("a label does not cover another mark's dot", () => {
+  // Two marks 20 px apart on lines 12 px apart: the upper one's label
+  // above its line would do; the lower one's label above would cover the
+  // upper dot, so it goes below its line.
+  const marks = [{ px: 100, py: 50, text: "10:00 ↑" }, { px: 110, py: 62, text: "10:20 ↓" }];
+  const out = placeMarkLabels(marks, { left: 0, right: 300, top: 0, bottom: 200 });
+  const dot = { x0: 96, x1: 104, y0: 46, y1: 54 };
+  const b = out[1].box;
+  assert.ok(!(b.x0 < dot.x1 && dot.x0 < b.x1 && b.y0 < dot.y1 && dot.y0 < b.y1), JSON.stringify(out));
+  assert.ok(out[1].y > 62, "below its own line");
+});
+
+test("a label with no room above or below goes beside its dot", () => {
+  // Level labels fill the rows above and below the mark.
+  const blocked = [{ x0: 0, x1: 300, y0: 30, y1: 42 }, { x0: 0, x1: 300, y0: 58, y1: 80 }];
+  const [l] = placeMarkLabels([{ px: 100, py: 50, text: "15:10 ↑" }], { left: 0, right: 300, top: 0, bottom: 200 }, blocked);
+  assert.equal(l.anchor, "start");
+  assert.ok(l.box.x0 > 104, "right of the dot");
 });
