@@ -3,7 +3,9 @@
 // when an answer changed.
 
 import { renderChart } from "./js/chart.js";
+import { crossingRows } from "./js/crossings.js";
 import { formatChainage, formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
+import { profileRows, renderProfile } from "./js/profile.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
 import { $, h, HttpError, readBody } from "./js/dom.js";
@@ -23,6 +25,8 @@ const state = {
   units: null, // null: the reach's preference
   forecast: null,
   forecastUrl: null,
+  profile: null, // the longitudinal profile answer, or null: section hidden
+  profileUrl: null,
   fetchedAt: 0, // local clock when `forecast` arrived
   etags: new Map(), // url -> { etag, body }
   timer: null,
@@ -58,6 +62,10 @@ function forecastUrl() {
   return `/api/reaches/${encodeURIComponent(state.reachId)}/forecast?units=${unitsWanted() === "us" ? "us" : "si"}`;
 }
 
+function profileUrl() {
+  return `/api/reaches/${encodeURIComponent(state.reachId)}/profile?units=${unitsWanted() === "us" ? "us" : "si"}`;
+}
+
 // ---------------------------------------------------------------- polling
 
 async function refresh() {
@@ -75,6 +83,7 @@ async function refresh() {
       showNoForecast("No reach is configured on this server yet.");
     } else {
       await refreshForecast();
+      if (state.forecast) await refreshProfile();
     }
     state.lastOk = Date.now();
     state.misses = state.forecast ? 0 : state.misses + 1;
@@ -117,6 +126,38 @@ async function refreshForecast() {
   }
 }
 
+/**
+ * The profile beside the forecast, through the same ETag cache. Without
+ * one (404 before the first run, or a server without the endpoint) or on
+ * any failure the section is emptied, which hides it; the forecast above
+ * stays as it is.
+ */
+async function refreshProfile() {
+  const url = profileUrl();
+  let res;
+  try {
+    res = await getJson(url);
+  } catch {
+    clearProfile();
+    return;
+  }
+  if (!Array.isArray(res.body?.nodes) || !res.body.nodes.length) {
+    clearProfile();
+    return;
+  }
+  if (res.changed || !state.profile || state.profileUrl !== url) {
+    state.profile = res.body;
+    state.profileUrl = url;
+    renderProfileSection();
+  }
+}
+
+function clearProfile() {
+  state.profile = null;
+  state.profileUrl = null;
+  $("profile").replaceChildren();
+}
+
 function setConn(text, bad) {
   const c = $("conn");
   c.textContent = text;
@@ -136,6 +177,7 @@ function showNoForecast(text) {
   $("data-age").hidden = true;
   $("charts").replaceChildren();
   $("stale").hidden = true;
+  clearProfile();
 }
 
 // ---------------------------------------------------------------- rendering
@@ -327,6 +369,10 @@ function swatch(kind) {
   if (kind === "threshold") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#8a5a00", "stroke-width": 1.25 });
   if (kind === "structure") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#4d5b6a", "stroke-width": 2 });
   if (kind === "now") add("line", { x1: 14, x2: 14, y1: 0, y2: 12, stroke: "#1f4f8a", "stroke-width": 2 });
+  if (kind === "crossing") {
+    add("circle", { cx: 7, cy: 6, r: 3.5, fill: "#1d2733", stroke: "#1d2733", "stroke-width": 1.5 });
+    add("circle", { cx: 21, cy: 6, r: 3.5, fill: "#ffffff", stroke: "#1d2733", "stroke-width": 1.5 });
+  }
   if (kind === "crest") add("path", { d: "M14,0l6,6l-6,6l-6,-6z", fill: "#b03a12" });
   return s;
 }
@@ -339,6 +385,7 @@ function legend(p) {
     p.low_chord != null || p.deck != null ? ["structure", "low chord / deck"] : null,
     ["now", "now"],
     ["crest", "forecast crest"],
+    levelsOf(p).some((l) => l.exceeded) ? ["crossing", "rises above (●) / back below (○) a level"] : null,
   ].filter(Boolean);
   return h("ul", { class: "legend", "aria-label": "Chart key" }, ...items.map(([k, t]) => h("li", {}, swatch(k), ` ${t}`)));
 }
@@ -386,6 +433,84 @@ function dataTable(p, f, zone) {
         h("tbody", {}, ...body),
       ),
     ),
+    crossingTable(p, f, zone),
+  );
+}
+
+/** When the forecast rises above and falls back below each level. */
+function crossingTable(p, f, zone) {
+  const rows = crossingRows(levelsOf(p), zone);
+  const caption = h("caption", { text: `Level crossings at ${p.name}; times in ${zone}` });
+  if (!rows.length) return h("p", { class: "muted crossings-none", text: `No level crossed at ${p.name} from now on.` });
+  const head = ["Level", `Elevation (${f.units.elevation})`, "Above from", "Back below"].map((c) => h("th", { scope: "col", text: c }));
+  const body = rows.map((r) =>
+    h("tr", { "data-level": r.id }, h("th", { scope: "row", text: r.name }), h("td", { class: "num", text: r.elevation.toFixed(2) }), h("td", { text: r.above }), h("td", { text: r.below })),
+  );
+  return h("div", { class: "table-wrap" }, h("table", { class: "crossings" }, caption, h("thead", {}, h("tr", {}, ...head)), h("tbody", {}, ...body)));
+}
+
+// ---------------------------------------------------------------- profile
+
+/** The longitudinal profile: heading, chart, key and its data table. */
+function renderProfileSection(printWidth) {
+  const d = state.profile;
+  if (!d) return;
+  const box = $("profile");
+  const width = printWidth || Math.min(Math.max((box.clientWidth || $("charts").clientWidth || 720) - 2, 280), 1400);
+  const zone = state.forecast?.reach.time_zone;
+  const svg = renderProfile(document, d, {
+    width,
+    titleId: "profile-title",
+    title: `Longitudinal profile of ${d.reach_name}, upstream to downstream: bed, bank tops, water surface now and the highest forecast water surface, run #${d.run_id}.`,
+  });
+  box.replaceChildren(
+    h("h2", { id: "profile-h", text: "Longitudinal profile" }),
+    h(
+      "p",
+      { class: "muted" },
+      ...(d.freshness?.stale ? [h("strong", { class: "stale-mark", text: "stale data" }), " (may be out of date). "] : []),
+      `Run #${d.run_id}, issued ${formatTime(d.issued_at, zone)}. Elevations in ${d.units.elevation}; upstream at the left.`,
+    ),
+    h("div", { class: "chart-box" }, svg),
+    profileLegend(d),
+    profileTable(d),
+  );
+}
+
+function profileLegend(d) {
+  const line = (attrs) => {
+    const s = swatch("none");
+    const e = document.createElementNS("http://www.w3.org/2000/svg", "line");
+    for (const [k, v] of Object.entries({ x1: 0, x2: 28, y1: 6, y2: 6, ...attrs })) e.setAttribute(k, v);
+    s.append(e);
+    return s;
+  };
+  const items = [
+    [line({ stroke: "#6b5b40", "stroke-width": 6 }), "bed (filled)"],
+    (d.banks || []).some((b) => b.left_top != null || b.right_top != null) ? [line({ stroke: "#4d5b6a", "stroke-width": 1.5, "stroke-dasharray": "6 3" }), "left bank top (dashed) / right (dotted)"] : null,
+    [line({ stroke: "#1f4f8a", "stroke-width": 2 }), "water surface now (solid)"],
+    [line({ stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5" }), "highest forecast water surface (dashed)"],
+    (d.points || []).some((p) => p.low_chord != null) ? [line({ stroke: "#9aa5b1", "stroke-width": 8 }), "bridge, low chord to deck"] : null,
+    [line({ x1: 7, x2: 21, stroke: "#8a5a00", "stroke-width": 2 }), "threshold at a point"],
+  ].filter(Boolean);
+  return h("ul", { class: "legend", "aria-label": "Profile key" }, ...items.map(([s, t]) => h("li", {}, s, ` ${t}`)));
+}
+
+function profileTable(d) {
+  const u = d.units.elevation;
+  const rows = profileRows(d, u).map((r) =>
+    h("tr", { "data-point": r.name }, h("th", { scope: "row", text: r.name }), ...[r.chainage, r.bed, r.now, r.highest, r.lowChord, r.deck, r.room].map((t) => h("td", { class: "num", text: t }))),
+  );
+  const head = ["Point", "Chainage", `Bed (${u})`, `Stage now (${u})`, `Highest forecast (${u})`, `Low chord (${u})`, `Deck (${u})`, "Room under the low chord at the highest"];
+  return h(
+    "details",
+    { class: "data" },
+    h("summary", { text: `Data table for the profile (${rows.length} ${rows.length === 1 ? "point" : "points"})` }),
+    h(
+      "div",
+      { class: "table-wrap" },
+      h("table", { class: "profile-table" }, h("caption", { text: `Longitudinal profile of ${d.reach_name} at the points of interest, upstream first` }), h("thead", {}, h("tr", {}, ...head.map((c) => h("th", { scope: "col", text: c })))), h("tbody", {}, ...rows)),
+    ),
   );
 }
 
@@ -398,7 +523,10 @@ function setupBriefing() {
   }
   $("print-briefing").addEventListener("click", () => window.print());
   // Drawn at the paper's width, chart text prints at its normal size.
-  const redraw = (width) => state.forecast && renderCharts(state.forecast, state.forecast.reach.time_zone, width);
+  const redraw = (width) => {
+    if (state.forecast) renderCharts(state.forecast, state.forecast.reach.time_zone, width);
+    renderProfileSection(width);
+  };
   window.addEventListener("beforeprint", () => redraw(PRINT_CHART_PX));
   window.addEventListener("afterprint", () => redraw());
 }
@@ -430,6 +558,7 @@ function wire() {
       if (state.forecast && w !== lastWidth) {
         lastWidth = w;
         renderCharts(state.forecast, state.forecast.reach.time_zone);
+        renderProfileSection();
       }
     }, 150);
   });

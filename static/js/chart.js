@@ -1,7 +1,9 @@
 // A small hydrograph chart: scales and ticks (pure, unit tested with
 // node --test) and an inline-SVG renderer that takes the document to draw in.
 
+import { crossingMarks, drawCrossings } from "./crossings.js";
 import { HOUR, formatClock, formatDay, formatLevel, offsetLabel, offsetMinutes, toMs, wallClock } from "./format.js";
+import { el, pathOf } from "./svg.js";
 
 /**
  * A "nice" step for covering `span` with about `target` intervals: 1, 2 or
@@ -154,29 +156,24 @@ export function spreadLabels(ys, gap, top, bottom) {
   return out;
 }
 
-const SVGNS = "http://www.w3.org/2000/svg";
-
-function el(doc, name, attrs, parent, text) {
-  const e = doc.createElementNS(SVGNS, name);
-  for (const [k, v] of Object.entries(attrs)) e.setAttribute(k, String(v));
-  if (text != null) e.textContent = text;
-  if (parent) parent.appendChild(e);
-  return e;
-}
-
-function pathOf(xs, ys, x, y) {
-  let d = "";
-  let pen = false;
-  for (let i = 0; i < xs.length; i += 1) {
-    const v = ys[i];
-    if (v == null || !Number.isFinite(v) || !Number.isFinite(xs[i])) {
-      pen = false;
-      continue;
-    }
-    d += `${pen ? "L" : "M"}${x(xs[i]).toFixed(1)},${y(v).toFixed(1)}`;
-    pen = true;
+/**
+ * The lines a hydrograph draws: the user's thresholds, then the low chord
+ * and deck (from the point's own fields, drawn as a structure). Each
+ * carries the API's level as `source` (when the answer has levels), for
+ * its crossing times.
+ */
+export function chartLevels(point) {
+  const levels = [];
+  const api = point.levels || point.thresholds || [];
+  for (const th of api) {
+    if (!th.kind || th.kind === "threshold") levels.push({ kind: "threshold", label: th.name, value: th.elevation, severity: th.severity, source: th });
   }
-  return d;
+  const structure = (kind, label, value) => {
+    if (value != null) levels.push({ kind: "structure", label, value, source: api.find((l) => l.kind === kind) });
+  };
+  structure("low_chord", "low chord", point.low_chord);
+  structure("deck", "deck", point.deck);
+  return levels;
 }
 
 /**
@@ -184,123 +181,143 @@ function pathOf(xs, ys, x, y) {
  * point: the API's point; ctx: { zone, units, now, width, titleId }.
  */
 export function renderChart(doc, point, ctx) {
+  const c = chartFrame(doc, point, ctx);
+  drawStageAxis(c);
+  drawTimeAxis(c);
+  // Threshold and structure lines, labelled at the right.
+  const { m, width, height } = c;
+  const levelBoxes = drawLevels(doc, c.svg, c.levels, { x0: m.left, x1: width - m.right, top: m.top, bottom: height - m.bottom, y: c.y, yt: c.yt, unit: c.unit });
+  drawSeries(c, point, ctx.titleId);
+  // On top of the series: where the forecast rises above and falls back
+  // below each level, clear of the level labels and the "now" label.
+  const inView = c.levels.filter((l) => l.value >= c.yt.min && l.value <= c.yt.max);
+  const plotBox = { left: m.left, right: width - m.right, top: m.top, bottom: height - m.bottom };
+  const nowBox = Number.isFinite(c.nowMs) ? [{ x0: c.x(c.nowMs), x1: c.x(c.nowMs) + 4 + textWidth("now"), y0: m.top, y1: m.top + 13 }] : [];
+  const marks = crossingMarks(inView, c.t0, c.t1);
+  const blocked = levelBoxes.concat(nowBox, crestBox(c, point));
+  const markBoxes = drawCrossings(doc, c.svg, marks, { x: c.x, y: c.y, box: plotBox, blocked, zone: ctx.zone, unit: c.unit });
+  drawNow(c);
+  drawCrest(c, point, levelBoxes.concat(markBoxes));
+  return c.svg;
+}
+
+/** Size, scales, levels and the empty svg of one hydrograph. */
+function chartFrame(doc, point, ctx) {
   const width = Math.max(280, Math.round(ctx.width || 720));
   const narrow = width < 520;
   const height = narrow ? 260 : 320;
   const m = { top: 14, right: narrow ? 8 : 16, bottom: 52, left: 58 };
   const unit = ctx.units.stage;
   const nowMs = toMs(ctx.now);
-
   const times = (point.times || []).map(toMs);
-  const stage = point.stage || [];
   const obs = (point.observed || []).map((o) => [toMs(o.time), o.stage]);
-  const levels = [];
-  // Low chord and deck come from the point's own fields below (drawn as a
-  // structure), so only the user's thresholds are taken from the levels.
-  for (const th of point.levels || point.thresholds || []) {
-    if (!th.kind || th.kind === "threshold") levels.push({ kind: "threshold", label: th.name, value: th.elevation, severity: th.severity });
-  }
-  if (point.low_chord != null) levels.push({ kind: "structure", label: "low chord", value: point.low_chord });
-  if (point.deck != null) levels.push({ kind: "structure", label: "deck", value: point.deck });
-
+  const levels = chartLevels(point);
   const allT = times.concat(obs.map((o) => o[0])).filter(Number.isFinite);
   if (Number.isFinite(nowMs)) allT.push(nowMs);
   const t0 = Math.min(...allT);
   const t1 = Math.max(...allT);
-  const vals = stage.concat(obs.map((o) => o[1]), levels.map((l) => l.value)).filter((v) => v != null && Number.isFinite(v));
+  const vals = (point.stage || []).concat(obs.map((o) => o[1]), levels.map((l) => l.value)).filter((v) => v != null && Number.isFinite(v));
   // 5 cm, or the same length in feet (0.3048 m each, NIST SP 811).
   const resolution = unit === "ft" ? 0.05 / 0.3048 : 0.05;
   const plotPx = height - m.bottom - m.top;
   const yt = stageTicks(Math.min(...vals), Math.max(...vals), { crest: point.crest_stage, lowChord: point.low_chord, plotPx, resolution, target: narrow ? 4 : 6 });
-
+  const svg = el(doc, "svg", { class: "chart", viewBox: `0 0 ${width} ${height}`, width, height, role: "img", "aria-labelledby": ctx.titleId, "data-point": point.name });
+  el(doc, "title", { id: ctx.titleId }, svg, ctx.title || `Stage at ${point.name}`);
   const x = linearScale(t0, t1, m.left, width - m.right);
   const y = linearScale(yt.min, yt.max, height - m.bottom, m.top);
+  return { doc, svg, width, height, m, unit, zone: ctx.zone, nowMs, times, obs, levels, t0, t1, yt, plotPx, x, y };
+}
 
-  const svg = el(doc, "svg", {
-    class: "chart",
-    viewBox: `0 0 ${width} ${height}`,
-    width,
-    height,
-    role: "img",
-    "aria-labelledby": ctx.titleId,
-    "data-point": point.name,
-  });
-  el(doc, "title", { id: ctx.titleId }, svg, ctx.title || `Stage at ${point.name}`);
-
-  // Horizontal grid and stage labels.
+/** Horizontal grid and stage labels. */
+function drawStageAxis({ doc, svg, m, width, height, y, yt, unit }) {
   const grid = el(doc, "g", { class: "grid" }, svg);
   for (const v of yt.ticks) {
     const py = y(v).toFixed(1);
     el(doc, "line", { x1: m.left, x2: width - m.right, y1: py, y2: py, stroke: "#d9dde2", "stroke-width": 1 }, grid);
     el(doc, "text", { x: m.left - 6, y: py, dy: "0.32em", "text-anchor": "end", class: "tick" }, grid, v.toFixed(yt.decimals));
   }
-  el(doc, "text", { x: 12, y: (m.top + height - m.bottom) / 2, transform: `rotate(-90 12 ${(m.top + height - m.bottom) / 2})`, "text-anchor": "middle", class: "axis-title" }, svg, yt.zoomed ? `Stage (${unit}), zoomed` : `Stage (${unit})`);
+  const mid = (m.top + height - m.bottom) / 2;
+  el(doc, "text", { x: 12, y: mid, transform: `rotate(-90 12 ${mid})`, "text-anchor": "middle", class: "axis-title" }, svg, yt.zoomed ? `Stage (${unit}), zoomed` : `Stage (${unit})`);
+}
 
-  // Time axis: ticks on whole hours of the reach's clock.
+/** Time axis: ticks on whole hours of the reach's clock, days under them. */
+function drawTimeAxis({ doc, svg, m, width, height, x, t0, t1, zone, nowMs }) {
   const maxTicks = Math.max(2, Math.floor((width - m.left - m.right) / 64));
-  const tt = timeTicks(t0, t1, ctx.zone, maxTicks);
+  const tt = timeTicks(t0, t1, zone, maxTicks);
   const axis = el(doc, "g", { class: "x-axis" }, svg);
   let lastDay = "";
   for (const t of tt.ticks) {
     const px = x(t).toFixed(1);
     el(doc, "line", { x1: px, x2: px, y1: m.top, y2: height - m.bottom, stroke: "#eceef1", "stroke-width": 1 }, axis);
     el(doc, "line", { x1: px, x2: px, y1: height - m.bottom, y2: height - m.bottom + 5, stroke: "#4d5b6a" }, axis);
-    const day = formatDay(t, ctx.zone);
+    const day = formatDay(t, zone);
     const newDay = day !== lastDay;
     // Half the wider of the two lines, with room for bold digits.
     const half = 0.6 * textWidth(newDay ? day : "00:00");
     const anchor = tickAnchor(Number(px), half, 0, width);
-    const label = el(doc, "text", { x: px, y: height - m.bottom + 17, "text-anchor": anchor, class: "tick" }, axis, formatClock(t, ctx.zone));
+    const label = el(doc, "text", { x: px, y: height - m.bottom + 17, "text-anchor": anchor, class: "tick" }, axis, formatClock(t, zone));
     if (newDay) {
-      const w = wallClock(t, ctx.zone);
+      const w = wallClock(t, zone);
       const tspan = el(doc, "tspan", { x: px, dy: "1.2em" }, label, tt.stepHours >= 24 || w.hour === 0 || !lastDay ? day : "");
       tspan.setAttribute("class", "tick-day");
       lastDay = day;
     }
   }
   el(doc, "line", { x1: m.left, x2: width - m.right, y1: height - m.bottom, y2: height - m.bottom, stroke: "#4d5b6a" }, axis);
-  el(doc, "text", { x: width - m.right, y: height - 4, "text-anchor": "end", class: "axis-title" }, axis, `Time (${zoneLabel(ctx.zone, nowMs)})`);
+  el(doc, "text", { x: width - m.right, y: height - 4, "text-anchor": "end", class: "axis-title" }, axis, `Time (${zoneLabel(zone, nowMs)})`);
+}
 
-  // Threshold and structure lines, labelled at the right.
-  const labelBoxes = drawLevels(doc, svg, levels, { x0: m.left, x1: width - m.right, top: m.top, bottom: height - m.bottom, y, yt, unit });
-
-  // Series: model stage dashed, observed solid on top of it.
-  // A zoomed axis cuts the series off at the plot's edges.
-  const clip = yt.zoomed ? { "clip-path": `url(#clip-${ctx.titleId})` } : {};
-  if (yt.zoomed) el(doc, "rect", { x: m.left, y: m.top, width: width - m.left - m.right, height: plotPx }, el(doc, "clipPath", { id: `clip-${ctx.titleId}` }, svg));
-  const fcPath = pathOf(times, stage, x, y);
+/**
+ * Series: model stage dashed, observed solid on top of it. A zoomed axis
+ * cuts the series off at the plot's edges.
+ */
+function drawSeries({ doc, svg, m, width, plotPx, x, y, yt, times, obs }, point, titleId) {
+  const clip = yt.zoomed ? { "clip-path": `url(#clip-${titleId})` } : {};
+  if (yt.zoomed) el(doc, "rect", { x: m.left, y: m.top, width: width - m.left - m.right, height: plotPx }, el(doc, "clipPath", { id: `clip-${titleId}` }, svg));
+  const fcPath = pathOf(times, point.stage || [], x, y);
   if (fcPath) el(doc, "path", { d: fcPath, fill: "none", stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5", class: "series-forecast", ...clip }, svg);
   const obsPath = pathOf(obs.map((o) => o[0]), obs.map((o) => o[1]), x, y);
   if (obsPath) el(doc, "path", { d: obsPath, fill: "none", stroke: "#1d2733", "stroke-width": 2.5, class: "series-observed", ...clip }, svg);
+}
 
-  // Now line.
-  if (Number.isFinite(nowMs)) {
-    const px = x(nowMs).toFixed(1);
-    el(doc, "line", { x1: px, x2: px, y1: m.top, y2: height - m.bottom, stroke: "#1f4f8a", "stroke-width": 2, class: "now-line" }, svg);
-    el(doc, "text", { x: Number(px) + 4, y: m.top + 10, class: "now-label" }, svg, "now");
-  }
-
-  // Crest marker.
+/** The crest marker's box (drawn last), for keeping labels off it. */
+function crestBox({ x, y }, point) {
   const ct = toMs(point.crest_time);
-  if (Number.isFinite(ct) && point.crest_stage != null) {
-    const cx = x(ct);
-    const cy = y(point.crest_stage);
-    el(doc, "path", { d: `M${cx.toFixed(1)},${(cy - 7).toFixed(1)}l6,7l-6,7l-6,-7z`, fill: "#b03a12", stroke: "#ffffff", "stroke-width": 1.5, class: "crest" }, svg);
-    const text = `crest ${formatLevel(point.crest_stage, unit)}`;
-    const w = textWidth(text);
-    const right = cx > width - m.right - w - 12;
-    const x0 = right ? cx - 9 - w : cx + 9;
-    // Above the marker unless that hits a level label or line; then below
-    // it, or further out. With no free place the label is left out: the
-    // text above the chart states the crest.
-    const lines = levels.map((l) => ({ x0: m.left, x1: width - m.right, y0: y(l.value) - 2, y1: y(l.value) + 2 }));
-    const blocked = labelBoxes.concat(lines);
-    const candidates = [cy - 9, cy + 20, cy - 22, cy + 33, cy - 35, cy + 46];
-    const fits = (ly) => ly - 11 > m.top && ly < height - m.bottom && !blocked.some((b) => overlaps(b, { x0, x1: x0 + w, y0: ly - 11, y1: ly + 3 }));
-    const ly = candidates.find(fits);
-    if (ly !== undefined) el(doc, "text", { x: (right ? cx - 9 : cx + 9).toFixed(1), y: ly.toFixed(1), "text-anchor": right ? "end" : "start", class: "crest-label", "paint-order": "stroke", stroke: "#ffffff", "stroke-width": 3 }, svg, text);
-  }
-  return svg;
+  if (!Number.isFinite(ct) || point.crest_stage == null) return [];
+  const cx = x(ct);
+  const cy = y(point.crest_stage);
+  return [{ x0: cx - 7, x1: cx + 7, y0: cy - 8, y1: cy + 8 }];
+}
+
+function drawNow({ doc, svg, m, height, x, nowMs }) {
+  if (!Number.isFinite(nowMs)) return;
+  const px = x(nowMs).toFixed(1);
+  el(doc, "line", { x1: px, x2: px, y1: m.top, y2: height - m.bottom, stroke: "#1f4f8a", "stroke-width": 2, class: "now-line" }, svg);
+  el(doc, "text", { x: Number(px) + 4, y: m.top + 10, class: "now-label" }, svg, "now");
+}
+
+/**
+ * The crest marker and its label: above the marker unless that hits a
+ * label in `labelBoxes` or a level line; then below it, or further out.
+ * With no free place the label is left out: the text above the chart
+ * states the crest.
+ */
+function drawCrest({ doc, svg, m, width, height, x, y, unit, levels }, point, labelBoxes) {
+  const ct = toMs(point.crest_time);
+  if (!Number.isFinite(ct) || point.crest_stage == null) return;
+  const cx = x(ct);
+  const cy = y(point.crest_stage);
+  el(doc, "path", { d: `M${cx.toFixed(1)},${(cy - 7).toFixed(1)}l6,7l-6,7l-6,-7z`, fill: "#b03a12", stroke: "#ffffff", "stroke-width": 1.5, class: "crest" }, svg);
+  const text = `crest ${formatLevel(point.crest_stage, unit)}`;
+  const w = textWidth(text);
+  const right = cx > width - m.right - w - 12;
+  const x0 = right ? cx - 9 - w : cx + 9;
+  const lines = levels.map((l) => ({ x0: m.left, x1: width - m.right, y0: y(l.value) - 2, y1: y(l.value) + 2 }));
+  const blocked = labelBoxes.concat(lines);
+  const candidates = [cy - 9, cy + 20, cy - 22, cy + 33, cy - 35, cy + 46];
+  const fits = (ly) => ly - 11 > m.top && ly < height - m.bottom && !blocked.some((b) => overlaps(b, { x0, x1: x0 + w, y0: ly - 11, y1: ly + 3 }));
+  const ly = candidates.find(fits);
+  if (ly !== undefined) el(doc, "text", { x: (right ? cx - 9 : cx + 9).toFixed(1), y: ly.toFixed(1), "text-anchor": right ? "end" : "start", class: "crest-label", "paint-order": "stroke", stroke: "#ffffff", "stroke-width": 3 }, svg, text);
 }
 
 /**

@@ -730,6 +730,20 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         Some(&format!("#chart-{bridge}")),
     )
     .await;
+    // The longitudinal profile: a marker per point, upstream first as
+    // the API lists them, and a table row per point.
+    let pois = b
+        .wait_for(
+            "the profile with a marker per point",
+            &format!(
+                "const p = [...document.querySelectorAll('#profile svg.profile-chart .poi')].map(g => g.dataset.point); return p.length === {} && document.querySelectorAll('#profile table.profile-table tbody tr').length === p.length ? p : null",
+                names.len()
+            ),
+            30,
+        )
+        .await;
+    assert_eq!(pois, json!(names), "profile markers in the API's order");
+    b.screenshot("profile-demo.png", Some("#profile")).await;
     b.resize(1280, 1000).await;
 
     // The units toggle asks for US units and the rows follow the API's figures.
@@ -757,6 +771,12 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         axis.to_string().contains("Stage (ft)"),
         "chart axis in feet: {axis}"
     );
+    b.wait_for(
+        "the profile in feet, chainage in miles",
+        "const s = document.querySelector('#profile svg.profile-chart'); const t = s && [...s.querySelectorAll('.x-axis text.tick')].map(e => e.textContent); return s && s.querySelector('.axis-title').textContent === 'Elevation (ft)' && t.some(x => x.startsWith('mi ')) ? t : null",
+        30,
+    )
+    .await;
     b.click("#units-si").await;
     b.wait_for(
         "the overview back in metres",
@@ -772,7 +792,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     let fits = b
         .wait_for(
             "the page to fit 360 px",
-            "return document.documentElement.clientWidth <= 360 && document.querySelector('svg.chart').getAttribute('width') <= document.documentElement.clientWidth ? {scroll: document.documentElement.scrollWidth, client: document.documentElement.clientWidth} : null",
+            "return document.documentElement.clientWidth <= 360 && document.querySelector('svg.chart').getAttribute('width') <= document.documentElement.clientWidth && document.querySelector('svg.profile-chart').getAttribute('width') <= document.documentElement.clientWidth ? {scroll: document.documentElement.scrollWidth, client: document.documentElement.clientWidth} : null",
             10,
         )
         .await;
@@ -784,6 +804,7 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
     b.screenshot("overview-360.png", None).await;
     b.screenshot("chart-360.png", Some(&format!("#chart-{bridge}")))
         .await;
+    b.screenshot("profile-360.png", Some("#profile")).await;
     let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");
 
@@ -885,6 +906,13 @@ async fn stale_forecast_shows_the_warning() {
         "the page lists the API's reasons"
     );
     b.screenshot("stale.png", None).await;
+    // The profile says so too, in words.
+    b.wait_for(
+        "the profile marked stale",
+        "const m = document.querySelector('#profile .stale-mark'); return m && m.textContent === 'stale data'",
+        30,
+    )
+    .await;
 
     // A 360 x 640 phone: the data age is above the fold, and every row of
     // the overview says the data are stale, in words.
@@ -1678,6 +1706,7 @@ return {
   charts: svgs.length,
   chartsFit: svgs.every(s => s.getBoundingClientRect().right <= document.documentElement.clientWidth + 0.5),
   profile: !!document.querySelector('section#profile'), profileShown: shown('#profile'),
+  profileFits: (() => { const s = document.querySelector('#profile svg.profile-chart'); return !!s && s.getBoundingClientRect().right <= document.documentElement.clientWidth + 0.5; })(),
   profileAfterOverview: !!(document.getElementById('overview').compareDocumentPosition(document.getElementById('profile')) & Node.DOCUMENT_POSITION_FOLLOWING),
 };
 "#;
@@ -1730,8 +1759,12 @@ fn assert_briefing(state: &Value, run_id: i64, points: usize, how: &str) {
         "{how}: the profile section is there: {state}"
     );
     assert_eq!(
-        state["profileShown"], false,
-        "{how}: empty profile hidden: {state}"
+        state["profileShown"], true,
+        "{how}: the longitudinal profile is in the briefing: {state}"
+    );
+    assert_eq!(
+        state["profileFits"], true,
+        "{how}: profile within the page: {state}"
     );
     assert_eq!(state["profileAfterOverview"], true, "{how}: {state}");
     assert!(
@@ -1759,7 +1792,7 @@ async fn briefing_view_and_print_fit_a4_without_the_forecaster_tools() {
     let state = b
         .wait_for(
             "the briefing with its charts",
-            &format!("const s = (() => {{ {BRIEFING_STATE} }})(); return s.charts === {points} && s.age ? s : null"),
+            &format!("const s = (() => {{ {BRIEFING_STATE} }})(); return s.charts === {points} && s.age && s.profileShown ? s : null"),
             30,
         )
         .await;
@@ -1771,7 +1804,7 @@ async fn briefing_view_and_print_fit_a4_without_the_forecaster_tools() {
     b.goto(&app.url("/")).await;
     b.wait_for(
         "the dashboard with its charts",
-        &format!("return document.querySelectorAll('svg.chart').length === {points}"),
+        &format!("return document.querySelectorAll('svg.chart').length === {points} && !!document.querySelector('svg.profile-chart')"),
         30,
     )
     .await;
@@ -1814,4 +1847,222 @@ async fn briefing_view_and_print_fit_a4_without_the_forecaster_tools() {
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
     app.stop().await;
+}
+
+/// The bridge reach with readings at 40 m³/s up to now and an upload
+/// rising to 400 m³/s four hours ahead, holding four hours and falling
+/// back to 20 m³/s at sixteen (as in `bridge_levels.rs`: by Manning's
+/// formula the crest passes the low chord, 19.5 m, and falls back below it
+/// within the forecast); run, and the forecast it served.
+async fn bridge_app_flooded() -> (ReachApp, Value) {
+    let s = bridge_app_without_forecast().await;
+    let now = chrono::Utc::now();
+    let readings: Vec<Value> = (0..=12)
+        .map(|k| {
+            let t = now - chrono::Duration::minutes(15 * (12 - k));
+            json!({"time": t.to_rfc3339(), "discharge": 40.0, "quality": "good"})
+        })
+        .collect();
+    let body = json!({ "readings": readings });
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &body)
+            .await,
+    )
+    .await;
+    let h = |x: i64| (now + chrono::Duration::hours(x)).to_rfc3339();
+    let series = [(0, 40.0), (4, 400.0), (8, 400.0), (16, 20.0), (48, 20.0)];
+    let upload = json!({
+        "reason": "invented flood over the low chord",
+        "series": series.iter().map(|(t, q)| json!({"time": h(*t), "discharge": q})).collect::<Vec<_>>(),
+    });
+    let res = s
+        .app
+        .post_inflow(&s.keys.forecaster, "test-reach", &upload)
+        .await;
+    assert_eq!(res.status(), 201, "upload accepted");
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200, "run finished");
+    let (status, f) = s.app.get_json("/api/reaches/test-reach/forecast").await;
+    assert_eq!(status, 200);
+    (s, f)
+}
+
+/// An RFC 3339 time as the overview writes it, "Sat 15:10", on the
+/// +01:00 clock of `bridge_reach`: formatted here with chrono, not with
+/// the page's code.
+fn weekday_clock_plus_one(t: &Value) -> String {
+    let zone = chrono::FixedOffset::east_opt(3600).expect("+01:00");
+    chrono::DateTime::parse_from_rfc3339(t.as_str().expect("a time"))
+        .expect("RFC 3339")
+        .with_timezone(&zone)
+        .format("%a %H:%M")
+        .to_string()
+}
+
+/// Script: the overview row's "When" text and the chart's crossing marks
+/// of level `arguments[0]` (time, label, title, label inside the svg).
+const CROSSING_STATE: &str = r#"
+const row = document.querySelector('#overview-body tr');
+const svg = document.querySelector('svg.chart');
+const box = svg.getBoundingClientRect();
+const marks = [...svg.querySelectorAll(`.crossing[data-level="${arguments[0]}"]`)].map(g => {
+  const t = g.querySelector('text'); const r = t && t.getBoundingClientRect();
+  return { dir: g.classList.contains('crossing-up') ? 'up' : 'down', time: g.dataset.time,
+    label: t ? t.textContent : null, title: g.querySelector('title').textContent,
+    inside: !!r && r.left >= box.left - 0.5 && r.right <= box.right + 0.5 && r.top >= box.top - 0.5 && r.bottom <= box.bottom + 0.5 };
+});
+const table = [...document.querySelectorAll(`table.crossings tr[data-level="${arguments[0]}"] td`)].map(td => td.textContent);
+return { when: row.querySelector('td[data-label="When"]').textContent, marks, table };
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn a_bridge_whose_crest_passes_the_low_chord_shows_its_crossing_time_and_reopening_time() {
+    let _one = BROWSER.lock().await;
+    let (s, f) = bridge_app_flooded().await;
+    let lc = f["points"][0]["levels"]
+        .as_array()
+        .expect("levels")
+        .iter()
+        .find(|l| l["id"] == "low_chord")
+        .expect("a low chord level")
+        .clone();
+    assert_eq!(lc["exceeded"], true, "the flood passes the low chord: {lc}");
+    let (up, down) = (
+        weekday_clock_plus_one(&lc["first_above"]),
+        weekday_clock_plus_one(&lc["back_below"]),
+    );
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/")).await;
+    b.wait_for(
+        "the bridge's row and chart",
+        "return document.querySelector('#overview-body tr') && document.querySelector('svg.chart .crossing')",
+        30,
+    )
+    .await;
+    let state = b.js(CROSSING_STATE, json!(["low_chord"])).await;
+    let when = state["when"].as_str().unwrap_or_default();
+    assert!(
+        when.contains(&format!("({up}), back below {down}")),
+        "the low chord's crossing {up} and reopening {down} in the row: {state}"
+    );
+    let marks = state["marks"].as_array().expect("marks");
+    assert_eq!(marks.len(), 2, "a rise and a fall mark: {state}");
+    for (mark, dir, t, clock) in [
+        (&marks[0], "up", &lc["first_above"], &up),
+        (&marks[1], "down", &lc["back_below"], &down),
+    ] {
+        assert_eq!(mark["dir"], dir, "{state}");
+        let at = |v: &Value| {
+            chrono::DateTime::parse_from_rfc3339(v.as_str().unwrap_or_default()).expect("time")
+        };
+        assert!(
+            (at(&mark["time"]) - at(t)).num_milliseconds().abs() <= 1,
+            "mark at the API's time {t}: {mark}"
+        );
+        let hhmm = &clock[4..];
+        let arrow = if dir == "up" { "↑" } else { "↓" };
+        assert_eq!(mark["label"], format!("{hhmm} {arrow}"), "{mark}");
+        assert_eq!(mark["inside"], true, "label inside the chart: {mark}");
+        assert!(
+            mark["title"]
+                .as_str()
+                .unwrap_or_default()
+                .contains(&format!("{hhmm} (+01:00)")),
+            "the full time in the mark's title: {mark}"
+        );
+    }
+    let table = state["table"].as_array().expect("table cells");
+    assert!(
+        table.len() == 3
+            && table[1]
+                .as_str()
+                .unwrap_or_default()
+                .ends_with(&format!("{} (+01:00)", &up[4..])),
+        "the crossing in the table under the chart: {state}"
+    );
+    b.screenshot("chart-low-chord-crossings.png", Some("#chart-0"))
+        .await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
+
+/// Script: the profile read off its SVG at the bridge: the envelope
+/// path's y at the bridge's x (linear between the path's vertices, parsed
+/// here), the low chord line's y there, and the page's caution and table.
+const PROFILE_AT_BRIDGE: &str = r#"
+const svg = document.querySelector('#profile svg.profile-chart');
+if (!svg) return null;
+const lc = svg.querySelector('.poi-bridge .low-chord');
+const bx = (Number(lc.getAttribute('x1')) + Number(lc.getAttribute('x2'))) / 2;
+const pts = svg.querySelector('path.envelope').getAttribute('d').split(/(?=[ML])/).map(s => s.slice(1).split(',').map(Number));
+let ey = null;
+for (let i = 1; i < pts.length; i++) {
+  const [x0, y0] = pts[i - 1], [x1, y1] = pts[i];
+  if (bx >= x0 && bx <= x1) { ey = x1 === x0 ? y0 : y0 + (y1 - y0) * (bx - x0) / (x1 - x0); break; }
+}
+const c = document.getElementById('caution');
+const row = [...document.querySelectorAll('#profile table.profile-table tbody tr')].map(r => r.textContent);
+return { bx, envelopeY: ey, lowChordY: Number(lc.getAttribute('y1')), poiX: Number(svg.querySelector('.poi-bridge line').getAttribute('x1')),
+  shown: getComputedStyle(document.getElementById('profile')).display !== 'none',
+  caution: c.getBoundingClientRect().height > 0 && getComputedStyle(c).visibility !== 'hidden' ? c.textContent : null,
+  legend: document.querySelector('#profile .legend').textContent, rows: row };
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn the_profile_draws_the_envelope_above_the_low_chord_at_that_bridges_chainage() {
+    let _one = BROWSER.lock().await;
+    let (s, _) = bridge_app_flooded().await;
+    let (status, prof) = s.app.get_json("/api/reaches/test-reach/profile").await;
+    assert_eq!(status, 200, "the profile endpoint answers: {prof}");
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/")).await;
+    let at = b.wait_for("the profile drawn", PROFILE_AT_BRIDGE, 30).await;
+    assert_eq!(at["shown"], true, "{at}");
+    let (ey, ly) = (
+        at["envelopeY"].as_f64().expect("envelope y at the bridge"),
+        at["lowChordY"].as_f64().expect("low chord y"),
+    );
+    assert!(
+        ey < ly,
+        "the envelope is drawn above the low chord at the bridge (smaller y): {at}"
+    );
+    let (bx, px) = (
+        at["bx"].as_f64().unwrap_or(-1.0),
+        at["poiX"].as_f64().unwrap_or(-2.0),
+    );
+    assert!(
+        (bx - px).abs() < 0.6,
+        "the bridge drawn at its point's chainage: {at}"
+    );
+    assert!(
+        at["caution"]
+            .as_str()
+            .is_some_and(|c| c.contains("not an official warning")),
+        "the caution stays visible: {at}"
+    );
+    assert!(
+        at["legend"]
+            .as_str()
+            .is_some_and(|l| l.contains("highest forecast water surface (dashed)")),
+        "the envelope has a key entry that does not rely on colour: {at}"
+    );
+    // The table under it: the flood's highest is above the low chord.
+    let highest = prof["points"][0]["highest"].as_f64().expect("highest");
+    let room = format!("water {:.2} m above", highest - 19.5);
+    assert!(
+        at["rows"][0]
+            .as_str()
+            .is_some_and(|r| r.contains("km 5.0") && r.contains(&room)),
+        "the table row says {room}: {at}"
+    );
+    b.screenshot("profile-bridge.png", Some("#profile")).await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
 }
