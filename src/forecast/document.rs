@@ -177,14 +177,19 @@ impl ForecastDoc {
         })
     }
 
-    /// The CSV table of the points named (all when `only` is `None`).
-    pub fn csv(&self, only: Option<&str>) -> Result<String, csv::Error> {
-        let ctx = TableContext {
+    /// What every row of this document's CSV tables shares.
+    fn table_context(&self) -> TableContext<'_> {
+        TableContext {
             reach: &self.reach.name,
             run: Some(self.run.id),
             units: self.unit_system,
             caution: export::caution_cell(&self.freshness.reasons),
-        };
+        }
+    }
+
+    /// The CSV table of the points named (all when `only` is `None`).
+    pub fn csv(&self, only: Option<&str>) -> Result<String, csv::Error> {
+        let ctx = self.table_context();
         let rows = self
             .points
             .iter()
@@ -196,12 +201,7 @@ impl ForecastDoc {
     /// The CSV table of the levels of the points named (all when `only`
     /// is `None`): one row per (point, level), seen from now.
     pub fn levels_csv(&self, only: Option<&str>) -> Result<String, csv::Error> {
-        let ctx = TableContext {
-            reach: &self.reach.name,
-            run: Some(self.run.id),
-            units: self.unit_system,
-            caution: export::caution_cell(&self.freshness.reasons),
-        };
+        let ctx = self.table_context();
         let points = self
             .points
             .iter()

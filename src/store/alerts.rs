@@ -75,6 +75,23 @@ fn msg_type_of(text: &str) -> Result<MsgType, StoreError> {
     }
 }
 
+/// An audit entry of the alerting step (actor `system:alerts`), in the
+/// transaction of the write it explains.
+async fn audit_alerts(
+    conn: &mut sqlx::SqliteConnection,
+    action: &str,
+    target: String,
+    summary: serde_json::Value,
+) -> Result<(), StoreError> {
+    let entry = Audit {
+        key_id: None,
+        action: action.to_owned(),
+        target,
+        summary,
+    };
+    audit::record_system(conn, "alerts", &entry).await
+}
+
 impl Store {
     /// For each (point, level) of `reach_id`: the messages since its
     /// last `Cancel`, that `Cancel` included, oldest first, ties in `sent`
@@ -148,15 +165,11 @@ impl Store {
             .bind(&new.level)
             .execute(&mut *tx)
             .await?;
-            audit::record_system(
+            audit_alerts(
                 &mut tx,
-                "alerts",
-                &Audit {
-                    key_id: None,
-                    action: "cap.rekey".to_owned(),
-                    target: format!("reach:{reach_id}"),
-                    summary: serde_json::json!({"from": key_text(old), "to": key_text(new)}),
-                },
+                "cap.rekey",
+                format!("reach:{reach_id}"),
+                serde_json::json!({"from": key_text(old), "to": key_text(new)}),
             )
             .await?;
         }
@@ -202,21 +215,17 @@ impl Store {
             .bind(m.run_id)
             .execute(&mut *tx)
             .await?;
-            audit::record_system(
+            audit_alerts(
                 &mut tx,
-                "alerts",
-                &Audit {
-                    key_id: None,
-                    action: "cap.issue".to_owned(),
-                    target: format!("cap:{}", i.identifier),
-                    summary: serde_json::json!({
-                        "msg_type": i.msg_type.cap_value(),
-                        "reach": i.key.reach,
-                        "point": i.key.point,
-                        "level": i.key.level,
-                        "run_id": m.run_id,
-                    }),
-                },
+                "cap.issue",
+                format!("cap:{}", i.identifier),
+                serde_json::json!({
+                    "msg_type": i.msg_type.cap_value(),
+                    "reach": i.key.reach,
+                    "point": i.key.point,
+                    "level": i.key.level,
+                    "run_id": m.run_id,
+                }),
             )
             .await?;
         }
