@@ -88,19 +88,21 @@ impl Application {
             stop_workers,
         } = self;
         let store = state.store.clone();
+        let limits = crate::http::listener::Limits::of(&state.config.server);
         let router = http::router(state);
         let (stop_tx, stop_rx) = tokio::sync::oneshot::channel::<()>();
-        let mut server = tokio::spawn(async move {
-            axum::serve(listener, router)
-                .with_graceful_shutdown(async move {
-                    let _ = stop_rx.await;
-                })
-                .await
-        });
+        let mut server = tokio::spawn(crate::http::listener::serve(
+            listener,
+            router,
+            limits,
+            async move {
+                let _ = stop_rx.await;
+            },
+        ));
         tokio::select! {
             ended = &mut server => {
                 store.close().await;
-                ended.context("server task failed")?.context("server stopped")?;
+                ended.context("server task failed")?;
                 return Ok(());
             }
             () = shutdown => {}
@@ -112,9 +114,7 @@ impl Application {
         let _ = stop_workers.send(true);
         let _ = stop_tx.send(());
         match tokio::time::timeout(grace, &mut server).await {
-            Ok(ended) => ended
-                .context("server task failed")?
-                .context("server stopped")?,
+            Ok(ended) => ended.context("server task failed")?,
             Err(_) => {
                 tracing::warn!("requests still running after the grace period; closing them");
                 server.abort();

@@ -190,6 +190,15 @@ pub struct ServerConfig {
     pub request_timeout_secs: u64,
     /// Largest request body accepted, in bytes.
     pub body_limit_bytes: usize,
+    /// A connection must send its request line and headers within this
+    /// long, or it is closed (a client that never finishes its headers is
+    /// not held for ever).
+    pub header_read_timeout_secs: u64,
+    /// Most connections open at once; more are answered 503 and closed.
+    pub max_connections: u64,
+    /// Largest request line plus headers, in bytes (at least 8192); a
+    /// larger head is answered 431 and closed.
+    pub max_header_bytes: u64,
 }
 
 /// `[storage]`: the embedded SQLite database.
@@ -278,6 +287,9 @@ impl Default for ServerConfig {
             shutdown_grace_secs: 10,
             request_timeout_secs: 30,
             body_limit_bytes: 8 * 1024 * 1024,
+            header_read_timeout_secs: 10,
+            max_connections: 1_024,
+            max_header_bytes: 32 * 1024,
         }
     }
 }
@@ -322,6 +334,9 @@ pub const KEYS: &[&str] = &[
     "server.shutdown_grace_secs",
     "server.request_timeout_secs",
     "server.body_limit_bytes",
+    "server.header_read_timeout_secs",
+    "server.max_connections",
+    "server.max_header_bytes",
     "storage.data_dir",
     "storage.busy_timeout_ms",
     "storage.max_connections",
@@ -448,6 +463,9 @@ impl Config {
             ("server.shutdown_grace_secs", s.shutdown_grace_secs, 1, 3_600),
             ("server.request_timeout_secs", s.request_timeout_secs, 1, 3_600),
             ("server.body_limit_bytes", s.body_limit_bytes as u64, 1_024, u64::MAX),
+            ("server.header_read_timeout_secs", s.header_read_timeout_secs, 1, 3_600),
+            ("server.max_connections", s.max_connections, 1, 1_000_000),
+            ("server.max_header_bytes", s.max_header_bytes, 8_192, 1_048_576),
             ("storage.busy_timeout_ms", st.busy_timeout_ms, 0, 600_000),
             ("storage.max_connections", st.max_connections.into(), 1, 64),
             ("demo.replay_secs", self.demo.replay_secs, 1, 3_600),

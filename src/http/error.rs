@@ -494,6 +494,11 @@ pub const PROBLEM_TYPES: &[ProblemType] = &[
         "Service unavailable",
         "The request did not finish within server.request_timeout_secs and was abandoned. Retry later: a batch of readings sent again counts what was already stored as duplicates.",
     ),
+    pt(
+        "too-many-connections",
+        "Too many connections",
+        "The server already has server.max_connections connections open, so this one was answered and closed. Retry after the Retry-After seconds; a client that keeps idle connections open should close some.",
+    ),
 ];
 
 /// The problem type with this slug.

@@ -18,6 +18,7 @@ pub mod health;
 pub mod inflow_csv;
 pub mod inflows;
 pub mod keys;
+pub mod listener;
 pub mod openapi;
 pub mod profile;
 pub mod query;

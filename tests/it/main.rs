@@ -11,6 +11,7 @@ mod bridge_levels;
 mod cap_reference;
 mod cap_service;
 mod cli_keys;
+mod connections;
 mod dashboard;
 mod dashboard_js;
 mod durability;

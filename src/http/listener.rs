@@ -1,0 +1,112 @@
+//! The HTTP listener: HTTP/1.1 connections served by hyper with the limits
+//! a server facing the public needs and `axum::serve` does not set:
+//! a client must send its request head within `server.header_read_timeout_secs`
+//! (one that opens a connection and never finishes its headers is closed,
+//! not held for ever), the head is capped at `server.max_header_bytes`
+//! (hyper answers 431), and at most `server.max_connections` are open at
+//! once (more are answered 503 with a problem document and closed).
+//! Shutdown stops accepting, lets requests in flight finish and closes
+//! idle connections.
+
+use std::{future::Future, sync::Arc, time::Duration};
+
+use super::error::{PROBLEM_JSON, Problem};
+use axum::{Router, http::StatusCode};
+use hyper::server::conn::http1;
+use hyper_util::{
+    rt::{TokioIo, TokioTimer},
+    server::graceful::GracefulShutdown,
+    service::TowerToHyperService,
+};
+use tokio::{io::AsyncWriteExt, net::TcpListener, net::TcpStream, sync::Semaphore};
+
+/// The limits of the listener (from `[server]`).
+#[derive(Debug, Clone, Copy)]
+pub struct Limits {
+    pub header_read_timeout: Duration,
+    pub max_connections: usize,
+    pub max_header_bytes: usize,
+}
+
+impl Limits {
+    pub fn of(s: &crate::config::ServerConfig) -> Self {
+        Self {
+            header_read_timeout: Duration::from_secs(s.header_read_timeout_secs),
+            max_connections: usize::try_from(s.max_connections).unwrap_or(usize::MAX),
+            max_header_bytes: usize::try_from(s.max_header_bytes).unwrap_or(usize::MAX),
+        }
+    }
+}
+
+/// Serves `router` on `listener` until `stop` completes, then drains.
+pub async fn serve(
+    listener: TcpListener,
+    router: Router,
+    limits: Limits,
+    stop: impl Future<Output = ()>,
+) {
+    let permits = Arc::new(Semaphore::new(limits.max_connections));
+    let graceful = GracefulShutdown::new();
+    let mut builder = http1::Builder::new();
+    builder
+        .timer(TokioTimer::new())
+        .header_read_timeout(limits.header_read_timeout)
+        // hyper's smallest read buffer is 8 KiB.
+        .max_buf_size(limits.max_header_bytes.max(8_192));
+    tokio::pin!(stop);
+    loop {
+        let stream = tokio::select! {
+            accepted = listener.accept() => match accepted {
+                Ok((stream, _)) => stream,
+                Err(e) => {
+                    // Out of file descriptors, say: back off a moment
+                    // rather than spin on the error.
+                    tracing::warn!(error = %e, "accepting a connection failed");
+                    tokio::time::sleep(Duration::from_millis(50)).await;
+                    continue;
+                }
+            },
+            () = &mut stop => break,
+        };
+        let Ok(permit) = permits.clone().try_acquire_owned() else {
+            tokio::spawn(refuse(stream));
+            continue;
+        };
+        let service = TowerToHyperService::new(router.clone());
+        // No upgrades (the API has no WebSocket): a plain connection,
+        // which the graceful shutdown can watch.
+        let conn = graceful.watch(builder.serve_connection(TokioIo::new(stream), service));
+        tokio::spawn(async move {
+            if let Err(e) = conn.await {
+                tracing::debug!(error = %e, "connection ended with an error");
+            }
+            drop(permit);
+        });
+    }
+    drop(listener);
+    graceful.shutdown().await;
+}
+
+/// The answer to a connection over `server.max_connections`: a 503
+/// problem document, written with a short deadline, then close.
+async fn refuse(mut stream: TcpStream) {
+    tracing::warn!("connection refused: server.max_connections are open");
+    let problem = Problem::new(
+        StatusCode::SERVICE_UNAVAILABLE,
+        "too-many-connections",
+        "Too many connections",
+    )
+    .detail("The server has server.max_connections connections open; retry shortly.");
+    let body = serde_json::to_string(&problem).unwrap_or_default();
+    let head = format!(
+        "HTTP/1.1 503 Service Unavailable\r\ncontent-type: {PROBLEM_JSON}\r\n\
+         content-length: {}\r\nretry-after: 1\r\nconnection: close\r\n\r\n",
+        body.len()
+    );
+    let write = async {
+        stream.write_all(head.as_bytes()).await?;
+        stream.write_all(body.as_bytes()).await?;
+        stream.shutdown().await
+    };
+    let _ = tokio::time::timeout(Duration::from_secs(1), write).await;
+}
