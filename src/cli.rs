@@ -49,6 +49,81 @@ pub enum Command {
     Route(RouteArgs),
     /// Manage API keys in the database of the data directory.
     Keys(KeysArgs),
+    /// Write a consistent copy of the database to a new file, while the
+    /// service runs and writes (SQLite `VACUUM INTO`), and check it.
+    Backup(BackupArgs),
+    /// Replace the database with a backup, after checking it. Stop the
+    /// service first; the replaced database is kept beside it.
+    Restore(RestoreArgs),
+}
+
+#[derive(Debug, Args, Clone)]
+pub struct BackupArgs {
+    /// Folder of the SQLite database [overrides storage.data_dir].
+    #[arg(long, value_name = "DIR")]
+    pub data_dir: Option<PathBuf>,
+    /// The backup file to write; it must not exist.
+    #[arg(long, value_name = "FILE")]
+    pub to: PathBuf,
+}
+
+#[derive(Debug, Args, Clone)]
+pub struct RestoreArgs {
+    /// Folder of the SQLite database [overrides storage.data_dir].
+    #[arg(long, value_name = "DIR")]
+    pub data_dir: Option<PathBuf>,
+    /// The backup file to restore.
+    #[arg(long, value_name = "FILE")]
+    pub from: PathBuf,
+}
+
+/// `reachcast backup`: copies the database and checks the copy; what to
+/// print.
+pub async fn run_backup(
+    to: &std::path::Path,
+    storage: &crate::config::StorageConfig,
+) -> anyhow::Result<String> {
+    use anyhow::Context;
+    let store = crate::store::Store::open_for_maintenance(storage)
+        .await
+        .with_context(|| format!("opening database in {}", storage.data_dir.display()))?;
+    let written = store.backup_to(to).await;
+    store.close().await;
+    written?;
+    let s = crate::store::backup::check_file(to).await?;
+    anyhow::ensure!(
+        s.intact,
+        "the copy {} fails its integrity check: {}",
+        to.display(),
+        s.problem.unwrap_or_default()
+    );
+    Ok(format!(
+        "backup written to {}: integrity ok, {} readings, {} forecast runs, schema {}\n",
+        to.display(),
+        s.readings,
+        s.runs,
+        s.schema_version
+    ))
+}
+
+/// `reachcast restore`: replaces the database with a checked backup.
+pub async fn run_restore(
+    from: &std::path::Path,
+    storage: &crate::config::StorageConfig,
+) -> anyhow::Result<String> {
+    let r = crate::store::backup::restore(from, &storage.data_dir).await?;
+    let kept = r.kept.map_or_else(
+        || "there was no database before".to_owned(),
+        |k| format!("the replaced database is kept as {}", k.display()),
+    );
+    Ok(format!(
+        "restored {} into {}: {} readings, {} forecast runs, schema {}; {kept}\n",
+        from.display(),
+        storage.data_dir.display(),
+        r.summary.readings,
+        r.summary.runs,
+        r.summary.schema_version
+    ))
 }
 
 #[derive(Debug, Args, Clone)]
@@ -191,6 +266,14 @@ impl Cli {
             },
             None => self.serve.clone(),
             Some(Command::Route(_)) => self.serve.clone(),
+            Some(Command::Backup(b)) => ServeArgs {
+                bind: None,
+                data_dir: b.data_dir.clone(),
+            },
+            Some(Command::Restore(r)) => ServeArgs {
+                bind: None,
+                data_dir: r.data_dir.clone(),
+            },
         }
     }
 }

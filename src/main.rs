@@ -39,6 +39,15 @@ fn main() -> ExitCode {
     if let Some(Command::Keys(keys)) = &cli.command {
         return run_keys(&keys.command, &config);
     }
+    if let Some(Command::Backup(b)) = &cli.command {
+        return run_maintenance("backup", reachcast::cli::run_backup(&b.to, &config.storage));
+    }
+    if let Some(Command::Restore(r)) = &cli.command {
+        return run_maintenance(
+            "restore",
+            reachcast::cli::run_restore(&r.from, &config.storage),
+        );
+    }
     telemetry::init(&config.log.filter);
     let runtime = match tokio::runtime::Runtime::new() {
         Ok(r) => r,
@@ -58,16 +67,24 @@ fn main() -> ExitCode {
 
 /// `reachcast keys ...`: key management on the configured data directory.
 fn run_keys(command: &reachcast::cli::KeysCommand, config: &Config) -> ExitCode {
+    run_maintenance("keys", reachcast::cli::run_keys(command, &config.storage))
+}
+
+/// Runs one maintenance command to completion and prints its answer.
+fn run_maintenance(
+    name: &str,
+    work: impl std::future::Future<Output = anyhow::Result<String>>,
+) -> ExitCode {
     let result = tokio::runtime::Runtime::new()
         .map_err(anyhow::Error::from)
-        .and_then(|rt| rt.block_on(reachcast::cli::run_keys(command, &config.storage)));
+        .and_then(|rt| rt.block_on(work));
     match result {
         Ok(out) => {
             print!("{out}");
             ExitCode::SUCCESS
         }
         Err(e) => {
-            eprintln!("reachcast keys: {e:#}");
+            eprintln!("reachcast {name}: {e:#}");
             ExitCode::FAILURE
         }
     }

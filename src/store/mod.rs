@@ -23,6 +23,7 @@ use crate::config::StorageConfig;
 
 mod alerts;
 mod audit;
+pub mod backup;
 mod forecasts;
 pub use forecasts::{InflowUpload, ReachVersion};
 mod gauges;

@@ -7,6 +7,7 @@
 
 mod common;
 
+mod backup;
 mod bridge_levels;
 mod cap_reference;
 mod cap_service;
