@@ -13,6 +13,7 @@ pub mod engine;
 pub mod forecast;
 pub mod gauge;
 pub mod http;
+pub mod metrics;
 pub mod offline;
 pub mod row_error;
 pub mod service;

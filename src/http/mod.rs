@@ -19,6 +19,7 @@ pub mod inflow_csv;
 pub mod inflows;
 pub mod keys;
 pub mod listener;
+pub mod metrics;
 pub mod openapi;
 pub mod profile;
 pub mod query;
@@ -125,15 +126,19 @@ pub fn router(state: AppState) -> Router {
         .merge(keys::router())
         .merge(cap::router())
         .merge(openapi::router())
+        .route_layer(axum::middleware::from_fn(metrics::tag_route))
         .fallback(any(|OriginalUri(uri): OriginalUri| error::not_found(uri)));
     let limits = error::Limits {
         body_limit_bytes: body_limit,
         request_timeout_secs: state.config.server.request_timeout_secs,
     };
 
+    let forecaster = state.forecaster.clone();
     Router::new()
         .merge(health::router())
         .merge(error::router())
+        .merge(metrics::router())
+        .route_layer(axum::middleware::from_fn(metrics::tag_route))
         .nest("/api", api)
         .fallback(assets::serve)
         .with_state(state)
@@ -159,6 +164,10 @@ pub fn router(state: AppState) -> Router {
                 .layer(axum::middleware::from_fn_with_state(
                     limits,
                     error::problemize,
+                ))
+                .layer(axum::middleware::from_fn_with_state(
+                    forecaster,
+                    metrics::track,
                 ))
                 .layer(TimeoutLayer::with_status_code(
                     StatusCode::SERVICE_UNAVAILABLE,

@@ -353,6 +353,7 @@ async fn ingest(
         }
         outcome
     };
+    count_readings(&state, &gauge_id, &outcome, &errors);
     let report = Report {
         gauge: gauge_id,
         received,
@@ -367,6 +368,17 @@ async fn ingest(
         return Err(problem.into());
     }
     Ok((StatusCode::OK, Json(report)).into_response())
+}
+
+/// Counts a batch's outcome in the service's metrics.
+fn count_readings(state: &AppState, gauge: &str, o: &IngestOutcome, errors: &[RowError]) {
+    let m = state.forecaster.metrics();
+    m.readings(gauge, "accepted", "", o.accepted as u64);
+    m.readings(gauge, "duplicate", "", o.duplicate as u64);
+    m.readings(gauge, "revised", "", o.revised as u64);
+    for e in errors {
+        m.readings(gauge, "rejected", &e.field, 1);
+    }
 }
 
 #[derive(Debug, Serialize)]

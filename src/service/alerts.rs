@@ -71,14 +71,15 @@ impl Alerter {
 
     /// Issues the messages due after run `run_id` of `reach` (the version
     /// the run used), whose situations (one per point and threshold) are
-    /// `situations`. Logs the outcome; never fails.
+    /// `situations`. Logs the outcome and returns the `msgType` of each
+    /// message issued; never fails.
     pub async fn after_run(
         &self,
         store: &Store,
         reach: &ReachVersion,
         run_id: i64,
         situations: &[Situation],
-    ) {
+    ) -> Vec<&'static str> {
         let reach_id = reach.reach_id.as_str();
         match self
             .issue(store, reach, run_id, situations, Utc::now())
@@ -95,13 +96,20 @@ impl Alerter {
                         "CAP message issued"
                     );
                 }
+                issued
+                    .iter()
+                    .map(|m| m.issued.msg_type.cap_value())
+                    .collect()
             }
-            Err(e) => tracing::error!(
-                reach = reach_id,
-                run_id,
-                error = %e,
-                "CAP messages not issued; the forecast is served regardless"
-            ),
+            Err(e) => {
+                tracing::error!(
+                    reach = reach_id,
+                    run_id,
+                    error = %e,
+                    "CAP messages not issued; the forecast is served regardless"
+                );
+                Vec::new()
+            }
         }
     }
 

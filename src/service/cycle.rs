@@ -97,7 +97,7 @@ impl Forecaster {
                 let run_id = store
                     .start_run(reach_id, reach.version, upload_id, &provenance)
                     .await?;
-                return self.failed(run_id, e, &provenance).await;
+                return self.failed(reach_id, run_id, e, &provenance, 0.0).await;
             }
         };
         provenance.inflow = Some(assembled.provenance);
@@ -126,7 +126,7 @@ impl Forecaster {
                 self.succeeded(&reach, run_id, &results, &provenance, wall)
                     .await
             }
-            Err(e) => self.failed(run_id, e, &provenance).await,
+            Err(e) => self.failed(reach_id, run_id, e, &provenance, wall).await,
         }
     }
 
@@ -149,10 +149,20 @@ impl Forecaster {
             results,
         };
         let situations = self.refresh_board(reach, good);
-        self.inner
+        let issued = self
+            .inner
             .alerts
             .after_run(store, reach, run_id, &situations)
             .await;
+        let m = &self.inner.metrics;
+        m.run(&reach.reach_id, true, wall);
+        for msg_type in issued {
+            m.cap_messages
+                .get_or_create(&crate::metrics::CapLabels {
+                    msg_type: msg_type.to_owned(),
+                })
+                .inc();
+        }
         tracing::info!(
             reach = %reach.reach_id,
             run_id,
@@ -168,10 +178,13 @@ impl Forecaster {
 
     async fn failed(
         &self,
+        reach_id: &str,
         run_id: i64,
         error: String,
         provenance: &RunProvenance,
+        wall: f64,
     ) -> Result<RunSummary, CycleError> {
+        self.inner.metrics.run(reach_id, false, wall);
         self.inner
             .store
             .finish_run(run_id, Err(&error), provenance)

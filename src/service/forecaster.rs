@@ -52,6 +52,8 @@ pub(super) struct Inner {
     /// Incremented whenever the board changes (the exceedance cache key).
     pub(super) board_version: watch::Sender<u64>,
     shutdown: watch::Receiver<bool>,
+    /// What the service counts (served at `/metrics`).
+    pub(super) metrics: Arc<crate::metrics::Metrics>,
 }
 
 /// Handle to the forecast cycle. Cheap to clone.
@@ -87,8 +89,14 @@ impl Forecaster {
                 board: RwLock::new(Board::default()),
                 board_version,
                 shutdown,
+                metrics: Arc::default(),
             }),
         }
+    }
+
+    /// The service's metrics.
+    pub fn metrics(&self) -> &crate::metrics::Metrics {
+        &self.inner.metrics
     }
 
     /// Loads the board from the stored runs and starts a worker per reach.

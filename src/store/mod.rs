@@ -164,6 +164,11 @@ impl Store {
         &self.pool
     }
 
+    /// Open and idle connections of the pool (for `/metrics`).
+    pub fn pool_stats(&self) -> (u32, usize) {
+        (self.pool.size(), self.pool.num_idle())
+    }
+
     /// Closes every connection, checkpointing the WAL.
     pub async fn close(&self) {
         self.pool.close().await;

@@ -21,6 +21,7 @@ mod engine_sections;
 mod forecast_cycle;
 mod foundation;
 mod ingest;
+mod metrics;
 mod openapi;
 mod panel;
 mod route_command;

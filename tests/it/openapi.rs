@@ -29,6 +29,7 @@ use serde_json::{Value, json};
 /// `src/http/openapi.json`.
 const ROUTES: &[(&str, &str)] = &[
     ("GET", "/health"),
+    ("GET", "/metrics"),
     ("GET", "/ready"),
     ("GET", "/problems/{slug}"),
     ("GET", "/api/openapi.json"),
