@@ -211,6 +211,9 @@ pub struct StorageConfig {
     pub busy_timeout_ms: u64,
     /// Size of the connection pool.
     pub max_connections: u32,
+    /// `/ready` answers 503 when less than this many MiB are free under
+    /// `data_dir` (0: never).
+    pub min_free_mib: u64,
 }
 
 /// `[log]`: what the service writes to standard error.
@@ -300,6 +303,7 @@ impl Default for StorageConfig {
             data_dir: PathBuf::from("./data"),
             busy_timeout_ms: 5_000,
             max_connections: 8,
+            min_free_mib: 100,
         }
     }
 }
@@ -340,6 +344,7 @@ pub const KEYS: &[&str] = &[
     "storage.data_dir",
     "storage.busy_timeout_ms",
     "storage.max_connections",
+    "storage.min_free_mib",
     "log.filter",
     "demo.enabled",
     "demo.replay_secs",
@@ -468,6 +473,7 @@ impl Config {
             ("server.max_header_bytes", s.max_header_bytes, 8_192, 1_048_576),
             ("storage.busy_timeout_ms", st.busy_timeout_ms, 0, 600_000),
             ("storage.max_connections", st.max_connections.into(), 1, 64),
+            ("storage.min_free_mib", st.min_free_mib, 0, u64::MAX),
             ("demo.replay_secs", self.demo.replay_secs, 1, 3_600),
             ("auth.rate_limit_burst", self.auth.rate_limit_burst.into(), 1, u64::MAX),
             ("ingest.max_future_secs", i.max_future_secs, 0, 86_400),

@@ -37,6 +37,29 @@ struct Ready {
     database: &'static str,
     migrations: MigrationStatus,
     instance: Instance,
+    disk: Disk,
+    /// Per reach: whether its scheduler runs, and its last good run's age.
+    reaches: Vec<ReachReady>,
+}
+
+#[derive(Serialize)]
+struct Disk {
+    free_bytes: u64,
+    floor_bytes: u64,
+}
+
+#[derive(Serialize)]
+struct ReachReady {
+    reach: String,
+    scheduler: &'static str,
+    last_good_run_age_s: Option<i64>,
+}
+
+/// Bytes free to this user on the file system that holds `dir`
+/// (`statvfs`: available blocks × fragment size).
+fn free_bytes(dir: &std::path::Path) -> std::io::Result<u64> {
+    let s = rustix::fs::statvfs(dir)?;
+    Ok(s.f_bavail.saturating_mul(s.f_frsize))
 }
 
 /// The database's identity on the wire, times in the one wire form.
@@ -88,10 +111,72 @@ async fn ready(State(state): State<AppState>) -> Result<Json<Ready>, Problem> {
         tracing::warn!(error = %e, "readiness: cannot read service identity");
         unavailable("cannot read service identity".to_owned())
     })?;
+    let disk = disk_check(&state).map_err(unavailable)?;
+    let stopped = state.forecaster.stopped_workers();
+    if let Some(r) = stopped.first() {
+        return Err(unavailable(format!(
+            "the forecast scheduler of reach `{r}` has stopped; restart the service"
+        )));
+    }
+    let reaches = reach_states(&state).await.map_err(|e| {
+        tracing::warn!(error = %e, "readiness: cannot read the runs");
+        unavailable("cannot read the forecast runs".to_owned())
+    })?;
     Ok(Json(Ready {
         status: "ready",
         database: "ok",
         migrations,
         instance: instance.into(),
+        disk,
+        reaches,
     }))
+}
+
+/// Free space under the data directory against `storage.min_free_mib`.
+fn disk_check(state: &AppState) -> Result<Disk, String> {
+    let dir = &state.config.storage.data_dir;
+    let floor_bytes = state
+        .config
+        .storage
+        .min_free_mib
+        .saturating_mul(1024 * 1024);
+    let free = free_bytes(dir).map_err(|e| {
+        tracing::warn!(error = %e, "readiness: cannot read free disk space");
+        format!("cannot read the free space under {}", dir.display())
+    })?;
+    if free < floor_bytes {
+        tracing::error!(
+            free_bytes = free,
+            floor_bytes,
+            "readiness: the disk is nearly full"
+        );
+        return Err(format!(
+            "only {} MiB free under the data directory (storage.min_free_mib = {})",
+            free / (1024 * 1024),
+            state.config.storage.min_free_mib
+        ));
+    }
+    Ok(Disk {
+        free_bytes: free,
+        floor_bytes,
+    })
+}
+
+async fn reach_states(state: &AppState) -> Result<Vec<ReachReady>, crate::store::StoreError> {
+    let now = Utc::now();
+    let mut out = Vec::new();
+    for r in state.store.reaches().await? {
+        let run = state
+            .store
+            .latest_run(&r.reach_id, Some(crate::forecast::record::RunStatus::Ok))
+            .await?;
+        out.push(ReachReady {
+            last_good_run_age_s: run
+                .and_then(|r| r.finished_at)
+                .map(|t| (now - t).num_seconds()),
+            scheduler: "running",
+            reach: r.reach_id,
+        });
+    }
+    Ok(out)
 }

@@ -40,6 +40,8 @@ pub struct RunSummary {
 struct Worker {
     notify: Arc<Notify>,
     run_lock: Arc<Mutex<()>>,
+    /// The worker's task, so readiness can tell that it still runs.
+    task: Option<tokio::task::JoinHandle<()>>,
 }
 
 pub(super) struct Inner {
@@ -149,17 +151,39 @@ impl Forecaster {
             w.notify.notify_one();
             return;
         }
-        let worker = Worker {
+        let mut worker = Worker {
             notify: Arc::new(Notify::new()),
             run_lock: Arc::new(Mutex::new(())),
+            task: None,
         };
         // Run promptly at start: notify before the loop waits.
         worker.notify.notify_one();
         let this = self.clone();
         let id = reach_id.to_owned();
         let notify = worker.notify.clone();
+        worker.task = Some(tokio::spawn(
+            async move { this.worker_loop(id, notify).await },
+        ));
         workers.insert(reach_id.to_owned(), worker);
-        tokio::spawn(async move { this.worker_loop(id, notify).await });
+    }
+
+    /// The reaches whose scheduler task has ended although the service is
+    /// not stopping (a worker that panicked, say): readiness reports them.
+    pub fn stopped_workers(&self) -> Vec<String> {
+        if *self.inner.shutdown.borrow() {
+            return Vec::new();
+        }
+        let workers = match self.inner.workers.lock() {
+            Ok(w) => w,
+            Err(poisoned) => poisoned.into_inner(),
+        };
+        let mut out: Vec<String> = workers
+            .iter()
+            .filter(|(_, w)| w.task.as_ref().is_some_and(|t| t.is_finished()))
+            .map(|(id, _)| id.clone())
+            .collect();
+        out.sort();
+        out
     }
 
     /// New data for a reach: run after the debounce delay.

@@ -262,3 +262,49 @@ fn binary_stops_cleanly_on_sigterm() {
     assert!(exit.success(), "exit status {exit:?}; log: {rest:?}");
     assert!(rest.iter().any(|l| l.contains("stopped")), "{rest:?}");
 }
+
+/// `/ready` reports the free space under the data directory, which agrees
+/// with coreutils `df` (an independent reading of the same statvfs) within
+/// 1 %, and answers 503 naming the setting when it is below
+/// `storage.min_free_mib`.
+#[tokio::test]
+async fn ready_reports_free_disk_space_and_refuses_below_the_floor() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let app = spawn_app(dir.path()).await;
+    let (status, body) = app.get_json("/ready").await;
+    assert_eq!(status, 200, "{body}");
+    let free = body["disk"]["free_bytes"].as_u64().expect("free bytes");
+    let df = std::process::Command::new("df")
+        .args(["-B1", "--output=avail"])
+        .arg(dir.path())
+        .output()
+        .expect("df");
+    let text = String::from_utf8_lossy(&df.stdout);
+    let avail: f64 = text
+        .lines()
+        .nth(1)
+        .expect("value line")
+        .trim()
+        .parse()
+        .expect("number");
+    assert!(
+        (free as f64 - avail).abs() <= avail * 0.01,
+        "{free} vs df {avail}"
+    );
+    assert!(body["reaches"].is_array());
+    app.stop().await;
+
+    let mut config = crate::common::test_config(dir.path());
+    config.storage.min_free_mib = free / (1024 * 1024) + 1_000_000;
+    let app = crate::common::spawn_app_with(config).await;
+    let res = app.get("/ready").await;
+    let p = crate::common::problem(res, 503).await;
+    assert!(
+        p["detail"]
+            .as_str()
+            .expect("detail")
+            .contains("storage.min_free_mib"),
+        "{p}"
+    );
+    app.stop().await;
+}
