@@ -223,6 +223,9 @@ pub struct LogConfig {
     /// A `tracing` filter such as `info` or `reachcast=debug,tower_http=info`.
     /// `RUST_LOG`, when set, takes precedence.
     pub filter: String,
+    /// `text` (one readable line per event) or `json` (one JSON object per
+    /// line, for a log collector).
+    pub format: String,
 }
 
 /// `[demo]`: the invented demonstration reach.
@@ -312,6 +315,7 @@ impl Default for LogConfig {
     fn default() -> Self {
         Self {
             filter: "info".to_owned(),
+            format: "text".to_owned(),
         }
     }
 }
@@ -346,6 +350,7 @@ pub const KEYS: &[&str] = &[
     "storage.max_connections",
     "storage.min_free_mib",
     "log.filter",
+    "log.format",
     "demo.enabled",
     "demo.replay_secs",
     "auth.public_reads",
@@ -526,6 +531,12 @@ impl Config {
                     "must be `persistence` or `recession`, got `{}`",
                     f.extrapolation
                 ),
+            ));
+        }
+        if !matches!(self.log.format.as_str(), "text" | "json") {
+            return Err(bad(
+                "log.format",
+                format!("must be `text` or `json`, got `{}`", self.log.format),
             ));
         }
         if let Err(e) = tracing_subscriber::EnvFilter::try_new(&self.log.filter) {

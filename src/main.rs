@@ -48,7 +48,7 @@ fn main() -> ExitCode {
             reachcast::cli::run_restore(&r.from, &config.storage),
         );
     }
-    telemetry::init(&config.log.filter);
+    telemetry::init(&config.log.filter, config.log.format == "json");
     let runtime = match tokio::runtime::Runtime::new() {
         Ok(r) => r,
         Err(e) => {

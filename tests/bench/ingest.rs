@@ -119,7 +119,7 @@ fn main() -> anyhow::Result<()> {
             config.auth.rate_limit_per_sec = 1_000_000.0;
             config.auth.rate_limit_burst = 1_000_000;
             config.ingest.max_rows_per_request = args.batch.max(1);
-            reachcast::telemetry::init(&config.log.filter);
+            reachcast::telemetry::init(&config.log.filter, false);
             let rt = tokio::runtime::Builder::new_multi_thread()
                 .worker_threads(2)
                 .enable_all()

@@ -308,3 +308,45 @@ async fn ready_reports_free_disk_space_and_refuses_below_the_floor() {
     );
     app.stop().await;
 }
+
+/// With `log.format = json` every log line of the real binary is one JSON
+/// object (RFC 8259) with a level and fields; the listening line carries
+/// the address.
+#[cfg(unix)]
+#[test]
+fn json_logs_are_one_object_per_line() {
+    use std::io::{BufRead, BufReader};
+    let dir = tempfile::tempdir().expect("temp dir");
+    let mut child = reachcast()
+        .args(["serve", "--bind", "127.0.0.1:0", "--data-dir"])
+        .arg(dir.path())
+        .env("REACHCAST_DEMO_ENABLED", "false")
+        .env("REACHCAST_LOG_FORMAT", "json")
+        .env("RUST_LOG", "info")
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .expect("spawn");
+    let stderr = child.stderr.take().expect("stderr");
+    let mut seen = Vec::new();
+    for line in BufReader::new(stderr).lines() {
+        let line = line.expect("line");
+        let v: Value = serde_json::from_str(&line).unwrap_or_else(|e| panic!("{e}: {line}"));
+        assert!(v["level"].is_string() && v["fields"].is_object(), "{line}");
+        let listening = v["fields"]["message"]
+            .as_str()
+            .is_some_and(|m| m.contains("listening"));
+        seen.push(v);
+        if listening {
+            break;
+        }
+    }
+    let last = seen.last().expect("a log line");
+    assert!(
+        last["fields"]["addr"]
+            .as_str()
+            .is_some_and(|a| a.starts_with("127.0.0.1:")),
+        "{last}"
+    );
+    let _ = child.kill();
+    let _ = child.wait();
+}
