@@ -141,6 +141,15 @@ async fn upload(
         .unwrap_or("")
         .trim()
         .to_ascii_lowercase();
+    // A `reason` in the query is checked whatever the body: the document
+    // promises its length, JSON body or not.
+    if params
+        .reason
+        .as_ref()
+        .is_some_and(|r| !(1..=500).contains(&r.trim().chars().count()))
+    {
+        return Err(Problem::invalid("reason", "say why in 1 to 500 characters").into());
+    }
     let (reason, series) = parse_body(&media, &body, params.reason)?;
     let reason = reason.trim().to_owned();
     if reason.is_empty() || reason.chars().count() > 500 {
