@@ -226,6 +226,31 @@ pub fn format_time(ms: i64) -> String {
     crate::wire_time::format(utc(ms))
 }
 
+/// A reading's time in Unix ms, within the plausible span of `limits`.
+fn checked_time(time: &Field<String>, limits: Limits) -> Result<i64, String> {
+    let time_ms = match time {
+        Field::Absent => return Err("is required".to_owned()),
+        Field::Invalid(why) => return Err(why.clone()),
+        Field::Value(t) => parse_time(t)?,
+    };
+    if time_ms < limits.earliest_ms {
+        return Err(format!(
+            "{} is before the earliest plausible time {} (ingest.earliest_year)",
+            format_time(time_ms),
+            format_time(limits.earliest_ms)
+        ));
+    }
+    if time_ms > limits.now_ms.saturating_add(limits.max_future_ms) {
+        return Err(format!(
+            "{} is more than {} s ahead of the server clock ({})",
+            format_time(time_ms),
+            limits.max_future_ms / 1000,
+            format_time(limits.now_ms)
+        ));
+    }
+    Ok(time_ms)
+}
+
 /// Checks one row against the gauge and the limits.
 pub fn check(
     row: usize,
@@ -238,32 +263,7 @@ pub fn check(
         field: field.to_owned(),
         message,
     };
-    let time_ms = match &raw.time {
-        Field::Absent => return Err(err("time", "is required".to_owned())),
-        Field::Invalid(why) => return Err(err("time", why.clone())),
-        Field::Value(t) => parse_time(t).map_err(|why| err("time", why))?,
-    };
-    if time_ms < limits.earliest_ms {
-        return Err(err(
-            "time",
-            format!(
-                "{} is before the earliest plausible time {} (ingest.earliest_year)",
-                format_time(time_ms),
-                format_time(limits.earliest_ms)
-            ),
-        ));
-    }
-    if time_ms > limits.now_ms.saturating_add(limits.max_future_ms) {
-        return Err(err(
-            "time",
-            format!(
-                "{} is more than {} s ahead of the server clock ({})",
-                format_time(time_ms),
-                limits.max_future_ms / 1000,
-                format_time(limits.now_ms)
-            ),
-        ));
-    }
+    let time_ms = checked_time(&raw.time, limits).map_err(|why| err("time", why))?;
     let number = |name: &str, f: &Field<f64>| -> Result<Option<f64>, RowError> {
         match f {
             Field::Absent => Ok(None),

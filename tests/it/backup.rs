@@ -39,6 +39,18 @@ async fn post_hours(app: &TestApp, key: &str, first: i64, count: i64) -> Vec<Str
     times
 }
 
+/// `reachcast OP --data-dir DIR FLAG FILE` (`backup --to`, `restore --from`).
+async fn op(name: &str, dir: &Path, flag: &str, file: &Path) -> Output {
+    cli(vec![
+        name.into(),
+        "--data-dir".into(),
+        arg(dir),
+        flag.into(),
+        arg(file),
+    ])
+    .await
+}
+
 async fn cli(args: Vec<String>) -> Output {
     tokio::task::spawn_blocking(move || reachcast().args(args).output().expect("run reachcast"))
         .await
@@ -98,14 +110,7 @@ async fn a_backup_under_load_restores_every_acknowledged_reading() {
         })
     };
     let backup = elsewhere.path().join("reachcast-backup.sqlite3");
-    let out = cli(vec![
-        "backup".into(),
-        "--data-dir".into(),
-        arg(live.path()),
-        "--to".into(),
-        arg(&backup),
-    ])
-    .await;
+    let out = op("backup", live.path(), "--to", &backup).await;
     stop.store(true, Ordering::Relaxed);
     writer.await.expect("writer");
     let stdout = String::from_utf8_lossy(&out.stdout);
@@ -116,38 +121,17 @@ async fn a_backup_under_load_restores_every_acknowledged_reading() {
     );
     assert!(stdout.contains("integrity ok"), "{stdout}");
     // A second backup to the same file is refused, not overwritten.
-    let again = cli(vec![
-        "backup".into(),
-        "--data-dir".into(),
-        arg(live.path()),
-        "--to".into(),
-        arg(&backup),
-    ])
-    .await;
+    let again = op("backup", live.path(), "--to", &backup).await;
     assert!(!again.status.success());
 
     // While the service has the database open, restoring over it is refused.
-    let refused = cli(vec![
-        "restore".into(),
-        "--data-dir".into(),
-        arg(live.path()),
-        "--from".into(),
-        arg(&backup),
-    ])
-    .await;
+    let refused = op("restore", live.path(), "--from", &backup).await;
     assert!(!refused.status.success());
     assert!(String::from_utf8_lossy(&refused.stderr).contains("another process"));
 
     // Restored elsewhere, every reading acknowledged before the backup is there.
     let restored = elsewhere.path().join("restored");
-    let out = cli(vec![
-        "restore".into(),
-        "--data-dir".into(),
-        arg(&restored),
-        "--from".into(),
-        arg(&backup),
-    ])
-    .await;
+    let out = op("restore", &restored, "--from", &backup).await;
     assert!(
         out.status.success(),
         "{}",
@@ -170,14 +154,7 @@ async fn a_backup_under_load_restores_every_acknowledged_reading() {
         Ok(app) => app.stop().await,
         Err(_) => panic!("the writer still holds the app"),
     }
-    let out = cli(vec![
-        "restore".into(),
-        "--data-dir".into(),
-        arg(live.path()),
-        "--from".into(),
-        arg(&backup),
-    ])
-    .await;
+    let out = op("restore", live.path(), "--from", &backup).await;
     assert!(
         out.status.success(),
         "{}",
