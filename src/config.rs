@@ -248,6 +248,16 @@ pub struct AuthConfig {
     pub rate_limit_per_sec: f64,
     /// Requests one key may send in a burst (token bucket size).
     pub rate_limit_burst: u32,
+    /// Sustained requests per second of API reads without a key, per client
+    /// address.
+    pub anonymous_rate_limit_per_sec: f64,
+    /// Burst of API reads without a key, per client address.
+    pub anonymous_rate_limit_burst: u32,
+    /// Take the client address from the last `X-Forwarded-For` entry (the
+    /// one the proxy in front appended) instead of the connection. Only
+    /// behind a proxy that sets it: otherwise clients choose their own
+    /// address and escape the limit.
+    pub trust_forwarded_for: bool,
 }
 
 /// `[ingest]`: checks on incoming readings and paging of answers.
@@ -271,6 +281,9 @@ impl Default for AuthConfig {
             public_reads: true,
             rate_limit_per_sec: 50.0,
             rate_limit_burst: 100,
+            anonymous_rate_limit_per_sec: 20.0,
+            anonymous_rate_limit_burst: 60,
+            trust_forwarded_for: false,
         }
     }
 }
@@ -356,6 +369,9 @@ pub const KEYS: &[&str] = &[
     "auth.public_reads",
     "auth.rate_limit_per_sec",
     "auth.rate_limit_burst",
+    "auth.anonymous_rate_limit_per_sec",
+    "auth.anonymous_rate_limit_burst",
+    "auth.trust_forwarded_for",
     "ingest.max_future_secs",
     "ingest.max_rows_per_request",
     "ingest.max_page_size",
@@ -481,6 +497,7 @@ impl Config {
             ("storage.min_free_mib", st.min_free_mib, 0, u64::MAX),
             ("demo.replay_secs", self.demo.replay_secs, 1, 3_600),
             ("auth.rate_limit_burst", self.auth.rate_limit_burst.into(), 1, u64::MAX),
+            ("auth.anonymous_rate_limit_burst", self.auth.anonymous_rate_limit_burst.into(), 1, u64::MAX),
             ("ingest.max_future_secs", i.max_future_secs, 0, 86_400),
             ("ingest.max_rows_per_request", i.max_rows_per_request as u64, 1, u64::MAX),
             ("ingest.max_page_size", i.max_page_size as u64, 1, 1_000_000),
@@ -506,10 +523,17 @@ impl Config {
                 return Err(bad(key, format!("must be {expected}, got {v}")));
             }
         }
-        let rate = self.auth.rate_limit_per_sec;
-        if !(rate.is_finite() && rate > 0.0 && rate <= 1_000_000.0) {
-            let m = format!("must be a number above 0 and at most 1000000, got {rate}");
-            return Err(bad("auth.rate_limit_per_sec", m));
+        for (key, rate) in [
+            ("auth.rate_limit_per_sec", self.auth.rate_limit_per_sec),
+            (
+                "auth.anonymous_rate_limit_per_sec",
+                self.auth.anonymous_rate_limit_per_sec,
+            ),
+        ] {
+            if !(rate.is_finite() && rate > 0.0 && rate <= 1_000_000.0) {
+                let m = format!("must be a number above 0 and at most 1000000, got {rate}");
+                return Err(bad(key, m));
+            }
         }
         if !(f.recession_hours.is_finite() && f.recession_hours > 0.0) {
             let m = format!("must be positive, got {}", f.recession_hours);

@@ -4,10 +4,10 @@
 //! false). Keys come as `Authorization: Bearer rck_<id>_<secret>`; each
 //! authenticated request takes a token from the key's rate-limit bucket.
 
-use std::{marker::PhantomData, time::Instant};
+use std::{marker::PhantomData, net::SocketAddr, time::Instant};
 
 use axum::{
-    extract::FromRequestParts,
+    extract::{ConnectInfo, FromRequestParts},
     http::{HeaderValue, StatusCode, header, request::Parts},
 };
 
@@ -113,23 +113,47 @@ async fn authenticate(parts: &Parts, state: &AppState) -> Result<Option<Caller>,
         return Err(unauthorized("unknown or revoked key"));
     }
     if let Err(wait) = state.limiter.check(&stored.info.id, Instant::now()) {
-        let secs = wait.as_secs_f64().ceil().max(1.0) as u64;
-        return Err(Problem::new(
-            StatusCode::TOO_MANY_REQUESTS,
-            "rate-limited",
-            "Too many requests",
-        )
-        .detail(format!(
-            "this key may send {} requests per second (bursts of {}); retry after {secs} s",
-            state.config.auth.rate_limit_per_sec, state.config.auth.rate_limit_burst
-        ))
-        .header(
-            header::RETRY_AFTER,
-            HeaderValue::from_str(&secs.to_string()).unwrap_or(HeaderValue::from_static("1")),
-        )
-        .into());
+        let a = &state.config.auth;
+        let who = format!(
+            "this key may send {} requests per second (bursts of {})",
+            a.rate_limit_per_sec, a.rate_limit_burst
+        );
+        return Err(rate_limited(&who, wait).into());
     }
     Ok(Some(Caller(stored.info)))
+}
+
+/// 429 with `Retry-After`, saying what the limit is.
+fn rate_limited(who: &str, wait: std::time::Duration) -> Problem {
+    let secs = wait.as_secs_f64().ceil().max(1.0) as u64;
+    Problem::new(
+        StatusCode::TOO_MANY_REQUESTS,
+        "rate-limited",
+        "Too many requests",
+    )
+    .detail(format!("{who}; retry after {secs} s"))
+    .header(
+        header::RETRY_AFTER,
+        HeaderValue::from_str(&secs.to_string()).unwrap_or(HeaderValue::from_static("1")),
+    )
+}
+
+/// The client's address for per-client limits: the connection's peer, or,
+/// with `auth.trust_forwarded_for`, the last `X-Forwarded-For` entry (the
+/// one the proxy in front appended; earlier ones are the client's word).
+fn client_address(parts: &Parts, trust_forwarded_for: bool) -> String {
+    let forwarded = trust_forwarded_for
+        .then(|| parts.headers.get("x-forwarded-for")?.to_str().ok())
+        .flatten()
+        .and_then(|v| v.rsplit(',').next())
+        .map(|v| v.trim().to_owned())
+        .filter(|v| !v.is_empty());
+    forwarded.unwrap_or_else(|| {
+        parts
+            .extensions
+            .get::<ConnectInfo<SocketAddr>>()
+            .map_or_else(|| "unknown".to_owned(), |c| c.0.ip().to_string())
+    })
 }
 
 impl<P: Permission + Send + Sync> FromRequestParts<AppState> for RequireRole<P> {
@@ -160,10 +184,22 @@ impl FromRequestParts<AppState> for ReadAccess {
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
         let caller = authenticate(parts, state).await?;
-        if caller.is_none() && !state.config.auth.public_reads {
+        let a = &state.config.auth;
+        if caller.is_none() && !a.public_reads {
             return Err(unauthorized(
                 "reads need a key on this server (auth.public_reads = false)",
             ));
+        }
+        if caller.is_none() {
+            let addr = client_address(parts, a.trust_forwarded_for);
+            if let Err(wait) = state.anonymous_limiter.check(&addr, Instant::now()) {
+                let who = format!(
+                    "reads without a key may send {} requests per second per client address \
+                     (bursts of {}); a key has its own budget",
+                    a.anonymous_rate_limit_per_sec, a.anonymous_rate_limit_burst
+                );
+                return Err(rate_limited(&who, wait).into());
+            }
         }
         Ok(ReadAccess(caller))
     }

@@ -11,7 +11,12 @@
 use std::{future::Future, sync::Arc, time::Duration};
 
 use super::error::{PROBLEM_JSON, Problem};
-use axum::{Router, http::StatusCode};
+use axum::{
+    Router,
+    extract::{ConnectInfo, Request},
+    http::StatusCode,
+};
+use hyper::body::Incoming;
 use hyper::server::conn::http1;
 use hyper_util::{
     rt::{TokioIo, TokioTimer},
@@ -55,9 +60,9 @@ pub async fn serve(
         .max_buf_size(limits.max_header_bytes.max(8_192));
     tokio::pin!(stop);
     loop {
-        let stream = tokio::select! {
+        let (stream, peer) = tokio::select! {
             accepted = listener.accept() => match accepted {
-                Ok((stream, _)) => stream,
+                Ok(pair) => pair,
                 Err(e) => {
                     // Out of file descriptors, say: back off a moment
                     // rather than spin on the error.
@@ -72,7 +77,14 @@ pub async fn serve(
             tokio::spawn(refuse(stream));
             continue;
         };
-        let service = TowerToHyperService::new(router.clone());
+        // The peer address, for per-client limits (`ConnectInfo`, as
+        // axum's own server gives it).
+        let with_peer =
+            tower::ServiceExt::map_request(router.clone(), move |mut req: Request<Incoming>| {
+                req.extensions_mut().insert(ConnectInfo(peer));
+                req
+            });
+        let service = TowerToHyperService::new(with_peer);
         // No upgrades (the API has no WebSocket): a plain connection,
         // which the graceful shutdown can watch.
         let conn = graceful.watch(builder.serve_connection(TokioIo::new(stream), service));

@@ -58,6 +58,8 @@ pub struct AppState {
     pub store: Store,
     /// Per-key request budget (`auth.rate_limit_*`).
     pub limiter: Arc<RateLimiter>,
+    /// Per-client-address budget of reads without a key.
+    pub anonymous_limiter: Arc<RateLimiter>,
     /// Latest-readings answers, invalidated on write.
     pub cache: Arc<cache::ReadingsCache>,
     /// The forecast cycle: triggers, the exceedance board.
@@ -70,10 +72,15 @@ impl AppState {
     pub fn new(config: Config, store: Store, forecaster: crate::service::Forecaster) -> Self {
         let limiter =
             RateLimiter::new(config.auth.rate_limit_per_sec, config.auth.rate_limit_burst);
+        let anonymous = RateLimiter::new(
+            config.auth.anonymous_rate_limit_per_sec,
+            config.auth.anonymous_rate_limit_burst,
+        );
         Self {
             config: Arc::new(config),
             store,
             limiter: Arc::new(limiter),
+            anonymous_limiter: Arc::new(anonymous),
             cache: Arc::new(cache::ReadingsCache::default()),
             forecaster,
             exceedance_cache: Arc::default(),

@@ -1028,3 +1028,55 @@ async fn json_numbers_are_stored_to_the_nearest_double() {
     assert_eq!(off, 0, "{off} of {} values changed", sent.len());
     f.app.stop().await;
 }
+
+/// Reads without a key are limited per client address (they were not
+/// limited at all): a burst of 3 at 1 per second, then 429 with
+/// `Retry-After`; a key keeps its own budget. `X-Forwarded-For` is ignored
+/// unless `auth.trust_forwarded_for` says a proxy sets it; then its last
+/// entry is the client (addresses from the RFC 5737 documentation ranges).
+#[tokio::test]
+async fn anonymous_reads_are_limited_per_client_address() {
+    for trust in [false, true] {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let key = make_key(dir.path(), "forecaster", &[]).await;
+        let mut config = test_config(dir.path());
+        config.auth.anonymous_rate_limit_per_sec = 1.0;
+        config.auth.anonymous_rate_limit_burst = 3;
+        config.auth.trust_forwarded_for = trust;
+        let app = spawn_app_with(config).await;
+        let from = |client: &str| {
+            let url = app.url("/api/reaches");
+            let client = client.to_owned();
+            async move {
+                reqwest::Client::new()
+                    .get(url)
+                    // The first entry is the client's own word; the
+                    // last is what a proxy would append.
+                    .header("x-forwarded-for", format!("203.0.113.9, {client}"))
+                    .send()
+                    .await
+                    .expect("get")
+            }
+        };
+        for _ in 0..3 {
+            assert_eq!(from("198.51.100.1").await.status(), 200);
+        }
+        // Another address behind a trusted proxy has its own bucket;
+        // without trust every request is the connection's (127.0.0.1).
+        let other = from("198.51.100.2").await.status();
+        assert_eq!(other, if trust { 200 } else { 429 }, "trust {trust}");
+        let res = from("198.51.100.1").await;
+        assert_eq!(res.status(), 429, "trust {trust}");
+        assert!(res.headers().contains_key("retry-after"));
+        let p = problem(res, 429).await;
+        assert!(
+            p["detail"]
+                .as_str()
+                .expect("detail")
+                .contains("per client address")
+        );
+        // A key has its own budget.
+        assert_eq!(app.get_as(&key, "/api/reaches").await.status(), 200);
+        app.stop().await;
+    }
+}
