@@ -179,6 +179,14 @@ impl Metrics {
         self.run_seconds.observe(wall_s);
     }
 
+    /// Counts one CAP message of this `msgType`.
+    pub fn cap_issued(&self, msg_type: &str) {
+        let labels = CapLabels {
+            msg_type: msg_type.to_owned(),
+        };
+        self.cap_messages.get_or_create(&labels).inc();
+    }
+
     /// Counts `n` readings of `gauge` with this outcome.
     pub fn readings(&self, gauge: &str, outcome: &str, reason: &str, n: u64) {
         if n == 0 {

@@ -724,8 +724,18 @@ fn clip(s: &[Sample], lo: DateTime<Utc>, hi: DateTime<Utc>) -> Vec<Sample> {
 }
 
 fn differs_a_lot(a: f64, b: f64) -> bool {
+    relative_difference(a, b) > JUMP_WARN_FRACTION
+}
+
+/// `|a − b|` as a fraction of the larger magnitude (0 when both are 0): the
+/// scale of the mismatch warning where observed flow meets an upload.
+pub fn relative_difference(a: f64, b: f64) -> f64 {
     let scale = a.abs().max(b.abs());
-    scale > 0.0 && (a - b).abs() > JUMP_WARN_FRACTION * scale
+    if scale > 0.0 {
+        (a - b).abs() / scale
+    } else {
+        0.0
+    }
 }
 
 /// Whether the last observation exceeds the observed flow

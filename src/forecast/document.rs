@@ -162,8 +162,7 @@ pub fn build(i: &Inputs<'_>, freshness: Freshness) -> ForecastDoc {
 }
 
 impl ForecastDoc {
-    /// The document of one point, if the reach has it.
-    /// The point with id or name `key`.
+    /// The document of the point with id or name `key`, if the reach has it.
     pub fn point(&self, key: &str) -> Option<PointDoc<'_>> {
         let point = self.points.iter().find(|p| p.is(key))?;
         Some(PointDoc {

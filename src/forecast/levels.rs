@@ -29,6 +29,17 @@ pub enum LevelKind {
     Deck,
 }
 
+impl LevelKind {
+    /// The wire spelling (as serialized): `threshold`, `low_chord`, `deck`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            LevelKind::Threshold => "threshold",
+            LevelKind::LowChord => "low_chord",
+            LevelKind::Deck => "deck",
+        }
+    }
+}
+
 /// A level to watch at one point.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct LevelDef {
@@ -85,34 +96,30 @@ pub fn levels_of(p: &PointSpec) -> Vec<LevelDef> {
 
 /// The low chord and the deck, where the point has them.
 fn structural_levels(p: &PointSpec) -> Vec<LevelDef> {
-    let level = |id: &str, kind, name: &str, elevation, severity| LevelDef {
-        id: id.to_owned(),
-        kind,
-        name: name.to_owned(),
-        elevation,
-        severity,
-        also_named: Vec::new(),
-    };
-    let mut out = Vec::new();
-    if let Some(z) = p.low_chord {
-        out.push(level(
+    let low_chord_severity = p.low_chord_severity.unwrap_or(LOW_CHORD_SEVERITY);
+    let deck_severity = p.deck_severity.unwrap_or(DECK_SEVERITY);
+    [
+        (
+            p.low_chord,
             LOW_CHORD_ID,
             LevelKind::LowChord,
             "low chord",
-            z,
-            p.low_chord_severity.unwrap_or(LOW_CHORD_SEVERITY),
-        ));
-    }
-    if let Some(z) = p.deck {
-        out.push(level(
-            DECK_ID,
-            LevelKind::Deck,
-            "deck",
-            z,
-            p.deck_severity.unwrap_or(DECK_SEVERITY),
-        ));
-    }
-    out
+            low_chord_severity,
+        ),
+        (p.deck, DECK_ID, LevelKind::Deck, "deck", deck_severity),
+    ]
+    .into_iter()
+    .filter_map(|(z, id, kind, name, severity)| {
+        Some(LevelDef {
+            id: id.to_owned(),
+            kind,
+            name: name.to_owned(),
+            elevation: z?,
+            severity,
+            also_named: Vec::new(),
+        })
+    })
+    .collect()
 }
 
 #[cfg(test)]

@@ -5,10 +5,7 @@
 //! ends, written by the `csv` crate; the caution in a column of its own on
 //! every row, as in the hydrograph table ([`super::export`]).
 
-use super::{
-    export::TableContext, level::LevelOutlook, levels::LevelKind, run::PointForecast,
-    view::UnitNames,
-};
+use super::{export::TableContext, level::LevelOutlook, run::PointForecast, view::UnitNames};
 
 fn header(ctx: &TableContext<'_>) -> Vec<String> {
     let u = UnitNames::of(ctx.units).elevation;
@@ -36,14 +33,6 @@ fn header(ctx: &TableContext<'_>) -> Vec<String> {
     .collect()
 }
 
-fn kind_word(k: LevelKind) -> &'static str {
-    match k {
-        LevelKind::Threshold => "threshold",
-        LevelKind::LowChord => "low_chord",
-        LevelKind::Deck => "deck",
-    }
-}
-
 fn time(t: Option<chrono::DateTime<chrono::Utc>>) -> String {
     t.map(crate::wire_time::format).unwrap_or_default()
 }
@@ -55,7 +44,7 @@ fn row(ctx: &TableContext<'_>, run: &str, p: &PointForecast, l: &LevelOutlook) -
         p.id.clone(),
         p.name.clone(),
         l.id.clone(),
-        kind_word(l.kind).to_owned(),
+        l.kind.as_str().to_owned(),
         l.name.clone(),
         format!("{:.4}", l.elevation),
         l.severity.cap_value().to_owned(),

@@ -15,8 +15,9 @@ use serde::{Deserialize, Serialize};
 
 use super::{
     levels::LevelKind,
-    spec::{PointKind, ReachSpec},
-    view::{FT_PER_M, PointView},
+    record::StoredResults,
+    spec::{PointKind, ReachSpec, Units},
+    view::{self, FT_PER_M, PointView},
 };
 
 /// How long after its issue time a run's profile can say the stage "now":
@@ -204,14 +205,20 @@ pub struct Profile {
     pub points: Vec<ProfilePoint>,
 }
 
-/// The profile at `now` of a stored run: its nodes, the bank tops of
-/// `spec`'s sections, and its points as the forecast view sees them.
+/// The profile at `now` of a stored run with `results` in `units`: its
+/// nodes, the bank tops of `spec`'s sections, and its points as the
+/// forecast view sees them (observations are not drawn, so none are read).
 pub fn profile(
     stored: &StoredProfile,
     spec: &ReachSpec,
-    points: &[PointView],
+    results: &StoredResults,
+    units: Units,
     now: DateTime<Utc>,
 ) -> Profile {
+    let mut views = view::points(spec, results, &|_| Vec::new(), now);
+    if units == Units::Us {
+        views.iter_mut().for_each(PointView::to_us);
+    }
     let nodes = (0..stored.chainage.len())
         .map(|j| stored.node_at(j, now))
         .collect();
@@ -228,11 +235,15 @@ pub fn profile(
             }
         })
         .collect();
-    Profile {
+    let mut p = Profile {
         nodes,
         banks,
-        points: points.iter().map(point).collect(),
+        points: views.iter().map(point).collect(),
+    };
+    if units == Units::Us {
+        p.nodes_to_us();
     }
+    p
 }
 
 fn point(v: &PointView) -> ProfilePoint {
@@ -262,9 +273,9 @@ fn point(v: &PointView) -> ProfilePoint {
 }
 
 impl Profile {
-    /// Converts every length (chainage included) to feet. The points come
-    /// from views already in the unit asked for, so they are left alone.
-    pub fn nodes_to_us(&mut self) {
+    /// Converts the nodes' and banks' lengths (chainage included) to feet;
+    /// the points come from views already in the unit asked for.
+    fn nodes_to_us(&mut self) {
         let l = |v: &mut f64| *v *= FT_PER_M;
         for n in &mut self.nodes {
             l(&mut n.chainage);

@@ -55,7 +55,7 @@ pub(super) struct ForecastParams {
 /// The CSV tables of a forecast.
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize)]
 #[serde(rename_all = "snake_case")]
-pub(super) enum Table {
+enum Table {
     /// One row per (point, output time): stage and discharge.
     #[default]
     Hydrographs,
@@ -155,7 +155,7 @@ async fn observations(
     Ok(observed)
 }
 
-pub(super) async fn build_doc(
+async fn build_doc(
     state: &AppState,
     l: &Loaded,
     units: Units,
@@ -208,16 +208,16 @@ fn csv_response(body: Result<String, csv::Error>) -> Result<Response, ApiError> 
 
 /// What both reads decide before building anything: the run, the
 /// representation asked for, and the freshness verdict at `now`.
-pub(super) struct Request {
-    pub(super) loaded: Loaded,
-    pub(super) units: Units,
+struct Request {
+    loaded: Loaded,
+    units: Units,
     /// The CSV table asked for; `None` for JSON.
-    pub(super) csv: Option<Table>,
-    pub(super) now: DateTime<Utc>,
-    pub(super) fresh: Freshness,
+    csv: Option<Table>,
+    now: DateTime<Utc>,
+    fresh: Freshness,
 }
 
-pub(super) async fn prepare(
+async fn prepare(
     state: &AppState,
     id: &str,
     params: &ForecastParams,

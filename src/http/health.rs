@@ -166,14 +166,9 @@ async fn reach_states(state: &AppState) -> Result<Vec<ReachReady>, crate::store:
     let now = Utc::now();
     let mut out = Vec::new();
     for r in state.store.reaches().await? {
-        let run = state
-            .store
-            .latest_run(&r.reach_id, Some(crate::forecast::record::RunStatus::Ok))
-            .await?;
+        let finished = state.store.last_good_run_finished(&r.reach_id).await?;
         out.push(ReachReady {
-            last_good_run_age_s: run
-                .and_then(|r| r.finished_at)
-                .map(|t| (now - t).num_seconds()),
+            last_good_run_age_s: finished.map(|t| (now - t).num_seconds()),
             scheduler: "running",
             reach: r.reach_id,
         });

@@ -17,7 +17,6 @@ use chrono::Utc;
 
 use super::{AppState, auth::ReadAccess, error::ApiError};
 use crate::{
-    forecast::record::RunStatus,
     metrics::{GaugeLabels, HttpLabels, ReachLabels},
     service::Forecaster,
 };
@@ -86,11 +85,7 @@ async fn refresh_gauges(state: &AppState) -> Result<(), ApiError> {
         let labels = ReachLabels {
             reach: reach.reach_id.clone(),
         };
-        let run = state
-            .store
-            .latest_run(&reach.reach_id, Some(RunStatus::Ok))
-            .await?;
-        if let Some(t) = run.and_then(|r| r.finished_at) {
+        if let Some(t) = state.store.last_good_run_finished(&reach.reach_id).await? {
             let age = (now - t).num_milliseconds() as f64 / 1000.0;
             m.last_good_run_age.get_or_create(&labels).set(age);
         }

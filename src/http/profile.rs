@@ -19,7 +19,7 @@ use super::{
     auth::ReadAccess,
     conditional::{not_modified, with_etag},
     error::{ApiError, Problem},
-    forecast::{build_doc, forecast_etag, freshness_of, load_latest},
+    forecast::{forecast_etag, freshness_of, load_latest},
     query::Params,
 };
 use crate::forecast::{
@@ -82,11 +82,7 @@ async fn get_profile(
         )
         .into());
     };
-    let doc = build_doc(&state, &loaded, units, now, fresh).await?;
-    let mut p = profile(&stored, &loaded.reach.spec, &doc.points, now);
-    if units == Units::Us {
-        p.nodes_to_us();
-    }
+    let p = profile(&stored, &loaded.reach.spec, loaded.results()?, units, now);
     let body = ProfileDoc {
         caution: crate::CAUTION,
         reach: loaded.reach.reach_id.clone(),
@@ -95,7 +91,7 @@ async fn get_profile(
         issued_at: stored.issued,
         now,
         units: UnitNames::of(units),
-        freshness: doc.freshness,
+        freshness: fresh,
         nodes: p.nodes,
         banks: p.banks,
         points: p.points,

@@ -156,13 +156,7 @@ impl Forecaster {
             .await;
         let m = &self.inner.metrics;
         m.run(&reach.reach_id, true, wall);
-        for msg_type in issued {
-            m.cap_messages
-                .get_or_create(&crate::metrics::CapLabels {
-                    msg_type: msg_type.to_owned(),
-                })
-                .inc();
-        }
+        issued.into_iter().for_each(|t| m.cap_issued(t));
         tracing::info!(
             reach = %reach.reach_id,
             run_id,

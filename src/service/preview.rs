@@ -120,14 +120,9 @@ fn join_of(now: DateTime<Utc>, a: &assemble::Assembled, candidate: &Hydrograph) 
         .filter(|_| used)
         .map(|l| candidate.to_series(l.time).at(0.0));
     let jump = last.zip(at_join).map(|(l, u)| u - l.discharge);
-    let jump_relative = last.zip(at_join).map(|(l, u)| {
-        let scale = l.discharge.abs().max(u.abs());
-        if scale > 0.0 {
-            (u - l.discharge).abs() / scale
-        } else {
-            0.0
-        }
-    });
+    let jump_relative = last
+        .zip(at_join)
+        .map(|(l, u)| assemble::relative_difference(l.discharge, u));
     JoinPreview {
         used,
         last_observed: last,

@@ -31,14 +31,14 @@ impl Store {
     /// exist yet.
     pub async fn backup_to(&self, to: &Path) -> Result<(), StoreError> {
         if to.exists() {
-            return Err(StoreError::Corrupt(format!(
+            return Err(StoreError::Refused(format!(
                 "{} exists already; a backup never overwrites a file",
                 to.display()
             )));
         }
         let target = to
             .to_str()
-            .ok_or_else(|| StoreError::Corrupt(format!("{} is not a UTF-8 path", to.display())))?;
+            .ok_or_else(|| StoreError::Refused(format!("{} is not a UTF-8 path", to.display())))?;
         sqlx::query("VACUUM INTO ?1")
             .bind(target)
             .execute(&self.pool)
@@ -98,7 +98,7 @@ pub struct Restored {
 /// `reachcast.sqlite3.before-restore-<unix seconds>`. Refuses while another
 /// process has the database open (its WAL file stays after ours closes).
 pub async fn restore(from: &Path, data_dir: &Path) -> Result<Restored, StoreError> {
-    let refuse = |m: String| Err(StoreError::Corrupt(m));
+    let refuse = |m: String| Err(StoreError::Refused(m));
     let summary = check_file(from).await?;
     if !summary.intact {
         return refuse(format!(

@@ -393,6 +393,23 @@ impl Store {
         row.as_ref().map(run_from_row).transpose()
     }
 
+    /// When the latest successful run of a reach finished, without loading
+    /// the run: readiness and metrics ask it per reach on every poll.
+    pub async fn last_good_run_finished(
+        &self,
+        reach_id: &str,
+    ) -> Result<Option<DateTime<Utc>>, StoreError> {
+        let finished: Option<Option<String>> = sqlx::query_scalar(
+            "SELECT finished_at FROM forecast_runs WHERE reach_id = ?1 AND status = ?2
+             ORDER BY id DESC LIMIT 1",
+        )
+        .bind(reach_id)
+        .bind(RunStatus::Ok.as_str())
+        .fetch_optional(&self.pool)
+        .await?;
+        time::read_opt("forecast_runs.finished_at", finished.flatten())
+    }
+
     /// Runs of a reach, newest first, without their results.
     pub async fn runs(&self, reach_id: &str, limit: i64) -> Result<Vec<RunRecord>, StoreError> {
         let rows = sqlx::query(

@@ -56,6 +56,9 @@ pub enum StoreError {
     Migrate(#[source] Box<dyn std::error::Error + Send + Sync>),
     #[error("stored value does not decode: {0}")]
     Corrupt(String),
+    /// A maintenance operation (backup, restore) that would be unsafe.
+    #[error("{0}")]
+    Refused(String),
 }
 
 impl From<sqlx::Error> for StoreError {

@@ -307,7 +307,7 @@ pub fn parameters(msg: &Planned) -> Vec<(&'static str, String)> {
             p.push(("reachcast:point_kind", s.point_kind.to_string()));
             p.push(("reachcast:chainage_m", format!("{:.1}", s.chainage)));
             p.push(("reachcast:level_id", s.level_id.clone()));
-            p.push(("reachcast:level_kind", kind_word(s.level_kind).to_owned()));
+            p.push(("reachcast:level_kind", s.level_kind.as_str().to_owned()));
             p.push(("reachcast:threshold_name", s.threshold_name.clone()));
             p.push((
                 "reachcast:threshold_elevation_m",
@@ -332,15 +332,6 @@ pub fn parameters(msg: &Planned) -> Vec<(&'static str, String)> {
         }
     }
     p
-}
-
-/// The wire spelling of a level kind (as in the API).
-fn kind_word(k: LevelKind) -> &'static str {
-    match k {
-        LevelKind::Threshold => "threshold",
-        LevelKind::LowChord => "low_chord",
-        LevelKind::Deck => "deck",
-    }
 }
 
 #[cfg(test)]
