@@ -6,7 +6,8 @@
 //! `route` command and the tests call the same functions.
 //!
 //! Geometry: [`section`] turns surveys into property tables and nodes,
-//! [`props`] is the contract solvers see, [`manning`] and [`rating`] give
+//! [`props`] is the contract solvers see ([`roughness`] varies its
+//! Manning's n without a rebuild), [`manning`] and [`rating`] give
 //! normal and critical depth and stage–discharge relations, [`series`]
 //! holds time series. Routing: [`diffusive`] (the default) and
 //! [`kinematic`] (a cross-check) share [`routing`] (the reach, laterals,
@@ -24,6 +25,7 @@ pub mod kinematic;
 pub mod manning;
 pub mod rating;
 mod roots;
+pub mod roughness;
 pub mod routing;
 pub mod section;
 pub mod series;

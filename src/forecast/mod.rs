@@ -9,6 +9,7 @@ pub mod assemble;
 pub mod budget;
 pub mod cap;
 pub mod document;
+pub mod ensemble;
 pub mod exceed;
 pub mod export;
 pub mod hydrograph;

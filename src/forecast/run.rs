@@ -12,6 +12,8 @@ use crate::engine::{
     diffusive::{self, Diagnostics, DownstreamBoundary, InitialState, Lateral, Options, Reach},
     kinematic,
     props::Hydraulics,
+    rating::RatingCurve,
+    roughness::Roughened,
     routing::RoutingResult,
     section::{Node, build_nodes},
     series::Series,
@@ -96,6 +98,58 @@ pub fn nodes_for(spec: &ReachSpec) -> Result<Vec<Node>, RunError> {
         .map_err(|e| RunError::Spec(SpecError::new("sections", e.to_string())))
 }
 
+/// What every run of one reach version shares: the computational nodes
+/// (property tables) and the downstream rating sampled for the solver.
+/// Built once per reach version and reused by every ensemble member and
+/// every cycle, since building them costs about as much as a routing.
+#[derive(Debug)]
+pub struct Prepared {
+    nodes: Vec<Node>,
+    chainage: Vec<f64>,
+    /// `(stage, discharge)` pairs of a `rating` downstream boundary.
+    rating: Option<Vec<(f64, f64)>>,
+}
+
+impl Prepared {
+    /// Validates `spec` and builds what its runs share.
+    pub fn new(spec: &ReachSpec) -> Result<Self, RunError> {
+        let nodes = nodes_for(spec)?;
+        let chainage = nodes.iter().map(|n| n.chainage).collect();
+        let rating = match &spec.downstream {
+            DownstreamSpec::Rating { rating } => Some(rating_table(spec, rating)?),
+            _ => None,
+        };
+        Ok(Self {
+            nodes,
+            chainage,
+            rating,
+        })
+    }
+
+    /// The computational nodes, upstream first.
+    pub fn nodes(&self) -> &[Node] {
+        &self.nodes
+    }
+}
+
+/// What an ensemble member changes in the reach itself (its inflow is
+/// changed before the run).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Adjust {
+    /// Factor on every Manning's n.
+    pub manning: f64,
+    /// Factor on the downstream rating's discharge.
+    pub rating: f64,
+}
+
+impl Adjust {
+    /// Changes nothing.
+    pub const NONE: Adjust = Adjust {
+        manning: 1.0,
+        rating: 1.0,
+    };
+}
+
 /// Routes `inflow` through the reach with the method of `method` (or the
 /// reach's own).
 pub fn run(
@@ -103,16 +157,39 @@ pub fn run(
     inflow: &Hydrograph,
     method: Option<Method>,
 ) -> Result<RunOutput, RunError> {
-    let nodes = nodes_for(spec)?;
-    run_on_nodes(spec, &nodes, inflow, method)
+    let prepared = Prepared::new(spec)?;
+    run_prepared(spec, &prepared, inflow, method, Adjust::NONE)
 }
 
-/// [`run`] with nodes built once by [`nodes_for`] (for ensembles).
-pub fn run_on_nodes(
+/// [`run`] on what [`Prepared::new`] built from the same `spec`, with a
+/// member's adjustments (`Adjust::NONE` for the deterministic run).
+pub fn run_prepared(
     spec: &ReachSpec,
-    nodes: &[Node],
+    prepared: &Prepared,
     inflow: &Hydrograph,
     method: Option<Method>,
+    adjust: Adjust,
+) -> Result<RunOutput, RunError> {
+    if adjust.manning == 1.0 {
+        route_on(spec, prepared, &prepared.nodes, inflow, method, adjust)
+    } else {
+        let rough: Vec<Roughened<'_, Node>> = prepared
+            .nodes
+            .iter()
+            .map(|n| Roughened::new(n, adjust.manning))
+            .collect();
+        route_on(spec, prepared, &rough, inflow, method, adjust)
+    }
+}
+
+/// The run on `nodes` (the prepared nodes, or a view of them).
+fn route_on<H: Hydraulics>(
+    spec: &ReachSpec,
+    prepared: &Prepared,
+    nodes: &[H],
+    inflow: &Hydrograph,
+    method: Option<Method>,
+    adjust: Adjust,
 ) -> Result<RunOutput, RunError> {
     let method = method.unwrap_or(spec.routing.method);
     let (t0, t_end) = (inflow.start(), inflow.end());
@@ -121,12 +198,12 @@ pub fn run_on_nodes(
     let output_times = output_times(seconds(t_end, t0), spec.routing.output_interval_s);
     let laterals = laterals_of(spec, t0)?;
 
-    let chainage: Vec<f64> = nodes.iter().map(|n| n.chainage).collect();
-    let reach = Reach::new(&chainage, nodes).map_err(|e| RunError::Routing(e.to_string()))?;
+    let chainage = &prepared.chainage;
+    let reach = Reach::new(chainage, nodes).map_err(|e| RunError::Routing(e.to_string()))?;
 
     let result = match method {
         Method::Diffusive => {
-            let downstream = downstream_boundary(spec, t0)?;
+            let downstream = downstream_boundary(spec, prepared, t0, adjust.rating)?;
             let defaults = Options::default();
             let options = Options {
                 theta: spec.routing.theta,
@@ -160,19 +237,19 @@ pub fn run_on_nodes(
         }
     };
 
-    output_of(spec, nodes, method, (t0, t_end), result)
+    output_of(spec, nodes, chainage, method, (t0, t_end), result)
 }
 
 /// The run's output from the router's result: time stamps, each point's
 /// forecast (ordered downstream) and the node rows for the profile.
-fn output_of(
+fn output_of<H: Hydraulics>(
     spec: &ReachSpec,
-    nodes: &[Node],
+    nodes: &[H],
+    chainage: &[f64],
     method: Method,
     (t0, t_end): (DateTime<Utc>, DateTime<Utc>),
     result: RoutingResult,
 ) -> Result<RunOutput, RunError> {
-    let chainage: Vec<f64> = nodes.iter().map(|n| n.chainage).collect();
     let times: Vec<DateTime<Utc>> = result
         .output_times
         .iter()
@@ -182,21 +259,12 @@ fn output_of(
     order.sort_by(|a, b| a.chainage.total_cmp(&b.chainage));
     let points = order
         .into_iter()
-        .map(|p| {
-            point_forecast(
-                p,
-                nodes,
-                &chainage,
-                &times,
-                &result.stage,
-                &result.discharge,
-            )
-        })
+        .map(|p| point_forecast(p, nodes, chainage, &times, &result.stage, &result.discharge))
         .collect::<Result<Vec<_>, _>>()?;
 
     let node_rows = NodeRows {
         bed: nodes.iter().map(|n| n.bed_elevation()).collect(),
-        chainage,
+        chainage: chainage.to_vec(),
         times,
         stage: result.stage,
     };
@@ -260,9 +328,9 @@ fn laterals_of(spec: &ReachSpec, t0: DateTime<Utc>) -> Result<Vec<Lateral>, RunE
 /// The forecast at one point: node results interpolated to its chainage,
 /// the crest, and each threshold ranked by elevation and seen from the
 /// run's start.
-fn point_forecast(
+fn point_forecast<H: Hydraulics>(
     p: &PointSpec,
-    nodes: &[Node],
+    nodes: &[H],
     chainage: &[f64],
     times: &[DateTime<Utc>],
     stage_rows: &[Vec<f64>],
@@ -320,9 +388,13 @@ fn bracket(c: &[f64], x: f64) -> (usize, f64) {
     (i, w)
 }
 
+/// The solver's downstream boundary; a rating's discharges times
+/// `rating_factor`.
 fn downstream_boundary(
     spec: &ReachSpec,
+    prepared: &Prepared,
     t0: DateTime<Utc>,
+    rating_factor: f64,
 ) -> Result<DownstreamBoundary, RunError> {
     Ok(match &spec.downstream {
         DownstreamSpec::NormalDepth { friction_slope } => DownstreamBoundary::NormalDepth {
@@ -339,29 +411,39 @@ fn downstream_boundary(
             )
             .map_err(|e| RunError::Spec(SpecError::new("downstream.series", e.to_string())))?,
         ),
-        DownstreamSpec::Rating { rating } => {
-            // The solver takes a table; sample the rating finely over the
-            // range of stages the last section can hold.
-            let last = spec
-                .sections
-                .last()
-                .ok_or_else(|| RunError::Spec(SpecError::new("sections", "empty")))?;
-            let table = crate::engine::section::PropertyTable::from_section(last)
-                .map_err(|e| RunError::Spec(SpecError::new("sections", e.to_string())))?;
-            let lo = table.bed();
-            let hi = table.extrapolation_elevation() + 5.0;
-            let n = 400;
-            let mut pairs = Vec::with_capacity(n + 1);
-            for k in 0..=n {
-                let z = lo + (hi - lo) * k as f64 / n as f64;
-                let q = rating.discharge(z).map_err(|e| {
-                    RunError::Spec(SpecError::new("downstream.rating", e.to_string()))
-                })?;
-                pairs.push((z, q));
+        DownstreamSpec::Rating { .. } => {
+            let table = prepared
+                .rating
+                .as_ref()
+                .ok_or_else(|| RunError::Spec(SpecError::new("downstream", "not prepared")))?;
+            DownstreamBoundary::Rating {
+                table: table.iter().map(|&(z, q)| (z, q * rating_factor)).collect(),
             }
-            DownstreamBoundary::Rating { table: pairs }
         }
     })
+}
+
+/// The solver takes a rating as a table: the rating sampled finely over the
+/// range of stages the last section can hold.
+fn rating_table(spec: &ReachSpec, rating: &RatingCurve) -> Result<Vec<(f64, f64)>, RunError> {
+    let last = spec
+        .sections
+        .last()
+        .ok_or_else(|| RunError::Spec(SpecError::new("sections", "empty")))?;
+    let table = crate::engine::section::PropertyTable::from_section(last)
+        .map_err(|e| RunError::Spec(SpecError::new("sections", e.to_string())))?;
+    let lo = table.bed();
+    let hi = table.extrapolation_elevation() + 5.0;
+    let n = 400;
+    (0..=n)
+        .map(|k| {
+            let z = lo + (hi - lo) * f64::from(k) / f64::from(n);
+            let q = rating
+                .discharge(z)
+                .map_err(|e| RunError::Spec(SpecError::new("downstream.rating", e.to_string())))?;
+            Ok((z, q))
+        })
+        .collect()
 }
 
 #[cfg(test)]

@@ -11,6 +11,7 @@ use chrono::{DateTime, FixedOffset};
 use serde::{Deserialize, Serialize};
 
 use crate::engine::{rating::RatingCurve, section::CrossSection};
+use crate::forecast::ensemble::EnsembleSpec;
 use crate::gauge::{slug_of, valid_slug};
 
 /// A reach: surveyed sections, the downstream boundary, tributaries and the
@@ -39,6 +40,9 @@ pub struct ReachSpec {
     /// Numerical settings.
     #[serde(default)]
     pub routing: RoutingSpec,
+    /// Ensemble members and their spreads.
+    #[serde(default)]
+    pub ensemble: EnsembleSpec,
     /// How the service uses the reach (ignored by the offline command).
     #[serde(default)]
     pub service: ServiceSpec,
@@ -423,6 +427,7 @@ impl ReachSpec {
                 ),
             ));
         }
+        self.ensemble.validate()?;
         self.routing.validate()
     }
 }

@@ -1,0 +1,104 @@
+//! Ensemble forecasts: many runs of one reach with perturbed inputs, and
+//! what they say together at each point (percentile traces, the crest
+//! range, the chance of each level).
+//!
+//! A member is the deterministic run with its inflow's rise scaled and
+//! shifted in time ([`perturb`]), every Manning's n scaled and the rated
+//! discharges scaled ([`design::Member`]), the factors drawn by Latin
+//! hypercube sampling from the run's seed ([`design`]) with the spreads of
+//! the reach's `ensemble` section ([`spec`]). Members route on the reach's
+//! prepared tables ([`crate::forecast::run::Prepared`]) in parallel
+//! ([`rayon`]); the summary ([`summary`]) keeps only what is served.
+//!
+//! Pure: no I/O, no clock. The caller runs it off the async runtime.
+
+pub mod design;
+pub mod perturb;
+pub mod quantile;
+pub mod rng;
+pub mod spec;
+pub mod summary;
+
+use chrono::{DateTime, Utc};
+use rayon::prelude::*;
+
+use super::{
+    hydrograph::Hydrograph,
+    run::{Adjust, Prepared, RunError, RunOutput, run_prepared},
+    spec::{Method, ReachSpec},
+};
+use design::{Member, design};
+use perturb::{RatedInflow, member_inflow};
+pub use spec::EnsembleSpec;
+use summary::{EnsembleSummary, MemberSource, MemberTraces, summarise};
+
+/// More than this share of failed members and the ensemble is not served:
+/// the rest would be a biased sample (the failures are the extreme ones).
+pub const MAX_FAILED_SHARE: f64 = 0.1;
+
+/// What an ensemble is run from.
+#[derive(Debug, Clone, Copy)]
+pub struct EnsembleInput<'a> {
+    pub spec: &'a ReachSpec,
+    pub prepared: &'a Prepared,
+    /// The deterministic run's inflow.
+    pub inflow: &'a Hydrograph,
+    /// Its issue time: the rise after it is perturbed, and probabilities
+    /// are seen from it.
+    pub issued: DateTime<Utc>,
+    pub rated: RatedInflow,
+    pub seed: u64,
+    pub method: Option<Method>,
+}
+
+/// Routes the members of `input` and summarises them around the
+/// deterministic run `det` (routed from the same input). `Ok(None)` when
+/// the reach's ensemble is off (no members).
+pub fn run_ensemble(
+    input: &EnsembleInput<'_>,
+    det: &RunOutput,
+) -> Result<Option<EnsembleSummary>, RunError> {
+    let spec = &input.spec.ensemble;
+    if spec.members == 0 {
+        return Ok(None);
+    }
+    let members = design(spec, input.seed);
+    let routed: Vec<Result<MemberTraces, RunError>> = members
+        .par_iter()
+        .map(|m| member_traces(input, m))
+        .collect();
+    let total = routed.len();
+    let ok: Vec<MemberTraces> = routed.into_iter().filter_map(Result::ok).collect();
+    let failed = total - ok.len();
+    if ok.is_empty() || failed as f64 > MAX_FAILED_SHARE * total as f64 {
+        return Err(RunError::Routing(format!(
+            "{failed} of {total} ensemble members failed to route"
+        )));
+    }
+    Ok(Some(EnsembleSummary {
+        members: ok.len(),
+        failed_members: failed,
+        source: MemberSource::Perturbed,
+        seed: input.seed,
+        issued: input.issued,
+        percentiles: spec.percentiles.clone(),
+        points: summarise(&det.points, &ok, input.issued, &spec.percentiles),
+    }))
+}
+
+/// One member's stage traces at the points (the rest of its output is
+/// dropped at once, so a large ensemble does not hold every node's trace).
+fn member_traces(input: &EnsembleInput<'_>, m: &Member) -> Result<MemberTraces, RunError> {
+    let inflow = member_inflow(input.inflow, input.issued, m, input.rated);
+    let adjust = Adjust {
+        manning: m.manning,
+        rating: m.rating,
+    };
+    let out = run_prepared(input.spec, input.prepared, &inflow, input.method, adjust)?;
+    Ok(MemberTraces(
+        out.points.into_iter().map(|p| p.stage).collect(),
+    ))
+}
+
+#[cfg(test)]
+mod tests;
