@@ -139,6 +139,10 @@ pub struct ForecastConfig {
     /// A reach whose run needs more time steps at least (look-back and
     /// horizon over the largest step) is refused.
     pub max_steps: u64,
+    /// Ensemble members routed per run at most; a reach asking for more
+    /// gets this many, and its runs' provenance says so. 0 turns ensembles
+    /// off.
+    pub max_ensemble_members: usize,
 }
 
 impl ForecastConfig {
@@ -174,6 +178,7 @@ impl Default for ForecastConfig {
             max_nodes: 5_000,
             max_output_values: 5_000_000,
             max_steps: 200_000,
+            max_ensemble_members: 200,
         }
     }
 }
@@ -390,6 +395,7 @@ pub const KEYS: &[&str] = &[
     "forecast.max_nodes",
     "forecast.max_output_values",
     "forecast.max_steps",
+    "forecast.max_ensemble_members",
     "alerts.sender",
     "alerts.cap_status",
     "alerts.base_url",

@@ -13,7 +13,7 @@ use super::{
     assemble::Source,
     export::{self, Rows, TableContext},
     levels_csv,
-    record::{RunDiagnostics, RunRecord, StoredResults},
+    record::{EnsembleRecord, RunDiagnostics, RunRecord, StoredResults},
     spec::{Method, ReachSpec, Units},
     view::{self, Freshness, ObservedStage, PointView, UnitNames},
 };
@@ -51,6 +51,70 @@ pub struct RunBrief {
     pub reach_version: i64,
     pub inflow: InflowBrief,
     pub diagnostics: RunDiagnostics,
+    /// The run's ensemble in brief; `null` when the reach has none.
+    pub ensemble: Option<EnsembleBrief>,
+}
+
+/// Where a run's ensemble stands.
+#[derive(Debug, Clone, Copy, Serialize, PartialEq, Eq)]
+#[serde(rename_all = "snake_case")]
+pub enum EnsembleStatus {
+    /// Still routing (the deterministic forecast is served meanwhile), or
+    /// never attached because the service stopped first.
+    Pending,
+    Ready,
+    Failed,
+}
+
+/// A run's ensemble in brief.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct EnsembleBrief {
+    pub status: EnsembleStatus,
+    /// Members asked for, as routed.
+    pub members: usize,
+    /// Members summarised (ready only).
+    pub members_used: Option<usize>,
+    pub failed_members: Option<usize>,
+    pub seed: u64,
+    pub percentiles: Vec<f64>,
+    /// The spreads are the built-in defaults, not verified error
+    /// statistics of this reach.
+    pub spreads_are_defaults: bool,
+    pub wall_time_s: Option<f64>,
+    pub error: Option<String>,
+}
+
+fn ensemble_brief(run: &RunRecord) -> Option<EnsembleBrief> {
+    let p = run.provenance.ensemble.as_ref()?;
+    let mut b = EnsembleBrief {
+        status: EnsembleStatus::Pending,
+        members: p.settings.members,
+        members_used: None,
+        failed_members: None,
+        seed: p.seed,
+        percentiles: p.settings.percentiles.clone(),
+        spreads_are_defaults: p.spreads_are_defaults,
+        wall_time_s: None,
+        error: None,
+    };
+    match &run.ensemble {
+        None => {}
+        Some(EnsembleRecord::Ready {
+            summary,
+            wall_time_s,
+        }) => {
+            b.status = EnsembleStatus::Ready;
+            b.members_used = Some(summary.members);
+            b.failed_members = Some(summary.failed_members);
+            b.wall_time_s = Some(*wall_time_s);
+        }
+        Some(EnsembleRecord::Failed { error, wall_time_s }) => {
+            b.status = EnsembleStatus::Failed;
+            b.error = Some(error.clone());
+            b.wall_time_s = Some(*wall_time_s);
+        }
+    }
+    Some(b)
 }
 
 /// A run that failed after the one served.
@@ -126,7 +190,8 @@ fn inflow_brief(run: &RunRecord) -> InflowBrief {
 /// Builds the document.
 pub fn build(i: &Inputs<'_>, freshness: Freshness) -> ForecastDoc {
     let lookup = |g: &str| i.observed.get(g).cloned().unwrap_or_default();
-    let mut points = view::points(i.spec, i.results, &lookup, i.now);
+    let ensemble = i.run.ensemble.as_ref().and_then(EnsembleRecord::summary);
+    let mut points = view::points(i.spec, i.results, ensemble, &lookup, i.now);
     if i.units == Units::Us {
         points.iter_mut().for_each(PointView::to_us);
     }
@@ -149,6 +214,7 @@ pub fn build(i: &Inputs<'_>, freshness: Freshness) -> ForecastDoc {
             reach_version: i.run.reach_version,
             inflow: inflow_brief(i.run),
             diagnostics: i.results.diagnostics.clone(),
+            ensemble: ensemble_brief(i.run),
         },
         freshness,
         last_failure: i.last_failure.map(|f| FailureBrief {
@@ -183,6 +249,13 @@ impl ForecastDoc {
             run: Some(self.run.id),
             units: self.unit_system,
             caution: export::caution_cell(&self.freshness.reasons),
+            percentiles: self
+                .run
+                .ensemble
+                .as_ref()
+                .filter(|e| e.status == EnsembleStatus::Ready)
+                .map(|e| e.percentiles.clone())
+                .unwrap_or_default(),
         }
     }
 
@@ -275,6 +348,7 @@ mod tests {
             error: (status == RunStatus::Failed).then(|| "routing failed".to_owned()),
             provenance: RunProvenance::default(),
             results: None,
+            ensemble: None,
         }
     }
 

@@ -5,12 +5,15 @@
 //!
 //! One header vocabulary, the unit in each column name:
 //! `reach,run,point,chainage_m,time,stage_m,discharge_m3_per_s,caution`
-//! (`_ft` and `_ft3_per_s` in US customary units). The caution is a
+//! (`_ft` and `_ft3_per_s` in US customary units). A run with an ensemble
+//! adds one column per percentile before the caution, `stage_p10_m` and so
+//! on. The caution is a
 //! column of its own, repeated on every row, so that a plain RFC 4180
 //! reader sees a rectangular table and a row copied out of it still says
 //! it is advisory; a stale forecast says so in the same cell.
 
 use super::{
+    ensemble::summary::PercentileTrace,
     run::PointForecast,
     spec::Units,
     view::{PointView, UnitNames},
@@ -27,6 +30,8 @@ pub struct TableContext<'a> {
     /// The caution cell: [`crate::CAUTION`], plus the stale reasons when
     /// the forecast is stale.
     pub caution: String,
+    /// Ensemble percentiles with a column each (empty: none).
+    pub percentiles: Vec<f64>,
 }
 
 /// One point's hydrographs (values already in `ctx.units`).
@@ -37,11 +42,17 @@ pub struct Rows<'a> {
     pub times: &'a [chrono::DateTime<chrono::Utc>],
     pub stage: &'a [f64],
     pub discharge: &'a [f64],
+    /// Percentile stage traces, in the table's percentile order (empty:
+    /// none, and the cells stay empty).
+    pub bands: &'a [PercentileTrace],
 }
 
 impl<'a> From<&'a PointView> for Rows<'a> {
     fn from(p: &'a PointView) -> Self {
-        Rows::from(&p.forecast)
+        Rows {
+            bands: p.ensemble.as_ref().map_or(&[], |e| e.stage.as_slice()),
+            ..Rows::from(&p.forecast)
+        }
     }
 }
 
@@ -53,6 +64,7 @@ impl<'a> From<&'a PointForecast> for Rows<'a> {
             times: &p.times,
             stage: &p.stage,
             discharge: &p.discharge,
+            bands: &[],
         }
     }
 }
@@ -70,9 +82,9 @@ pub fn caution_cell(stale_reasons: &[String]) -> String {
     }
 }
 
-fn header(units: Units) -> [String; 8] {
+fn header(units: Units, percentiles: &[f64]) -> Vec<String> {
     let u = UnitNames::of(units);
-    [
+    let mut h = vec![
         "reach".to_owned(),
         "run".to_owned(),
         "point".to_owned(),
@@ -80,8 +92,15 @@ fn header(units: Units) -> [String; 8] {
         "time".to_owned(),
         format!("stage_{}", u.stage),
         format!("discharge_{}", u.discharge.replace('/', "_per_")),
-        "caution".to_owned(),
-    ]
+    ];
+    // `{}` of an f64 prints 10 as `10` and 2.5 as `2.5`.
+    h.extend(
+        percentiles
+            .iter()
+            .map(|p| format!("stage_p{p}_{}", u.stage)),
+    );
+    h.push("caution".to_owned());
+    h
 }
 
 /// The table as RFC 4180 text.
@@ -92,21 +111,29 @@ pub fn table<'a>(
     let mut w = csv::WriterBuilder::new()
         .terminator(csv::Terminator::CRLF)
         .from_writer(Vec::new());
-    w.write_record(header(ctx.units))?;
+    w.write_record(header(ctx.units, &ctx.percentiles))?;
     let run = ctx.run.map(|r| r.to_string()).unwrap_or_default();
     for p in points {
         let chainage = format!("{}", p.chainage);
-        for ((t, z), q) in p.times.iter().zip(p.stage).zip(p.discharge) {
-            w.write_record([
-                ctx.reach,
-                &run,
-                p.point,
-                &chainage,
-                &crate::wire_time::format(*t),
-                &format!("{z:.4}"),
-                &format!("{q:.4}"),
-                &ctx.caution,
-            ])?;
+        for (k, ((t, z), q)) in p.times.iter().zip(p.stage).zip(p.discharge).enumerate() {
+            let mut record = vec![
+                ctx.reach.to_owned(),
+                run.clone(),
+                p.point.to_owned(),
+                chainage.clone(),
+                crate::wire_time::format(*t),
+                format!("{z:.4}"),
+                format!("{q:.4}"),
+            ];
+            record.extend((0..ctx.percentiles.len()).map(|j| {
+                p.bands
+                    .get(j)
+                    .and_then(|b| b.stage.get(k))
+                    .map(|v| format!("{v:.4}"))
+                    .unwrap_or_default()
+            }));
+            record.push(ctx.caution.clone());
+            w.write_record(&record)?;
         }
     }
     let bytes = w.into_inner().map_err(|e| e.into_error())?;
@@ -134,6 +161,7 @@ mod tests {
             run: Some(7),
             units: Units::Si,
             caution: caution_cell(&[]),
+            percentiles: Vec::new(),
         };
         let rows = Rows {
             point: "the \"old\" bridge",
@@ -141,6 +169,7 @@ mod tests {
             times: &times,
             stage: &[10.0, 10.25],
             discharge: &[5.0, 6.5],
+            bands: &[],
         };
         let text = table(&ctx, [rows]).unwrap();
         let lines: Vec<&str> = text.split("\r\n").collect();
@@ -164,8 +193,10 @@ mod tests {
 
     #[test]
     fn us_units_and_stale_caution() {
-        assert_eq!(header(Units::Us)[6], "discharge_ft3_per_s");
-        assert_eq!(header(Units::Us)[3], "chainage_ft");
+        assert_eq!(header(Units::Us, &[])[6], "discharge_ft3_per_s");
+        assert_eq!(header(Units::Us, &[])[3], "chainage_ft");
+        let h = header(Units::Si, &[2.5, 50.0]);
+        assert_eq!(h[7..], ["stage_p2.5_m", "stage_p50_m", "caution"]);
         let c = caution_cell(&["the upstream gauge has been silent for 90 min".to_owned()]);
         assert!(c.starts_with(crate::CAUTION) && c.contains("STALE FORECAST: the upstream"));
     }

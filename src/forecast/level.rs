@@ -15,6 +15,7 @@ use chrono::{DateTime, Duration, DurationRound, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::{
+    ensemble::summary::Chance,
     exceed,
     levels::{LevelDef, LevelKind},
     spec::Severity,
@@ -83,6 +84,9 @@ pub struct LevelOutlook {
     pub duration_above_s: f64,
     /// Crest ahead minus the level (m); positive when exceeded.
     pub margin: f64,
+    /// The ensemble's chance of the level; absent without an ensemble.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub chance: Option<Chance>,
 }
 
 /// The crest ahead: highest stage from the instant on and when.
@@ -175,6 +179,7 @@ impl Ahead {
             back_below: e.back_below.and_then(|s| self.crossing(s)),
             duration_above_s: e.duration_above,
             margin: e.margin,
+            chance: None,
         }
     }
 

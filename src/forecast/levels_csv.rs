@@ -1,7 +1,8 @@
 //! The CSV table of levels: one row per (point, level) of a forecast seen
 //! from now, with the crossing facts a planner asks for (when the water
 //! rises above, since when it has been above, when it falls back below,
-//! for how long, and the margin at the crest). RFC 4180 with CRLF line
+//! for how long, the margin at the crest, and the ensemble's probability
+//! with its member count, empty without an ensemble). RFC 4180 with CRLF line
 //! ends, written by the `csv` crate; the caution in a column of its own on
 //! every row, as in the hydrograph table ([`super::export`]).
 
@@ -26,6 +27,11 @@ fn header(ctx: &TableContext<'_>) -> Vec<String> {
         "back_below",
         "duration_above_s",
         &format!("margin_{u}"),
+        "probability",
+        "members",
+        "members_reaching",
+        "earliest_first_above",
+        "median_first_above",
         "caution",
     ]
     .iter()
@@ -55,6 +61,15 @@ fn row(ctx: &TableContext<'_>, run: &str, p: &PointForecast, l: &LevelOutlook) -
         time(l.back_below),
         format!("{:.0}", l.duration_above_s),
         format!("{:.4}", l.margin),
+        l.chance
+            .map(|c| format!("{:.4}", c.probability))
+            .unwrap_or_default(),
+        l.chance.map(|c| c.members.to_string()).unwrap_or_default(),
+        l.chance
+            .map(|c| c.members_reaching.to_string())
+            .unwrap_or_default(),
+        time(l.chance.and_then(|c| c.earliest_first_above)),
+        time(l.chance.and_then(|c| c.median_first_above)),
         ctx.caution.clone(),
     ]
 }

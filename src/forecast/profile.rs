@@ -215,7 +215,8 @@ pub fn profile(
     units: Units,
     now: DateTime<Utc>,
 ) -> Profile {
-    let mut views = view::points(spec, results, &|_| Vec::new(), now);
+    // The profile draws the deterministic run only (no ensemble band yet).
+    let mut views = view::points(spec, results, None, &|_| Vec::new(), now);
     if units == Units::Us {
         views.iter_mut().for_each(PointView::to_us);
     }

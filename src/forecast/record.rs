@@ -12,6 +12,7 @@ use serde::{Deserialize, Deserializer, Serialize};
 
 use super::{
     assemble,
+    ensemble::{EnsembleSpec, summary::EnsembleSummary},
     profile::StoredProfile,
     run::{PointForecast, RunOutput},
     spec::{Method, RoutingSpec},
@@ -138,6 +139,64 @@ pub struct RunProvenance {
     pub wall_time_s: Option<f64>,
     /// `None` until routed.
     pub diagnostics: Option<RunDiagnostics>,
+    /// The ensemble's settings and seed; `None` when it is off (and in
+    /// runs made before ensembles).
+    pub ensemble: Option<EnsembleProvenance>,
+}
+
+/// How a run's ensemble was made.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct EnsembleProvenance {
+    /// The reach's `ensemble` section in force, with `members` as routed.
+    pub settings: EnsembleSpec,
+    /// The members the reach asked for (more than `settings.members` when
+    /// the service's `forecast.max_ensemble_members` limited them).
+    pub requested_members: usize,
+    /// The spreads are the built-in defaults, not verified error
+    /// statistics of this reach.
+    pub spreads_are_defaults: bool,
+    /// The perturbations' seed (the run id).
+    pub seed: u64,
+}
+
+impl EnsembleProvenance {
+    /// The provenance of an ensemble with `settings`, at most
+    /// `max_members` members, seeded by `seed`; `None` when it is off.
+    pub fn of(settings: &EnsembleSpec, max_members: usize, seed: u64) -> Option<Self> {
+        let members = settings.members.min(max_members);
+        (members > 0).then(|| Self {
+            settings: EnsembleSpec {
+                members,
+                ..settings.clone()
+            },
+            requested_members: settings.members,
+            spreads_are_defaults: settings.spreads_are_defaults(),
+            seed,
+        })
+    }
+}
+
+/// A run's ensemble, attached after its deterministic results.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "status", rename_all = "snake_case")]
+pub enum EnsembleRecord {
+    /// Routed and summarised.
+    Ready {
+        summary: EnsembleSummary,
+        wall_time_s: f64,
+    },
+    /// Could not be made; the deterministic results stand alone.
+    Failed { error: String, wall_time_s: f64 },
+}
+
+impl EnsembleRecord {
+    /// The summary, when the ensemble is ready.
+    pub fn summary(&self) -> Option<&EnsembleSummary> {
+        match self {
+            EnsembleRecord::Ready { summary, .. } => Some(summary),
+            EnsembleRecord::Failed { .. } => None,
+        }
+    }
 }
 
 impl RunProvenance {
@@ -215,6 +274,8 @@ pub struct RunRecord {
     pub provenance: RunProvenance,
     /// `Some` for an `ok` run read with its results.
     pub results: Option<StoredResults>,
+    /// `Some` once the run's ensemble is attached (read with the results).
+    pub ensemble: Option<EnsembleRecord>,
 }
 
 #[cfg(test)]

@@ -184,6 +184,7 @@ pub fn results_csv(out: &RunOutput) -> Result<String, csv::Error> {
         run: None,
         units: Units::Si,
         caution: CAUTION.to_owned(),
+        percentiles: Vec::new(),
     };
     table(&ctx, out.points.iter().map(Rows::from))
 }

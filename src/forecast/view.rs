@@ -7,7 +7,8 @@ use chrono::{DateTime, Utc};
 use serde::Serialize;
 
 use super::{
-    level::Trace,
+    ensemble::summary::{CrestRange, EnsembleSummary, PercentileTrace},
+    level::{LevelOutlook, Trace},
     record::StoredResults,
     run::PointForecast,
     spec::{ReachSpec, Units},
@@ -64,6 +65,22 @@ pub struct PointView {
     pub highest_exceeded: Option<String>,
     /// Its id.
     pub highest_exceeded_id: Option<String>,
+    /// The run's ensemble at this point; `null` until it is attached, or
+    /// when the reach has none. Each level's `chance` comes from it too.
+    pub ensemble: Option<PointEnsembleView>,
+}
+
+/// What an ensemble says at a point, beside the deterministic forecast.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct PointEnsembleView {
+    /// Members summarised.
+    pub members: usize,
+    /// Members whose routing failed, left out.
+    pub failed_members: usize,
+    /// Percentile stage traces, on the point's `times`.
+    pub stage: Vec<PercentileTrace>,
+    /// The members' crests from the run's issue time on.
+    pub crest: CrestRange,
 }
 
 #[derive(Debug, Clone, Serialize, PartialEq)]
@@ -126,9 +143,15 @@ pub fn freshness(f: &FreshnessInput) -> Freshness {
     }
 }
 
-/// The view of one point of a stored run from `now` on. A point whose
-/// trace has no finite crest ahead keeps the run's own crest.
-pub fn point(p: &PointForecast, observed: Vec<ObservedStage>, now: DateTime<Utc>) -> PointView {
+/// The view of one point of a stored run from `now` on, with its
+/// ensemble when there is one. A point whose trace has no finite crest
+/// ahead keeps the run's own crest.
+pub fn point(
+    p: &PointForecast,
+    observed: Vec<ObservedStage>,
+    now: DateTime<Utc>,
+    ensemble: Option<&EnsembleSummary>,
+) -> PointView {
     let ahead = Trace::new(&p.times, &p.stage).ahead(now);
     let mut forecast = p.clone();
     if let Some(c) = ahead.crest() {
@@ -137,7 +160,14 @@ pub fn point(p: &PointForecast, observed: Vec<ObservedStage>, now: DateTime<Utc>
     }
     forecast.low_chord_margin = p.low_chord.map(|lc| lc - forecast.crest_stage);
     forecast.deck_margin = p.deck.map(|d| d - forecast.crest_stage);
-    forecast.levels = p.levels.iter().map(|t| t.seen_on(&ahead)).collect();
+    forecast.levels = p
+        .levels
+        .iter()
+        .map(|t| LevelOutlook {
+            chance: ensemble.and_then(|e| e.chance(&p.id, &t.id)),
+            ..t.seen_on(&ahead)
+        })
+        .collect();
     let highest = forecast
         .levels
         .iter()
@@ -148,15 +178,25 @@ pub fn point(p: &PointForecast, observed: Vec<ObservedStage>, now: DateTime<Utc>
         observed,
         highest_exceeded: highest.map(|t| t.name.clone()),
         highest_exceeded_id: highest.map(|t| t.id.clone()),
+        ensemble: ensemble.and_then(|e| {
+            let r = e.point(&p.id)?;
+            Some(PointEnsembleView {
+                members: e.members,
+                failed_members: e.failed_members,
+                stage: r.stage.clone(),
+                crest: r.crest.clone(),
+            })
+        }),
         forecast,
     }
 }
 
-/// The view of every point of a stored run; `observed` gives the readings
-/// of a point's gauge.
+/// The view of every point of a stored run and its ensemble; `observed`
+/// gives the readings of a point's gauge.
 pub fn points(
     spec: &ReachSpec,
     results: &StoredResults,
+    ensemble: Option<&EnsembleSummary>,
     observed: &dyn Fn(&str) -> Vec<ObservedStage>,
     now: DateTime<Utc>,
 ) -> Vec<PointView> {
@@ -169,7 +209,7 @@ pub fn points(
                 .iter()
                 .find(|s| s.point_id() == p.id)
                 .and_then(|s| s.gauge.as_deref());
-            point(p, gauge.map(observed).unwrap_or_default(), now)
+            point(p, gauge.map(observed).unwrap_or_default(), now, ensemble)
         })
         .collect()
 }
@@ -206,6 +246,14 @@ impl PointView {
         for t in &mut f.levels {
             t.elevation *= FT_PER_M;
             t.margin *= FT_PER_M;
+        }
+        if let Some(e) = &mut self.ensemble {
+            e.stage
+                .iter_mut()
+                .for_each(|b| b.stage.iter_mut().for_each(l));
+            l(&mut e.crest.min);
+            l(&mut e.crest.max);
+            e.crest.percentiles.iter_mut().for_each(|q| l(&mut q.stage));
         }
     }
 }

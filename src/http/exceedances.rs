@@ -103,6 +103,20 @@ struct Item<'a> {
     #[serde(with = "crate::wire_time")]
     run_finished: DateTime<Utc>,
     stale: bool,
+    /// Share of ensemble members reaching the level (0–1), seen from the
+    /// run's issue time; `null` without an ensemble.
+    probability: Option<f64>,
+    /// Members that share is of.
+    members: Option<usize>,
+    members_reaching: Option<usize>,
+    #[serde(with = "crate::wire_time::option")]
+    earliest_first_above: Option<DateTime<Utc>>,
+    #[serde(with = "crate::wire_time::option")]
+    median_first_above: Option<DateTime<Utc>>,
+    /// Active only because enough members reach the level.
+    members_only: bool,
+    /// CAP certainty of the situation (`Likely`, `Possible`).
+    certainty: &'static str,
 }
 
 impl<'a> Item<'a> {
@@ -132,6 +146,13 @@ impl<'a> Item<'a> {
             run_id: s.run_id,
             run_finished: s.run_finished,
             stale: s.stale,
+            probability: s.chance.map(|c| c.probability),
+            members: s.chance.map(|c| c.members),
+            members_reaching: s.chance.map(|c| c.members_reaching),
+            earliest_first_above: s.chance.and_then(|c| c.earliest_first_above),
+            median_first_above: s.chance.and_then(|c| c.median_first_above),
+            members_only: s.members_only(),
+            certainty: s.certainty().cap_value(),
         }
     }
 }
@@ -157,6 +178,13 @@ impl Item<'_> {
         }
         m.run_id = 0;
         m.run_finished = DateTime::<Utc>::UNIX_EPOCH;
+        // Each run draws its own members (seeded by its id), so the
+        // ensemble figures wobble without news: the meaning keeps the
+        // probability to the nearest 5 % and drops the member timings.
+        m.probability = m.probability.map(|p| (p * 20.0).round() / 20.0);
+        m.members_reaching = None;
+        m.earliest_first_above = None;
+        m.median_first_above = None;
         m
     }
 }

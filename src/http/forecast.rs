@@ -181,12 +181,25 @@ async fn build_doc(
 /// A weak validator: the representation changes with every request (ages,
 /// `now`) but means the same until the run, the stale verdict or the
 /// newest reading changes (RFC 9110 §8.8.1).
-pub(super) fn forecast_etag(run_id: i64, fresh: &Freshness, units: Units, repr: &str) -> String {
+pub(super) fn forecast_etag(
+    run: &RunRecord,
+    fresh: &Freshness,
+    units: Units,
+    repr: &str,
+) -> String {
+    // The ensemble is attached to a run after its deterministic results:
+    // the same run id then says more.
+    let run_id = run.id;
+    let ens = match &run.ensemble {
+        None => "",
+        Some(r) if r.summary().is_some() => "e",
+        Some(_) => "x",
+    };
     // The stale reasons quote ages in whole minutes, so they are part of
     // the validator: a page polling with If-None-Match sees them change.
     let reasons = fnv(fresh.reasons.join("|").as_bytes());
     format!(
-        "W/\"run{run_id}-{}-{}-{}-{}-{reasons:x}\"",
+        "W/\"run{run_id}{ens}-{}-{}-{}-{}-{reasons:x}\"",
         if units == Units::Us { "us" } else { "si" },
         repr,
         u8::from(fresh.stale),
@@ -249,7 +262,7 @@ async fn forecast(
         Some(Table::Hydrographs) => "csv",
         Some(Table::Levels) => "levels-csv",
     };
-    let etag = forecast_etag(r.loaded.run.id, &r.fresh, r.units, repr);
+    let etag = forecast_etag(&r.loaded.run, &r.fresh, r.units, repr);
     if not_modified(&headers, &etag) {
         let mut r = with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag);
         vary_accept(r.headers_mut());

@@ -67,7 +67,7 @@ async fn get_profile(
     let now = Utc::now();
     let fresh = freshness_of(&state, &loaded, now).await?;
     let units = params.units.unwrap_or(loaded.reach.spec.service.units);
-    let etag = forecast_etag(loaded.run.id, &fresh, units, "profile");
+    let etag = forecast_etag(&loaded.run, &fresh, units, "profile");
     if not_modified(&headers, &etag) {
         return Ok(with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag));
     }

@@ -338,6 +338,7 @@ mod tests {
                     stale: false,
                     severity: Severity::Minor,
                     elevation: 11.0,
+                    certainty: crate::forecast::cap::Certainty::Likely,
                 }),
             },
             expires: t(expires),
@@ -464,6 +465,8 @@ mod tests {
             run_finished: t(7),
             stale: false,
             location: None,
+            chance: None,
+            alert_floor: None,
         };
         let planned = cap::plan(&p, std::slice::from_ref(&s), t(7), &ISSUER).expect("plan");
         assert_eq!(planned.len(), 1);

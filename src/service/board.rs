@@ -11,7 +11,8 @@ use super::Forecaster;
 use crate::{
     forecast::{
         cap::{RunContext, Situation},
-        record::{RunProvenance, RunRecord, StoredResults},
+        ensemble::summary::EnsembleSummary,
+        record::{EnsembleRecord, RunProvenance, RunRecord, StoredResults},
     },
     store::ReachVersion,
 };
@@ -40,6 +41,8 @@ pub struct GoodRun<'a> {
     pub finished: DateTime<Utc>,
     pub provenance: &'a RunProvenance,
     pub results: &'a StoredResults,
+    /// The run's ensemble, once attached.
+    pub ensemble: Option<&'a EnsembleSummary>,
 }
 
 impl<'a> GoodRun<'a> {
@@ -50,6 +53,7 @@ impl<'a> GoodRun<'a> {
             finished: run.finished_at.unwrap_or_else(Utc::now),
             provenance: &run.provenance,
             results: run.results.as_ref()?,
+            ensemble: run.ensemble.as_ref().and_then(EnsembleRecord::summary),
         })
     }
 }
@@ -65,13 +69,23 @@ pub fn situations_of(reach: &ReachVersion, run: GoodRun<'_>) -> Vec<Situation> {
         run_finished: finished,
         stale: run.provenance.inflow_stale(),
     };
+    let floor = run
+        .provenance
+        .ensemble
+        .as_ref()
+        .map(|e| e.settings.alert_probability_floor);
     results
         .points
         .iter()
         .flat_map(|p| {
             p.levels
                 .iter()
-                .filter_map(|t| Situation::from_forecast(&ctx, p, t, finished).ok())
+                .filter_map(|t| {
+                    let mut s = Situation::from_forecast(&ctx, p, t, finished).ok()?;
+                    s.chance = run.ensemble.and_then(|e| e.chance(&p.id, &t.id));
+                    s.alert_floor = s.chance.and(floor);
+                    Some(s)
+                })
                 .collect::<Vec<_>>()
         })
         .collect()

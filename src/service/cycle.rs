@@ -9,12 +9,19 @@ use std::time::Instant;
 
 use chrono::{DateTime, Utc};
 
-use super::{CycleError, Forecaster, RunSummary, board::GoodRun};
+use super::{
+    CycleError, Forecaster, RunSummary,
+    board::GoodRun,
+    ensemble::{self, EnsembleJob},
+};
 use crate::{
     forecast::{
         assemble::{self, Extrapolation, GaugeBasis, Reading, Rules},
-        record::{RuleSettings, RunDiagnostics, RunProvenance, RunStatus, StoredResults},
-        run,
+        record::{
+            EnsembleProvenance, EnsembleRecord, RuleSettings, RunDiagnostics, RunProvenance,
+            RunStatus, StoredResults,
+        },
+        run::{self, Adjust},
         spec::ReachSpec,
     },
     gauge::Measures,
@@ -87,6 +94,7 @@ impl Forecaster {
         });
         let mut provenance = self.provenance(&reach);
         let upload_id = upload.as_ref().map(|u| u.id);
+        let gauge_rated = matches!(&observed, Ok((_, GaugeBasis::Stage(_))));
         let assembled = observed.and_then(|(readings, basis)| {
             assemble::assemble(now, &readings, &basis, upload_input.as_ref(), &rules)
                 .map_err(|e| format!("inflow: {e}"))
@@ -100,16 +108,24 @@ impl Forecaster {
                 return self.failed(reach_id, run_id, e, &provenance, 0.0).await;
             }
         };
+        let rated = ensemble::rated_part(gauge_rated, &assembled.provenance);
         provenance.inflow = Some(assembled.provenance);
         let run_id = store
             .start_run(reach_id, reach.version, upload_id, &provenance)
             .await?;
         tracing::Span::current().record("run_id", run_id);
-        let spec = reach.spec.clone();
-        let series = assembled.series;
+        provenance.ensemble = EnsembleProvenance::of(
+            &reach.spec.ensemble,
+            self.inner.config.max_ensemble_members,
+            run_id.unsigned_abs(),
+        );
+        let (this, job_reach, series) = (self.clone(), reach.clone(), assembled.series.clone());
         let joined = tokio::task::spawn_blocking(move || {
             let started = Instant::now();
-            let out = run::run(&spec, &series, None);
+            let out = this.prepared(&job_reach).and_then(|prepared| {
+                run::run_prepared(&job_reach.spec, &prepared, &series, None, Adjust::NONE)
+                    .map(|o| (o, prepared))
+            });
             (out, started.elapsed().as_secs_f64())
         })
         .await;
@@ -119,17 +135,29 @@ impl Forecaster {
         };
         provenance.wall_time_s = Some(wall);
         match outcome {
-            Ok(mut out) => {
+            Ok((mut out, prepared)) => {
                 out.diagnostics.wall_time_s = Some(wall);
                 provenance.diagnostics = Some(RunDiagnostics::of(&out));
                 let results = StoredResults::of(out, now);
-                self.succeeded(&reach, run_id, &results, &provenance, wall)
+                let job = provenance.ensemble.clone().map(|ens| EnsembleJob {
+                    reach: reach.clone(),
+                    prepared,
+                    inflow: assembled.series,
+                    issued: now,
+                    rated,
+                    provenance: ens,
+                    det: results.points.clone(),
+                });
+                self.succeeded(&reach, run_id, &results, &provenance, wall, job)
                     .await
             }
             Err(e) => self.failed(reach_id, run_id, e, &provenance, wall).await,
         }
     }
 
+    /// Stores and serves the deterministic results at once, then the
+    /// ensemble (if on) when it is done, then issues the CAP messages due,
+    /// planned on the probabilities when there are any.
     async fn succeeded(
         &self,
         reach: &ReachVersion,
@@ -137,6 +165,7 @@ impl Forecaster {
         results: &StoredResults,
         provenance: &RunProvenance,
         wall: f64,
+        job: Option<EnsembleJob>,
     ) -> Result<RunSummary, CycleError> {
         let store = &self.inner.store;
         let finished = store.finish_run(run_id, Ok(results), provenance).await?;
@@ -147,8 +176,35 @@ impl Forecaster {
             finished,
             provenance,
             results,
+            ensemble: None,
         };
-        let situations = self.refresh_board(reach, good);
+        let mut situations = self.refresh_board(reach, good);
+        let attached = match job {
+            Some(job) => self.ensemble(run_id, job).await,
+            None => None,
+        };
+        match &attached {
+            Some(EnsembleRecord::Ready {
+                summary,
+                wall_time_s,
+            }) => {
+                tracing::info!(
+                    run_id,
+                    members = summary.members,
+                    wall_ms = wall_time_s * 1e3,
+                    "ensemble attached"
+                );
+                let with = GoodRun {
+                    ensemble: Some(summary),
+                    ..good
+                };
+                situations = self.refresh_board(reach, with);
+            }
+            Some(EnsembleRecord::Failed { error, .. }) => {
+                tracing::warn!(run_id, error = %error, "ensemble failed; the deterministic forecast stands alone");
+            }
+            None => {}
+        }
         let issued = self
             .inner
             .alerts

@@ -25,7 +25,7 @@ use super::{
 };
 use crate::{
     config::ForecastConfig,
-    forecast::{cap::Situation, record::RunStatus},
+    forecast::{cap::Situation, record::RunStatus, run::Prepared},
     store::{Store, StoreError},
 };
 
@@ -56,6 +56,8 @@ pub(super) struct Inner {
     shutdown: watch::Receiver<bool>,
     /// What the service counts (served at `/metrics`).
     pub(super) metrics: Arc<crate::metrics::Metrics>,
+    /// The prepared tables of each reach's newest version.
+    pub(super) prepared: StdMutex<HashMap<String, (i64, Arc<Prepared>)>>,
 }
 
 /// Handle to the forecast cycle. Cheap to clone.
@@ -92,6 +94,7 @@ impl Forecaster {
                 board_version,
                 shutdown,
                 metrics: Arc::default(),
+                prepared: StdMutex::new(HashMap::new()),
             }),
         }
     }

@@ -7,6 +7,7 @@
 pub mod alerts;
 pub mod board;
 mod cycle;
+mod ensemble;
 pub mod forecaster;
 pub mod preview;
 

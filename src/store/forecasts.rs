@@ -7,7 +7,7 @@ use sqlx::Row;
 use super::{Audit, Store, StoreError, audit, time};
 use crate::forecast::{
     hydrograph::Hydrograph,
-    record::{RunProvenance, RunRecord, RunStatus, StoredResults},
+    record::{EnsembleRecord, RunProvenance, RunRecord, RunStatus, StoredResults},
     spec::ReachSpec,
 };
 
@@ -65,7 +65,7 @@ fn encode<T: serde::Serialize>(what: &str, value: &T) -> Result<String, StoreErr
 }
 
 const RUN_COLUMNS: &str = "id, reach_id, reach_version, inflow_forecast_id, started_at, \
-finished_at, status, error, provenance, results";
+finished_at, status, error, provenance, results, ensemble";
 
 fn run_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<RunRecord, StoreError> {
     let provenance: String = row.try_get("provenance")?;
@@ -96,6 +96,11 @@ fn run_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<RunRecord, StoreError> 
             })
             .transpose()
             .map_err(|e| corrupt("forecast_runs.results", e))?,
+        ensemble: row
+            .try_get::<Option<String>, _>("ensemble")?
+            .map(|e| serde_json::from_str(&e))
+            .transpose()
+            .map_err(|e| corrupt("forecast_runs.ensemble", e))?,
     })
 }
 
@@ -364,6 +369,27 @@ impl Store {
         Ok(finished)
     }
 
+    /// Attaches the ensemble of a successful run (its deterministic
+    /// results are already stored and served). `false` when there is no
+    /// such run with results, which is no error: the ensemble is dropped.
+    pub async fn attach_ensemble(
+        &self,
+        run_id: i64,
+        ensemble: &EnsembleRecord,
+    ) -> Result<bool, StoreError> {
+        let json = encode("run ensemble", ensemble)?;
+        let (_guard, mut tx) = self.begin_write().await?;
+        let done =
+            sqlx::query("UPDATE forecast_runs SET ensemble = ?2 WHERE id = ?1 AND status = 'ok'")
+                .bind(run_id)
+                .bind(json)
+                .execute(&mut *tx)
+                .await?
+                .rows_affected();
+        tx.commit().await?;
+        Ok(done == 1)
+    }
+
     /// A run by id.
     pub async fn run(&self, id: i64) -> Result<Option<RunRecord>, StoreError> {
         let sql = format!("SELECT {RUN_COLUMNS} FROM forecast_runs WHERE id = ?1");
@@ -414,7 +440,7 @@ impl Store {
     pub async fn runs(&self, reach_id: &str, limit: i64) -> Result<Vec<RunRecord>, StoreError> {
         let rows = sqlx::query(
             "SELECT id, reach_id, reach_version, inflow_forecast_id, started_at, finished_at,
-                    status, error, provenance, NULL AS results
+                    status, error, provenance, NULL AS results, NULL AS ensemble
              FROM forecast_runs WHERE reach_id = ?1 ORDER BY id DESC LIMIT ?2",
         )
         .bind(reach_id)

@@ -104,6 +104,8 @@ fn bridge() -> Situation {
             lon: -1.5,
             radius_km: 0.5,
         }),
+        chance: None,
+        alert_floor: None,
     }
 }
 

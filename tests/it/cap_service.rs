@@ -205,11 +205,22 @@ impl Service {
                 )
             })
             .collect();
-        // Certainty drops to Possible exactly when the forecast is stale.
+        // Certainty (CAP §3.2.2: Likely "p > ~50%", Possible "p <= ~50%",
+        // from memory): Possible whenever the forecast is stale; else from
+        // the ensemble's probability when the message carries one, else
+        // Likely.
+        let probability = params
+            .get("reachcast:probability")
+            .map(|p| p.parse::<f64>().expect("probability"));
         if params.get("reachcast:forecast_stale").map(String::as_str) == Some("true") {
             assert_eq!(certainty, "Possible");
         } else if msg_type != "Cancel" {
-            assert_eq!(certainty, "Likely");
+            let likely = probability.is_none_or(|p| p > 0.5);
+            assert_eq!(
+                certainty,
+                if likely { "Likely" } else { "Possible" },
+                "{params:?}"
+            );
         }
         // CAP §3.2.4: area with areaDesc.
         assert!(
@@ -225,6 +236,10 @@ impl Service {
             references,
             level: params["reachcast:level_id"].clone(),
             severity,
+            certainty,
+            headline: info.text_of("headline").to_owned(),
+            description: info.text_of("description").to_owned(),
+            params,
         }
     }
 }
@@ -240,6 +255,11 @@ struct Message {
     /// The level id the message is about (`reachcast:level_id`).
     level: String,
     severity: String,
+    certainty: String,
+    headline: String,
+    description: String,
+    /// CAP `parameter`s by valueName.
+    params: HashMap<String, String>,
 }
 
 impl Message {
@@ -653,4 +673,99 @@ async fn every_issued_message_is_in_the_audit_log() {
         messages.len()
     );
     s.app.stop().await;
+}
+
+/// Probabilities through the service (issue: "How sure"): a reach with an
+/// ensemble whose only spread is the peak factor (uniform 0.5–1.5) and
+/// thresholds laid over the members' crests. Every board item's certainty
+/// follows its probability; a level the central run misses but enough
+/// members reach opens a chain marked `Possible` that says so; a level
+/// the central run reaches with most members stays `Likely`.
+#[tokio::test]
+async fn certainty_follows_the_ensemble_probability() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start_with(dir.path(), |c| c.forecast.max_ensemble_members = 12).await;
+    let admin = s.app.key(Role::Admin, &[]).await;
+    let mut doc = reach_json();
+    doc["ensemble"] = json!({"members": 12, "peak_scale": [0.5, 1.5], "timing_shift_hours": 0,
+        "manning_factor": [1, 1], "rating_factor": [1, 1]});
+    body_of(s.app.put_reach(&admin, REACH, &doc).await, 200).await;
+    s.upload(5.0, 50.0).await;
+    s.run().await;
+    let (_, f) = s
+        .app
+        .get_json(&format!("/api/reaches/{REACH}/forecast"))
+        .await;
+    assert_eq!(f["run"]["ensemble"]["status"], "ready", "{}", f["run"]);
+    assert_eq!(f["run"]["ensemble"]["members_used"], 12);
+    assert_eq!(f["run"]["ensemble"]["spreads_are_defaults"], false);
+    let p = &f["points"][0];
+    let det_crest = p["crest_stage"].as_f64().expect("crest");
+    let crest = &p["ensemble"]["crest"];
+    let (lo, hi) = (
+        crest["min"].as_f64().expect("min"),
+        crest["max"].as_f64().expect("max"),
+    );
+    assert!(
+        lo < det_crest && det_crest < hi,
+        "{lo} < {det_crest} < {hi}"
+    );
+
+    // Thresholds every tenth of the way from the lowest member crest to
+    // the highest: those above the central crest are reached by members
+    // only, the lowest by nearly all.
+    let grid: Vec<Value> = (1..10)
+        .map(|k| {
+            let z = lo + (hi - lo) * f64::from(k) / 10.0;
+            json!({"id": format!("g{k}"), "name": format!("Grid {k}"), "elevation": z})
+        })
+        .collect();
+    doc["points"][0]["thresholds"] = Value::Array(grid);
+    body_of(s.app.put_reach(&admin, REACH, &doc).await, 200).await;
+    s.run().await;
+
+    let (_, board) = s
+        .app
+        .get_json(&format!("/api/exceedances?reach={REACH}"))
+        .await;
+    let items = board["items"].as_array().expect("items");
+    let mut last = 1.0;
+    let (mut likely, mut members_only) = (None, None);
+    for it in items.iter().filter(|i| i["level_kind"] == "threshold") {
+        let prob = it["probability"]
+            .as_f64()
+            .expect("probability on every item");
+        assert_eq!(it["members"], 12);
+        assert!(
+            prob <= last,
+            "probability never rises with elevation: {items:#?}"
+        );
+        last = prob;
+        let want = if prob > 0.5 { "Likely" } else { "Possible" };
+        assert_eq!(it["certainty"], want, "{it}");
+        if it["exceeded"] == true && prob > 0.5 {
+            likely = Some(it["level_id"].as_str().expect("id").to_owned());
+        }
+        if it["members_only"] == true {
+            assert!(prob >= 0.1 && it["exceeded"] == false, "{it}");
+            members_only = Some(it["level_id"].as_str().expect("id").to_owned());
+        }
+    }
+    let likely = likely.expect("a level the central run reaches with most members");
+    let members_only = members_only.expect("a level only members reach");
+
+    let (_, _, messages) = s.feed("/api/cap/feed.atom").await;
+    let current = by_threshold(&messages);
+    let m = &current[&members_only];
+    assert_eq!(m.certainty, "Possible");
+    assert_eq!(m.params["reachcast:members_only"], "true");
+    assert_eq!(m.params["reachcast:ensemble_members"], "12");
+    assert!(m.headline.contains("of 12 scenarios"), "{}", m.headline);
+    assert!(
+        m.description.contains("central forecast stays below"),
+        "{}",
+        m.description
+    );
+    assert_eq!(current[&likely].certainty, "Likely");
+    assert_eq!(current[&likely].params["reachcast:members_only"], "false");
 }

@@ -445,8 +445,12 @@ async fn us_units_and_csv() {
         .expect("text");
     // One header vocabulary with `route --out`; the caution is a column
     // (RFC 4180: a rectangular table, CRLF line ends).
+    // The ensemble (on by default) adds a column per percentile.
     assert!(
-        csv.starts_with("reach,run,point,chainage_m,time,stage_m,discharge_m3_per_s,caution\r\n"),
+        csv.starts_with(
+            "reach,run,point,chainage_m,time,stage_m,discharge_m3_per_s,\
+             stage_p10_m,stage_p50_m,stage_p90_m,caution\r\n"
+        ),
         "{}",
         &csv[..200.min(csv.len())]
     );
@@ -455,8 +459,13 @@ async fn us_units_and_csv() {
     assert!(!rows.is_empty());
     assert!(
         rows.iter()
-            .all(|r| r.len() == 8 && r[7].starts_with("Advisory model output"))
+            .all(|r| r.len() == 11 && r[10].starts_with("Advisory model output"))
     );
+    // Percentiles are ordered (any quantile definition is monotone in p).
+    for r in &rows {
+        let p: Vec<f64> = (7..10).map(|k| r[k].parse().expect("percentile")).collect();
+        assert!(p[0] <= p[1] && p[1] <= p[2], "{r:?}");
+    }
     let (status, bad) = s
         .app
         .get_json(&format!("/api/reaches/{REACH}/forecast?units=imperial"))

@@ -6,8 +6,9 @@ use serde::{Deserialize, Serialize};
 use super::lexical::{cap_time, check_uri, is_cap_token, truncate_seconds};
 use super::xml::XmlDoc;
 use super::{
-    CAP_NAMESPACE, CapError, Circle, MsgType, Planned, Reference, Subject, categories, certainty,
-    description, event, headline, instruction, parameters, response_type, severity, urgency,
+    CAP_NAMESPACE, CapError, Circle, MsgType, Planned, Reference, Situation, Subject, categories,
+    certainty, description, event, headline, instruction, parameters, response_type, severity,
+    urgency,
 };
 
 /// How long a message stays valid after it is sent, unless the forecast
@@ -168,7 +169,7 @@ fn write_info(x: &mut XmlDoc, msg: &Planned, opts: &CapOptions) -> Result<(), Ca
     x.text("severity", severity(msg))?;
     x.text("certainty", certainty(msg))?;
     if msg.msg_type != MsgType::Cancel
-        && let Some(t) = msg.situation().and_then(|s| s.first_above)
+        && let Some(t) = msg.situation().and_then(Situation::onset)
     {
         x.text("onset", &cap_time(t))?;
     }

@@ -51,6 +51,8 @@ pub fn situation() -> Situation {
         run_finished: t(5, 50),
         stale: false,
         location: None,
+        chance: None,
+        alert_floor: None,
     }
 }
 

@@ -62,7 +62,7 @@ pub use plan::{
     CREST_CHANGE_M, ELEVATION_CHANGE_M, Issued, Issuer, Material, MsgType, ONSET_SHIFT, Planned,
     Reference, Subject, plan,
 };
-pub use situation::{Circle, Key, RunContext, Situation};
+pub use situation::{Certainty, Circle, Key, RunContext, Situation};
 pub use tag::is_tag_authority;
 pub use wording::{
     EXPECTED_WITHIN, categories, certainty, description, event, headline, instruction, parameters,

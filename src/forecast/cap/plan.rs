@@ -10,7 +10,7 @@ use chrono::{DateTime, Duration, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::lexical::{cap_time, is_cap_token, truncate_seconds};
-use super::{CapError, Key, Situation};
+use super::{CapError, Key, Situation, situation::Certainty};
 use crate::forecast::spec::Severity;
 
 /// A forecast onset that moves by at least this much is a material change:
@@ -55,12 +55,16 @@ pub struct Material {
     pub stale: bool,
     pub severity: Severity,
     pub elevation: f64,
+    /// Messages stored before certainty followed the ensemble were
+    /// `Likely` unless stale, which `stale` records on its own.
+    #[serde(default)]
+    pub certainty: Certainty,
 }
 
 impl Material {
     /// Whether `new` differs materially from `self`, as seen at `now`:
     /// onset moved by ≥ [`ONSET_SHIFT`], crest by ≥ [`CREST_CHANGE_M`],
-    /// staleness or severity changed, or the threshold was re-surveyed by
+    /// staleness, severity or certainty changed, or the threshold was re-surveyed by
     /// ≥ [`ELEVATION_CHANGE_M`]. An onset that was already in the past and
     /// still is does not count: while the water stays above, each new run
     /// starts later and reports its own start as the "first crossing",
@@ -78,6 +82,7 @@ impl Material {
             || (self.crest_stage - new.crest_stage).abs() >= CREST_CHANGE_M - tol
             || self.stale != new.stale
             || self.severity != new.severity
+            || self.certainty != new.certainty
             || (self.elevation - new.elevation).abs() >= ELEVATION_CHANGE_M - tol
     }
 }

@@ -5,6 +5,7 @@ use chrono::{DateTime, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::{CapError, Material};
+use crate::forecast::ensemble::summary::Chance;
 use crate::forecast::level::{LevelOutlook, Trace};
 use crate::forecast::levels::LevelKind;
 use crate::forecast::run::PointForecast;
@@ -116,6 +117,34 @@ pub struct Situation {
     /// Optional WGS 84 circle for the CAP `area`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub location: Option<Circle>,
+    /// The ensemble's chance of the level; `None` without an ensemble.
+    #[serde(default)]
+    pub chance: Option<Chance>,
+    /// A level the deterministic run does not reach opens a chain once its
+    /// probability reaches this (the reach's
+    /// `ensemble.alert_probability_floor`); `None` without an ensemble.
+    #[serde(default)]
+    pub alert_floor: Option<f64>,
+}
+
+/// CAP §3.2.2 `certainty` of a forecast situation: `Likely` is
+/// "p > ~50 %", `Possible` is "p <= ~50 %" (CAP 1.2 definitions, from
+/// memory).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+pub enum Certainty {
+    #[default]
+    Likely,
+    Possible,
+}
+
+impl Certainty {
+    /// The CAP spelling.
+    pub fn cap_value(self) -> &'static str {
+        match self {
+            Certainty::Likely => "Likely",
+            Certainty::Possible => "Possible",
+        }
+    }
 }
 
 /// Run-level facts shared by every [`Situation`] built from one run.
@@ -139,9 +168,39 @@ impl Situation {
     }
 
     /// A message chain is open for this situation: the stage is above the
-    /// threshold now or is forecast to be later.
+    /// threshold now or is forecast to be later, or enough ensemble members
+    /// reach it ([`Situation::alert_floor`]).
     pub fn is_active(&self) -> bool {
-        self.exceeded || self.above_now
+        self.exceeded || self.above_now || self.members_only()
+    }
+
+    /// Active only because of the ensemble: the deterministic run does not
+    /// reach the level, but at least the floor's share of members does.
+    pub fn members_only(&self) -> bool {
+        !(self.exceeded || self.above_now)
+            && matches!((self.chance, self.alert_floor), (Some(c), Some(f)) if c.members_reaching > 0 && c.probability >= f)
+    }
+
+    /// When the water is expected at the level: the deterministic first
+    /// crossing, or for a members-only situation the earliest member's.
+    pub fn onset(&self) -> Option<DateTime<Utc>> {
+        match self.chance {
+            _ if self.first_above.is_some() => self.first_above,
+            Some(c) if self.members_only() => c.earliest_first_above,
+            _ => None,
+        }
+    }
+
+    /// CAP certainty: from the ensemble's probability when there is one
+    /// (`Likely` above one half), else `Likely` for a deterministic
+    /// exceedance; `Possible` whenever the forecast is stale.
+    pub fn certainty(&self) -> Certainty {
+        match self.chance {
+            _ if self.stale => Certainty::Possible,
+            Some(c) if c.probability > 0.5 => Certainty::Likely,
+            Some(_) => Certainty::Possible,
+            None => Certainty::Likely,
+        }
     }
 
     /// The facts whose change warrants an `Update`.
@@ -152,6 +211,7 @@ impl Situation {
             stale: self.stale,
             severity: self.severity,
             elevation: self.elevation,
+            certainty: self.certainty(),
         }
     }
 
@@ -203,6 +263,8 @@ impl Situation {
             run_finished: ctx.run_finished,
             stale: ctx.stale,
             location: None,
+            chance: None,
+            alert_floor: None,
         })
     }
 
@@ -264,6 +326,7 @@ mod tests {
             back_below: None,
             duration_above_s: 0.0,
             margin: 0.0,
+            chance: None,
         };
         (point, th)
     }

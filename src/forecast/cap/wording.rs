@@ -23,7 +23,7 @@ pub fn urgency(msg: &Planned) -> &'static str {
     match (&msg.subject, msg.msg_type) {
         (Subject::Withdrawn { .. }, _) => "Unknown",
         (Subject::Forecast(_), MsgType::Cancel) => "Past",
-        (Subject::Forecast(s), _) => match s.first_above {
+        (Subject::Forecast(s), _) => match s.onset() {
             _ if s.above_now => "Immediate",
             Some(t) if t <= msg.sent => "Immediate",
             Some(t) if t - msg.sent <= EXPECTED_WITHIN => "Expected",
@@ -33,12 +33,11 @@ pub fn urgency(msg: &Planned) -> &'static str {
     }
 }
 
-/// CAP §3.2.2 `certainty` of a message.
+/// CAP §3.2.2 `certainty` of a message ([`Situation::certainty`]).
 pub fn certainty(msg: &Planned) -> &'static str {
     match &msg.subject {
         Subject::Withdrawn { .. } => "Unknown",
-        Subject::Forecast(s) if s.stale => "Possible",
-        Subject::Forecast(_) => "Likely",
+        Subject::Forecast(s) => s.certainty().cap_value(),
     }
 }
 
@@ -140,6 +139,18 @@ pub fn headline(msg: &Planned) -> String {
 /// words a planner uses ("reaches the low chord", "deck under water").
 fn forecast_headline(s: &Situation) -> String {
     let p = &s.point_name;
+    if let (true, Some(c)) = (s.members_only(), s.chance) {
+        let from = c
+            .earliest_first_above
+            .map(|t| format!(", earliest {}", short_time(t)))
+            .unwrap_or_default();
+        return format!(
+            "Advisory: {p}: {} of {} scenarios reach {}{from}",
+            c.members_reaching,
+            c.members,
+            level_words(s)
+        );
+    }
     let from = s.first_above.map(short_time);
     match (s.level_kind, s.above_now, from) {
         (LevelKind::LowChord, true, _) => format!("Advisory: {p}: water at the low chord now"),
@@ -202,6 +213,7 @@ pub fn description(msg: &Planned) -> String {
                 long_time(s.crest_time),
                 s.margin
             );
+            chance_lines(&mut d, s);
             let _ = writeln!(
                 d,
                 "Model run {} finished at {}.",
@@ -219,6 +231,35 @@ pub fn description(msg: &Planned) -> String {
     }
     d.push_str(CAUTION);
     d
+}
+
+/// What the ensemble says about the level, in words and numbers, and why
+/// a message was sent for a level the central forecast does not reach.
+fn chance_lines(d: &mut String, s: &Situation) {
+    let Some(c) = s.chance else { return };
+    let when = match (c.earliest_first_above, c.median_first_above) {
+        (Some(e), Some(m)) => format!(
+            "; earliest first crossing {}, median {}",
+            long_time(e),
+            long_time(m)
+        ),
+        _ => String::new(),
+    };
+    let _ = writeln!(
+        d,
+        "Ensemble: {} of {} scenarios ({:.0} %) reach this level{when}.",
+        c.members_reaching,
+        c.members,
+        c.probability * 100.0
+    );
+    if s.members_only() {
+        let floor = s.alert_floor.unwrap_or(0.0) * 100.0;
+        let _ = writeln!(
+            d,
+            "The central forecast stays below this level. This message is sent because at \
+             least {floor:.0} % of the scenarios reach it."
+        );
+    }
 }
 
 /// What the forecast says about the level: its elevation, since when it
@@ -329,9 +370,25 @@ pub fn parameters(msg: &Planned) -> Vec<(&'static str, String)> {
             p.push(("reachcast:run_id", s.run_id.to_string()));
             p.push(("reachcast:run_finished", cap_time(s.run_finished)));
             p.push(("reachcast:forecast_stale", s.stale.to_string()));
+            chance_parameters(&mut p, s);
         }
     }
     p
+}
+
+/// The ensemble's probability and member count as parameters.
+fn chance_parameters(p: &mut Vec<(&'static str, String)>, s: &Situation) {
+    let Some(c) = s.chance else { return };
+    p.push(("reachcast:probability", format!("{:.3}", c.probability)));
+    p.push(("reachcast:ensemble_members", c.members.to_string()));
+    p.push(("reachcast:members_reaching", c.members_reaching.to_string()));
+    if let Some(t) = c.earliest_first_above {
+        p.push(("reachcast:earliest_first_above", cap_time(t)));
+    }
+    if let Some(t) = c.median_first_above {
+        p.push(("reachcast:median_first_above", cap_time(t)));
+    }
+    p.push(("reachcast:members_only", s.members_only().to_string()));
 }
 
 #[cfg(test)]

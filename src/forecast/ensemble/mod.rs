@@ -24,7 +24,7 @@ use rayon::prelude::*;
 
 use super::{
     hydrograph::Hydrograph,
-    run::{Adjust, Prepared, RunError, RunOutput, run_prepared},
+    run::{Adjust, PointForecast, Prepared, RunError, run_prepared},
     spec::{Method, ReachSpec},
 };
 use design::{Member, design};
@@ -40,6 +40,9 @@ pub const MAX_FAILED_SHARE: f64 = 0.1;
 #[derive(Debug, Clone, Copy)]
 pub struct EnsembleInput<'a> {
     pub spec: &'a ReachSpec,
+    /// The ensemble settings in force (the reach's, members possibly
+    /// limited by the service).
+    pub settings: &'a EnsembleSpec,
     pub prepared: &'a Prepared,
     /// The deterministic run's inflow.
     pub inflow: &'a Hydrograph,
@@ -52,13 +55,13 @@ pub struct EnsembleInput<'a> {
 }
 
 /// Routes the members of `input` and summarises them around the
-/// deterministic run `det` (routed from the same input). `Ok(None)` when
-/// the reach's ensemble is off (no members).
+/// deterministic run's points `det` (routed from the same input).
+/// `Ok(None)` when the ensemble is off (no members).
 pub fn run_ensemble(
     input: &EnsembleInput<'_>,
-    det: &RunOutput,
+    det: &[PointForecast],
 ) -> Result<Option<EnsembleSummary>, RunError> {
-    let spec = &input.spec.ensemble;
+    let spec = input.settings;
     if spec.members == 0 {
         return Ok(None);
     }
@@ -82,7 +85,7 @@ pub fn run_ensemble(
         seed: input.seed,
         issued: input.issued,
         percentiles: spec.percentiles.clone(),
-        points: summarise(&det.points, &ok, input.issued, &spec.percentiles),
+        points: summarise(det, &ok, input.issued, &spec.percentiles),
     }))
 }
 

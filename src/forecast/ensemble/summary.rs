@@ -91,6 +91,39 @@ pub struct LevelChance {
     pub median_first_above: Option<DateTime<Utc>>,
 }
 
+/// A level's chance as served beside the level: the share of members that
+/// reach it and when, with the member count it is a share of.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Chance {
+    /// `members_reaching / members` (0–1), seen from the run's issue time.
+    pub probability: f64,
+    pub members: usize,
+    pub members_reaching: usize,
+    #[serde(with = "crate::wire_time::option")]
+    pub earliest_first_above: Option<DateTime<Utc>>,
+    #[serde(with = "crate::wire_time::option")]
+    pub median_first_above: Option<DateTime<Utc>>,
+}
+
+impl EnsembleSummary {
+    /// The range at the point with id `point`.
+    pub fn point(&self, point: &str) -> Option<&PointRange> {
+        self.points.iter().find(|p| p.id == point)
+    }
+
+    /// The chance of level `level` at point `point`.
+    pub fn chance(&self, point: &str, level: &str) -> Option<Chance> {
+        let c = self.point(point)?.levels.iter().find(|l| l.id == level)?;
+        Some(Chance {
+            probability: c.probability,
+            members: self.members,
+            members_reaching: c.members_reaching,
+            earliest_first_above: c.earliest_first_above,
+            median_first_above: c.median_first_above,
+        })
+    }
+}
+
 /// One member's stage traces, one per point in the run's point order.
 #[derive(Debug, Clone, PartialEq)]
 pub struct MemberTraces(pub Vec<Vec<f64>>);

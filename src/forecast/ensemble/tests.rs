@@ -82,6 +82,7 @@ fn ensemble(spec: &ReachSpec, inflow: &Hydrograph, seed: u64) -> (RunOutput, Ens
     let det = run::run(spec, inflow, None).expect("deterministic run");
     let input = EnsembleInput {
         spec,
+        settings: &spec.ensemble,
         prepared: &prepared,
         inflow,
         issued: t0() + Duration::hours(1),
@@ -89,7 +90,9 @@ fn ensemble(spec: &ReachSpec, inflow: &Hydrograph, seed: u64) -> (RunOutput, Ens
         seed,
         method: None,
     };
-    let summary = run_ensemble(&input, &det).expect("routes").expect("on");
+    let summary = run_ensemble(&input, &det.points)
+        .expect("routes")
+        .expect("on");
     (det, summary)
 }
 

@@ -42,6 +42,8 @@ pub fn test_config(data_dir: &Path) -> Config {
     // the anonymous limit has a test of its own.
     config.auth.anonymous_rate_limit_per_sec = 100_000.0;
     config.auth.anonymous_rate_limit_burst = 100_000;
+    // A debug build routes each member slowly; the ensemble tests raise it.
+    config.forecast.max_ensemble_members = 4;
     config
 }
 
