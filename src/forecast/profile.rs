@@ -14,6 +14,7 @@ use chrono::{DateTime, Duration, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::{
+    ensemble::summary::{EnsembleSummary, PercentileTrace},
     levels::LevelKind,
     record::StoredResults,
     spec::{PointKind, ReachSpec, Units},
@@ -203,6 +204,10 @@ pub struct Profile {
     pub nodes: Vec<ProfileNode>,
     pub banks: Vec<Banks>,
     pub points: Vec<ProfilePoint>,
+    /// Per ensemble percentile, the members' highest water surface at
+    /// every node from the run's issue time on (empty without an
+    /// ensemble): the band around the envelope.
+    pub highest_percentiles: Vec<PercentileTrace>,
 }
 
 /// The profile at `now` of a stored run with `results` in `units`: its
@@ -212,11 +217,11 @@ pub fn profile(
     stored: &StoredProfile,
     spec: &ReachSpec,
     results: &StoredResults,
+    ensemble: Option<&EnsembleSummary>,
     units: Units,
     now: DateTime<Utc>,
 ) -> Profile {
-    // The profile draws the deterministic run only (no ensemble band yet).
-    let mut views = view::points(spec, results, None, &|_| Vec::new(), now);
+    let mut views = view::points(spec, results, ensemble, &|_| Vec::new(), now);
     if units == Units::Us {
         views.iter_mut().for_each(PointView::to_us);
     }
@@ -236,10 +241,17 @@ pub fn profile(
             }
         })
         .collect();
+    // A band from another node layout (it cannot be, but a stored row
+    // could be edited) is not drawn.
+    let highest_percentiles = ensemble
+        .map(|e| e.node_crest.clone())
+        .filter(|b| b.iter().all(|t| t.stage.len() == stored.chainage.len()))
+        .unwrap_or_default();
     let mut p = Profile {
         nodes,
         banks,
         points: views.iter().map(point).collect(),
+        highest_percentiles,
     };
     if units == Units::Us {
         p.nodes_to_us();
@@ -283,6 +295,9 @@ impl Profile {
             l(&mut n.bed);
             l(&mut n.highest);
             n.stage_now.iter_mut().for_each(l);
+        }
+        for t in &mut self.highest_percentiles {
+            t.stage.iter_mut().for_each(l);
         }
         for b in &mut self.banks {
             l(&mut b.chainage);

@@ -23,7 +23,9 @@ use super::{
     query::Params,
 };
 use crate::forecast::{
+    ensemble::summary::PercentileTrace,
     profile::{Banks, ProfileNode, ProfilePoint, profile},
+    record::EnsembleRecord,
     spec::Units,
     view::{Freshness, UnitNames},
 };
@@ -54,6 +56,9 @@ struct ProfileDoc {
     nodes: Vec<ProfileNode>,
     banks: Vec<Banks>,
     points: Vec<ProfilePoint>,
+    /// Per ensemble percentile, the members' highest water surface at each
+    /// node (empty without an ensemble).
+    highest_percentiles: Vec<PercentileTrace>,
 }
 
 async fn get_profile(
@@ -82,7 +87,19 @@ async fn get_profile(
         )
         .into());
     };
-    let p = profile(&stored, &loaded.reach.spec, loaded.results()?, units, now);
+    let ensemble = loaded
+        .run
+        .ensemble
+        .as_ref()
+        .and_then(EnsembleRecord::summary);
+    let p = profile(
+        &stored,
+        &loaded.reach.spec,
+        loaded.results()?,
+        ensemble,
+        units,
+        now,
+    );
     let body = ProfileDoc {
         caution: crate::CAUTION,
         reach: loaded.reach.reach_id.clone(),
@@ -95,6 +112,7 @@ async fn get_profile(
         nodes: p.nodes,
         banks: p.banks,
         points: p.points,
+        highest_percentiles: p.highest_percentiles,
     };
     Ok(with_etag(Json(&body).into_response(), &etag))
 }

@@ -30,7 +30,7 @@ use super::{
 use design::{Member, design};
 use perturb::{RatedInflow, member_inflow};
 pub use spec::EnsembleSpec;
-use summary::{EnsembleSummary, MemberSource, MemberTraces, summarise};
+use summary::{EnsembleSummary, MemberSource, MemberTraces, node_crest_band, summarise};
 
 /// More than this share of failed members and the ensemble is not served:
 /// the rest would be a biased sample (the failures are the extreme ones).
@@ -86,6 +86,7 @@ pub fn run_ensemble(
         issued: input.issued,
         percentiles: spec.percentiles.clone(),
         points: summarise(det, &ok, input.issued, &spec.percentiles),
+        node_crest: node_crest_band(&ok, &spec.percentiles),
     }))
 }
 
@@ -98,9 +99,25 @@ fn member_traces(input: &EnsembleInput<'_>, m: &Member) -> Result<MemberTraces, 
         rating: m.rating,
     };
     let out = run_prepared(input.spec, input.prepared, &inflow, input.method, adjust)?;
-    Ok(MemberTraces(
-        out.points.into_iter().map(|p| p.stage).collect(),
-    ))
+    let rows = &out.node_rows;
+    // From the last output instant at or before the issue time on, as the
+    // profile's envelope is read.
+    let from = rows
+        .times
+        .partition_point(|t| *t <= input.issued)
+        .saturating_sub(1);
+    let node_crest = (0..rows.chainage.len())
+        .map(|j| {
+            rows.stage[from..]
+                .iter()
+                .map(|row| row[j])
+                .fold(f64::NEG_INFINITY, f64::max)
+        })
+        .collect();
+    Ok(MemberTraces {
+        points: out.points.into_iter().map(|p| p.stage).collect(),
+        node_crest,
+    })
 }
 
 #[cfg(test)]

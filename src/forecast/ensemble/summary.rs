@@ -36,6 +36,11 @@ pub struct EnsembleSummary {
     pub percentiles: Vec<f64>,
     /// In the run's point order.
     pub points: Vec<PointRange>,
+    /// Per percentile, the members' highest stage from the issue time on
+    /// at every computational node (the profile's band); empty in
+    /// ensembles stored before it.
+    #[serde(default)]
+    pub node_crest: Vec<PercentileTrace>,
 }
 
 /// The range at one point.
@@ -124,9 +129,21 @@ impl EnsembleSummary {
     }
 }
 
-/// One member's stage traces, one per point in the run's point order.
+/// What is kept of one member: its stage trace at each point (in the
+/// run's point order) and its highest stage at each node.
 #[derive(Debug, Clone, PartialEq)]
-pub struct MemberTraces(pub Vec<Vec<f64>>);
+pub struct MemberTraces {
+    pub points: Vec<Vec<f64>>,
+    pub node_crest: Vec<f64>,
+}
+
+/// Per percentile, the members' node crests at every node.
+pub fn node_crest_band(members: &[MemberTraces], percentiles: &[f64]) -> Vec<PercentileTrace> {
+    let probs: Vec<f64> = percentiles.iter().map(|p| p / 100.0).collect();
+    let nodes = members.first().map_or(0, |m| m.node_crest.len());
+    let traces: Vec<&[f64]> = members.iter().map(|m| m.node_crest.as_slice()).collect();
+    percentile_traces(&traces, nodes, percentiles, &probs)
+}
 
 /// The summary of `members` (at least one) around the deterministic
 /// points `det`, seen from `issued`.
@@ -140,7 +157,7 @@ pub fn summarise(
     det.iter()
         .enumerate()
         .map(|(i, p)| {
-            let traces: Vec<&[f64]> = members.iter().map(|m| m.0[i].as_slice()).collect();
+            let traces: Vec<&[f64]> = members.iter().map(|m| m.points[i].as_slice()).collect();
             point_range(p, &traces, issued, percentiles, &probs)
         })
         .collect()

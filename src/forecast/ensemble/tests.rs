@@ -152,6 +152,22 @@ fn probability_is_monotone_and_percentiles_are_bounded() {
     for q in &r.crest.percentiles {
         assert!(q.stage >= r.crest.min && q.stage <= r.crest.max);
     }
+    // The profile's band: ordered at every node, and at the node where the
+    // point sits (10 km, node 40 at 250 m spacing) the same crests as the
+    // point's.
+    let band = &s.node_crest;
+    assert_eq!(band.len(), 3);
+    for j in 0..band[0].stage.len() {
+        assert!(band[0].stage[j] <= band[1].stage[j] && band[1].stage[j] <= band[2].stage[j]);
+    }
+    for (b, q) in band.iter().zip(&r.crest.percentiles) {
+        assert!(
+            (b.stage[40] - q.stage).abs() < 1e-9,
+            "{} vs {}",
+            b.stage[40],
+            q.stage
+        );
+    }
 }
 
 #[test]
