@@ -139,9 +139,19 @@ pub struct RouteArgs {
     /// Routing method [default: the reach's own, diffusive unless set].
     #[arg(long, value_parser = ["diffusive", "kinematic"])]
     pub method: Option<String>,
-    /// Write stage and discharge hydrographs at every point to this CSV.
+    /// Write stage and discharge hydrographs at every point to this CSV
+    /// (with a stage column per ensemble percentile under `--members`).
     #[arg(long, value_name = "RESULTS.csv")]
     pub out: Option<PathBuf>,
+    /// Also route an ensemble of this many members, perturbed as the
+    /// reach's `ensemble` section says, and report ranges and
+    /// probabilities [default: none].
+    #[arg(long, value_name = "N")]
+    pub members: Option<usize>,
+    /// Seed of the ensemble's perturbations: the same seed gives the same
+    /// answer.
+    #[arg(long, value_name = "S", default_value_t = 1, requires = "members")]
+    pub seed: u64,
 }
 
 #[derive(Debug, Args, Clone)]

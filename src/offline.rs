@@ -7,7 +7,15 @@ use anyhow::Context;
 
 use crate::{
     cli::RouteArgs,
-    forecast::{inflow, report, run, spec::ReachSpec},
+    forecast::{
+        ensemble::{
+            EnsembleInput, EnsembleSpec, perturb::RatedInflow, run_ensemble,
+            summary::EnsembleSummary,
+        },
+        hydrograph::Hydrograph,
+        inflow, report, run,
+        spec::{Method, ReachSpec},
+    },
 };
 
 /// Runs `reachcast route`; returns the summary text.
@@ -27,12 +35,54 @@ pub fn route(args: &RouteArgs) -> anyhow::Result<String> {
         .transpose()
         .map_err(anyhow::Error::msg)?;
     let started = Instant::now();
-    let mut out = run::run(&spec, &inflow, method)?;
+    let prepared = run::Prepared::new(&spec)?;
+    let mut out = run::run_prepared(&spec, &prepared, &inflow, method, run::Adjust::NONE)?;
     let wall = started.elapsed().as_secs_f64();
     out.diagnostics.wall_time_s = Some(wall);
+    let ensemble = match args.members.filter(|&n| n > 0) {
+        Some(members) => Some(ensemble(
+            &spec, &prepared, &inflow, method, &out, members, args.seed,
+        )?),
+        None => None,
+    };
     if let Some(path) = &args.out {
-        std::fs::write(path, report::results_csv(&out)?)
+        std::fs::write(path, report::results_csv(&out, ensemble.as_ref())?)
             .with_context(|| format!("writing {}", path.display()))?;
     }
-    Ok(report::summary(&out, wall))
+    let mut text = report::summary(&out, wall);
+    if let Some(e) = &ensemble {
+        text.push_str(&report::ensemble(&out, e, &spec.ensemble));
+    }
+    Ok(text)
+}
+
+/// The ensemble of an offline run: the reach's spreads, `members` members,
+/// the whole inflow seen as forecast (issued at its first sample).
+fn ensemble(
+    spec: &ReachSpec,
+    prepared: &run::Prepared,
+    inflow: &Hydrograph,
+    method: Option<Method>,
+    det: &run::RunOutput,
+    members: usize,
+    seed: u64,
+) -> anyhow::Result<EnsembleSummary> {
+    let settings = EnsembleSpec {
+        members,
+        ..spec.ensemble.clone()
+    };
+    settings
+        .validate()
+        .map_err(|e| anyhow::anyhow!("--members: {}", e.message))?;
+    let input = EnsembleInput {
+        spec,
+        settings: &settings,
+        prepared,
+        inflow,
+        issued: inflow.start(),
+        rated: RatedInflow::None,
+        seed,
+        method,
+    };
+    run_ensemble(&input, &det.points)?.ok_or_else(|| anyhow::anyhow!("no members"))
 }

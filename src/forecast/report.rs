@@ -6,6 +6,7 @@ use std::fmt::Write as _;
 use chrono::{DateTime, Utc};
 
 use super::{
+    ensemble::{EnsembleSpec, summary::EnsembleSummary},
     export::{Rows, TableContext, table},
     level::LevelOutlook,
     levels::LevelKind,
@@ -177,16 +178,79 @@ fn diagnostics_lines(s: &mut String, d: &Diagnostics, wall_time_s: f64) {
 }
 
 /// Stage and discharge hydrographs at every point, in the one CSV table
-/// of forecast values ([`super::export`]; SI units, no run id offline).
-pub fn results_csv(out: &RunOutput) -> Result<String, csv::Error> {
+/// of forecast values ([`super::export`]; SI units, no run id offline),
+/// with the ensemble's percentile stages when there is one.
+pub fn results_csv(
+    out: &RunOutput,
+    ensemble: Option<&EnsembleSummary>,
+) -> Result<String, csv::Error> {
     let ctx = TableContext {
         reach: &out.reach,
         run: None,
         units: Units::Si,
         caution: CAUTION.to_owned(),
-        percentiles: Vec::new(),
+        percentiles: ensemble.map(|e| e.percentiles.clone()).unwrap_or_default(),
     };
-    table(&ctx, out.points.iter().map(Rows::from))
+    table(
+        &ctx,
+        out.points.iter().map(|p| Rows {
+            bands: ensemble
+                .and_then(|e| e.point(&p.id))
+                .map_or(&[], |r| r.stage.as_slice()),
+            ..Rows::from(p)
+        }),
+    )
+}
+
+/// The ensemble part of the summary: per point the crest range, then per
+/// level how many scenarios reach it and when.
+pub fn ensemble(out: &RunOutput, e: &EnsembleSummary, settings: &EnsembleSpec) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s);
+    let _ = writeln!(
+        s,
+        "ensemble: {} members routed ({} failed), seed {}",
+        e.members, e.failed_members, e.seed
+    );
+    if settings.spreads_are_defaults() {
+        let _ = writeln!(
+            s,
+            "  spreads are the built-in defaults, not verified error statistics of this reach"
+        );
+    }
+    for p in &out.points {
+        let Some(r) = e.point(&p.id) else { continue };
+        let q: Vec<String> = r
+            .crest
+            .percentiles
+            .iter()
+            .map(|q| format!("p{} {:.2} m", q.percentile, q.stage))
+            .collect();
+        let _ = writeln!(
+            s,
+            "{}: crest {} (lowest {:.2} m, highest {:.2} m)",
+            p.name,
+            q.join(", "),
+            r.crest.min,
+            r.crest.max
+        );
+        for (l, c) in p.levels.iter().zip(&r.levels) {
+            let when = match (c.earliest_first_above, c.median_first_above) {
+                (Some(a), Some(m)) => format!(", earliest {}, median {}", time(a), time(m)),
+                _ => String::new(),
+            };
+            let _ = writeln!(
+                s,
+                "  {} {:.2} m: {} of {} scenarios reach it ({:.0} %){when}",
+                level_label(l),
+                l.elevation,
+                c.members_reaching,
+                e.members,
+                c.probability * 100.0
+            );
+        }
+    }
+    s
 }
 
 #[cfg(test)]
