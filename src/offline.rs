@@ -9,11 +9,12 @@ use crate::{
     cli::RouteArgs,
     forecast::{
         ensemble::{
-            EnsembleInput, EnsembleSpec, perturb::RatedInflow, run_ensemble,
+            EnsembleInput, EnsembleSpec, perturb::RatedInflow, run_ensemble, spec::member_count,
             summary::EnsembleSummary,
         },
         hydrograph::Hydrograph,
-        inflow, report, run,
+        inflow::{self, Inflow},
+        report, run,
         spec::{Method, ReachSpec},
     },
 };
@@ -36,7 +37,7 @@ pub fn route(args: &RouteArgs) -> anyhow::Result<String> {
         .map_err(anyhow::Error::msg)?;
     let started = Instant::now();
     let prepared = run::Prepared::new(&spec)?;
-    let mut out = run::run_prepared(&spec, &prepared, &inflow, method, run::Adjust::NONE)?;
+    let mut out = run::run_prepared(&spec, &prepared, &inflow.series, method, run::Adjust::NONE)?;
     let wall = started.elapsed().as_secs_f64();
     out.diagnostics.wall_time_s = Some(wall);
     let ensemble = match args.members.filter(|&n| n > 0) {
@@ -56,30 +57,33 @@ pub fn route(args: &RouteArgs) -> anyhow::Result<String> {
     Ok(text)
 }
 
-/// The ensemble of an offline run: the reach's spreads, `members` members,
+/// The ensemble of an offline run: the reach's spreads, `members` members
+/// (a whole number per inflow scenario when the CSV has trace columns),
 /// the whole inflow seen as forecast (issued at its first sample).
 fn ensemble(
     spec: &ReachSpec,
     prepared: &run::Prepared,
-    inflow: &Hydrograph,
+    inflow: &Inflow,
     method: Option<Method>,
     det: &run::RunOutput,
     members: usize,
     seed: u64,
 ) -> anyhow::Result<EnsembleSummary> {
     let settings = EnsembleSpec {
-        members,
+        members: member_count(members, 1 + inflow.traces.len()),
         ..spec.ensemble.clone()
     };
     settings
         .validate()
         .map_err(|e| anyhow::anyhow!("--members: {}", e.message))?;
+    let traces: Vec<Hydrograph> = inflow.traces.iter().map(|t| t.series.clone()).collect();
     let input = EnsembleInput {
         spec,
         settings: &settings,
         prepared,
-        inflow,
-        issued: inflow.start(),
+        inflow: &inflow.series,
+        traces: &traces,
+        issued: inflow.series.start(),
         rated: RatedInflow::None,
         seed,
         method,

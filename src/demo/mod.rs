@@ -16,7 +16,12 @@ use tokio::sync::watch;
 use crate::{
     auth::{NewKey, Role, generate_key, hash_secret},
     engine::{manning::normal_depth, rating::RatingCurve, section::PropertyTable},
-    forecast::{hydrograph::Hydrograph, inflow, spec::ReachSpec},
+    forecast::{
+        hydrograph::Hydrograph,
+        inflow::{self, Inflow},
+        spec::ReachSpec,
+        traces::Traces,
+    },
     gauge::{
         GaugeSpec, Measures,
         readings::{NewReading, Quality},
@@ -56,8 +61,9 @@ pub fn reach() -> Result<ReachSpec, DemoError> {
 
 /// The storm as (hours from its start, discharge m³/s).
 fn storm() -> Result<Vec<(f64, f64)>, DemoError> {
-    let rows =
-        inflow::parse_csv(STORM_CSV.as_bytes()).map_err(|e| DemoError::Data(e.to_string()))?;
+    let rows = inflow::parse_csv(STORM_CSV.as_bytes())
+        .map_err(|e| DemoError::Data(e.to_string()))?
+        .series;
     let t0 = rows.start();
     Ok(rows
         .samples()
@@ -181,7 +187,10 @@ pub async fn seed(store: &Store) -> Result<(), DemoError> {
             store
                 .insert_upload(
                     REACH_ID,
-                    &series,
+                    &Inflow {
+                        series,
+                        traces: Traces::NONE,
+                    },
                     "demo: synthetic storm hydrograph issued by the built-in demo forecaster",
                     DEMO_KEY_ID,
                 )

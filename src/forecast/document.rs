@@ -11,6 +11,7 @@ use serde::Serialize;
 
 use super::{
     assemble::Source,
+    ensemble::summary::MemberSource,
     export::{self, Rows, TableContext},
     levels_csv,
     record::{EnsembleRecord, RunDiagnostics, RunRecord, StoredResults},
@@ -77,6 +78,12 @@ pub struct EnsembleBrief {
     pub failed_members: Option<usize>,
     pub seed: u64,
     pub percentiles: Vec<f64>,
+    /// Where the members' inflows come from: the main inflow perturbed,
+    /// or the upload's traces beside its main series.
+    pub source: MemberSource,
+    /// The upload's extra traces routed as scenarios beside its main
+    /// series (`main`); empty when the inflow is perturbed.
+    pub traces: Vec<String>,
     /// The spreads are the built-in defaults, not verified error
     /// statistics of this reach.
     pub spreads_are_defaults: bool,
@@ -93,6 +100,12 @@ fn ensemble_brief(run: &RunRecord) -> Option<EnsembleBrief> {
         failed_members: None,
         seed: p.seed,
         percentiles: p.settings.percentiles.clone(),
+        source: if p.traces.is_empty() {
+            MemberSource::Perturbed
+        } else {
+            MemberSource::Traces
+        },
+        traces: p.traces.clone(),
         spreads_are_defaults: p.spreads_are_defaults,
         wall_time_s: None,
         error: None,

@@ -22,4 +22,5 @@ pub mod record;
 pub mod report;
 pub mod run;
 pub mod spec;
+pub mod traces;
 pub mod view;

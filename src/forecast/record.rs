@@ -12,7 +12,7 @@ use serde::{Deserialize, Deserializer, Serialize};
 
 use super::{
     assemble,
-    ensemble::{EnsembleSpec, summary::EnsembleSummary},
+    ensemble::{EnsembleSpec, spec::member_count, summary::EnsembleSummary},
     profile::StoredProfile,
     run::{PointForecast, RunOutput},
     spec::{Method, RoutingSpec},
@@ -157,21 +157,41 @@ pub struct EnsembleProvenance {
     pub spreads_are_defaults: bool,
     /// The perturbations' seed (the run id).
     pub seed: u64,
+    /// The upload's extra inflow traces, routed with its main series as
+    /// equally likely scenarios in place of perturbing the inflow; empty
+    /// when the inflow was perturbed.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub traces: Vec<String>,
 }
 
 impl EnsembleProvenance {
     /// The provenance of an ensemble with `settings`, at most
-    /// `max_members` members, seeded by `seed`; `None` when it is off.
-    pub fn of(settings: &EnsembleSpec, max_members: usize, seed: u64) -> Option<Self> {
-        let members = settings.members.min(max_members);
-        (members > 0).then(|| Self {
-            settings: EnsembleSpec {
-                members,
-                ..settings.clone()
-            },
+    /// `max_members` members (a whole number per inflow scenario), over
+    /// the upload's extra `traces`, seeded by `seed`; `None` when it is
+    /// off.
+    pub fn of(
+        settings: &EnsembleSpec,
+        max_members: usize,
+        seed: u64,
+        traces: Vec<String>,
+    ) -> Option<Self> {
+        let scenarios = 1 + traces.len();
+        let members = member_count(settings.members.min(max_members), scenarios);
+        let used = if traces.is_empty() {
+            settings.clone()
+        } else {
+            settings.for_traces()
+        };
+        let spreads_are_defaults = used.spreads_are_defaults();
+        if members == 0 {
+            return None;
+        }
+        Some(Self {
+            settings: EnsembleSpec { members, ..used },
             requested_members: settings.members,
-            spreads_are_defaults: settings.spreads_are_defaults(),
+            spreads_are_defaults,
             seed,
+            traces,
         })
     }
 }

@@ -6,7 +6,10 @@ use std::fmt::Write as _;
 use chrono::{DateTime, Utc};
 
 use super::{
-    ensemble::{EnsembleSpec, summary::EnsembleSummary},
+    ensemble::{
+        EnsembleSpec,
+        summary::{EnsembleSummary, MemberSource},
+    },
     export::{Rows, TableContext, table},
     level::LevelOutlook,
     levels::LevelKind,
@@ -212,7 +215,17 @@ pub fn ensemble(out: &RunOutput, e: &EnsembleSummary, settings: &EnsembleSpec) -
         "ensemble: {} members routed ({} failed), seed {}",
         e.members, e.failed_members, e.seed
     );
-    if settings.spreads_are_defaults() {
+    let used = match e.source {
+        MemberSource::Perturbed => settings.clone(),
+        MemberSource::Traces => {
+            let _ = writeln!(
+                s,
+                "  inflow scenarios: the main series and the file's traces, equally likely (inflow not perturbed)"
+            );
+            settings.for_traces()
+        }
+    };
+    if used.spreads_are_defaults() {
         let _ = writeln!(
             s,
             "  spreads are the built-in defaults, not verified error statistics of this reach"

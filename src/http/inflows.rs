@@ -2,7 +2,10 @@
 //!
 //! - `POST /api/reaches/{reach}/inflows` (forecaster): JSON
 //!   `{"reason": "...", "series": [{"time": "...", "discharge": ...}]}`, or
-//!   `text/csv` with a `time,discharge` header and `?reason=...`. The whole
+//!   `text/csv` with a `time,discharge` header and `?reason=...`. Either
+//!   may carry extra traces on the same times (JSON `traces: [{"name",
+//!   "series"}]`, CSV `discharge_<name>` columns), which the ensemble
+//!   routes as scenarios beside the main series. The whole
 //!   upload is accepted or refused: a forecast hydrograph with a bad row is
 //!   not a forecast. A refusal lists every bad row in `errors`.
 //!   With `?dry_run=true` the upload is checked and joined to the observed
@@ -37,10 +40,7 @@ use super::{
 };
 use crate::{
     CAUTION,
-    forecast::{
-        hydrograph::Hydrograph,
-        inflow::{self, InflowError},
-    },
+    forecast::inflow::{self, Inflow, InflowError},
     row_error::RowError,
     store::InflowUpload,
 };
@@ -62,6 +62,16 @@ const MAX_POINTS: usize = 50_000;
 #[serde(deny_unknown_fields)]
 struct UploadBody {
     reason: String,
+    series: Vec<serde_json::Value>,
+    #[serde(default)]
+    traces: Vec<TraceBody>,
+}
+
+/// One extra trace of a JSON upload.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct TraceBody {
+    name: String,
     series: Vec<serde_json::Value>,
 }
 
@@ -97,16 +107,17 @@ fn rows_refused(errors: &[RowError]) -> Problem {
     p.with("errors", errors)
 }
 
-/// The reason and hydrograph of an upload body.
+/// The reason and inflow of an upload body.
 fn parse_body(
     media: &str,
     body: &[u8],
     query_reason: Option<String>,
-) -> Result<(String, Hydrograph), Problem> {
+) -> Result<(String, Inflow), Problem> {
     match media {
         "application/json" => {
             let b: UploadBody = parse_json(body)?;
-            let h = inflow::parse_json_samples(&b.series).map_err(|e| rows_refused(&e))?;
+            let traces: Vec<_> = b.traces.into_iter().map(|t| (t.name, t.series)).collect();
+            let h = inflow::parse_json(&b.series, &traces).map_err(|e| rows_refused(&e))?;
             Ok((b.reason, h))
         }
         "text/csv" => match inflow::parse_csv(body) {
@@ -150,7 +161,8 @@ async fn upload(
     {
         return Err(Problem::invalid("reason", "say why in 1 to 500 characters").into());
     }
-    let (reason, series) = parse_body(&media, &body, params.reason)?;
+    let (reason, inflow) = parse_body(&media, &body, params.reason)?;
+    let series = &inflow.series;
     let reason = reason.trim().to_owned();
     if reason.is_empty() || reason.chars().count() > 500 {
         return Err(Problem::invalid("reason", "say why in 1 to 500 characters").into());
@@ -161,23 +173,27 @@ async fn upload(
     if params.dry_run == Some(true) {
         let join = state
             .forecaster
-            .preview_join(&reach, &series)
+            .preview_join(&reach, series)
             .await
             .map_err(|e| ApiError::Internal(anyhow::anyhow!(e)))?;
         return Ok(Json(serde_json::json!({
             "caution": CAUTION, "reach": reach, "dry_run": true, "stored": false,
-            "points": series.len(), "series": series, "join": join,
+            "points": series.len(), "series": series, "traces": inflow.traces.names(),
+            "join": join,
         }))
         .into_response());
     }
     let version = state
         .store
-        .insert_upload(&reach, &series, &reason, auth.caller().key_id())
+        .insert_upload(&reach, &inflow, &reason, auth.caller().key_id())
         .await?;
     state.forecaster.data_arrived(&reach);
     Ok((
         StatusCode::CREATED,
-        Json(serde_json::json!({"reach": reach, "version": version, "points": series.len()})),
+        Json(serde_json::json!({
+            "reach": reach, "version": version, "points": series.len(),
+            "traces": inflow.traces.names(),
+        })),
     )
         .into_response())
 }
@@ -196,6 +212,8 @@ struct UploadView<'a> {
     #[serde(with = "crate::wire_time::option")]
     withdrawn_at: Option<chrono::DateTime<chrono::Utc>>,
     points: usize,
+    /// The names of its extra traces, in upload order.
+    traces: Vec<String>,
 }
 
 impl<'a> UploadView<'a> {
@@ -210,6 +228,7 @@ impl<'a> UploadView<'a> {
             withdrawn: u.withdrawn,
             withdrawn_at: u.withdrawn_at,
             points: u.series.len(),
+            traces: u.traces.names(),
         }
     }
 }
@@ -273,12 +292,13 @@ async fn one(
                 ),
                 (header::CONTENT_DISPOSITION, name),
             ],
-            csv_of(&u.series),
+            csv_of(&u.series, &u.traces),
         )
             .into_response()
     } else {
         Json(serde_json::json!({
             "caution": CAUTION, "reach": reach, "upload": UploadView::of(&u), "series": u.series,
+            "traces": u.traces,
         }))
         .into_response()
     };

@@ -23,6 +23,7 @@ use crate::{
         },
         run::{self, Adjust},
         spec::ReachSpec,
+        traces::Traces,
     },
     gauge::Measures,
     store::{ReachVersion, StoreError},
@@ -95,11 +96,22 @@ impl Forecaster {
         let mut provenance = self.provenance(&reach);
         let upload_id = upload.as_ref().map(|u| u.id);
         let gauge_rated = matches!(&observed, Ok((_, GaugeBasis::Stage(_))));
+        let no_traces = Traces::NONE;
+        let traces = upload.as_ref().map_or(&no_traces, |u| &u.traces);
         let assembled = observed.and_then(|(readings, basis)| {
-            assemble::assemble(now, &readings, &basis, upload_input.as_ref(), &rules)
-                .map_err(|e| format!("inflow: {e}"))
+            let main = assemble::assemble(now, &readings, &basis, upload_input.as_ref(), &rules)
+                .map_err(|e| format!("inflow: {e}"))?;
+            let inputs = ensemble::TraceInputs {
+                now,
+                readings: &readings,
+                basis: &basis,
+                upload: upload_input.as_ref(),
+                rules: &rules,
+            };
+            let traces = ensemble::assemble_traces(&inputs, &main.provenance, traces);
+            Ok((main, traces))
         });
-        let assembled = match assembled {
+        let (assembled, trace_inflows) = match assembled {
             Ok(a) => a,
             Err(e) => {
                 let run_id = store
@@ -107,6 +119,12 @@ impl Forecaster {
                     .await?;
                 return self.failed(reach_id, run_id, e, &provenance, 0.0).await;
             }
+        };
+        // The traces are the scenarios only when the main series' join
+        // used the upload (the one rule, in `assemble_traces`).
+        let trace_names = match &trace_inflows {
+            Ok(t) if t.is_empty() => Vec::new(),
+            _ => traces.names(),
         };
         let rated = ensemble::rated_part(gauge_rated, &assembled.provenance);
         provenance.inflow = Some(assembled.provenance);
@@ -118,6 +136,7 @@ impl Forecaster {
             &reach.spec.ensemble,
             self.inner.config.max_ensemble_members,
             run_id.unsigned_abs(),
+            trace_names,
         );
         let (this, job_reach, series) = (self.clone(), reach.clone(), assembled.series.clone());
         let joined = tokio::task::spawn_blocking(move || {
@@ -143,6 +162,7 @@ impl Forecaster {
                     reach: reach.clone(),
                     prepared,
                     inflow: assembled.series,
+                    traces: trace_inflows,
                     issued: now,
                     rated,
                     provenance: ens,

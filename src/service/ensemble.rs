@@ -16,6 +16,7 @@ use crate::{
         hydrograph::Hydrograph,
         record::{EnsembleProvenance, EnsembleRecord},
         run::{PointForecast, Prepared, RunError},
+        traces::Traces,
     },
     store::ReachVersion,
 };
@@ -25,6 +26,9 @@ pub(super) struct EnsembleJob {
     pub reach: ReachVersion,
     pub prepared: Arc<Prepared>,
     pub inflow: Hydrograph,
+    /// The upload's extra traces, each assembled as `inflow` was, or why
+    /// one could not be.
+    pub traces: Result<Vec<Hydrograph>, String>,
     pub issued: DateTime<Utc>,
     pub rated: RatedInflow,
     pub provenance: EnsembleProvenance,
@@ -41,6 +45,49 @@ pub(super) fn rated_part(gauge_rated: bool, p: &assemble::Provenance) -> RatedIn
         }
         (true, Some(_)) => RatedInflow::Whole,
     }
+}
+
+/// The upload's extra traces, each joined to the observations as its main
+/// series was; none unless the main series' assembly used the upload (a
+/// run that extrapolates past an ended upload perturbs that instead).
+pub(super) fn assemble_traces(
+    inputs: &TraceInputs<'_>,
+    main: &assemble::Provenance,
+    traces: &Traces,
+) -> Result<Vec<Hydrograph>, String> {
+    let Some(upload) = inputs
+        .upload
+        .filter(|_| main.source_beyond_now == Source::Upload)
+    else {
+        return Ok(Vec::new());
+    };
+    traces
+        .iter()
+        .map(|t| {
+            let one = assemble::Upload {
+                series: t.series.clone(),
+                ..upload.clone()
+            };
+            assemble::assemble(
+                inputs.now,
+                inputs.readings,
+                inputs.basis,
+                Some(&one),
+                inputs.rules,
+            )
+            .map(|a| a.series)
+            .map_err(|e| format!("inflow trace `{}`: {e}", t.name))
+        })
+        .collect()
+}
+
+/// What the main series was assembled from.
+pub(super) struct TraceInputs<'a> {
+    pub now: DateTime<Utc>,
+    pub readings: &'a [assemble::Reading],
+    pub basis: &'a assemble::GaugeBasis,
+    pub upload: Option<&'a assemble::Upload>,
+    pub rules: &'a assemble::Rules,
 }
 
 impl Forecaster {
@@ -66,11 +113,16 @@ impl Forecaster {
     pub(super) async fn ensemble(&self, run_id: i64, job: EnsembleJob) -> Option<EnsembleRecord> {
         let joined = tokio::task::spawn_blocking(move || {
             let started = Instant::now();
+            let traces = match &job.traces {
+                Ok(t) => t.as_slice(),
+                Err(e) => return (Err(RunError::Routing(e.clone())), 0.0),
+            };
             let input = EnsembleInput {
                 spec: &job.reach.spec,
                 settings: &job.provenance.settings,
                 prepared: &job.prepared,
                 inflow: &job.inflow,
+                traces,
                 issued: job.issued,
                 rated: job.rated,
                 seed: job.provenance.seed,

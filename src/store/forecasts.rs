@@ -7,8 +7,10 @@ use sqlx::Row;
 use super::{Audit, Store, StoreError, audit, time};
 use crate::forecast::{
     hydrograph::Hydrograph,
+    inflow::Inflow,
     record::{EnsembleRecord, RunProvenance, RunRecord, RunStatus, StoredResults},
     spec::ReachSpec,
+    traces::Traces,
 };
 
 /// One stored version of a reach description.
@@ -32,6 +34,8 @@ pub struct InflowUpload {
     pub withdrawn: bool,
     pub withdrawn_at: Option<DateTime<Utc>>,
     pub series: Hydrograph,
+    /// Its extra traces (none for a single-series upload).
+    pub traces: Traces,
     /// The name of the key that uploaded it (`None` if the key is gone).
     pub uploaded_by_name: Option<String>,
     /// Whether this is the upload in force: the one the next run uses.
@@ -47,7 +51,7 @@ macro_rules! select_uploads {
     ($tail:literal) => {
         concat!(
             "SELECT f.id, f.version, f.uploaded_at, f.uploaded_by, f.reason, f.withdrawn,
-                    f.withdrawn_at, f.series, k.name AS uploaded_by_name,
+                    f.withdrawn_at, f.series, f.traces, k.name AS uploaded_by_name,
                     f.version IS (SELECT MAX(version) FROM inflow_forecasts
                                   WHERE reach_id = ?1 AND withdrawn = 0) AS in_force
              FROM inflow_forecasts f LEFT JOIN api_keys k ON k.id = f.uploaded_by ",
@@ -186,11 +190,17 @@ impl Store {
     pub async fn insert_upload(
         &self,
         reach_id: &str,
-        series: &Hydrograph,
+        inflow: &Inflow,
         reason: &str,
         key_id: &str,
     ) -> Result<i64, StoreError> {
+        let series = &inflow.series;
         let json = encode("inflow series", series)?;
+        let traces = if inflow.traces.is_empty() {
+            None
+        } else {
+            Some(encode("inflow traces", &inflow.traces)?)
+        };
         let (_guard, mut tx) = self.begin_write().await?;
         let (version,): (i64,) = sqlx::query_as(
             "SELECT COALESCE(MAX(version), 0) + 1 FROM inflow_forecasts WHERE reach_id = ?1",
@@ -199,8 +209,8 @@ impl Store {
         .fetch_one(&mut *tx)
         .await?;
         sqlx::query(
-            "INSERT INTO inflow_forecasts (reach_id, version, uploaded_at, uploaded_by, reason, series)
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+            "INSERT INTO inflow_forecasts (reach_id, version, uploaded_at, uploaded_by, reason, series, traces)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
         )
         .bind(reach_id)
         .bind(version)
@@ -208,6 +218,7 @@ impl Store {
         .bind(key_id)
         .bind(reason)
         .bind(&json)
+        .bind(&traces)
         .execute(&mut *tx)
         .await?;
         audit::record(
@@ -216,7 +227,10 @@ impl Store {
                 key_id: Some(key_id.to_owned()),
                 action: "inflow.upload".to_owned(),
                 target: reach_id.to_owned(),
-                summary: serde_json::json!({"version": version, "points": series.len(), "reason": reason}),
+                summary: serde_json::json!({
+                    "version": version, "points": series.len(), "reason": reason,
+                    "traces": inflow.traces.names(),
+                }),
             },
         )
         .await?;
@@ -482,6 +496,12 @@ fn upload_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<InflowUpload, StoreE
             row.try_get("withdrawn_at")?,
         )?,
         series: serde_json::from_str(&series).map_err(|e| corrupt("inflow_forecasts.series", e))?,
+        traces: match row.try_get::<Option<String>, _>("traces")? {
+            None => Traces::NONE,
+            Some(t) => Traces::stored(
+                serde_json::from_str(&t).map_err(|e| corrupt("inflow_forecasts.traces", e))?,
+            ),
+        },
         uploaded_by_name: row.try_get("uploaded_by_name")?,
         in_force: row.try_get::<i64, _>("in_force")? != 0,
     })

@@ -20,6 +20,7 @@ mod engine_routing;
 mod engine_sections;
 mod forecast_cycle;
 mod foundation;
+mod inflow_traces;
 mod ingest;
 mod metrics;
 mod openapi;

@@ -31,7 +31,7 @@ fn demo_inputs() -> (ReachSpec, Hydrograph) {
     let inflow =
         inflow::parse_csv(&std::fs::read(demo_file("brindlemoor-inflow.csv")).expect("inflow"))
             .expect("demo inflow is valid");
-    (spec, inflow)
+    (spec, inflow.series)
 }
 
 #[test]
@@ -268,5 +268,65 @@ fn route_with_members_prints_ranges_and_writes_percentiles() {
     for r in reader.records().map(|r| r.expect("row")) {
         let p: Vec<f64> = (7..10).map(|k| r[k].parse().expect("percentile")).collect();
         assert!(p[0] <= p[1] && p[1] <= p[2], "{r:?}");
+    }
+}
+
+/// `route --members` on an INFLOW.csv with `discharge_<name>` columns: the
+/// main series and each trace are the scenarios, a whole number of members
+/// each (7 asked, 3 scenarios: 6 routed), and the crest range spans the
+/// traces: a file whose traces are the main series scaled by 0.8 and 1.2
+/// gives a lowest crest below the deterministic one and a highest above.
+#[test]
+fn route_with_trace_columns_routes_the_traces() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let text = std::fs::read_to_string(demo_file("brindlemoor-inflow.csv")).expect("inflow");
+    let mut lines = text.lines().filter(|l| !l.starts_with('#'));
+    let header = lines.next().expect("header");
+    assert_eq!(header.trim(), "time,discharge");
+    let mut csv = "time,discharge,discharge_low,discharge_high\n".to_owned();
+    for l in lines.filter(|l| !l.trim().is_empty()) {
+        let (t, q) = l.split_once(',').expect("two columns");
+        let q: f64 = q.trim().parse().expect("number");
+        csv.push_str(&format!("{t},{q},{},{}\n", q * 0.8, q * 1.2));
+    }
+    let inflow = dir.path().join("traces.csv");
+    std::fs::write(&inflow, csv).expect("write");
+    let out = route(
+        &demo_file("brindlemoor-reach.json"),
+        &inflow,
+        &["--members".as_ref(), "7".as_ref()],
+    );
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert!(text.contains("ensemble: 6 members routed"), "{text}");
+    assert!(text.contains("inflow scenarios"), "{text}");
+    // The deterministic crests ("  crest X m at …", one per point) and the
+    // ranges ("NAME: crest p10 … (lowest X m, highest Y m)"), in point order.
+    let det: Vec<f64> = text
+        .lines()
+        .filter_map(|l| l.strip_prefix("  crest "))
+        .filter_map(|l| l.split(' ').next()?.parse().ok())
+        .collect();
+    let number_after = |line: &str, key: &str| -> f64 {
+        let rest = &line[line.find(key).expect(key) + key.len()..];
+        rest.trim_start()
+            .split(' ')
+            .next()
+            .and_then(|v| v.parse().ok())
+            .expect("number")
+    };
+    let ranges: Vec<(f64, f64)> = text
+        .lines()
+        .filter(|l| l.contains("(lowest"))
+        .map(|l| (number_after(l, "lowest"), number_after(l, "highest")))
+        .collect();
+    assert_eq!(det.len(), ranges.len(), "{text}");
+    assert!(!det.is_empty());
+    for (d, (lo, hi)) in det.iter().zip(&ranges) {
+        assert!(lo < d && d < hi, "{lo} < {d} < {hi}");
     }
 }

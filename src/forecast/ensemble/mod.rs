@@ -10,6 +10,11 @@
 //! prepared tables ([`crate::forecast::run::Prepared`]) in parallel
 //! ([`rayon`]); the summary ([`summary`]) keeps only what is served.
 //!
+//! When the forecaster's upload carries extra inflow traces, the main
+//! series and every trace are the inflow scenarios, equally likely, in
+//! place of the inflow perturbation: member k routes scenario k mod S
+//! with its own Manning's n and rating factors.
+//!
 //! Pure: no I/O, no clock. The caller runs it off the async runtime.
 
 pub mod design;
@@ -46,6 +51,9 @@ pub struct EnsembleInput<'a> {
     pub prepared: &'a Prepared,
     /// The deterministic run's inflow.
     pub inflow: &'a Hydrograph,
+    /// The upload's extra traces, each assembled as `inflow` was; empty
+    /// to perturb `inflow` instead.
+    pub traces: &'a [Hydrograph],
     /// Its issue time: the rise after it is perturbed, and probabilities
     /// are seen from it.
     pub issued: DateTime<Utc>,
@@ -65,10 +73,16 @@ pub fn run_ensemble(
     if spec.members == 0 {
         return Ok(None);
     }
-    let members = design(spec, input.seed);
+    let (settings, source) = if input.traces.is_empty() {
+        (spec.clone(), MemberSource::Perturbed)
+    } else {
+        (spec.for_traces(), MemberSource::Traces)
+    };
+    let members = design(&settings, input.seed);
     let routed: Vec<Result<MemberTraces, RunError>> = members
         .par_iter()
-        .map(|m| member_traces(input, m))
+        .enumerate()
+        .map(|(k, m)| member_traces(input, scenario(input, k), m))
         .collect();
     let total = routed.len();
     let ok: Vec<MemberTraces> = routed.into_iter().filter_map(Result::ok).collect();
@@ -81,7 +95,7 @@ pub fn run_ensemble(
     Ok(Some(EnsembleSummary {
         members: ok.len(),
         failed_members: failed,
-        source: MemberSource::Perturbed,
+        source,
         seed: input.seed,
         issued: input.issued,
         percentiles: spec.percentiles.clone(),
@@ -90,10 +104,23 @@ pub fn run_ensemble(
     }))
 }
 
+/// The inflow scenario of member `k`: the main series, then each trace in
+/// turn.
+fn scenario<'a>(input: &EnsembleInput<'a>, k: usize) -> &'a Hydrograph {
+    match k % (1 + input.traces.len()) {
+        0 => input.inflow,
+        s => &input.traces[s - 1],
+    }
+}
+
 /// One member's stage traces at the points (the rest of its output is
 /// dropped at once, so a large ensemble does not hold every node's trace).
-fn member_traces(input: &EnsembleInput<'_>, m: &Member) -> Result<MemberTraces, RunError> {
-    let inflow = member_inflow(input.inflow, input.issued, m, input.rated);
+fn member_traces(
+    input: &EnsembleInput<'_>,
+    scenario: &Hydrograph,
+    m: &Member,
+) -> Result<MemberTraces, RunError> {
+    let inflow = member_inflow(scenario, input.issued, m, input.rated);
     let adjust = Adjust {
         manning: m.manning,
         rating: m.rating,

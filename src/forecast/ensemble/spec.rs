@@ -53,19 +53,45 @@ impl Default for EnsembleSpec {
     }
 }
 
+/// Members of an ensemble over `scenarios` equally likely inflows (1: the
+/// main series, perturbed): the same whole number for each, so each
+/// counts equally, and at least one each. `asked` 0 keeps it off.
+pub fn member_count(asked: usize, scenarios: usize) -> usize {
+    if asked == 0 || scenarios == 0 {
+        return 0;
+    }
+    (asked / scenarios).max(1) * scenarios
+}
+
 /// More members than this would not finish within a forecast cycle on the
 /// machines the service is meant for, and would hold every member's traces
 /// in memory at once.
 pub const MAX_MEMBERS: usize = 2_000;
 
 impl EnsembleSpec {
-    /// The spreads are the built-in defaults, not the reach's own.
+    /// The spreads in use are the built-in defaults, not the reach's own.
+    /// An inflow left unperturbed (uploaded traces in its place) has no
+    /// spread to be a default.
     pub fn spreads_are_defaults(&self) -> bool {
         let d = Self::default();
-        self.peak_scale == d.peak_scale
-            && self.timing_shift_hours == d.timing_shift_hours
-            && self.manning_factor == d.manning_factor
-            && self.rating_factor == d.rating_factor
+        let inflow = (self.peak_scale == d.peak_scale
+            && self.timing_shift_hours == d.timing_shift_hours)
+            || self.inflow_unperturbed();
+        inflow && self.manning_factor == d.manning_factor && self.rating_factor == d.rating_factor
+    }
+
+    /// The settings of an ensemble over uploaded inflow traces: the traces
+    /// are the inflow's spread, so it is not perturbed as well.
+    pub fn for_traces(&self) -> Self {
+        Self {
+            peak_scale: [1.0, 1.0],
+            timing_shift_hours: 0.0,
+            ..self.clone()
+        }
+    }
+
+    fn inflow_unperturbed(&self) -> bool {
+        self.peak_scale == [1.0, 1.0] && self.timing_shift_hours == 0.0
     }
 
     /// Every field in range; errors name the field as `ensemble.<name>`.
@@ -149,6 +175,21 @@ mod tests {
         let own = EnsembleSpec {
             peak_scale: [0.7, 1.4],
             ..d
+        };
+        assert!(!own.spreads_are_defaults());
+    }
+
+    #[test]
+    fn each_scenario_gets_as_many_members() {
+        assert_eq!(member_count(50, 1), 50);
+        assert_eq!(member_count(50, 3), 48);
+        assert_eq!(member_count(4, 6), 6);
+        assert_eq!(member_count(0, 3), 0);
+        let traces = EnsembleSpec::default().for_traces();
+        assert!(traces.spreads_are_defaults(), "n and rating still default");
+        let own = EnsembleSpec {
+            manning_factor: [0.9, 1.1],
+            ..traces
         };
         assert!(!own.spreads_are_defaults());
     }

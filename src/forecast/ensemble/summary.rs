@@ -16,6 +16,9 @@ use crate::forecast::{level::Trace, run::PointForecast};
 pub enum MemberSource {
     /// The deterministic inputs perturbed (`ensemble` section of the reach).
     Perturbed,
+    /// The upload's inflow traces, with Manning's n and the ratings
+    /// perturbed.
+    Traces,
 }
 
 /// The ensemble attached to a run.

@@ -85,6 +85,7 @@ fn ensemble(spec: &ReachSpec, inflow: &Hydrograph, seed: u64) -> (RunOutput, Ens
         settings: &spec.ensemble,
         prepared: &prepared,
         inflow,
+        traces: &[],
         issued: t0() + Duration::hours(1),
         rated: RatedInflow::None,
         seed,
@@ -208,5 +209,68 @@ fn crest_rise_follows_the_peak_factor_in_the_linear_regime() {
             "p{}: {got} vs {f}",
             q.percentile
         );
+    }
+}
+
+/// Uploaded traces replace the inflow perturbation: with the main series
+/// and two traces as the scenarios and no n or rating spread, the members
+/// are the three deterministic runs (each routed on its own here), the
+/// crest range runs from the low trace's crest to the high one's bit for
+/// bit, and each level's probability is the share of those runs that
+/// reach it, though the reach's inflow spreads are wide.
+#[test]
+fn uploaded_traces_are_the_scenarios() {
+    let spec = reach(spreads(7, [0.5, 1.5], 3.0, [1.0, 1.0]));
+    let (main, low, high) = (inflow(150.0), inflow(100.0), inflow(220.0));
+    let prepared = Prepared::new(&spec).expect("prepared");
+    let runs: Vec<RunOutput> = [&main, &low, &high]
+        .iter()
+        .map(|h| run::run(&spec, h, None).expect("routes"))
+        .collect();
+    let settings = EnsembleSpec {
+        members: super::spec::member_count(7, 3),
+        ..spec.ensemble.clone()
+    };
+    assert_eq!(settings.members, 6);
+    let traces = [low, high];
+    let issued = t0() + Duration::hours(1);
+    let input = EnsembleInput {
+        spec: &spec,
+        settings: &settings,
+        prepared: &prepared,
+        inflow: &main,
+        traces: &traces,
+        issued,
+        rated: RatedInflow::None,
+        seed: 11,
+        method: None,
+    };
+    let s = run_ensemble(&input, &runs[0].points)
+        .expect("routes")
+        .expect("on");
+    assert_eq!(s.source, super::summary::MemberSource::Traces);
+    assert_eq!(s.members, 6);
+    let crest = |r: &RunOutput| {
+        let p = &r.points[0];
+        Trace::new(&p.times, &p.stage)
+            .ahead(issued)
+            .crest()
+            .expect("crest")
+            .stage
+    };
+    let range = &s.points[0].crest;
+    assert_eq!(range.min.to_bits(), crest(&runs[1]).to_bits());
+    assert_eq!(range.max.to_bits(), crest(&runs[2]).to_bits());
+    for (k, c) in s.points[0].levels.iter().enumerate() {
+        let reaching = runs
+            .iter()
+            .filter(|r| {
+                let p = &r.points[0];
+                p.levels[k]
+                    .seen_on(&Trace::new(&p.times, &p.stage).ahead(issued))
+                    .exceeded
+            })
+            .count();
+        assert_eq!(c.probability, reaching as f64 / 3.0, "{}", c.id);
     }
 }
