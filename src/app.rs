@@ -52,6 +52,12 @@ impl Application {
             .start()
             .await
             .context("starting the forecast cycle")?;
+        crate::service::retention::spawn(
+            store.clone(),
+            config.clone(),
+            forecaster.clone(),
+            stop_rx.clone(),
+        );
         if config.demo.enabled {
             crate::demo::spawn_replay(
                 store.clone(),

@@ -55,6 +55,17 @@ pub enum Command {
     /// Replace the database with a backup, after checking it. Stop the
     /// service first; the replaced database is kept beside it.
     Restore(RestoreArgs),
+    /// Prune the database once under the `[retention]` settings (what the
+    /// service does every `retention.interval_minutes`); safe while the
+    /// service runs.
+    Prune(PruneArgs),
+}
+
+#[derive(Debug, Args, Clone)]
+pub struct PruneArgs {
+    /// Folder of the SQLite database [overrides storage.data_dir].
+    #[arg(long, value_name = "DIR")]
+    pub data_dir: Option<PathBuf>,
 }
 
 #[derive(Debug, Args, Clone)]
@@ -75,6 +86,26 @@ pub struct RestoreArgs {
     /// The backup file to restore.
     #[arg(long, value_name = "FILE")]
     pub from: PathBuf,
+}
+
+/// `reachcast prune`: one pruning pass; what to print.
+pub async fn run_prune(config: &crate::config::Config) -> anyhow::Result<String> {
+    use anyhow::Context;
+    let storage = &config.storage;
+    let store = crate::store::Store::open_for_maintenance(storage)
+        .await
+        .with_context(|| format!("opening database in {}", storage.data_dir.display()))?;
+    let pruned = crate::service::retention::prune_once(&store, config).await;
+    store.close().await;
+    let p = pruned?;
+    let kept = p
+        .readings_kept_from
+        .map(|t| format!(" (readings from {} kept)", crate::wire_time::format(t)))
+        .unwrap_or_default();
+    Ok(format!(
+        "pruned: {} runs' results replaced by their digest, {} readings, {} reading revisions, {} CAP messages, {} audit rows{kept}\n",
+        p.runs_digested, p.readings, p.reading_revisions, p.cap_messages, p.audit_rows
+    ))
 }
 
 /// `reachcast backup`: copies the database and checks the copy; what to
@@ -283,6 +314,10 @@ impl Cli {
             Some(Command::Restore(r)) => ServeArgs {
                 bind: None,
                 data_dir: r.data_dir.clone(),
+            },
+            Some(Command::Prune(p)) => ServeArgs {
+                bind: None,
+                data_dir: p.data_dir.clone(),
             },
         }
     }

@@ -62,6 +62,41 @@ pub struct Config {
     pub ingest: IngestConfig,
     pub forecast: ForecastConfig,
     pub alerts: AlertsConfig,
+    pub retention: RetentionConfig,
+}
+
+/// `[retention]`: what is pruned from the database, and how often. Each
+/// age is in days; 0 keeps that kind forever.
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct RetentionConfig {
+    /// Minutes between pruning passes (the first one a minute after start);
+    /// 0: never prune in the service (`reachcast prune` still does).
+    pub interval_minutes: u64,
+    /// A run's full results (hydrographs, profile, ensemble) are replaced
+    /// by their digest after this many days; the newest good run of each
+    /// reach is always kept whole.
+    pub run_results_days: u64,
+    /// Readings (and their revisions) older than this are deleted, but
+    /// never those a run still kept whole was computed from.
+    pub readings_days: u64,
+    /// CAP messages of a closed chain are deleted this many days after its
+    /// `Cancel` expired; an open chain is never touched.
+    pub cap_grace_days: u64,
+    /// Audit rows older than this are deleted.
+    pub audit_days: u64,
+}
+
+impl Default for RetentionConfig {
+    fn default() -> Self {
+        Self {
+            interval_minutes: 360,
+            run_results_days: 14,
+            readings_days: 0,
+            cap_grace_days: 30,
+            audit_days: 0,
+        }
+    }
 }
 
 /// `[alerts]`: CAP 1.2 messages issued after forecast runs and their Atom
@@ -399,6 +434,11 @@ pub const KEYS: &[&str] = &[
     "alerts.sender",
     "alerts.cap_status",
     "alerts.base_url",
+    "retention.interval_minutes",
+    "retention.run_results_days",
+    "retention.readings_days",
+    "retention.cap_grace_days",
+    "retention.audit_days",
 ];
 
 impl Config {
@@ -518,6 +558,11 @@ impl Config {
             ("forecast.max_nodes", f.max_nodes, 2, 1_000_000),
             ("forecast.max_output_values", f.max_output_values, 1, u64::MAX),
             ("forecast.max_steps", f.max_steps, 1, u64::MAX),
+            ("retention.interval_minutes", self.retention.interval_minutes, 0, 10_080),
+            ("retention.run_results_days", self.retention.run_results_days, 0, 36_500),
+            ("retention.readings_days", self.retention.readings_days, 0, 36_500),
+            ("retention.cap_grace_days", self.retention.cap_grace_days, 0, 36_500),
+            ("retention.audit_days", self.retention.audit_days, 0, 36_500),
         ];
         for (key, v, lo, hi) in ranges {
             if !(lo..=hi).contains(&v) {

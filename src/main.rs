@@ -42,6 +42,9 @@ fn main() -> ExitCode {
     if let Some(Command::Backup(b)) = &cli.command {
         return run_maintenance("backup", reachcast::cli::run_backup(&b.to, &config.storage));
     }
+    if let Some(Command::Prune(_)) = &cli.command {
+        return run_maintenance("prune", reachcast::cli::run_prune(&config));
+    }
     if let Some(Command::Restore(r)) = &cli.command {
         return run_maintenance(
             "restore",

@@ -55,6 +55,13 @@ pub struct ReachLabels {
 }
 
 #[derive(Clone, Debug, Hash, PartialEq, Eq, EncodeLabelSet)]
+pub struct PrunedLabels {
+    /// `runs_digested`, `readings`, `reading_revisions`, `cap_messages`,
+    /// `audit_rows`.
+    pub kind: String,
+}
+
+#[derive(Clone, Debug, Hash, PartialEq, Eq, EncodeLabelSet)]
 pub struct GaugeLabels {
     pub gauge: String,
 }
@@ -81,6 +88,7 @@ pub struct Metrics {
     pub active_exceedances: Family<ReachLabels, Gauge>,
     pub db_pool_size: Gauge,
     pub db_pool_idle: Gauge,
+    pub pruned: Family<PrunedLabels, Counter>,
 }
 
 impl Default for Metrics {
@@ -149,6 +157,12 @@ impl Default for Metrics {
             "Idle database connections",
             db_pool_idle.clone(),
         );
+        let pruned = Family::<PrunedLabels, Counter>::default();
+        r.register(
+            "pruned_rows",
+            "Rows pruned by retention, by kind (runs: results replaced by a digest)",
+            pruned.clone(),
+        );
         Self {
             registry: r,
             http_requests,
@@ -162,6 +176,7 @@ impl Default for Metrics {
             active_exceedances,
             db_pool_size,
             db_pool_idle,
+            pruned,
         }
     }
 }
@@ -177,6 +192,22 @@ impl Metrics {
             })
             .inc();
         self.run_seconds.observe(wall_s);
+    }
+
+    /// Counts what one pruning pass removed.
+    pub fn pruned(&self, p: &crate::store::Pruned) {
+        for (kind, n) in [
+            ("runs_digested", p.runs_digested),
+            ("readings", p.readings),
+            ("reading_revisions", p.reading_revisions),
+            ("cap_messages", p.cap_messages),
+            ("audit_rows", p.audit_rows),
+        ] {
+            let labels = PrunedLabels {
+                kind: kind.to_owned(),
+            };
+            self.pruned.get_or_create(&labels).inc_by(n);
+        }
     }
 
     /// Counts one CAP message of this `msgType`.

@@ -362,6 +362,8 @@ mod tests {
             provenance: RunProvenance::default(),
             results: None,
             ensemble: None,
+            pruned_at: None,
+            digest: None,
         }
     }
 

@@ -8,6 +8,7 @@
 pub mod assemble;
 pub mod budget;
 pub mod cap;
+pub mod digest;
 pub mod document;
 pub mod ensemble;
 pub mod exceed;

@@ -12,6 +12,7 @@ use serde::{Deserialize, Deserializer, Serialize};
 
 use super::{
     assemble,
+    digest::ResultsDigest,
     ensemble::{EnsembleSpec, spec::member_count, summary::EnsembleSummary},
     profile::StoredProfile,
     run::{PointForecast, RunOutput},
@@ -296,6 +297,10 @@ pub struct RunRecord {
     pub results: Option<StoredResults>,
     /// `Some` once the run's ensemble is attached (read with the results).
     pub ensemble: Option<EnsembleRecord>,
+    /// When retention replaced the results and ensemble by `digest`.
+    pub pruned_at: Option<DateTime<Utc>>,
+    /// What is kept of pruned results (read with the results).
+    pub digest: Option<ResultsDigest>,
 }
 
 #[cfg(test)]

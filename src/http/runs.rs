@@ -21,7 +21,10 @@ use super::{
 };
 use crate::{
     CAUTION,
-    forecast::record::{RunProvenance, RunRecord, RunStatus, StoredResults},
+    forecast::{
+        digest::ResultsDigest,
+        record::{RunProvenance, RunRecord, RunStatus, StoredResults},
+    },
 };
 
 pub fn router() -> Router<AppState> {
@@ -43,9 +46,16 @@ struct RunView<'a> {
     finished_at: Option<DateTime<Utc>>,
     error: Option<&'a str>,
     provenance: &'a RunProvenance,
+    /// When retention replaced the results by their digest; null for a
+    /// run kept whole.
+    #[serde(with = "crate::wire_time::option")]
+    pruned_at: Option<DateTime<Utc>>,
     /// Only for a single run.
     #[serde(skip_serializing_if = "Option::is_none")]
     results: Option<&'a StoredResults>,
+    /// Only for a single run whose results were pruned.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    digest: Option<&'a ResultsDigest>,
 }
 
 impl<'a> RunView<'a> {
@@ -59,7 +69,9 @@ impl<'a> RunView<'a> {
             finished_at: r.finished_at,
             error: r.error.as_deref(),
             provenance: &r.provenance,
+            pruned_at: r.pruned_at,
             results: None,
+            digest: None,
         }
     }
 }
@@ -111,6 +123,7 @@ async fn run_by_id(
         .ok_or_else(|| Problem::missing("id", format!("there is no run {n}")))?;
     let mut view = RunView::of(&run);
     view.results = run.results.as_ref();
+    view.digest = run.digest.as_ref();
     Ok(Json(RunDoc {
         caution: CAUTION,
         run: view,

@@ -10,5 +10,6 @@ mod cycle;
 mod ensemble;
 pub mod forecaster;
 pub mod preview;
+pub mod retention;
 
 pub use forecaster::{CycleError, Forecaster, RunSummary};

@@ -69,7 +69,7 @@ fn encode<T: serde::Serialize>(what: &str, value: &T) -> Result<String, StoreErr
 }
 
 const RUN_COLUMNS: &str = "id, reach_id, reach_version, inflow_forecast_id, started_at, \
-finished_at, status, error, provenance, results, ensemble";
+finished_at, status, error, provenance, results, ensemble, pruned_at, digest";
 
 fn run_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<RunRecord, StoreError> {
     let provenance: String = row.try_get("provenance")?;
@@ -105,6 +105,12 @@ fn run_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<RunRecord, StoreError> 
             .map(|e| serde_json::from_str(&e))
             .transpose()
             .map_err(|e| corrupt("forecast_runs.ensemble", e))?,
+        pruned_at: time::read_opt("forecast_runs.pruned_at", row.try_get("pruned_at")?)?,
+        digest: row
+            .try_get::<Option<String>, _>("digest")?
+            .map(|d| serde_json::from_str(&d))
+            .transpose()
+            .map_err(|e| corrupt("forecast_runs.digest", e))?,
     })
 }
 
@@ -454,7 +460,8 @@ impl Store {
     pub async fn runs(&self, reach_id: &str, limit: i64) -> Result<Vec<RunRecord>, StoreError> {
         let rows = sqlx::query(
             "SELECT id, reach_id, reach_version, inflow_forecast_id, started_at, finished_at,
-                    status, error, provenance, NULL AS results, NULL AS ensemble
+                    status, error, provenance, NULL AS results, NULL AS ensemble,
+                    pruned_at, NULL AS digest
              FROM forecast_runs WHERE reach_id = ?1 ORDER BY id DESC LIMIT ?2",
         )
         .bind(reach_id)

@@ -29,12 +29,14 @@ pub use forecasts::{InflowUpload, ReachVersion};
 mod gauges;
 mod keys;
 mod readings;
+mod retention;
 mod time;
 
 pub use alerts::{CapEntry, CurrentCap, NewCapMessage, OpenMessage};
 pub use audit::{Audit, AuditEntry};
 pub use gauges::SavedGauge;
 pub use readings::{IngestOutcome, ReadingsQuery};
+pub use retention::{Pruned, Retention};
 
 /// The schema, compiled into the binary from `migrations/`.
 pub static MIGRATOR: Migrator = sqlx::migrate!("./migrations");

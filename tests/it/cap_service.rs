@@ -769,3 +769,46 @@ async fn certainty_follows_the_ensemble_probability() {
     assert_eq!(current[&likely].certainty, "Likely");
     assert_eq!(current[&likely].params["reachcast:members_only"], "false");
 }
+
+/// Retention (issue "Operations", part 3) never touches an open chain: a
+/// chain closed by a `Cancel` that expired longer ago than the grace goes
+/// whole; the chain opened after it stays, the feed is unchanged, and the
+/// next run issues nothing new (the open chain goes on as before).
+#[tokio::test]
+async fn pruning_removes_closed_chains_only() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let s = start(dir.path()).await;
+    let feed_path = "/api/cap/feed.atom";
+    s.upload(5.0, 50.0).await;
+    s.run().await;
+    let (_, _, first) = s.feed(feed_path).await;
+    s.upload(5.0, 5.0).await;
+    s.run().await;
+    s.upload(5.0, 50.0).await;
+    s.run().await;
+    let (_, etag, open) = s.feed(feed_path).await;
+    assert!(open.iter().all(|m| m.msg_type == "Alert"), "{open:#?}");
+    assert_eq!(open.len(), first.len());
+    // 40 days on with a 30-day grace: the Cancels (6 h expiry) are long past.
+    let config = reachcast::config::RetentionConfig::default();
+    let later = Utc::now() + chrono::Duration::days(40);
+    let policy = reachcast::store::Retention::of(
+        &config,
+        &reachcast::config::ForecastConfig::default(),
+        later,
+    );
+    let p = s.app.store.prune(&policy).await.expect("prune");
+    assert_eq!(p.cap_messages as usize, 2 * first.len(), "{p:?}");
+    for m in &first {
+        let res = s.app.get(&format!("/api/cap/{}", m.identifier)).await;
+        assert_eq!(res.status(), 404, "the closed chain's Alert is gone");
+    }
+    for m in &open {
+        let res = s.app.get(&format!("/api/cap/{}", m.identifier)).await;
+        assert_eq!(res.status(), 200, "the open chain stays");
+    }
+    s.run().await;
+    let (_, etag_after, after) = s.feed(feed_path).await;
+    assert_eq!(ids(&after), ids(&open));
+    assert_eq!(etag_after, etag);
+}

@@ -25,4 +25,5 @@ mod ingest;
 mod metrics;
 mod openapi;
 mod panel;
+mod retention;
 mod route_command;
