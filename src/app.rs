@@ -52,6 +52,7 @@ impl Application {
             .start()
             .await
             .context("starting the forecast cycle")?;
+        crate::service::backups::spawn(store.clone(), &config, forecaster.clone(), stop_rx.clone());
         crate::service::retention::spawn(
             store.clone(),
             config.clone(),

@@ -63,6 +63,43 @@ pub struct Config {
     pub forecast: ForecastConfig,
     pub alerts: AlertsConfig,
     pub retention: RetentionConfig,
+    pub backup: BackupConfig,
+}
+
+/// `[backup]`: scheduled online backups with a kept count.
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct BackupConfig {
+    /// Hours between backups (the first one that long after start); 0:
+    /// none (`reachcast backup` still works).
+    pub interval_hours: u64,
+    /// Folder of the scheduled backups; empty: `backups` under
+    /// `storage.data_dir`. Put it on another disk where you can.
+    pub dir: PathBuf,
+    /// Scheduled backups kept; older ones are deleted after a new one is
+    /// written and checked.
+    pub keep: u64,
+}
+
+impl Default for BackupConfig {
+    fn default() -> Self {
+        Self {
+            interval_hours: 0,
+            dir: PathBuf::new(),
+            keep: 7,
+        }
+    }
+}
+
+impl Config {
+    /// The folder of scheduled backups.
+    pub fn backup_dir(&self) -> PathBuf {
+        if self.backup.dir.as_os_str().is_empty() {
+            self.storage.data_dir.join("backups")
+        } else {
+            self.backup.dir.clone()
+        }
+    }
 }
 
 /// `[retention]`: what is pruned from the database, and how often. Each
@@ -439,6 +476,9 @@ pub const KEYS: &[&str] = &[
     "retention.readings_days",
     "retention.cap_grace_days",
     "retention.audit_days",
+    "backup.interval_hours",
+    "backup.dir",
+    "backup.keep",
 ];
 
 impl Config {
@@ -563,6 +603,8 @@ impl Config {
             ("retention.readings_days", self.retention.readings_days, 0, 36_500),
             ("retention.cap_grace_days", self.retention.cap_grace_days, 0, 36_500),
             ("retention.audit_days", self.retention.audit_days, 0, 36_500),
+            ("backup.interval_hours", self.backup.interval_hours, 0, 8_760),
+            ("backup.keep", self.backup.keep, 1, 1_000),
         ];
         for (key, v, lo, hi) in ranges {
             if !(lo..=hi).contains(&v) {

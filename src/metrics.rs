@@ -55,6 +55,12 @@ pub struct ReachLabels {
 }
 
 #[derive(Clone, Debug, Hash, PartialEq, Eq, EncodeLabelSet)]
+pub struct OutcomeLabels {
+    /// `ok` or `failed`.
+    pub outcome: String,
+}
+
+#[derive(Clone, Debug, Hash, PartialEq, Eq, EncodeLabelSet)]
 pub struct PrunedLabels {
     /// `runs_digested`, `readings`, `reading_revisions`, `cap_messages`,
     /// `audit_rows`.
@@ -89,6 +95,7 @@ pub struct Metrics {
     pub db_pool_size: Gauge,
     pub db_pool_idle: Gauge,
     pub pruned: Family<PrunedLabels, Counter>,
+    pub backups: Family<OutcomeLabels, Counter>,
 }
 
 impl Default for Metrics {
@@ -163,6 +170,12 @@ impl Default for Metrics {
             "Rows pruned by retention, by kind (runs: results replaced by a digest)",
             pruned.clone(),
         );
+        let backups = Family::<OutcomeLabels, Counter>::default();
+        r.register(
+            "scheduled_backups",
+            "Scheduled backups by outcome",
+            backups.clone(),
+        );
         Self {
             registry: r,
             http_requests,
@@ -177,6 +190,7 @@ impl Default for Metrics {
             db_pool_size,
             db_pool_idle,
             pruned,
+            backups,
         }
     }
 }
@@ -208,6 +222,16 @@ impl Metrics {
             };
             self.pruned.get_or_create(&labels).inc_by(n);
         }
+    }
+
+    /// Counts one scheduled backup.
+    pub fn backup(&self, ok: bool) {
+        let outcome = if ok { "ok" } else { "failed" };
+        self.backups
+            .get_or_create(&OutcomeLabels {
+                outcome: outcome.to_owned(),
+            })
+            .inc();
     }
 
     /// Counts one CAP message of this `msgType`.

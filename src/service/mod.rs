@@ -5,6 +5,7 @@
 //! handlers call it and nothing below calls it.
 
 pub mod alerts;
+pub mod backups;
 pub mod board;
 mod cycle;
 mod ensemble;

@@ -171,3 +171,48 @@ async fn a_backup_under_load_restores_every_acknowledged_reading() {
     assert!(kept, "the replaced database is kept");
     assert!(stored_times(live.path()).await.len() >= acknowledged.len());
 }
+
+/// Scheduled backups (`backup.interval_hours`, `backup.keep`): three taken
+/// an hour apart with `keep = 2` leave the two newest, each a checked,
+/// complete copy; a file the schedule did not name is never deleted.
+#[tokio::test]
+async fn scheduled_backups_keep_the_newest_checked_copies() {
+    let live = tempfile::tempdir().expect("dir");
+    let app = spawn_app(live.path()).await;
+    let key = make_key(live.path(), "admin", &[]).await;
+    let res = app
+        .put_gauge(&key, GAUGE, &gauge_body("Backup gauge"))
+        .await;
+    assert_eq!(res.status(), 201);
+    let gauge = make_key(live.path(), "gauge", &[GAUGE]).await;
+    let posted = post_hours(&app, &gauge, 0, 24).await;
+    let dir = live.path().join("backups");
+    std::fs::create_dir_all(&dir).expect("dir");
+    std::fs::write(dir.join("operator-notes.sqlite3"), b"not ours").expect("write");
+    let t0 = chrono::Utc::now();
+    let mut written = Vec::new();
+    for h in 0..3 {
+        let now = t0 + chrono::Duration::hours(h);
+        let done = reachcast::service::backups::backup_once(&app.store, &dir, 2, now)
+            .await
+            .expect("backup");
+        assert!(done.summary.intact);
+        assert_eq!(done.summary.readings as usize, posted.len());
+        written.push(done.path);
+    }
+    let mut left: Vec<String> = std::fs::read_dir(&dir)
+        .expect("list")
+        .map(|e| e.expect("entry").file_name().to_string_lossy().into_owned())
+        .collect();
+    left.sort();
+    let name = |p: &Path| p.file_name().unwrap().to_string_lossy().into_owned();
+    assert_eq!(
+        left,
+        [
+            "operator-notes.sqlite3".to_owned(),
+            name(&written[1]),
+            name(&written[2])
+        ]
+    );
+    app.stop().await;
+}
