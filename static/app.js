@@ -9,6 +9,7 @@ import { profileRows, renderProfile } from "./js/profile.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
 import { $, h, HttpError, readBody } from "./js/dom.js";
+import { BAND, bandTraces, chanceLines, crestRangeText, defaultsNote, ensembleSummary, percentileName, rangeNote } from "./js/ensemble.js";
 import { loadUploads, wireForecaster } from "./js/forecaster.js";
 
 const params = new URLSearchParams(location.search);
@@ -246,11 +247,28 @@ function renderOverview(f, zone) {
       h("td", { "data-label": "Highest level reached" }, highest),
       h("td", { "data-label": "When" }, crossing),
       h("td", { "data-label": "Bridge clearance" }, clearCell),
+      h("td", { "data-label": "Chance in scenarios", class: "chances" }, chanceCell(p, f, zone)),
     );
   });
   $("overview-body").replaceChildren(...rows);
   renderSummary(f, zone);
+  const note = ensembleSummary(f.run.ensemble);
+  $("ensemble-note").textContent = note || "";
+  $("ensemble-note").hidden = !note;
   $("overview-caption").textContent = `Points of interest on ${f.reach.name}, upstream first. Times in ${zone}.`;
+}
+
+/**
+ * Per level, how many scenarios reach it and when; a level only the
+ * scenarios (or only the model run) reach says so in bold.
+ */
+function chanceCell(p, f, zone) {
+  const lines = chanceLines(levelsOf(p), f.run.ensemble, f.now, zone);
+  if (!lines.length) return h("span", { class: "muted", text: "–" });
+  const els = lines.map((l) =>
+    h("span", { class: l.note ? "chance chance-differs" : "chance", "data-level": l.id }, l.text, ...(l.note ? ["; ", h("strong", { class: "only-note", text: l.note })] : [])),
+  );
+  return h("span", {}, ...els);
 }
 
 /** On each row of a stale forecast: the word, not colour alone. */
@@ -326,25 +344,43 @@ function renderCharts(f, zone, printWidth) {
   const sections = f.points.map((p, i) => {
     const titleId = `chart-title-${i}`;
     const st = pointStatus(p, f.now);
+    const range = rangeNote(f.run.ensemble, p.ensemble?.stage, p.ensemble?.members, p.ensemble?.failed_members);
+    const crests = range?.state === "ready" ? crestRangeText(p.ensemble.crest, f.units.stage) : null;
     const svg = renderChart(document, p, {
       zone,
       units: f.units,
       now: f.now,
       width,
       titleId,
-      title: `Stage at ${p.name}: now ${formatLevel(p.current_stage, f.units.stage)}, forecast crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)}; ${st.text}.`,
+      title: `Stage at ${p.name}: now ${formatLevel(p.current_stage, f.units.stage)}, forecast crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)}; ${st.text}${crests ? `; ${crests}` : ""}.`,
     });
     return h(
       "section",
       { class: "point", id: `chart-${i}`, "aria-labelledby": `chart-h-${i}` },
       h("h3", { id: `chart-h-${i}`, text: p.name }),
-      h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)};${lowChordText(p, f.units.elevation)} peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}.` }),
+      h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)};${lowChordText(p, f.units.elevation)} peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}${crests ? `; ${crests}` : ""}.` }),
+      rangeParagraph(range, f.run.ensemble),
       h("div", { class: "chart-box" }, svg),
-      legend(p),
+      legend(p, range),
       dataTable(p, f, zone),
     );
   });
   box.replaceChildren(...sections);
+}
+
+/**
+ * Above a chart (or the profile): why there is no band (pending, failed),
+ * scenarios left out, and the caution when the spreads are defaults.
+ * Null when there is nothing to say.
+ */
+function rangeParagraph(range, brief) {
+  const parts = [];
+  if (range && range.state !== "ready") parts.push(h("strong", { class: `range-state range-${range.state}`, text: `Scenario ${range.text}.` }));
+  else if (range && range.text !== range.label) parts.push(`Scenario range ${range.text}.`);
+  const caution = range ? defaultsNote(brief) : null;
+  if (caution) parts.push(h("span", { class: "defaults-note", text: caution }));
+  if (!parts.length) return null;
+  return h("p", { class: "range-note" }, ...parts.flatMap((e, k) => (k ? [" ", e] : [e])));
 }
 
 /** " low chord 51.64 m, 0.05 m to spare;" for a bridge, else "". */
@@ -374,13 +410,18 @@ function swatch(kind) {
     add("circle", { cx: 21, cy: 6, r: 3.5, fill: "#ffffff", stroke: "#1d2733", "stroke-width": 1.5 });
   }
   if (kind === "crest") add("path", { d: "M14,0l6,6l-6,6l-6,-6z", fill: "#b03a12" });
+  if (kind === "band") add("rect", { x: 0.5, y: 1.5, width: 27, height: 9, fill: BAND.fill, stroke: BAND.edge, "stroke-width": 1 });
+  if (kind === "median") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: BAND.median, "stroke-width": 1.75, "stroke-dasharray": BAND.medianDash });
   return s;
 }
 
-function legend(p) {
+function legend(p, range) {
+  const band = range?.state === "ready" ? bandTraces(p.ensemble?.stage) : null;
   const items = [
     (p.observed || []).length ? ["observed", "observed stage (solid)"] : null,
     ["forecast", "model stage (dashed)"],
+    band ? ["band", `${range.label} (shaded)`] : null,
+    band?.mid ? ["median", `${percentileName(band.mid.percentile)} of the scenarios (short dashes)`] : null,
     levelsOf(p).some((l) => !l.kind || l.kind === "threshold") ? ["threshold", "threshold"] : null,
     p.low_chord != null || p.deck != null ? ["structure", "low chord / deck"] : null,
     ["now", "now"],
@@ -393,7 +434,8 @@ function legend(p) {
 function dataTable(p, f, zone) {
   const u = f.units;
   const rows = new Map();
-  (p.times || []).forEach((t, k) => rows.set(toMs(t), { t, stage: p.stage[k], q: p.discharge?.[k], obs: null }));
+  const traces = p.ensemble?.stage || [];
+  (p.times || []).forEach((t, k) => rows.set(toMs(t), { t, stage: p.stage[k], q: p.discharge?.[k], obs: null, pct: traces.map((tr) => tr.stage[k]) }));
   for (const o of p.observed || []) {
     const ms = toMs(o.time);
     const r = rows.get(ms) || { t: o.time, stage: null, q: null, obs: null };
@@ -410,6 +452,7 @@ function dataTable(p, f, zone) {
         h("td", { text: formatTime(r.t, zone) }),
         h("td", { class: "num", text: r.obs == null ? "–" : r.obs.toFixed(2) }),
         h("td", { class: "num", text: r.stage == null ? "–" : r.stage.toFixed(2) }),
+        ...traces.map((_, j) => h("td", { class: "num", text: r.pct?.[j] == null ? "–" : r.pct[j].toFixed(2) })),
         h("td", { class: "num", text: r.q == null ? "–" : formatFlow(r.q, u.discharge).split(" ")[0] }),
         h("td", { text: ms > nowMs ? "forecast" : "past" }),
       ),
@@ -428,7 +471,7 @@ function dataTable(p, f, zone) {
         h(
           "thead",
           {},
-          h("tr", {}, ...[`Time`, `Observed (${u.stage})`, `Model (${u.stage})`, `Discharge (${u.discharge.replace("3/s", "³/s")})`, "Part"].map((c) => h("th", { scope: "col", text: c }))),
+          h("tr", {}, ...[`Time`, `Observed (${u.stage})`, `Model (${u.stage})`, ...traces.map((tr) => `Scenarios ${percentileName(tr.percentile)} (${u.stage})`), `Discharge (${u.discharge.replace("3/s", "³/s")})`, "Part"].map((c) => h("th", { scope: "col", text: c }))),
         ),
         h("tbody", {}, ...body),
       ),
