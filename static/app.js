@@ -28,6 +28,7 @@ const state = {
   forecastUrl: null,
   profile: null, // the longitudinal profile answer, or null: section hidden
   profileUrl: null,
+  profileBrief: null, // the ensemble brief the profile was drawn with
   fetchedAt: 0, // local clock when `forecast` arrived
   etags: new Map(), // url -> { etag, body }
   timer: null,
@@ -146,9 +147,13 @@ async function refreshProfile() {
     clearProfile();
     return;
   }
-  if (res.changed || !state.profile || state.profileUrl !== url) {
+  // The profile's scenario note follows the forecast's ensemble brief,
+  // which can change (pending to failed) while the profile does not.
+  const brief = JSON.stringify(state.forecast?.run?.ensemble ?? null);
+  if (res.changed || !state.profile || state.profileUrl !== url || state.profileBrief !== brief) {
     state.profile = res.body;
     state.profileUrl = url;
+    state.profileBrief = brief;
     renderProfileSection();
   }
 }
@@ -501,10 +506,12 @@ function renderProfileSection(printWidth) {
   const box = $("profile");
   const width = printWidth || Math.min(Math.max((box.clientWidth || $("charts").clientWidth || 720) - 2, 280), 1400);
   const zone = state.forecast?.reach.time_zone;
+  const brief = state.forecast?.run?.ensemble;
+  const range = rangeNote(brief, d.highest_percentiles, brief?.members_used, brief?.failed_members);
   const svg = renderProfile(document, d, {
     width,
     titleId: "profile-title",
-    title: `Longitudinal profile of ${d.reach_name}, upstream to downstream: bed, bank tops, water surface now and the highest forecast water surface, run #${d.run_id}.`,
+    title: `Longitudinal profile of ${d.reach_name}, upstream to downstream: bed, bank tops, water surface now and the highest forecast water surface${range?.state === "ready" ? `, with ${range.label}' highest water surface shaded` : ""}, run #${d.run_id}.`,
   });
   box.replaceChildren(
     h("h2", { id: "profile-h", text: "Longitudinal profile" }),
@@ -514,13 +521,15 @@ function renderProfileSection(printWidth) {
       ...(d.freshness?.stale ? [h("strong", { class: "stale-mark", text: "stale data" }), " (may be out of date). "] : []),
       `Run #${d.run_id}, issued ${formatTime(d.issued_at, zone)}. Elevations in ${d.units.elevation}; upstream at the left.`,
     ),
+    rangeParagraph(range, brief),
     h("div", { class: "chart-box" }, svg),
-    profileLegend(d),
+    profileLegend(d, range),
     profileTable(d),
   );
 }
 
-function profileLegend(d) {
+function profileLegend(d, range) {
+  const band = range?.state === "ready" ? bandTraces(d.highest_percentiles) : null;
   const line = (attrs) => {
     const s = swatch("none");
     const e = document.createElementNS("http://www.w3.org/2000/svg", "line");
@@ -533,6 +542,8 @@ function profileLegend(d) {
     (d.banks || []).some((b) => b.left_top != null || b.right_top != null) ? [line({ stroke: "#4d5b6a", "stroke-width": 1.5, "stroke-dasharray": "6 3" }), "left bank top (dashed) / right (dotted)"] : null,
     [line({ stroke: "#1f4f8a", "stroke-width": 2 }), "water surface now (solid)"],
     [line({ stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5" }), "highest forecast water surface (dashed)"],
+    band ? [swatch("band"), `${range.label}: their highest water surface (shaded)`] : null,
+    band?.mid ? [swatch("median"), `${percentileName(band.mid.percentile)} of it (short dashes)`] : null,
     (d.points || []).some((p) => p.low_chord != null) ? [line({ stroke: "#9aa5b1", "stroke-width": 8 }), "bridge, low chord to deck"] : null,
     [line({ x1: 7, x2: 21, stroke: "#8a5a00", "stroke-width": 2 }), "threshold at a point"],
   ].filter(Boolean);
@@ -541,10 +552,11 @@ function profileLegend(d) {
 
 function profileTable(d) {
   const u = d.units.elevation;
+  const band = bandTraces(d.highest_percentiles);
   const rows = profileRows(d, u).map((r) =>
-    h("tr", { "data-point": r.name }, h("th", { scope: "row", text: r.name }), ...[r.chainage, r.bed, r.now, r.highest, r.lowChord, r.deck, r.room].map((t) => h("td", { class: "num", text: t }))),
+    h("tr", { "data-point": r.name }, h("th", { scope: "row", text: r.name }), ...[r.chainage, r.bed, r.now, r.highest, ...(band ? [r.range] : []), r.lowChord, r.deck, r.room].map((t) => h("td", { class: "num", text: t }))),
   );
-  const head = ["Point", "Chainage", `Bed (${u})`, `Stage now (${u})`, `Highest forecast (${u})`, `Low chord (${u})`, `Deck (${u})`, "Room under the low chord at the highest"];
+  const head = ["Point", "Chainage", `Bed (${u})`, `Stage now (${u})`, `Highest forecast (${u})`, ...(band ? [`Highest in scenarios, ${percentileName(band.lo.percentile)}–${percentileName(band.hi.percentile)} (${u})`] : []), `Low chord (${u})`, `Deck (${u})`, "Room under the low chord at the highest"];
   return h(
     "details",
     { class: "data" },
