@@ -137,12 +137,15 @@ export function defaultsNote(brief) {
   return "The scenarios' spreads are default assumptions, not verified against this river.";
 }
 
+/** A no-break space: a number and its "%" stay on one line. */
+const NBSP = "\u00a0";
+
 /** "35 %"; "under 1 %" and "over 99 %" rather than a rounded 0 or 100. */
 export function percentText(p) {
   if (!Number.isFinite(p)) return "–";
-  if (p > 0 && p < 0.005) return "under 1 %";
-  if (p < 1 && p > 0.995) return "over 99 %";
-  return `${Math.round(p * 100)} %`;
+  if (p > 0 && p < 0.005) return `under 1${NBSP}%`;
+  if (p < 1 && p > 0.995) return `over 99${NBSP}%`;
+  return `${Math.round(p * 100)}${NBSP}%`;
 }
 
 /** "a", "a or b", "a, b or c". */

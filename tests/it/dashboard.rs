@@ -2067,12 +2067,12 @@ async fn the_profile_draws_the_envelope_above_the_low_chord_at_that_bridges_chai
     s.app.stop().await;
 }
 
-/// Waits until the demo reach's latest run has its ensemble attached,
-/// polling the API; returns that forecast.
-async fn wait_for_ensemble(app: &TestApp) -> Value {
+/// Waits until the latest run of the forecast at `path` has its ensemble
+/// attached, polling the API; returns that forecast.
+async fn wait_for_ensemble(app: &TestApp, path: &str) -> Value {
     let deadline = Instant::now() + Duration::from_secs(180);
     loop {
-        let (status, f) = app.get_json("/api/reaches/brindlemoor/forecast").await;
+        let (status, f) = app.get_json(path).await;
         assert_eq!(status, 200, "{f}");
         match f["run"]["ensemble"]["status"].as_str() {
             Some("ready") => return f,
@@ -2120,7 +2120,7 @@ return { bands, rows, legends, notes, summary: document.getElementById('ensemble
 
 /// The overview's words for a level's chance, built here from the API's
 /// counts (not with the page's code): "7 of 20 scenarios reach the low
-/// chord (35 %)", then ", earliest Wed 14:20" for a crossing still ahead.
+/// chord (35 %)" (no-break space before "%"), then ", earliest Wed 14:20" for a crossing still ahead.
 fn chance_words(level: &Value, now: &Value) -> Option<String> {
     let c = &level["chance"];
     let (k, n) = (c["members_reaching"].as_u64()?, c["members"].as_u64()?);
@@ -2141,7 +2141,8 @@ fn chance_words(level: &Value, now: &Value) -> Option<String> {
         Some("deck") => "the deck".to_owned(),
         _ => level["name"].as_str()?.to_owned(),
     };
-    let mut s = format!("{who} {what} ({:.0} %)", (p * 100.0).round());
+    // A no-break space before "%", as the page writes it.
+    let mut s = format!("{who} {what} ({:.0}\u{a0}%)", (p * 100.0).round());
     let t = |v: &Value| chrono::DateTime::parse_from_rfc3339(v.as_str()?).ok();
     if let (Some(first), Some(now)) = (t(&c["earliest_first_above"]), t(now))
         && first > now
@@ -2167,7 +2168,7 @@ async fn the_scenarios_range_is_shaded_behind_each_hydrograph_and_each_levels_ch
     })
     .await;
     wait_for_forecast(&app, &key).await;
-    wait_for_ensemble(&app).await;
+    wait_for_ensemble(&app, "/api/reaches/brindlemoor/forecast").await;
 
     let b = Browser::start().await;
     b.goto(&app.url("/?poll=2000")).await;
@@ -2349,4 +2350,157 @@ async fn the_scenarios_range_is_shaded_behind_each_hydrograph_and_each_levels_ch
     assert!(errors.is_empty(), "console errors: {errors:#?}");
     drop(b);
     app.stop().await;
+}
+
+/// The bridge reach with an ensemble of its own: 12 scenarios whose only
+/// spread is the inflow's peak (scaled 0.5 to 1.5), so the spreads are not
+/// the defaults; flooded as in `bridge_app_flooded`, and forecast.
+async fn bridge_app_with_scenarios() -> (ReachApp, Value) {
+    let gauge = reach_gauge("Test gauge", "test-reach", "discharge", 19.0, 2.0);
+    let mut reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    reach["ensemble"] = json!({"members": 12, "peak_scale": [0.5, 1.5], "timing_shift_hours": 0,
+        "manning_factor": [1, 1], "rating_factor": [1, 1]});
+    let s = ReachApp::start(
+        |c| {
+            c.forecast.debounce_ms = 600_000;
+            c.forecast.max_ensemble_members = 12;
+        },
+        ("test-reach", &reach),
+        ("test-gauge", &gauge),
+    )
+    .await;
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &steady_readings(40.0))
+            .await,
+    )
+    .await;
+    let now = chrono::Utc::now();
+    let h = |x: i64| (now + chrono::Duration::hours(x)).to_rfc3339();
+    let series = [(0, 40.0), (4, 300.0), (8, 300.0), (16, 20.0), (48, 20.0)];
+    let upload = json!({
+        "reason": "invented flood for the scenarios",
+        "series": series.iter().map(|(t, q)| json!({"time": h(*t), "discharge": q})).collect::<Vec<_>>(),
+    });
+    let res = s
+        .app
+        .post_inflow(&s.keys.forecaster, "test-reach", &upload)
+        .await;
+    assert_eq!(res.status(), 201, "upload accepted");
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200, "run finished");
+    let f = wait_for_ensemble(&s.app, "/api/reaches/test-reach/forecast").await;
+    (s, f)
+}
+
+/// Script: the overview row's chance lines, each with its level and
+/// whether its note is set in bold; and the ensemble note.
+const CHANCE_LINES: &str = r#"
+const lines = [...document.querySelectorAll('#overview-body tr td[data-label="Chance in scenarios"] .chance')];
+if (!lines.length) return null;
+return { lines: lines.map(l => ({ level: l.dataset.level || null, text: l.textContent,
+    bold: !!l.querySelector('strong.only-note') && getComputedStyle(l.querySelector('strong.only-note')).fontWeight >= 600 })),
+  summary: document.getElementById('ensemble-note').textContent,
+  notes: [...document.querySelectorAll('#charts .range-note')].map(n => n.textContent) };
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn a_level_only_the_scenarios_reach_is_marked_so_in_the_overview() {
+    let _one = BROWSER.lock().await;
+    let (s, f) = bridge_app_with_scenarios().await;
+    let brief = &f["run"]["ensemble"];
+    assert_eq!(brief["spreads_are_defaults"], false, "{brief}");
+    // Thresholds every tenth of the way from the lowest scenario crest to
+    // the highest: those above the model run's crest only scenarios reach.
+    let p = &f["points"][0];
+    let crest = &p["ensemble"]["crest"];
+    let (lo, hi) = (
+        crest["min"].as_f64().expect("min"),
+        crest["max"].as_f64().expect("max"),
+    );
+    assert!(hi - lo > 0.05, "the scenarios spread the crest: {crest}");
+    let mut reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    reach["ensemble"] = json!({"members": 12, "peak_scale": [0.5, 1.5], "timing_shift_hours": 0,
+        "manning_factor": [1, 1], "rating_factor": [1, 1]});
+    reach["points"][0]["thresholds"] = (1..10)
+        .map(|k| {
+            let z = lo + (hi - lo) * f64::from(k) / 10.0;
+            json!({"id": format!("g{k}"), "name": format!("grid {k}"), "elevation": z})
+        })
+        .collect();
+    assert_success(s.app.put_reach(&s.keys.admin, "test-reach", &reach).await).await;
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200, "run finished");
+    let before = f["run"]["id"].as_i64().expect("run id");
+    let deadline = Instant::now() + Duration::from_secs(180);
+    let f = loop {
+        let f = wait_for_ensemble(&s.app, "/api/reaches/test-reach/forecast").await;
+        if f["run"]["id"].as_i64() > Some(before) {
+            break f;
+        }
+        assert!(Instant::now() < deadline, "no second run: {}", f["run"]);
+        tokio::time::sleep(Duration::from_millis(250)).await; // poll interval
+    };
+    let levels = f["points"][0]["levels"].as_array().expect("levels");
+    let only: Vec<&Value> = levels
+        .iter()
+        .filter(|l| l["exceeded"] == false && l["chance"]["members_reaching"].as_u64() > Some(0))
+        .collect();
+    assert!(
+        !only.is_empty(),
+        "a level only scenarios reach (the grid spans their crests): {levels:#?}"
+    );
+
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/?poll=2000")).await;
+    let f = settle_on_latest_run(&s.app, &b, "/api/reaches/test-reach/forecast").await;
+    let st = b.wait_for("the chance lines", CHANCE_LINES, 30).await;
+    let lines = st["lines"].as_array().expect("lines");
+    let levels = f["points"][0]["levels"].as_array().expect("levels");
+    let mut marked = 0;
+    for l in levels {
+        let id = l["id"].as_str().expect("level id");
+        let k = l["chance"]["members_reaching"]
+            .as_u64()
+            .expect("members reaching");
+        if k == 0 && l["exceeded"] == false {
+            continue; // named together on the "none of the scenarios" line
+        }
+        let line = lines
+            .iter()
+            .find(|x| x["level"] == id)
+            .unwrap_or_else(|| panic!("no chance line for {id}: {st}"));
+        let text = line["text"].as_str().unwrap_or_default();
+        if let Some(words) = chance_words(l, &f["now"]) {
+            assert!(text.starts_with(&words), "{id}: {text:?} starts {words:?}");
+        }
+        let only = k > 0 && l["exceeded"] == false;
+        assert_eq!(
+            text.contains("only in scenarios, not in the model run"),
+            only,
+            "{id}: {text}"
+        );
+        if only {
+            assert_eq!(line["bold"], true, "the note is set in bold: {line}");
+            marked += 1;
+        }
+    }
+    assert!(marked >= 1, "a level marked as only in scenarios: {st}");
+    // Spreads of the reach's own: no defaults caution.
+    let summary = st["summary"].as_str().unwrap_or_default();
+    assert!(summary.contains("12 scenarios"), "{summary}");
+    assert!(!summary.contains("default assumptions"), "{summary}");
+    assert!(
+        st["notes"].as_array().is_some_and(|n| n
+            .iter()
+            .all(|n| !n.as_str().unwrap_or_default().contains("default"))),
+        "{st}"
+    );
+    b.screenshot("ensemble-only-in-scenarios.png", Some("#overview"))
+        .await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
 }

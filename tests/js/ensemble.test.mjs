@@ -85,12 +85,12 @@ test("default spreads carry the caution; verified ones do not", () => {
 });
 
 test("percentages stay honest at the ends", () => {
-  assert.equal(percentText(0.35), "35 %");
-  assert.equal(percentText(0), "0 %");
-  assert.equal(percentText(1), "100 %");
-  assert.equal(percentText(1 / 200), "1 %");
-  assert.equal(percentText(1 / 400), "under 1 %");
-  assert.equal(percentText(399 / 400), "over 99 %");
+  assert.equal(percentText(0.35), "35\u00a0%");
+  assert.equal(percentText(0), "0\u00a0%");
+  assert.equal(percentText(1), "100\u00a0%");
+  assert.equal(percentText(1 / 200), "1\u00a0%");
+  assert.equal(percentText(1 / 400), "under 1\u00a0%");
+  assert.equal(percentText(399 / 400), "over 99\u00a0%");
 });
 
 const chance = (k, n, earliest = null, median = null) => ({ probability: k / n, members: n, members_reaching: k, earliest_first_above: earliest, median_first_above: median });
@@ -98,24 +98,24 @@ const lowChord = { id: "low_chord", kind: "low_chord", name: "low chord", elevat
 
 test("a level's chance in words and numbers, times on the reach's clock", () => {
   const s = chanceSentence({ ...lowChord, chance: chance(7, 20, "2026-03-18T13:20:00Z", "2026-03-18T17:05:00Z") }, NOW, ZONE);
-  assert.deepEqual(s, { text: "7 of 20 scenarios reach the low chord (35 %), earliest Wed 14:20, median Wed 18:05", note: null });
+  assert.deepEqual(s, { text: "7 of 20 scenarios reach the low chord (35\u00a0%), earliest Wed 14:20, median Wed 18:05", note: null });
   const one = chanceSentence({ ...lowChord, chance: chance(1, 20, "2026-03-18T13:20:00Z", "2026-03-18T13:20:00Z") }, NOW, ZONE);
-  assert.equal(one.text, "1 of 20 scenarios reaches the low chord (5 %), earliest Wed 14:20");
+  assert.equal(one.text, "1 of 20 scenarios reaches the low chord (5\u00a0%), earliest Wed 14:20");
   const all = chanceSentence({ ...lowChord, chance: chance(20, 20, "2026-03-18T13:20:00Z", "2026-03-18T14:00:00Z") }, NOW, ZONE);
-  assert.equal(all.text, "all 20 scenarios reach the low chord (100 %), earliest Wed 14:20, median Wed 15:00");
+  assert.equal(all.text, "all 20 scenarios reach the low chord (100\u00a0%), earliest Wed 14:20, median Wed 15:00");
   // Already above in the earliest scenario: a past time is not "earliest" ahead.
   const past = chanceSentence({ ...lowChord, chance: chance(20, 20, "2026-03-18T09:00:00Z", "2026-03-18T09:00:00Z") }, NOW, ZONE);
-  assert.equal(past.text, "all 20 scenarios reach the low chord (100 %), the earliest above since Wed 10:00");
+  assert.equal(past.text, "all 20 scenarios reach the low chord (100\u00a0%), the earliest above since Wed 10:00");
   const threshold = chanceSentence({ kind: "threshold", name: "road awash", exceeded: true, chance: chance(3, 50, "2026-03-18T22:45:00Z", "2026-03-19T01:00:00Z") }, NOW, ZONE);
-  assert.equal(threshold.text, "3 of 50 scenarios reach road awash (6 %), earliest Wed 23:45, median Thu 02:00");
+  assert.equal(threshold.text, "3 of 50 scenarios reach road awash (6\u00a0%), earliest Wed 23:45, median Thu 02:00");
   assert.equal(chanceSentence({ ...lowChord }, NOW, ZONE), null, "no chance, no sentence");
 });
 
 test("levels only the scenarios reach, or only the model run, say so", () => {
   const deck = { id: "deck", kind: "deck", name: "deck", elevation: 52.24, exceeded: false, chance: chance(2, 50, "2026-03-18T19:00:00Z", "2026-03-18T19:30:00Z") };
-  assert.deepEqual(chanceSentence(deck, NOW, ZONE), { text: "2 of 50 scenarios reach the deck (4 %), earliest Wed 20:00, median Wed 20:30", note: "only in scenarios, not in the model run" });
+  assert.deepEqual(chanceSentence(deck, NOW, ZONE), { text: "2 of 50 scenarios reach the deck (4\u00a0%), earliest Wed 20:00, median Wed 20:30", note: "only in scenarios, not in the model run" });
   const modelOnly = chanceSentence({ ...lowChord, chance: chance(0, 50) }, NOW, ZONE);
-  assert.deepEqual(modelOnly, { text: "none of the 50 scenarios reaches the low chord (0 %)", note: "only in the model run, in none of the scenarios" });
+  assert.deepEqual(modelOnly, { text: "none of the 50 scenarios reaches the low chord (0\u00a0%)", note: "only in the model run, in none of the scenarios" });
 });
 
 test("the overview's lines per point: one per level reached, then the levels none reach", () => {
@@ -127,14 +127,14 @@ test("the overview's lines per point: one per level reached, then the levels non
   ];
   const lines = chanceLines(levels, ready, NOW, ZONE);
   assert.deepEqual(lines.map((l) => l.id), ["bank-full", "low_chord", null]);
-  assert.equal(lines[1].text, "7 of 20 scenarios reach the low chord (35 %), earliest Wed 14:20, median Wed 18:05");
+  assert.equal(lines[1].text, "7 of 20 scenarios reach the low chord (35\u00a0%), earliest Wed 14:20, median Wed 18:05");
   assert.equal(lines[2].text, "none of the 20 scenarios reaches the deck or rail line");
   assert.deepEqual(chanceLines(levels, { ...ready, status: "pending" }, NOW, ZONE), [{ text: "scenarios pending: still being routed", note: null, id: null }]);
   assert.equal(chanceLines(levels, { ...ready, status: "failed", error: "out of memory" }, NOW, ZONE)[0].text, "scenarios unavailable: out of memory");
   assert.deepEqual(chanceLines(levels, null, NOW, ZONE), [], "no ensemble: no lines");
   // A single scenario reads in the singular.
   const single = chanceLines([{ ...lowChord, chance: chance(1, 1, "2026-03-18T13:20:00Z") }, { id: "deck", kind: "deck", name: "deck", exceeded: false, chance: chance(0, 1) }], ready, NOW, ZONE);
-  assert.equal(single[0].text, "the only scenario reaches the low chord (100 %), earliest Wed 14:20");
+  assert.equal(single[0].text, "the only scenario reaches the low chord (100\u00a0%), earliest Wed 14:20");
   assert.equal(single[1].text, "the only scenario does not reach the deck");
 });
 
