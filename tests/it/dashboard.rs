@@ -2504,3 +2504,122 @@ async fn a_level_only_the_scenarios_reach_is_marked_so_in_the_overview() {
     drop(b);
     s.app.stop().await;
 }
+
+/// Script: "pending" while every chart says its range is pending (and no
+/// band is drawn), "band" once every chart has its band, else null; with
+/// the overview's chance lines and the page's load marker.
+const PENDING_OR_BAND: &str = r#"
+const charts = [...document.querySelectorAll('svg.chart')];
+if (!charts.length) return null;
+const notes = [...document.querySelectorAll('#charts .range-note')].map(n => n.textContent);
+const bands = charts.filter(c => c.querySelector('path.ensemble-band')).length;
+const lines = [...document.querySelectorAll('#overview-body td[data-label="Chance in scenarios"] .chance')].map(c => c.textContent);
+const pending = bands === 0 && notes.length === charts.length && notes.every(n => n.includes('range pending'));
+const state = pending ? 'pending' : bands === charts.length ? 'band' : null;
+return state && { state, notes, lines, summary: document.getElementById('ensemble-note').textContent, marker: window.__loadMarker || null };
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn a_pending_range_says_so_and_the_band_follows_without_a_reload() {
+    let _one = BROWSER.lock().await;
+    // The bridge reach on 50 m nodes with 200 scenarios: in a debug build
+    // they take seconds to route after the model run is served, long
+    // enough for the page (asking every second) to show them pending.
+    let gauge = reach_gauge("Test gauge", "test-reach", "discharge", 19.0, 2.0);
+    let mut reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    reach["max_node_spacing"] = json!(50);
+    reach["ensemble"] = json!({"members": 200});
+    let s = ReachApp::start(
+        |c| {
+            c.forecast.debounce_ms = 600_000;
+            c.forecast.max_ensemble_members = 200;
+        },
+        ("test-reach", &reach),
+        ("test-gauge", &gauge),
+    )
+    .await;
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/?poll=1000")).await;
+    b.wait_for(
+        "the no-forecast notice",
+        "const p = document.getElementById('no-forecast'); return p.hidden ? null : p.textContent.includes('No forecast yet')",
+        30,
+    )
+    .await;
+    b.eval("window.__loadMarker = 'first load'; return true")
+        .await;
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &steady_readings(40.0))
+            .await,
+    )
+    .await;
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200, "run finished");
+    let first = b
+        .wait_for("the range pending, or the band", PENDING_OR_BAND, 60)
+        .await;
+    let f = wait_for_ensemble(&s.app, "/api/reaches/test-reach/forecast").await;
+    let took = f["run"]["ensemble"]["wall_time_s"]
+        .as_f64()
+        .expect("wall time");
+    if first["state"] == "pending" {
+        let lines = first["lines"].as_array().expect("lines");
+        assert!(
+            !lines.is_empty()
+                && lines
+                    .iter()
+                    .all(|l| l.as_str() == Some("scenarios pending: still being routed")),
+            "every row says its chances are pending: {first}"
+        );
+        let summary = first["summary"].as_str().unwrap_or_default();
+        assert!(
+            summary.contains("200 scenarios still being routed")
+                && summary.contains("default assumptions"),
+            "{summary}"
+        );
+    } else {
+        // Only scenarios routed faster than the page asks could be missed.
+        assert!(
+            took < 1.5,
+            "the scenarios took {took} s, yet the page never showed them pending: {first}"
+        );
+    }
+    let used = f["run"]["ensemble"]["members_used"]
+        .as_u64()
+        .expect("members used");
+    let after = b
+        .wait_for(
+            "the band once the scenarios are routed",
+            &format!("const s = (() => {{ {PENDING_OR_BAND} }})(); return s && s.state === 'band' ? s : null"),
+            60,
+        )
+        .await;
+    assert_eq!(
+        after["marker"], "first load",
+        "the band came by polling, without a reload: {after}"
+    );
+    assert!(
+        after["notes"].as_array().is_some_and(|n| n
+            .iter()
+            .all(|n| !n.as_str().unwrap_or_default().contains("pending"))),
+        "no pending note beside a band: {after}"
+    );
+    assert!(
+        after["summary"]
+            .as_str()
+            .is_some_and(|s| s.contains(&format!("{used} scenarios"))),
+        "{after}"
+    );
+    eprintln!(
+        "pending seen: {}; the scenarios took {took:.1} s",
+        first["state"] == "pending"
+    );
+    let errors = b
+        .page_errors(&["/api/reaches/test-reach/forecast?units=si - Failed to load resource: the server responded with a status of 404"])
+        .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
