@@ -9,7 +9,7 @@ import { profileRows, renderProfile } from "./js/profile.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
 import { $, h, HttpError, readBody } from "./js/dom.js";
-import { BAND, bandTraces, chanceLines, crestRangeText, defaultsNote, ensembleSummary, percentileName, rangeNote } from "./js/ensemble.js";
+import { BAND, bandTraces, chanceLines, crestRangeText, defaultsNote, ensembleSummary, onlyInScenarios, percentileName, rangeNote } from "./js/ensemble.js";
 import { loadUploads, wireForecaster } from "./js/forecaster.js";
 
 const params = new URLSearchParams(location.search);
@@ -292,6 +292,8 @@ function renderSummary(f, zone) {
   if (over.length) parts.push(`Over a level now: ${over.length} of ${f.points.length} points (${over.join(", ")}).`);
   if (next) parts.push(`Next crossing: ${next.name} at ${next.point} in ${formatDuration(next.inSeconds)}, ${formatTime(next.at, zone)}.`);
   if (!parts.length) parts.push("All points clear: the forecast crosses no level.");
+  const only = onlyInScenarios(f.points, f.run.ensemble);
+  if (only) parts.push(only);
   const box = $("summary");
   box.textContent = parts.join(" ");
   box.className = `summary ${over.length ? "summary-over" : next ? "summary-rising" : "summary-clear"}`;

@@ -8,7 +8,7 @@
 // `run.ensemble`, and the page then says nothing about scenarios.
 
 import { toMs } from "./format.js";
-import { levelWords, weekdayClock } from "./status.js";
+import { levelsOf, levelWords, weekdayClock } from "./status.js";
 
 /**
  * The range's colours: a light blue fill with darker blue edges (the
@@ -213,4 +213,21 @@ export function chanceLines(levels, brief, now, zone) {
   }
   if (untouched.length) lines.push({ text: `${reachers(0, n)} ${joinOr(untouched)}`, note: null, id: null });
   return lines;
+}
+
+/**
+ * For the glance summary: the levels some scenarios reach but the model
+ * run does not, across the points, or null. "Reached only in scenarios,
+ * not in the model run: the deck at Marl Bridge (5 of 12)."
+ */
+export function onlyInScenarios(points, brief) {
+  if (brief?.status !== "ready") return null;
+  const items = [];
+  for (const p of points || []) {
+    for (const l of levelsOf(p)) {
+      const c = l.chance;
+      if (c && c.members_reaching > 0 && !l.exceeded) items.push(`${levelWords(l)} at ${p.name} (${c.members_reaching} of ${c.members})`);
+    }
+  }
+  return items.length ? `Reached only in scenarios, not in the model run: ${items.join("; ")}.` : null;
 }

@@ -2400,7 +2400,7 @@ const lines = [...document.querySelectorAll('#overview-body tr td[data-label="Ch
 if (!lines.length) return null;
 return { lines: lines.map(l => ({ level: l.dataset.level || null, text: l.textContent,
     bold: !!l.querySelector('strong.only-note') && getComputedStyle(l.querySelector('strong.only-note')).fontWeight >= 600 })),
-  summary: document.getElementById('ensemble-note').textContent,
+  summary: document.getElementById('ensemble-note').textContent, glance: document.getElementById('summary').textContent,
   notes: [...document.querySelectorAll('#charts .range-note')].map(n => n.textContent) };
 "#;
 
@@ -2487,6 +2487,27 @@ async fn a_level_only_the_scenarios_reach_is_marked_so_in_the_overview() {
         }
     }
     assert!(marked >= 1, "a level marked as only in scenarios: {st}");
+    // The glance summary names them too, with their counts.
+    let glance = st["glance"].as_str().unwrap_or_default();
+    assert!(
+        glance.contains("Reached only in scenarios, not in the model run:"),
+        "{glance}"
+    );
+    for l in levels
+        .iter()
+        .filter(|l| l["exceeded"] == false && l["chance"]["members_reaching"].as_u64() > Some(0))
+    {
+        let words = match l["kind"].as_str() {
+            Some("deck") => "the deck".to_owned(),
+            Some("low_chord") => "the low chord".to_owned(),
+            _ => l["name"].as_str().unwrap_or_default().to_owned(),
+        };
+        let item = format!(
+            "{words} at Test Bridge ({} of {})",
+            l["chance"]["members_reaching"], l["chance"]["members"]
+        );
+        assert!(glance.contains(&item), "the summary names {item}: {glance}");
+    }
     // Spreads of the reach's own: no defaults caution.
     let summary = st["summary"].as_str().unwrap_or_default();
     assert!(summary.contains("12 scenarios"), "{summary}");

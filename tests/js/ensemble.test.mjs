@@ -4,7 +4,7 @@
 import { test } from "node:test";
 import assert from "node:assert/strict";
 
-import { BAND, bandPath, bandTraces, bandValues, chanceLines, chanceSentence, crestRangeText, defaultsNote, ensembleSummary, joinOr, percentText, percentileName, rangeNote, scenarios } from "../../static/js/ensemble.js";
+import { BAND, bandPath, bandTraces, bandValues, chanceLines, chanceSentence, crestRangeText, defaultsNote, ensembleSummary, joinOr, onlyInScenarios, percentText, percentileName, rangeNote, scenarios } from "../../static/js/ensemble.js";
 import { linearScale } from "../../static/js/chart.js";
 
 const ZONE = "+01:00";
@@ -161,4 +161,15 @@ test("the band's edges and median stand out from the white chart by 3:1 (WCAG 2.
   assert.ok(ratio(BAND.median, BAND.fill) >= 3, `median on the fill ${ratio(BAND.median, BAND.fill).toFixed(2)}:1`);
   // The fill is light: the deterministic trace (#b03a12) drawn over it keeps 3:1.
   assert.ok(ratio("#b03a12", BAND.fill) >= 3, `forecast on the fill ${ratio("#b03a12", BAND.fill).toFixed(2)}:1`);
+});
+
+test("the summary names the levels only scenarios reach, across the points", () => {
+  const points = [
+    { name: "Marl Bridge", levels: [{ ...lowChord, chance: chance(12, 12) }, { id: "deck", kind: "deck", name: "deck", elevation: 52.24, exceeded: false, chance: chance(5, 12) }] },
+    { name: "Tern ford", levels: [{ id: "lane", kind: "threshold", name: "close the lane", elevation: 45.4, exceeded: false, chance: chance(1, 12) }, { id: "road", kind: "threshold", name: "road awash", elevation: 44.9, exceeded: false, chance: chance(0, 12) }] },
+  ];
+  assert.equal(onlyInScenarios(points, ready), "Reached only in scenarios, not in the model run: the deck at Marl Bridge (5 of 12); close the lane at Tern ford (1 of 12).");
+  assert.equal(onlyInScenarios(points.slice(0, 1).map((p) => ({ ...p, levels: p.levels.slice(0, 1) })), ready), null, "the model run reaches all the scenarios do");
+  assert.equal(onlyInScenarios(points, { ...ready, status: "pending" }), null);
+  assert.equal(onlyInScenarios(points, null), null);
 });
