@@ -268,7 +268,7 @@ function renderOverview(f, zone) {
  * scenarios (or only the model run) reach says so in bold.
  */
 function chanceCell(p, f, zone) {
-  const lines = chanceLines(levelsOf(p), f.run.ensemble, f.now, zone);
+  const lines = chanceLines(p, f.run.ensemble, f.now, zone, f.run.started_at);
   if (!lines.length) return h("span", { class: "muted", text: "–" });
   const els = lines.map((l) =>
     h("span", { class: l.note ? "chance chance-differs" : "chance", "data-level": l.id }, l.text, ...(l.note ? ["; ", h("strong", { class: "only-note", text: l.note })] : [])),
@@ -292,7 +292,7 @@ function renderSummary(f, zone) {
   if (over.length) parts.push(`Over a level now: ${over.length} of ${f.points.length} points (${over.join(", ")}).`);
   if (next) parts.push(`Next crossing: ${next.name} at ${next.point} in ${formatDuration(next.inSeconds)}, ${formatTime(next.at, zone)}.`);
   if (!parts.length) parts.push("All points clear: the forecast crosses no level.");
-  const only = onlyInScenarios(f.points, f.run.ensemble);
+  const only = onlyInScenarios(f.points, f.run.ensemble, f.run.started_at);
   if (only) parts.push(only);
   const box = $("summary");
   box.textContent = parts.join(" ");

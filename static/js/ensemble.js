@@ -163,13 +163,29 @@ function reachers(k, n) {
 }
 
 /**
+ * Whether the model run reaches `level` over the span the chances count
+ * (from the run's issue time `issued`): above it from now on (`exceeded`),
+ * or at a sample between the issue time and now. Without that look back,
+ * a level the run crossed and left again since it was issued (a page
+ * seen hours later) would read "only in scenarios".
+ */
+export function modelReaches(point, level, issued) {
+  if (level.exceeded) return true;
+  const from = toMs(issued);
+  if (!Number.isFinite(from)) return false;
+  const stage = point.stage || [];
+  return (point.times || []).some((t, k) => toMs(t) >= from && finite(stage[k]) && stage[k] >= level.elevation);
+}
+
+/**
  * A level's chance in words and numbers, seen at `now` on `zone`'s clock:
  * { text, note } or null without a chance. text: "7 of 20 scenarios reach
  * the low chord (35 %), earliest Wed 14:20, median Wed 18:15"; note,
- * when the scenarios and the model run disagree: "only in scenarios, not
- * in the model run" or "only in the model run, in none of the scenarios".
+ * when the scenarios and the model run (`reached`: it reaches the level)
+ * disagree: "only in scenarios, not in the model run" or "only in the
+ * model run, in none of the scenarios".
  */
-export function chanceSentence(level, now, zone) {
+export function chanceSentence(level, now, zone, reached = !!level.exceeded) {
   const c = level.chance;
   if (!c || !(c.members > 0)) return null;
   const k = c.members_reaching;
@@ -186,29 +202,30 @@ export function chanceSentence(level, now, zone) {
     }
   }
   let note = null;
-  if (k > 0 && !level.exceeded) note = "only in scenarios, not in the model run";
-  if (k === 0 && level.exceeded) note = "only in the model run, in none of the scenarios";
+  if (k > 0 && !reached) note = "only in scenarios, not in the model run";
+  if (k === 0 && reached) note = "only in the model run, in none of the scenarios";
   return { text, note };
 }
 
 /**
  * The overview's lines on a point's scenarios: [{ text, note, id }].
  * Pending or failed: the one range note. Ready: a sentence per level a
- * scenario or the model run reaches, then one line naming the levels no
- * scenario reaches. No ensemble: no lines.
+ * scenario or the model run (from `issued` on) reaches, then one line
+ * naming the levels neither reaches. No ensemble: no lines.
  */
-export function chanceLines(levels, brief, now, zone) {
+export function chanceLines(point, brief, now, zone, issued) {
   if (!brief) return [];
   if (brief.status === "pending") return [{ text: "scenarios pending: still being routed", note: null, id: null }];
   if (brief.status === "failed") return [{ text: `scenarios unavailable: ${brief.error || "they failed"}`, note: null, id: null }];
   const lines = [];
   const untouched = [];
   let n = null;
-  for (const l of levels) {
-    const s = chanceSentence(l, now, zone);
+  for (const l of levelsOf(point)) {
+    const reached = modelReaches(point, l, issued);
+    const s = chanceSentence(l, now, zone, reached);
     if (!s) continue;
     n = l.chance.members;
-    if (l.chance.members_reaching === 0 && !l.exceeded) untouched.push(levelWords(l));
+    if (l.chance.members_reaching === 0 && !reached) untouched.push(levelWords(l));
     else lines.push({ ...s, id: l.id ?? l.name });
   }
   if (untouched.length) lines.push({ text: `${reachers(0, n)} ${joinOr(untouched)}`, note: null, id: null });
@@ -217,16 +234,17 @@ export function chanceLines(levels, brief, now, zone) {
 
 /**
  * For the glance summary: the levels some scenarios reach but the model
- * run does not, across the points, or null. "Reached only in scenarios,
- * not in the model run: the deck at Marl Bridge (5 of 12)."
+ * run (from `issued` on) does not, across the points, or null. "Reached
+ * only in scenarios, not in the model run: the deck at Marl Bridge (5 of
+ * 12)."
  */
-export function onlyInScenarios(points, brief) {
+export function onlyInScenarios(points, brief, issued) {
   if (brief?.status !== "ready") return null;
   const items = [];
   for (const p of points || []) {
     for (const l of levelsOf(p)) {
       const c = l.chance;
-      if (c && c.members_reaching > 0 && !l.exceeded) items.push(`${levelWords(l)} at ${p.name} (${c.members_reaching} of ${c.members})`);
+      if (c && c.members_reaching > 0 && !modelReaches(p, l, issued)) items.push(`${levelWords(l)} at ${p.name} (${c.members_reaching} of ${c.members})`);
     }
   }
   return items.length ? `Reached only in scenarios, not in the model run: ${items.join("; ")}.` : null;

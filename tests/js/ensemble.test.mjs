@@ -4,11 +4,12 @@
 import { test } from "node:test";
 import assert from "node:assert/strict";
 
-import { BAND, bandPath, bandTraces, bandValues, chanceLines, chanceSentence, crestRangeText, defaultsNote, ensembleSummary, joinOr, onlyInScenarios, percentText, percentileName, rangeNote, scenarios } from "../../static/js/ensemble.js";
+import { BAND, bandPath, bandTraces, bandValues, chanceLines, chanceSentence, crestRangeText, defaultsNote, ensembleSummary, joinOr, modelReaches, onlyInScenarios, percentText, percentileName, rangeNote, scenarios } from "../../static/js/ensemble.js";
 import { linearScale } from "../../static/js/chart.js";
 
 const ZONE = "+01:00";
 const NOW = "2026-03-18T10:00:00Z"; // Wed 11:00 on the +01:00 clock
+const ISSUED = "2026-03-18T09:00:00Z"; // the run's issue time, an hour before
 const ready = { status: "ready", members: 20, members_used: 20, failed_members: 0, seed: 7, percentiles: [10, 50, 90], spreads_are_defaults: false, wall_time_s: 1.2, error: null };
 const traces = [
   { percentile: 90, stage: [3, 4, 5] },
@@ -119,21 +120,23 @@ test("levels only the scenarios reach, or only the model run, say so", () => {
 });
 
 test("the overview's lines per point: one per level reached, then the levels none reach", () => {
+  // Listed out of order: the lines go up the levels, lowest first.
   const levels = [
-    { id: "bank-full", kind: "threshold", name: "bank full", exceeded: true, chance: chance(20, 20, "2026-03-18T09:00:00Z", "2026-03-18T09:00:00Z") },
+    { id: "rail", kind: "threshold", name: "rail line", elevation: 53, exceeded: false, chance: chance(0, 20) },
+    { id: "bank-full", kind: "threshold", name: "bank full", elevation: 50.24, exceeded: true, chance: chance(20, 20, "2026-03-18T09:00:00Z", "2026-03-18T09:00:00Z") },
     { ...lowChord, chance: chance(7, 20, "2026-03-18T13:20:00Z", "2026-03-18T17:05:00Z") },
-    { id: "deck", kind: "deck", name: "deck", exceeded: false, chance: chance(0, 20) },
-    { id: "rail", kind: "threshold", name: "rail line", exceeded: false, chance: chance(0, 20) },
+    { id: "deck", kind: "deck", name: "deck", elevation: 52.24, exceeded: false, chance: chance(0, 20) },
   ];
-  const lines = chanceLines(levels, ready, NOW, ZONE);
+  const point = { name: "Marl Bridge", times: [], stage: [], levels };
+  const lines = chanceLines(point, ready, NOW, ZONE, ISSUED);
   assert.deepEqual(lines.map((l) => l.id), ["bank-full", "low_chord", null]);
   assert.equal(lines[1].text, "7 of 20 scenarios reach the low chord (35\u00a0%), earliest Wed 14:20, median Wed 18:05");
   assert.equal(lines[2].text, "none of the 20 scenarios reaches the deck or rail line");
-  assert.deepEqual(chanceLines(levels, { ...ready, status: "pending" }, NOW, ZONE), [{ text: "scenarios pending: still being routed", note: null, id: null }]);
-  assert.equal(chanceLines(levels, { ...ready, status: "failed", error: "out of memory" }, NOW, ZONE)[0].text, "scenarios unavailable: out of memory");
-  assert.deepEqual(chanceLines(levels, null, NOW, ZONE), [], "no ensemble: no lines");
+  assert.deepEqual(chanceLines(point, { ...ready, status: "pending" }, NOW, ZONE, ISSUED), [{ text: "scenarios pending: still being routed", note: null, id: null }]);
+  assert.equal(chanceLines(point, { ...ready, status: "failed", error: "out of memory" }, NOW, ZONE, ISSUED)[0].text, "scenarios unavailable: out of memory");
+  assert.deepEqual(chanceLines(point, null, NOW, ZONE, ISSUED), [], "no ensemble: no lines");
   // A single scenario reads in the singular.
-  const single = chanceLines([{ ...lowChord, chance: chance(1, 1, "2026-03-18T13:20:00Z") }, { id: "deck", kind: "deck", name: "deck", exceeded: false, chance: chance(0, 1) }], ready, NOW, ZONE);
+  const single = chanceLines({ levels: [{ ...lowChord, chance: chance(1, 1, "2026-03-18T13:20:00Z") }, { id: "deck", kind: "deck", name: "deck", elevation: 52.24, exceeded: false, chance: chance(0, 1) }] }, ready, NOW, ZONE, ISSUED);
   assert.equal(single[0].text, "the only scenario reaches the low chord (100\u00a0%), earliest Wed 14:20");
   assert.equal(single[1].text, "the only scenario does not reach the deck");
 });
@@ -168,8 +171,24 @@ test("the summary names the levels only scenarios reach, across the points", () 
     { name: "Marl Bridge", levels: [{ ...lowChord, chance: chance(12, 12) }, { id: "deck", kind: "deck", name: "deck", elevation: 52.24, exceeded: false, chance: chance(5, 12) }] },
     { name: "Tern ford", levels: [{ id: "lane", kind: "threshold", name: "close the lane", elevation: 45.4, exceeded: false, chance: chance(1, 12) }, { id: "road", kind: "threshold", name: "road awash", elevation: 44.9, exceeded: false, chance: chance(0, 12) }] },
   ];
-  assert.equal(onlyInScenarios(points, ready), "Reached only in scenarios, not in the model run: the deck at Marl Bridge (5 of 12); close the lane at Tern ford (1 of 12).");
-  assert.equal(onlyInScenarios(points.slice(0, 1).map((p) => ({ ...p, levels: p.levels.slice(0, 1) })), ready), null, "the model run reaches all the scenarios do");
-  assert.equal(onlyInScenarios(points, { ...ready, status: "pending" }), null);
-  assert.equal(onlyInScenarios(points, null), null);
+  assert.equal(onlyInScenarios(points, ready, ISSUED), "Reached only in scenarios, not in the model run: the deck at Marl Bridge (5 of 12); close the lane at Tern ford (1 of 12).");
+  assert.equal(onlyInScenarios(points.slice(0, 1).map((p) => ({ ...p, levels: p.levels.slice(0, 1) })), ready, ISSUED), null, "the model run reaches all the scenarios do");
+  assert.equal(onlyInScenarios(points, { ...ready, status: "pending" }, ISSUED), null);
+  assert.equal(onlyInScenarios(points, null, ISSUED), null);
+});
+
+test("a level the model run crossed and left between the issue time and now is not 'only in scenarios'", () => {
+  // Chances count from the issue time (09:00Z), `exceeded` only from now
+  // (10:00Z): the run was over the 16.0 m level at 09:30Z only.
+  const level = { id: "low", kind: "threshold", name: "low", elevation: 16, exceeded: false, chance: chance(4, 12, "2026-03-18T09:20:00Z", "2026-03-18T09:40:00Z") };
+  const point = { name: "Marl Bridge", times: ["2026-03-18T08:30:00Z", "2026-03-18T09:00:00Z", "2026-03-18T09:30:00Z", "2026-03-18T10:00:00Z"], stage: [15.5, 15.8, 16.2, 15.9], levels: [level] };
+  assert.equal(modelReaches(point, level, ISSUED), true);
+  assert.equal(chanceLines(point, ready, NOW, ZONE, ISSUED)[0].note, null);
+  assert.equal(onlyInScenarios([point], ready, ISSUED), null);
+  // Above only before the issue time (the look-back) does not count.
+  const before = { ...point, stage: [16.5, 15.8, 15.9, 15.9] };
+  assert.equal(modelReaches(before, level, ISSUED), false);
+  assert.equal(chanceLines(before, ready, NOW, ZONE, ISSUED)[0].note, "only in scenarios, not in the model run");
+  assert.match(onlyInScenarios([before], ready, ISSUED), /low at Marl Bridge \(4 of 12\)/);
+  assert.equal(modelReaches(point, { ...level, exceeded: true }, ISSUED), true, "exceeded from now on");
 });
