@@ -9,6 +9,7 @@ import { profileRows, renderProfile } from "./js/profile.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
 import { $, h, HttpError, readBody } from "./js/dom.js";
+import { BAND, bandTraces, chanceLines, crestRangeText, defaultsNote, ensembleSummary, onlyInScenarios, percentileName, rangeNote } from "./js/ensemble.js";
 import { loadUploads, wireForecaster } from "./js/forecaster.js";
 
 const params = new URLSearchParams(location.search);
@@ -27,6 +28,7 @@ const state = {
   forecastUrl: null,
   profile: null, // the longitudinal profile answer, or null: section hidden
   profileUrl: null,
+  profileBrief: null, // the ensemble brief the profile was drawn with
   fetchedAt: 0, // local clock when `forecast` arrived
   etags: new Map(), // url -> { etag, body }
   timer: null,
@@ -145,9 +147,13 @@ async function refreshProfile() {
     clearProfile();
     return;
   }
-  if (res.changed || !state.profile || state.profileUrl !== url) {
+  // The profile's scenario note follows the forecast's ensemble brief,
+  // which can change (pending to failed) while the profile does not.
+  const brief = JSON.stringify(state.forecast?.run?.ensemble ?? null);
+  if (res.changed || !state.profile || state.profileUrl !== url || state.profileBrief !== brief) {
     state.profile = res.body;
     state.profileUrl = url;
+    state.profileBrief = brief;
     renderProfileSection();
   }
 }
@@ -246,11 +252,28 @@ function renderOverview(f, zone) {
       h("td", { "data-label": "Highest level reached" }, highest),
       h("td", { "data-label": "When" }, crossing),
       h("td", { "data-label": "Bridge clearance" }, clearCell),
+      h("td", { "data-label": "Chance in scenarios", class: "chances" }, chanceCell(p, f, zone)),
     );
   });
   $("overview-body").replaceChildren(...rows);
   renderSummary(f, zone);
+  const note = ensembleSummary(f.run.ensemble);
+  $("ensemble-note").textContent = note || "";
+  $("ensemble-note").hidden = !note;
   $("overview-caption").textContent = `Points of interest on ${f.reach.name}, upstream first. Times in ${zone}.`;
+}
+
+/**
+ * Per level, how many scenarios reach it and when; a level only the
+ * scenarios (or only the model run) reach says so in bold.
+ */
+function chanceCell(p, f, zone) {
+  const lines = chanceLines(p, f.run.ensemble, f.now, zone, f.run.started_at);
+  if (!lines.length) return h("span", { class: "muted", text: "–" });
+  const els = lines.map((l) =>
+    h("span", { class: l.note ? "chance chance-differs" : "chance", "data-level": l.id }, l.text, ...(l.note ? ["; ", h("strong", { class: "only-note", text: l.note })] : [])),
+  );
+  return h("span", {}, ...els);
 }
 
 /** On each row of a stale forecast: the word, not colour alone. */
@@ -269,6 +292,8 @@ function renderSummary(f, zone) {
   if (over.length) parts.push(`Over a level now: ${over.length} of ${f.points.length} points (${over.join(", ")}).`);
   if (next) parts.push(`Next crossing: ${next.name} at ${next.point} in ${formatDuration(next.inSeconds)}, ${formatTime(next.at, zone)}.`);
   if (!parts.length) parts.push("All points clear: the forecast crosses no level.");
+  const only = onlyInScenarios(f.points, f.run.ensemble, f.run.started_at);
+  if (only) parts.push(only);
   const box = $("summary");
   box.textContent = parts.join(" ");
   box.className = `summary ${over.length ? "summary-over" : next ? "summary-rising" : "summary-clear"}`;
@@ -326,25 +351,43 @@ function renderCharts(f, zone, printWidth) {
   const sections = f.points.map((p, i) => {
     const titleId = `chart-title-${i}`;
     const st = pointStatus(p, f.now);
+    const range = rangeNote(f.run.ensemble, p.ensemble?.stage, p.ensemble?.members, p.ensemble?.failed_members);
+    const crests = range?.state === "ready" ? crestRangeText(p.ensemble.crest, f.units.stage) : null;
     const svg = renderChart(document, p, {
       zone,
       units: f.units,
       now: f.now,
       width,
       titleId,
-      title: `Stage at ${p.name}: now ${formatLevel(p.current_stage, f.units.stage)}, forecast crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)}; ${st.text}.`,
+      title: `Stage at ${p.name}: now ${formatLevel(p.current_stage, f.units.stage)}, forecast crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)}; ${st.text}${crests ? `; ${crests}` : ""}.`,
     });
     return h(
       "section",
       { class: "point", id: `chart-${i}`, "aria-labelledby": `chart-h-${i}` },
       h("h3", { id: `chart-h-${i}`, text: p.name }),
-      h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)};${lowChordText(p, f.units.elevation)} peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}.` }),
+      h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)};${lowChordText(p, f.units.elevation)} peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}${crests ? `; ${crests}` : ""}.` }),
+      rangeParagraph(range, f.run.ensemble),
       h("div", { class: "chart-box" }, svg),
-      legend(p),
+      legend(p, range),
       dataTable(p, f, zone),
     );
   });
   box.replaceChildren(...sections);
+}
+
+/**
+ * Above a chart (or the profile): why there is no band (pending, failed),
+ * scenarios left out, and the caution when the spreads are defaults.
+ * Null when there is nothing to say.
+ */
+function rangeParagraph(range, brief) {
+  const parts = [];
+  if (range && range.state !== "ready") parts.push(h("strong", { class: `range-state range-${range.state}`, text: `Scenario ${range.text}.` }));
+  else if (range && range.text !== range.label) parts.push(`Scenario range ${range.text}.`);
+  const caution = range ? defaultsNote(brief) : null;
+  if (caution) parts.push(h("span", { class: "defaults-note", text: caution }));
+  if (!parts.length) return null;
+  return h("p", { class: "range-note" }, ...parts.flatMap((e, k) => (k ? [" ", e] : [e])));
 }
 
 /** " low chord 51.64 m, 0.05 m to spare;" for a bridge, else "". */
@@ -374,13 +417,18 @@ function swatch(kind) {
     add("circle", { cx: 21, cy: 6, r: 3.5, fill: "#ffffff", stroke: "#1d2733", "stroke-width": 1.5 });
   }
   if (kind === "crest") add("path", { d: "M14,0l6,6l-6,6l-6,-6z", fill: "#b03a12" });
+  if (kind === "band") add("rect", { x: 0.5, y: 1.5, width: 27, height: 9, fill: BAND.fill, stroke: BAND.edge, "stroke-width": 1 });
+  if (kind === "median") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: BAND.median, "stroke-width": 1.75, "stroke-dasharray": BAND.medianDash });
   return s;
 }
 
-function legend(p) {
+function legend(p, range) {
+  const band = range?.state === "ready" ? bandTraces(p.ensemble?.stage) : null;
   const items = [
     (p.observed || []).length ? ["observed", "observed stage (solid)"] : null,
     ["forecast", "model stage (dashed)"],
+    band ? ["band", `${range.label} (shaded)`] : null,
+    band?.mid ? ["median", `${percentileName(band.mid.percentile)} of the scenarios (short dashes)`] : null,
     levelsOf(p).some((l) => !l.kind || l.kind === "threshold") ? ["threshold", "threshold"] : null,
     p.low_chord != null || p.deck != null ? ["structure", "low chord / deck"] : null,
     ["now", "now"],
@@ -393,7 +441,8 @@ function legend(p) {
 function dataTable(p, f, zone) {
   const u = f.units;
   const rows = new Map();
-  (p.times || []).forEach((t, k) => rows.set(toMs(t), { t, stage: p.stage[k], q: p.discharge?.[k], obs: null }));
+  const traces = p.ensemble?.stage || [];
+  (p.times || []).forEach((t, k) => rows.set(toMs(t), { t, stage: p.stage[k], q: p.discharge?.[k], obs: null, pct: traces.map((tr) => tr.stage[k]) }));
   for (const o of p.observed || []) {
     const ms = toMs(o.time);
     const r = rows.get(ms) || { t: o.time, stage: null, q: null, obs: null };
@@ -410,6 +459,7 @@ function dataTable(p, f, zone) {
         h("td", { text: formatTime(r.t, zone) }),
         h("td", { class: "num", text: r.obs == null ? "–" : r.obs.toFixed(2) }),
         h("td", { class: "num", text: r.stage == null ? "–" : r.stage.toFixed(2) }),
+        ...traces.map((_, j) => h("td", { class: "num", text: r.pct?.[j] == null ? "–" : r.pct[j].toFixed(2) })),
         h("td", { class: "num", text: r.q == null ? "–" : formatFlow(r.q, u.discharge).split(" ")[0] }),
         h("td", { text: ms > nowMs ? "forecast" : "past" }),
       ),
@@ -428,7 +478,7 @@ function dataTable(p, f, zone) {
         h(
           "thead",
           {},
-          h("tr", {}, ...[`Time`, `Observed (${u.stage})`, `Model (${u.stage})`, `Discharge (${u.discharge.replace("3/s", "³/s")})`, "Part"].map((c) => h("th", { scope: "col", text: c }))),
+          h("tr", {}, ...[`Time`, `Observed (${u.stage})`, `Model (${u.stage})`, ...traces.map((tr) => `Scenarios ${percentileName(tr.percentile)} (${u.stage})`), `Discharge (${u.discharge.replace("3/s", "³/s")})`, "Part"].map((c) => h("th", { scope: "col", text: c }))),
         ),
         h("tbody", {}, ...body),
       ),
@@ -458,10 +508,12 @@ function renderProfileSection(printWidth) {
   const box = $("profile");
   const width = printWidth || Math.min(Math.max((box.clientWidth || $("charts").clientWidth || 720) - 2, 280), 1400);
   const zone = state.forecast?.reach.time_zone;
+  const brief = state.forecast?.run?.ensemble;
+  const range = rangeNote(brief, d.highest_percentiles, brief?.members_used, brief?.failed_members);
   const svg = renderProfile(document, d, {
     width,
     titleId: "profile-title",
-    title: `Longitudinal profile of ${d.reach_name}, upstream to downstream: bed, bank tops, water surface now and the highest forecast water surface, run #${d.run_id}.`,
+    title: `Longitudinal profile of ${d.reach_name}, upstream to downstream: bed, bank tops, water surface now and the highest forecast water surface${range?.state === "ready" ? `, with ${range.label}' highest water surface shaded` : ""}, run #${d.run_id}.`,
   });
   box.replaceChildren(
     h("h2", { id: "profile-h", text: "Longitudinal profile" }),
@@ -471,13 +523,15 @@ function renderProfileSection(printWidth) {
       ...(d.freshness?.stale ? [h("strong", { class: "stale-mark", text: "stale data" }), " (may be out of date). "] : []),
       `Run #${d.run_id}, issued ${formatTime(d.issued_at, zone)}. Elevations in ${d.units.elevation}; upstream at the left.`,
     ),
+    rangeParagraph(range, brief),
     h("div", { class: "chart-box" }, svg),
-    profileLegend(d),
+    profileLegend(d, range),
     profileTable(d),
   );
 }
 
-function profileLegend(d) {
+function profileLegend(d, range) {
+  const band = range?.state === "ready" ? bandTraces(d.highest_percentiles) : null;
   const line = (attrs) => {
     const s = swatch("none");
     const e = document.createElementNS("http://www.w3.org/2000/svg", "line");
@@ -490,6 +544,8 @@ function profileLegend(d) {
     (d.banks || []).some((b) => b.left_top != null || b.right_top != null) ? [line({ stroke: "#4d5b6a", "stroke-width": 1.5, "stroke-dasharray": "6 3" }), "left bank top (dashed) / right (dotted)"] : null,
     [line({ stroke: "#1f4f8a", "stroke-width": 2 }), "water surface now (solid)"],
     [line({ stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5" }), "highest forecast water surface (dashed)"],
+    band ? [swatch("band"), `${range.label}: their highest water surface (shaded)`] : null,
+    band?.mid ? [swatch("median"), `${percentileName(band.mid.percentile)} of it (short dashes)`] : null,
     (d.points || []).some((p) => p.low_chord != null) ? [line({ stroke: "#9aa5b1", "stroke-width": 8 }), "bridge, low chord to deck"] : null,
     [line({ x1: 7, x2: 21, stroke: "#8a5a00", "stroke-width": 2 }), "threshold at a point"],
   ].filter(Boolean);
@@ -498,10 +554,11 @@ function profileLegend(d) {
 
 function profileTable(d) {
   const u = d.units.elevation;
+  const band = bandTraces(d.highest_percentiles);
   const rows = profileRows(d, u).map((r) =>
-    h("tr", { "data-point": r.name }, h("th", { scope: "row", text: r.name }), ...[r.chainage, r.bed, r.now, r.highest, r.lowChord, r.deck, r.room].map((t) => h("td", { class: "num", text: t }))),
+    h("tr", { "data-point": r.name }, h("th", { scope: "row", text: r.name }), ...[r.chainage, r.bed, r.now, r.highest, ...(band ? [r.range] : []), r.lowChord, r.deck, r.room].map((t) => h("td", { class: "num", text: t }))),
   );
-  const head = ["Point", "Chainage", `Bed (${u})`, `Stage now (${u})`, `Highest forecast (${u})`, `Low chord (${u})`, `Deck (${u})`, "Room under the low chord at the highest"];
+  const head = ["Point", "Chainage", `Bed (${u})`, `Stage now (${u})`, `Highest forecast (${u})`, ...(band ? [`Highest in scenarios, ${percentileName(band.lo.percentile)}–${percentileName(band.hi.percentile)} (${u})`] : []), `Low chord (${u})`, `Deck (${u})`, "Room under the low chord at the highest"];
   return h(
     "details",
     { class: "data" },

@@ -2,6 +2,7 @@
 // node --test) and an inline-SVG renderer that takes the document to draw in.
 
 import { crossingMarks, drawCrossings } from "./crossings.js";
+import { BAND, bandPath, bandTraces, bandValues } from "./ensemble.js";
 import { HOUR, formatClock, formatDay, formatLevel, offsetLabel, offsetMinutes, toMs, wallClock } from "./format.js";
 import { el, pathOf } from "./svg.js";
 
@@ -184,10 +185,13 @@ export function renderChart(doc, point, ctx) {
   const c = chartFrame(doc, point, ctx);
   drawStageAxis(c);
   drawTimeAxis(c);
+  const clip = plotClip(c, ctx.titleId);
+  // The scenarios' range behind the level lines and the series.
+  if (c.band) drawBand(c.doc, c.svg, c.times, c.band, c.x, c.y, clip);
   // Threshold and structure lines, labelled at the right.
   const { m, width, height } = c;
   const levelBoxes = drawLevels(doc, c.svg, c.levels, { x0: m.left, x1: width - m.right, top: m.top, bottom: height - m.bottom, y: c.y, yt: c.yt, unit: c.unit });
-  drawSeries(c, point, ctx.titleId);
+  drawSeries(c, point, clip);
   // On top of the series: where the forecast rises above and falls back
   // below each level, clear of the level labels and the "now" label.
   const inView = c.levels.filter((l) => l.value >= c.yt.min && l.value <= c.yt.max);
@@ -212,11 +216,14 @@ function chartFrame(doc, point, ctx) {
   const times = (point.times || []).map(toMs);
   const obs = (point.observed || []).map((o) => [toMs(o.time), o.stage]);
   const levels = chartLevels(point);
+  // The scenarios' range, drawn when the point has one: its values widen
+  // the stage axis so the band is not cut off.
+  const band = bandTraces(point.ensemble?.stage);
   const allT = times.concat(obs.map((o) => o[0])).filter(Number.isFinite);
   if (Number.isFinite(nowMs)) allT.push(nowMs);
   const t0 = Math.min(...allT);
   const t1 = Math.max(...allT);
-  const vals = (point.stage || []).concat(obs.map((o) => o[1]), levels.map((l) => l.value)).filter((v) => v != null && Number.isFinite(v));
+  const vals = (point.stage || []).concat(obs.map((o) => o[1]), levels.map((l) => l.value), bandValues(band)).filter((v) => v != null && Number.isFinite(v));
   // 5 cm, or the same length in feet (0.3048 m each, NIST SP 811).
   const resolution = unit === "ft" ? 0.05 / 0.3048 : 0.05;
   const plotPx = height - m.bottom - m.top;
@@ -225,7 +232,7 @@ function chartFrame(doc, point, ctx) {
   el(doc, "title", { id: ctx.titleId }, svg, ctx.title || `Stage at ${point.name}`);
   const x = linearScale(t0, t1, m.left, width - m.right);
   const y = linearScale(yt.min, yt.max, height - m.bottom, m.top);
-  return { doc, svg, width, height, m, unit, zone: ctx.zone, nowMs, times, obs, levels, t0, t1, yt, plotPx, x, y };
+  return { doc, svg, width, height, m, unit, zone: ctx.zone, nowMs, times, obs, levels, band, t0, t1, yt, plotPx, x, y };
 }
 
 /** Horizontal grid and stage labels. */
@@ -268,16 +275,40 @@ function drawTimeAxis({ doc, svg, m, width, height, x, t0, t1, zone, nowMs }) {
 }
 
 /**
- * Series: model stage dashed, observed solid on top of it. A zoomed axis
- * cuts the series off at the plot's edges.
+ * On a zoomed axis, the attributes that cut a series off at the plot's
+ * edges (and the clip path they name); else none.
  */
-function drawSeries({ doc, svg, m, width, plotPx, x, y, yt, times, obs }, point, titleId) {
-  const clip = yt.zoomed ? { "clip-path": `url(#clip-${titleId})` } : {};
-  if (yt.zoomed) el(doc, "rect", { x: m.left, y: m.top, width: width - m.left - m.right, height: plotPx }, el(doc, "clipPath", { id: `clip-${titleId}` }, svg));
+function plotClip({ doc, svg, m, width, plotPx, yt }, titleId) {
+  if (!yt.zoomed) return {};
+  el(doc, "rect", { x: m.left, y: m.top, width: width - m.left - m.right, height: plotPx }, el(doc, "clipPath", { id: `clip-${titleId}` }, svg));
+  return { "clip-path": `url(#clip-${titleId})` };
+}
+
+/** Series: model stage dashed, observed solid on top of it. */
+function drawSeries({ doc, svg, x, y, times, obs }, point, clip) {
   const fcPath = pathOf(times, point.stage || [], x, y);
   if (fcPath) el(doc, "path", { d: fcPath, fill: "none", stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5", class: "series-forecast", ...clip }, svg);
   const obsPath = pathOf(obs.map((o) => o[0]), obs.map((o) => o[1]), x, y);
   if (obsPath) el(doc, "path", { d: obsPath, fill: "none", stroke: "#1d2733", "stroke-width": 2.5, class: "series-observed", ...clip }, svg);
+}
+
+/**
+ * The range between the lowest and highest percentile: a light fill with
+ * an edge along each bound, and the median as short dashes. Each part
+ * carries its percentile for the browser tests and a <title> for a
+ * pointer.
+ */
+export function drawBand(doc, svg, times, band, x, y, clip = {}) {
+  const g = el(doc, "g", { class: "ensemble", "data-lo": band.lo.percentile, "data-hi": band.hi.percentile, ...clip }, svg);
+  const d = bandPath(times, band.lo.stage, band.hi.stage, x, y);
+  if (d) el(doc, "path", { d, fill: BAND.fill, stroke: "none", class: "ensemble-band" }, g);
+  for (const t of [band.lo, band.hi]) {
+    const edge = pathOf(times, t.stage, x, y);
+    if (edge) el(doc, "path", { d: edge, fill: "none", stroke: BAND.edge, "stroke-width": 1, class: "ensemble-edge", "data-percentile": t.percentile }, g);
+  }
+  const mid = band.mid && pathOf(times, band.mid.stage, x, y);
+  if (mid) el(doc, "path", { d: mid, fill: "none", stroke: BAND.median, "stroke-width": 1.75, "stroke-dasharray": BAND.medianDash, class: "ensemble-median", "data-percentile": band.mid.percentile }, g);
+  return g;
 }
 
 /** The crest marker's box (drawn last), for keeping labels off it. */

@@ -1,10 +1,12 @@
 // The longitudinal profile of the reach, upstream to downstream: the bed,
 // the bank tops, the water surface now, the envelope of the highest
-// forecast water surface, and the points of interest with their levels.
+// forecast water surface with the scenarios' range of it shaded behind,
+// and the points of interest with their levels.
 // Scales and geometry are pure (node tests); the renderer takes the
 // document to draw in.
 
-import { linearScale, niceTicks, spreadLabels } from "./chart.js";
+import { drawBand, linearScale, niceTicks, spreadLabels } from "./chart.js";
+import { bandTraces, bandValues } from "./ensemble.js";
 import { FT_PER_MILE, formatChainage, formatLevel } from "./format.js";
 import { el, pathOf } from "./svg.js";
 
@@ -20,6 +22,7 @@ export function chainageUnit(unit) {
 export function profileElevations(data) {
   const out = [];
   for (const n of data.nodes || []) out.push(n.bed, n.stage_now, n.highest);
+  out.push(...bandValues(bandTraces(data.highest_percentiles)));
   for (const b of data.banks || []) out.push(b.left_top, b.right_top);
   for (const p of data.points || []) {
     out.push(p.low_chord, p.deck, p.highest, p.stage_now);
@@ -86,15 +89,28 @@ export function valueAt(xs, ys, at) {
 }
 
 /**
+ * The scenarios' highest water surface at `chainage`, from the lowest to
+ * the highest percentile along the nodes: "51.21–51.49", or "–".
+ */
+export function rangeAt(data, chainage) {
+  const band = bandTraces(data.highest_percentiles);
+  if (!band) return "–";
+  const cs = (data.nodes || []).map((n) => n.chainage);
+  const lo = valueAt(cs, band.lo.stage, chainage);
+  const hi = valueAt(cs, band.hi.stage, chainage);
+  return Number.isFinite(lo) && Number.isFinite(hi) ? `${lo.toFixed(2)}–${hi.toFixed(2)}` : "–";
+}
+
+/**
  * The table under the profile, one row per point, as strings:
- * { name, chainage, bed, now, highest, lowChord, deck, room }.
+ * { name, chainage, bed, now, highest, range, lowChord, deck, room }.
  */
 export function profileRows(data, unit) {
   const num = (v) => (v == null || !Number.isFinite(v) ? "–" : v.toFixed(2));
   return (data.points || []).map((p) => {
     const room = roomUnderLowChord(p);
     const roomText = room == null ? "–" : room >= 0 ? `${room.toFixed(2)} ${unit} below` : `water ${(-room).toFixed(2)} ${unit} above`;
-    return { id: p.id, name: p.name, chainage: formatChainage(p.chainage, unit), bed: num(p.bed), now: num(p.stage_now), highest: num(p.highest), lowChord: num(p.low_chord), deck: num(p.deck), room: roomText };
+    return { id: p.id, name: p.name, chainage: formatChainage(p.chainage, unit), bed: num(p.bed), now: num(p.stage_now), highest: num(p.highest), range: rangeAt(data, p.chainage), lowChord: num(p.low_chord), deck: num(p.deck), room: roomText };
   });
 }
 
@@ -112,6 +128,9 @@ export function renderProfile(doc, data, ctx) {
   el(doc, "title", { id: ctx.titleId }, svg, ctx.title || `Longitudinal profile of ${data.reach_name}`);
   drawAxes(doc, svg, L);
   drawTerrain(doc, svg, data, L);
+  // The scenarios' highest water surface, behind the model run's lines.
+  const band = bandTraces(data.highest_percentiles);
+  if (band) drawBand(doc, svg, (data.nodes || []).map((n) => n.chainage), band, L.x, L.y);
   drawWater(doc, svg, data.nodes, L);
   drawPoints(doc, svg, data.points || [], L);
   return svg;

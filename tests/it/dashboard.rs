@@ -2066,3 +2066,581 @@ async fn the_profile_draws_the_envelope_above_the_low_chord_at_that_bridges_chai
     drop(b);
     s.app.stop().await;
 }
+
+/// Waits until the latest run of the forecast at `path` has its ensemble
+/// attached, polling the API; returns that forecast.
+async fn wait_for_ensemble(app: &TestApp, path: &str) -> Value {
+    let deadline = Instant::now() + Duration::from_secs(180);
+    loop {
+        let (status, f) = app.get_json(path).await;
+        assert_eq!(status, 200, "{f}");
+        match f["run"]["ensemble"]["status"].as_str() {
+            Some("ready") => return f,
+            Some("failed") => panic!("the demo ensemble failed: {}", f["run"]["ensemble"]),
+            _ => {}
+        }
+        assert!(
+            Instant::now() < deadline,
+            "no ensemble after 180 s: {}",
+            f["run"]["ensemble"]
+        );
+        tokio::time::sleep(Duration::from_millis(250)).await; // poll interval
+    }
+}
+
+/// Script: per hydrograph, the scenario band's parts and what the page
+/// says about them; per overview row, its chance lines; the profile's band.
+const ENSEMBLE_STATE: &str = r#"
+const charts = [...document.querySelectorAll('svg.chart')];
+const bands = charts.map(svg => {
+  const g = svg.querySelector('g.ensemble');
+  const band = g && g.querySelector('path.ensemble-band');
+  if (!band) return null;
+  const pts = d => d.split(/(?=[MLZ])/).filter(s => s[0] !== 'Z').map(s => s.slice(1).split(',').map(Number));
+  const edge = q => { const e = g.querySelector(`path.ensemble-edge[data-percentile="${q}"]`); return e ? pts(e.getAttribute('d')) : null; };
+  const med = g.querySelector('path.ensemble-median');
+  const fc = svg.querySelector('path.series-forecast');
+  const box = band.getBBox();
+  return { point: svg.dataset.point, lo: Number(g.dataset.lo), hi: Number(g.dataset.hi), vertices: pts(band.getAttribute('d')).length,
+    outlines: (band.getAttribute('d').match(/Z/g) || []).length, height: box.height, width: box.width, fill: band.getAttribute('fill'),
+    loEdge: edge(g.dataset.lo), hiEdge: edge(g.dataset.hi), median: med ? pts(med.getAttribute('d')) : null, medianDash: med ? med.getAttribute('stroke-dasharray') : null,
+    behindForecast: !!fc && !!(g.compareDocumentPosition(fc) & Node.DOCUMENT_POSITION_FOLLOWING) };
+});
+if (!bands.length || bands.some(b => !b)) return null;
+const rows = Object.fromEntries([...document.querySelectorAll('#overview-body tr')].map(tr =>
+  [tr.dataset.point, [...tr.querySelectorAll('td[data-label="Chance in scenarios"] .chance')].map(c => c.textContent)]));
+const legends = [...document.querySelectorAll('#charts .legend')].map(l => l.textContent);
+const notes = [...document.querySelectorAll('#charts .range-note')].map(n => n.textContent);
+const psvg = document.querySelector('#profile svg.profile-chart');
+const c = document.getElementById('caution');
+return { bands, rows, legends, notes, summary: document.getElementById('ensemble-note').textContent,
+  profileBand: !!(psvg && psvg.querySelector('path.ensemble-band')), profileLegend: (document.querySelector('#profile .legend') || {}).textContent || '',
+  caution: c.getBoundingClientRect().height > 0 ? c.textContent : null };
+"#;
+
+/// The overview's words for a level's chance, built here from the API's
+/// counts (not with the page's code): "7 of 20 scenarios reach the low
+/// chord (35 %)" (no-break space before "%"), then ", earliest Wed 14:20" for a crossing still ahead.
+fn chance_words(level: &Value, now: &Value) -> Option<String> {
+    let c = &level["chance"];
+    let (k, n) = (c["members_reaching"].as_u64()?, c["members"].as_u64()?);
+    let p = c["probability"].as_f64()?;
+    // Rounded percentages only; the page words the ends ("under 1 %").
+    if k == 0 || n < 2 || (p > 0.0 && p < 0.005) || (p < 1.0 && p > 0.995) {
+        return None;
+    }
+    let who = if k == n {
+        format!("all {n} scenarios reach")
+    } else if k == 1 {
+        format!("1 of {n} scenarios reaches")
+    } else {
+        format!("{k} of {n} scenarios reach")
+    };
+    let what = match level["kind"].as_str() {
+        Some("low_chord") => "the low chord".to_owned(),
+        Some("deck") => "the deck".to_owned(),
+        _ => level["name"].as_str()?.to_owned(),
+    };
+    // A no-break space before "%", as the page writes it.
+    let mut s = format!("{who} {what} ({:.0}\u{a0}%)", (p * 100.0).round());
+    let t = |v: &Value| chrono::DateTime::parse_from_rfc3339(v.as_str()?).ok();
+    if let (Some(first), Some(now)) = (t(&c["earliest_first_above"]), t(now))
+        && first > now
+    {
+        s.push_str(&format!(
+            ", earliest {}",
+            weekday_clock_plus_one(&c["earliest_first_above"])
+        ));
+    }
+    Some(s)
+}
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn the_scenarios_range_is_shaded_behind_each_hydrograph_and_each_levels_chance_is_worded() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    // More scenarios than the tests' default four, so that chances fall
+    // between none and all.
+    let (app, key) = demo_app(dir.path(), |c| {
+        quiet_replay(c);
+        c.forecast.max_ensemble_members = 12;
+    })
+    .await;
+    wait_for_forecast(&app, &key).await;
+    wait_for_ensemble(&app, "/api/reaches/brindlemoor/forecast").await;
+
+    let b = Browser::start().await;
+    b.goto(&app.url("/?poll=2000")).await;
+    let f = settle_on_latest_run(&app, &b, "/api/reaches/brindlemoor/forecast").await;
+    let brief = &f["run"]["ensemble"];
+    assert_eq!(brief["status"], "ready", "{brief}");
+    assert_eq!(
+        f["reach"]["time_zone"], "+01:00",
+        "the expected times are written on the demo's +01:00 clock"
+    );
+    let st = b
+        .wait_for("a scenario band on every hydrograph", ENSEMBLE_STATE, 30)
+        .await;
+    let points = f["points"].as_array().expect("points");
+    let bands = st["bands"].as_array().expect("bands");
+    assert_eq!(bands.len(), points.len(), "one band per chart: {st}");
+
+    let pct: Vec<f64> = brief["percentiles"]
+        .as_array()
+        .expect("percentiles")
+        .iter()
+        .filter_map(Value::as_f64)
+        .collect();
+    let (lo, hi) = (
+        pct.iter().copied().fold(f64::INFINITY, f64::min),
+        pct.iter().copied().fold(f64::NEG_INFINITY, f64::max),
+    );
+    let used = brief["members_used"].as_u64().expect("members used");
+    let key_text = format!("p{lo}–p{hi} of {used} scenarios (shaded)");
+    for (p, band) in points.iter().zip(bands) {
+        assert_eq!(
+            band["point"], p["name"],
+            "charts in the API's order: {band}"
+        );
+        assert_eq!(
+            (band["lo"].as_f64(), band["hi"].as_f64()),
+            (Some(lo), Some(hi)),
+            "the band spans the lowest to the highest served percentile: {band}"
+        );
+        // One outline through every sample of the lowest and highest
+        // trace: the API's samples forwards along the top, back along
+        // the bottom.
+        let finite = |q: f64| {
+            p["ensemble"]["stage"]
+                .as_array()
+                .expect("traces")
+                .iter()
+                .find(|t| t["percentile"].as_f64() == Some(q))
+                .and_then(|t| t["stage"].as_array())
+                .map(|s| s.iter().filter(|v| v.is_f64()).count())
+                .expect("the trace is served")
+        };
+        assert_eq!(band["outlines"], 1, "{band}");
+        assert_eq!(
+            band["vertices"].as_u64(),
+            Some((finite(lo) + finite(hi)) as u64),
+            "{band}"
+        );
+        assert!(
+            band["height"].as_f64().unwrap_or(0.0) > 1.0
+                && band["width"].as_f64().unwrap_or(0.0) > 100.0,
+            "the band is drawn with an area: {band}"
+        );
+        assert_eq!(
+            band["behindForecast"], true,
+            "drawn before (behind) the model run: {band}"
+        );
+        // The median lies within the band at every sample: on screen
+        // (y down) the highest percentile is above it, the lowest below.
+        let (top, bottom, mid) = (
+            band["hiEdge"].as_array().expect("top edge"),
+            band["loEdge"].as_array().expect("bottom edge"),
+            band["median"].as_array().expect("median drawn"),
+        );
+        assert_eq!(top.len(), mid.len(), "{band}");
+        for ((t, m), l) in top.iter().zip(mid).zip(bottom) {
+            let y = |v: &Value| v[1].as_f64().expect("y");
+            assert!(
+                y(t) <= y(m) + 0.11 && y(m) <= y(l) + 0.11,
+                "p50 within p{lo}–p{hi} at x {}: {t} {m} {l}",
+                m[0]
+            );
+        }
+        assert!(
+            band["medianDash"]
+                .as_str()
+                .is_some_and(|d| !d.trim().is_empty()),
+            "the median is dashed: {band}"
+        );
+    }
+    for l in st["legends"].as_array().expect("legends") {
+        let l = l.as_str().unwrap_or_default();
+        assert!(l.contains(&key_text), "key names the band: {l}");
+        assert!(
+            l.contains("p50 of the scenarios"),
+            "key names the median: {l}"
+        );
+    }
+
+    // Each level's chance in words and numbers, in its point's row.
+    let mut checked = 0;
+    for p in points {
+        let name = p["name"].as_str().expect("name");
+        let lines: Vec<String> = st["rows"][name]
+            .as_array()
+            .unwrap_or_else(|| panic!("row for {name}: {st}"))
+            .iter()
+            .map(|v| v.as_str().unwrap_or_default().to_owned())
+            .collect();
+        for l in p["levels"].as_array().expect("levels") {
+            let Some(words) = chance_words(l, &f["now"]) else {
+                continue;
+            };
+            let line = lines
+                .iter()
+                .find(|t| t.starts_with(&words))
+                .unwrap_or_else(|| panic!("{name}: no line starting {words:?} in {lines:#?}"));
+            checked += 1;
+            let only = l["exceeded"] == false;
+            assert_eq!(
+                line.contains("only in scenarios"),
+                only,
+                "{name}: a level only the scenarios reach says so, others not: {line}"
+            );
+        }
+    }
+    assert!(
+        checked >= 3,
+        "the demo's levels have chances to check: {st}"
+    );
+
+    // The built-in spreads are said to be unverified, beside the charts
+    // and in the overview.
+    let defaults = "default assumptions, not verified against this river";
+    let summary = st["summary"].as_str().unwrap_or_default();
+    let notes = st["notes"].as_array().expect("notes");
+    if brief["spreads_are_defaults"] == true {
+        assert!(summary.contains(defaults), "{summary}");
+        assert_eq!(notes.len(), points.len(), "a note per chart: {st}");
+        assert!(
+            notes
+                .iter()
+                .all(|n| n.as_str().is_some_and(|n| n.contains(defaults))),
+            "{st}"
+        );
+    } else {
+        assert!(!summary.contains(defaults), "{summary}");
+    }
+    assert!(
+        summary.contains(&format!("{used} scenarios")),
+        "the overview counts the scenarios: {summary}"
+    );
+
+    // The profile shades the scenarios' highest water surface too.
+    let (status, prof) = app.get_json("/api/reaches/brindlemoor/profile").await;
+    assert_eq!(status, 200, "{prof}");
+    let has_range = prof["highest_percentiles"]
+        .as_array()
+        .is_some_and(|t| t.len() >= 2);
+    assert_eq!(st["profileBand"].as_bool(), Some(has_range), "{st}");
+    if has_range {
+        let l = st["profileLegend"].as_str().unwrap_or_default();
+        assert!(
+            l.contains(&format!("p{lo}–p{hi} of {used} scenarios")),
+            "{l}"
+        );
+    }
+    assert!(
+        st["caution"]
+            .as_str()
+            .is_some_and(|c| c.contains("Advisory model output only")
+                && c.contains("not an official warning")),
+        "the caution stays: {st}"
+    );
+    b.screenshot("ensemble-band.png", Some("#charts")).await;
+    b.screenshot("ensemble-overview.png", Some("#overview"))
+        .await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    app.stop().await;
+}
+
+/// The bridge reach with an ensemble of its own: 12 scenarios whose only
+/// spread is the inflow's peak (scaled 0.5 to 1.5), so the spreads are not
+/// the defaults; flooded as in `bridge_app_flooded`, and forecast.
+async fn bridge_app_with_scenarios() -> (ReachApp, Value) {
+    let gauge = reach_gauge("Test gauge", "test-reach", "discharge", 19.0, 2.0);
+    let mut reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    reach["ensemble"] = json!({"members": 12, "peak_scale": [0.5, 1.5], "timing_shift_hours": 0,
+        "manning_factor": [1, 1], "rating_factor": [1, 1]});
+    let s = ReachApp::start(
+        |c| {
+            c.forecast.debounce_ms = 600_000;
+            c.forecast.max_ensemble_members = 12;
+        },
+        ("test-reach", &reach),
+        ("test-gauge", &gauge),
+    )
+    .await;
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &steady_readings(40.0))
+            .await,
+    )
+    .await;
+    let now = chrono::Utc::now();
+    let h = |x: i64| (now + chrono::Duration::hours(x)).to_rfc3339();
+    let series = [(0, 40.0), (4, 300.0), (8, 300.0), (16, 20.0), (48, 20.0)];
+    let upload = json!({
+        "reason": "invented flood for the scenarios",
+        "series": series.iter().map(|(t, q)| json!({"time": h(*t), "discharge": q})).collect::<Vec<_>>(),
+    });
+    let res = s
+        .app
+        .post_inflow(&s.keys.forecaster, "test-reach", &upload)
+        .await;
+    assert_eq!(res.status(), 201, "upload accepted");
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200, "run finished");
+    let f = wait_for_ensemble(&s.app, "/api/reaches/test-reach/forecast").await;
+    (s, f)
+}
+
+/// Script: the overview row's chance lines, each with its level and
+/// whether its note is set in bold; and the ensemble note.
+const CHANCE_LINES: &str = r#"
+const lines = [...document.querySelectorAll('#overview-body tr td[data-label="Chance in scenarios"] .chance')];
+if (!lines.length) return null;
+return { lines: lines.map(l => ({ level: l.dataset.level || null, text: l.textContent,
+    bold: !!l.querySelector('strong.only-note') && getComputedStyle(l.querySelector('strong.only-note')).fontWeight >= 600 })),
+  summary: document.getElementById('ensemble-note').textContent, glance: document.getElementById('summary').textContent,
+  notes: [...document.querySelectorAll('#charts .range-note')].map(n => n.textContent) };
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn a_level_only_the_scenarios_reach_is_marked_so_in_the_overview() {
+    let _one = BROWSER.lock().await;
+    let (s, f) = bridge_app_with_scenarios().await;
+    let brief = &f["run"]["ensemble"];
+    assert_eq!(brief["spreads_are_defaults"], false, "{brief}");
+    // Thresholds every tenth of the way from the lowest scenario crest to
+    // the highest: those above the model run's crest only scenarios reach.
+    let p = &f["points"][0];
+    let crest = &p["ensemble"]["crest"];
+    let (lo, hi) = (
+        crest["min"].as_f64().expect("min"),
+        crest["max"].as_f64().expect("max"),
+    );
+    assert!(hi - lo > 0.05, "the scenarios spread the crest: {crest}");
+    let mut reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    reach["ensemble"] = json!({"members": 12, "peak_scale": [0.5, 1.5], "timing_shift_hours": 0,
+        "manning_factor": [1, 1], "rating_factor": [1, 1]});
+    reach["points"][0]["thresholds"] = (1..10)
+        .map(|k| {
+            let z = lo + (hi - lo) * f64::from(k) / 10.0;
+            json!({"id": format!("g{k}"), "name": format!("grid {k}"), "elevation": z})
+        })
+        .collect();
+    assert_success(s.app.put_reach(&s.keys.admin, "test-reach", &reach).await).await;
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200, "run finished");
+    let before = f["run"]["id"].as_i64().expect("run id");
+    let deadline = Instant::now() + Duration::from_secs(180);
+    let f = loop {
+        let f = wait_for_ensemble(&s.app, "/api/reaches/test-reach/forecast").await;
+        if f["run"]["id"].as_i64() > Some(before) {
+            break f;
+        }
+        assert!(Instant::now() < deadline, "no second run: {}", f["run"]);
+        tokio::time::sleep(Duration::from_millis(250)).await; // poll interval
+    };
+    let levels = f["points"][0]["levels"].as_array().expect("levels");
+    let only: Vec<&Value> = levels
+        .iter()
+        .filter(|l| l["exceeded"] == false && l["chance"]["members_reaching"].as_u64() > Some(0))
+        .collect();
+    assert!(
+        !only.is_empty(),
+        "a level only scenarios reach (the grid spans their crests): {levels:#?}"
+    );
+
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/?poll=2000")).await;
+    let f = settle_on_latest_run(&s.app, &b, "/api/reaches/test-reach/forecast").await;
+    let st = b.wait_for("the chance lines", CHANCE_LINES, 30).await;
+    let lines = st["lines"].as_array().expect("lines");
+    let levels = f["points"][0]["levels"].as_array().expect("levels");
+    let mut marked = 0;
+    for l in levels {
+        let id = l["id"].as_str().expect("level id");
+        let k = l["chance"]["members_reaching"]
+            .as_u64()
+            .expect("members reaching");
+        if k == 0 && l["exceeded"] == false {
+            continue; // named together on the "none of the scenarios" line
+        }
+        let line = lines
+            .iter()
+            .find(|x| x["level"] == id)
+            .unwrap_or_else(|| panic!("no chance line for {id}: {st}"));
+        let text = line["text"].as_str().unwrap_or_default();
+        if let Some(words) = chance_words(l, &f["now"]) {
+            assert!(text.starts_with(&words), "{id}: {text:?} starts {words:?}");
+        }
+        let only = k > 0 && l["exceeded"] == false;
+        assert_eq!(
+            text.contains("only in scenarios, not in the model run"),
+            only,
+            "{id}: {text}"
+        );
+        if only {
+            assert_eq!(line["bold"], true, "the note is set in bold: {line}");
+            marked += 1;
+        }
+    }
+    assert!(marked >= 1, "a level marked as only in scenarios: {st}");
+    // The glance summary names them too, with their counts.
+    let glance = st["glance"].as_str().unwrap_or_default();
+    assert!(
+        glance.contains("Reached only in scenarios, not in the model run:"),
+        "{glance}"
+    );
+    for l in levels
+        .iter()
+        .filter(|l| l["exceeded"] == false && l["chance"]["members_reaching"].as_u64() > Some(0))
+    {
+        let words = match l["kind"].as_str() {
+            Some("deck") => "the deck".to_owned(),
+            Some("low_chord") => "the low chord".to_owned(),
+            _ => l["name"].as_str().unwrap_or_default().to_owned(),
+        };
+        let item = format!(
+            "{words} at Test Bridge ({} of {})",
+            l["chance"]["members_reaching"], l["chance"]["members"]
+        );
+        assert!(glance.contains(&item), "the summary names {item}: {glance}");
+    }
+    // Spreads of the reach's own: no defaults caution.
+    let summary = st["summary"].as_str().unwrap_or_default();
+    assert!(summary.contains("12 scenarios"), "{summary}");
+    assert!(!summary.contains("default assumptions"), "{summary}");
+    assert!(
+        st["notes"].as_array().is_some_and(|n| n
+            .iter()
+            .all(|n| !n.as_str().unwrap_or_default().contains("default"))),
+        "{st}"
+    );
+    b.screenshot("ensemble-only-in-scenarios.png", Some("#overview"))
+        .await;
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
+
+/// Script: "pending" while every chart says its range is pending (and no
+/// band is drawn), "band" once every chart has its band, else null; with
+/// the overview's chance lines and the page's load marker.
+const PENDING_OR_BAND: &str = r#"
+const charts = [...document.querySelectorAll('svg.chart')];
+if (!charts.length) return null;
+const notes = [...document.querySelectorAll('#charts .range-note')].map(n => n.textContent);
+const bands = charts.filter(c => c.querySelector('path.ensemble-band')).length;
+const lines = [...document.querySelectorAll('#overview-body td[data-label="Chance in scenarios"] .chance')].map(c => c.textContent);
+const pending = bands === 0 && notes.length === charts.length && notes.every(n => n.includes('range pending'));
+const state = pending ? 'pending' : bands === charts.length ? 'band' : null;
+return state && { state, notes, lines, summary: document.getElementById('ensemble-note').textContent, marker: window.__loadMarker || null };
+"#;
+
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn a_pending_range_says_so_and_the_band_follows_without_a_reload() {
+    let _one = BROWSER.lock().await;
+    // The bridge reach on 50 m nodes with 200 scenarios: in a debug build
+    // they take seconds to route after the model run is served, long
+    // enough for the page (asking every second) to show them pending.
+    let gauge = reach_gauge("Test gauge", "test-reach", "discharge", 19.0, 2.0);
+    let mut reach = bridge_reach("Test reach (invented)", "Test Bridge", "test-gauge");
+    reach["max_node_spacing"] = json!(50);
+    reach["ensemble"] = json!({"members": 200});
+    let s = ReachApp::start(
+        |c| {
+            c.forecast.debounce_ms = 600_000;
+            c.forecast.max_ensemble_members = 200;
+        },
+        ("test-reach", &reach),
+        ("test-gauge", &gauge),
+    )
+    .await;
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/?poll=1000")).await;
+    b.wait_for(
+        "the no-forecast notice",
+        "const p = document.getElementById('no-forecast'); return p.hidden ? null : p.textContent.includes('No forecast yet')",
+        30,
+    )
+    .await;
+    b.eval("window.__loadMarker = 'first load'; return true")
+        .await;
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, "test-gauge", &steady_readings(40.0))
+            .await,
+    )
+    .await;
+    let run = s.app.run_and_wait(&s.keys.forecaster, "test-reach").await;
+    assert_eq!(run.status(), 200, "run finished");
+    let first = b
+        .wait_for("the range pending, or the band", PENDING_OR_BAND, 60)
+        .await;
+    let f = wait_for_ensemble(&s.app, "/api/reaches/test-reach/forecast").await;
+    let took = f["run"]["ensemble"]["wall_time_s"]
+        .as_f64()
+        .expect("wall time");
+    if first["state"] == "pending" {
+        let lines = first["lines"].as_array().expect("lines");
+        assert!(
+            !lines.is_empty()
+                && lines
+                    .iter()
+                    .all(|l| l.as_str() == Some("scenarios pending: still being routed")),
+            "every row says its chances are pending: {first}"
+        );
+        let summary = first["summary"].as_str().unwrap_or_default();
+        assert!(
+            summary.contains("200 scenarios still being routed")
+                && summary.contains("default assumptions"),
+            "{summary}"
+        );
+    } else {
+        // Only scenarios routed faster than the page asks could be missed.
+        assert!(
+            took < 1.5,
+            "the scenarios took {took} s, yet the page never showed them pending: {first}"
+        );
+    }
+    let used = f["run"]["ensemble"]["members_used"]
+        .as_u64()
+        .expect("members used");
+    let after = b
+        .wait_for(
+            "the band once the scenarios are routed",
+            &format!("const s = (() => {{ {PENDING_OR_BAND} }})(); return s && s.state === 'band' ? s : null"),
+            60,
+        )
+        .await;
+    assert_eq!(
+        after["marker"], "first load",
+        "the band came by polling, without a reload: {after}"
+    );
+    assert!(
+        after["notes"].as_array().is_some_and(|n| n
+            .iter()
+            .all(|n| !n.as_str().unwrap_or_default().contains("pending"))),
+        "no pending note beside a band: {after}"
+    );
+    assert!(
+        after["summary"]
+            .as_str()
+            .is_some_and(|s| s.contains(&format!("{used} scenarios"))),
+        "{after}"
+    );
+    eprintln!(
+        "pending seen: {}; the scenarios took {took:.1} s",
+        first["state"] == "pending"
+    );
+    let errors = b
+        .page_errors(&["/api/reaches/test-reach/forecast?units=si - Failed to load resource: the server responded with a status of 404"])
+        .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}

@@ -3,7 +3,7 @@
 import { test } from "node:test";
 import assert from "node:assert/strict";
 
-import { BRIDGE_HALF_PX, bedArea, bridgeBox, chainageUnit, profileElevations, profileLayout, profileRows, roomUnderLowChord, valueAt } from "../../static/js/profile.js";
+import { BRIDGE_HALF_PX, bedArea, bridgeBox, chainageUnit, profileElevations, profileLayout, profileRows, rangeAt, roomUnderLowChord, valueAt } from "../../static/js/profile.js";
 import { linearScale } from "../../static/js/chart.js";
 
 const nodes = [0, 2500, 5000, 7500, 10000].map((c) => ({ chainage: c, bed: 20 - c / 1000, stage_now: 21 - c / 1000, highest: 25 - c / 1000 + (c === 5000 ? 0.5 : 0), highest_time: "2026-03-14T18:00:00Z" }));
@@ -70,7 +70,30 @@ test("the table gives the room under the low chord at the highest, or the water 
   assert.equal(roomUnderLowChord(bridge), -1);
   assert.equal(roomUnderLowChord({ low_chord: null, highest: 3 }), null);
   const [r] = profileRows(data, "m");
-  assert.deepEqual(r, { id: "marl-bridge", name: "Marl Bridge", chainage: "km 5.0", bed: "15.00", now: "16.00", highest: "20.50", lowChord: "19.50", deck: "20.50", room: "water 1.00 m above" });
+  assert.deepEqual(r, { id: "marl-bridge", name: "Marl Bridge", chainage: "km 5.0", bed: "15.00", now: "16.00", highest: "20.50", lowChord: "19.50", deck: "20.50", range: "–", room: "water 1.00 m above" });
   const [dry] = profileRows({ points: [{ ...bridge, highest: 19.2 }] }, "m");
   assert.equal(dry.room, "0.30 m below");
+});
+
+// The scenarios' highest water surface per node: p10 half a metre under
+// the envelope, p90 half a metre over it, p50 on it.
+const banded = { ...data, highest_percentiles: [90, 10, 50].map((q) => ({ percentile: q, stage: nodes.map((n) => n.highest + (q - 50) / 80) })) };
+
+test("the scenarios' range widens the vertical domain to its lowest and highest percentile", () => {
+  const zs = profileElevations(banded);
+  assert.equal(Math.max(...zs), 25.5); // p90 upstream: 25 + 0.5
+  assert.equal(Math.min(...zs), 10, "the bed still sets the bottom");
+  assert.ok(zs.includes(14.5), "p10 at 10 km: 15 - 0.5");
+  assert.deepEqual(profileElevations(data), profileElevations({ ...data, highest_percentiles: [] }), "no scenarios, no change");
+});
+
+test("the table gives the scenarios' highest at each point, interpolated between nodes", () => {
+  // At 5 km (a node) the envelope is 20.5: p10 20.0, p90 21.0.
+  assert.equal(rangeAt(banded, 5000), "20.00–21.00");
+  // At 3750 m, halfway between nodes at 2500 m (22.5) and 5000 m (20.5):
+  // envelope 21.5, so p10 21.0 and p90 22.0.
+  assert.equal(rangeAt(banded, 3750), "21.00–22.00");
+  assert.equal(rangeAt(banded, 12000), "–", "beyond the last node");
+  assert.equal(rangeAt(data, 5000), "–", "no scenarios");
+  assert.equal(profileRows(banded, "m")[0].range, "20.00–21.00");
 });
