@@ -55,6 +55,9 @@ pub fn router() -> Router<AppState> {
         )
 }
 
+/// The reason of a CSV upload sent without `?reason=`.
+const NO_CSV_REASON: &str = "(no reason given with this CSV upload)";
+
 /// Most samples in one upload (a 30-day hydrograph at one minute).
 const MAX_POINTS: usize = 50_000;
 
@@ -121,7 +124,10 @@ fn parse_body(
             Ok((b.reason, h))
         }
         "text/csv" => match inflow::parse_csv(body) {
-            Ok(h) => Ok((query_reason.unwrap_or_default(), h)),
+            // CSV has no place of its own for a reason, and the document
+            // cannot make the query's `reason` required for CSV only; the
+            // upload still names its key.
+            Ok(h) => Ok((query_reason.unwrap_or_else(|| NO_CSV_REASON.to_owned()), h)),
             Err(InflowError::Malformed(m)) => Err(Problem::malformed("csv", m)),
             Err(InflowError::Rows(e)) => Err(rows_refused(&e)),
         },

@@ -449,15 +449,17 @@ enum Order {
 }
 
 /// `cursor`: the `next_cursor` of the previous page (the time of its last
-/// reading, in Unix ms; clients pass it back unchanged).
+/// reading, in Unix ms; clients pass it back unchanged). A whole number
+/// beyond the 64-bit range reads as that range's end: no reading lies
+/// beyond it either way, and the document allows up to 19 digits.
 #[derive(Debug, Clone, Copy)]
 struct Cursor(i64);
 
 impl<'de> Deserialize<'de> for Cursor {
     fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
         let text = String::deserialize(d)?;
-        text.parse()
-            .map(Cursor)
+        text.parse::<i128>()
+            .map(|v| Cursor(v.clamp(i64::MIN.into(), i64::MAX.into()) as i64))
             .map_err(|_| serde::de::Error::custom("not a cursor returned by this endpoint"))
     }
 }
