@@ -15,6 +15,7 @@ mod cli_keys;
 mod connections;
 mod dashboard;
 mod dashboard_js;
+mod deploy_files;
 mod durability;
 mod engine_routing;
 mod engine_sections;
