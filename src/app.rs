@@ -52,6 +52,10 @@ impl Application {
             .start()
             .await
             .context("starting the forecast cycle")?;
+        let metrics = forecaster.metrics_handle();
+        store.observe_write_waits(std::sync::Arc::new(move |waited| {
+            metrics.db_write_wait.observe(waited.as_secs_f64());
+        }));
         crate::service::backups::spawn(store.clone(), &config, forecaster.clone(), stop_rx.clone());
         crate::service::retention::spawn(
             store.clone(),

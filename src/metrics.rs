@@ -96,6 +96,7 @@ pub struct Metrics {
     pub db_pool_idle: Gauge,
     pub pruned: Family<PrunedLabels, Counter>,
     pub backups: Family<OutcomeLabels, Counter>,
+    pub db_write_wait: Histogram,
 }
 
 impl Default for Metrics {
@@ -176,6 +177,13 @@ impl Default for Metrics {
             "Scheduled backups by outcome",
             backups.clone(),
         );
+        // 0.1 ms to about 3 s.
+        let db_write_wait = Histogram::new(exponential_buckets(0.0001, 2.0, 15));
+        r.register(
+            "db_write_wait_seconds",
+            "Wait of each write transaction for the write lock and a pooled connection",
+            db_write_wait.clone(),
+        );
         Self {
             registry: r,
             http_requests,
@@ -191,6 +199,7 @@ impl Default for Metrics {
             db_pool_idle,
             pruned,
             backups,
+            db_write_wait,
         }
     }
 }

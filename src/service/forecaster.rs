@@ -104,6 +104,11 @@ impl Forecaster {
         &self.inner.metrics
     }
 
+    /// The service's metrics, shared.
+    pub fn metrics_handle(&self) -> Arc<crate::metrics::Metrics> {
+        self.inner.metrics.clone()
+    }
+
     /// Loads the board from the stored runs and starts a worker per reach.
     pub async fn start(&self) -> Result<(), StoreError> {
         for reach in self.inner.store.reaches().await? {

@@ -102,14 +102,28 @@ impl MigrationStatus {
 }
 
 /// Handle to the database. Cheap to clone (the pool is reference-counted).
-#[derive(Clone, Debug)]
+#[derive(Clone)]
 pub struct Store {
     pool: SqlitePool,
     /// Serialises this process's write transactions. SQLite admits one
     /// writer at a time anyway; waiting here is a wake-up when the lock
     /// frees, where waiting in SQLite is its busy handler's sleep-and-retry.
     write_lock: std::sync::Arc<tokio::sync::Mutex<()>>,
+    /// Told how long each write waited for the lock and a connection
+    /// (the metrics' histogram); set once by the application.
+    write_waits: std::sync::Arc<std::sync::OnceLock<WaitObserver>>,
 }
+
+impl std::fmt::Debug for Store {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Store")
+            .field("pool", &self.pool)
+            .finish_non_exhaustive()
+    }
+}
+
+/// Receives the wait of each write transaction before it began.
+pub type WaitObserver = std::sync::Arc<dyn Fn(Duration) + Send + Sync>;
 
 impl Store {
     /// Opens (creating if needed) the database in `cfg.data_dir`, applies
@@ -143,12 +157,19 @@ impl Store {
         Ok(Self {
             pool,
             write_lock: std::sync::Arc::default(),
+            write_waits: std::sync::Arc::default(),
         })
     }
 
     /// Begins a write transaction (`BEGIN IMMEDIATE`, so the write lock is
     /// taken at the start and a read-then-write never fails midway), after
     /// taking this process's writer lock. Keep the guard until commit.
+    /// Reports every write's wait to `observe` from now on (the first
+    /// observer set stays).
+    pub fn observe_write_waits(&self, observe: WaitObserver) {
+        let _ = self.write_waits.set(observe);
+    }
+
     async fn begin_write(
         &self,
     ) -> Result<
@@ -158,8 +179,12 @@ impl Store {
         ),
         StoreError,
     > {
+        let asked = std::time::Instant::now();
         let guard = self.write_lock.clone().lock_owned().await;
         let tx = self.pool.begin_with("BEGIN IMMEDIATE").await?;
+        if let Some(observe) = self.write_waits.get() {
+            observe(asked.elapsed());
+        }
         Ok((guard, tx))
     }
 

@@ -95,5 +95,8 @@ async fn metrics_count_what_was_sent() {
     ));
     assert!((0.0..120.0).contains(&reading_age), "{reading_age}");
     assert!(get("reachcast_db_pool_connections") >= 1.0);
+    // Every write transaction's wait is observed: at least the readings'
+    // and the run's.
+    assert!(get("reachcast_db_write_wait_seconds_count") >= 2.0);
     s.app.stop().await;
 }
