@@ -291,6 +291,10 @@ pub struct StorageConfig {
     /// `/ready` answers 503 when less than this many MiB are free under
     /// `data_dir` (0: never).
     pub min_free_mib: u64,
+    /// Largest size of the database file in MiB (SQLite's
+    /// `max_page_count`); a write that would grow it further is refused
+    /// like one on a full disk (0: no limit).
+    pub max_size_mib: u64,
 }
 
 /// `[log]`: what the service writes to standard error.
@@ -397,6 +401,7 @@ impl Default for StorageConfig {
             busy_timeout_ms: 5_000,
             max_connections: 8,
             min_free_mib: 100,
+            max_size_mib: 0,
         }
     }
 }
@@ -439,6 +444,7 @@ pub const KEYS: &[&str] = &[
     "storage.busy_timeout_ms",
     "storage.max_connections",
     "storage.min_free_mib",
+    "storage.max_size_mib",
     "log.filter",
     "log.format",
     "demo.enabled",
@@ -581,6 +587,7 @@ impl Config {
             ("storage.busy_timeout_ms", st.busy_timeout_ms, 0, 600_000),
             ("storage.max_connections", st.max_connections.into(), 1, 64),
             ("storage.min_free_mib", st.min_free_mib, 0, u64::MAX),
+            ("storage.max_size_mib", st.max_size_mib, 0, 1 << 30),
             ("demo.replay_secs", self.demo.replay_secs, 1, 3_600),
             ("auth.rate_limit_burst", self.auth.rate_limit_burst.into(), 1, u64::MAX),
             ("auth.anonymous_rate_limit_burst", self.auth.anonymous_rate_limit_burst.into(), 1, u64::MAX),

@@ -38,6 +38,8 @@ struct Ready {
     migrations: MigrationStatus,
     instance: Instance,
     disk: Disk,
+    /// The latest write that committed and the latest that failed.
+    writes: crate::store::WriteHealth,
     /// Per reach: whether its scheduler runs, and its last good run's age.
     reaches: Vec<ReachReady>,
 }
@@ -112,6 +114,14 @@ async fn ready(State(state): State<AppState>) -> Result<Json<Ready>, Problem> {
         unavailable("cannot read service identity".to_owned())
     })?;
     let disk = disk_check(&state).map_err(unavailable)?;
+    let writes = state.store.write_health();
+    if let Some(f) = writes.last_failure.as_ref().filter(|_| writes.failing()) {
+        return Err(unavailable(format!(
+            "database writes are failing since {}: {}; new data is refused, nothing acknowledged is lost",
+            crate::wire_time::format(f.at),
+            f.error
+        )));
+    }
     let stopped = state.forecaster.stopped_workers();
     if let Some(r) = stopped.first() {
         return Err(unavailable(format!(
@@ -128,6 +138,7 @@ async fn ready(State(state): State<AppState>) -> Result<Json<Ready>, Problem> {
         migrations,
         instance: instance.into(),
         disk,
+        writes,
         reaches,
     }))
 }

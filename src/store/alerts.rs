@@ -173,64 +173,68 @@ impl Store {
             )
             .await?;
         }
-        tx.commit().await?;
+        self.commit(tx).await?;
         Ok(())
     }
 
     /// Stores the messages of one plan, all or none, each with its audit
     /// entry (`cap.issue`, actor `system:alerts`) in the same transaction.
     pub async fn insert_cap_messages(&self, msgs: &[NewCapMessage]) -> Result<(), StoreError> {
-        if msgs.is_empty() {
-            return Ok(());
-        }
-        let (_guard, mut tx) = self.begin_write().await?;
-        for m in msgs {
-            let i = &m.issued;
-            let material = i
-                .material
-                .as_ref()
-                .map(serde_json::to_string)
-                .transpose()
-                .map_err(|e| StoreError::Corrupt(format!("cap material: {e}")))?;
-            sqlx::query(
-                "INSERT INTO cap_messages (identifier, reach_id, key, point_id, level_id,
+        let r = async {
+            if msgs.is_empty() {
+                return Ok(());
+            }
+            let (_guard, mut tx) = self.begin_write().await?;
+            for m in msgs {
+                let i = &m.issued;
+                let material = i
+                    .material
+                    .as_ref()
+                    .map(serde_json::to_string)
+                    .transpose()
+                    .map_err(|e| StoreError::Corrupt(format!("cap material: {e}")))?;
+                sqlx::query(
+                    "INSERT INTO cap_messages (identifier, reach_id, key, point_id, level_id,
                      sender, sent, expires, msg_type, active, material, document, title,
                      summary, run_id)
                  VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15)",
-            )
-            .bind(&i.identifier)
-            .bind(&i.key.reach)
-            .bind(key_text(&i.key))
-            .bind(&i.key.point)
-            .bind(&i.key.level)
-            .bind(&i.sender)
-            .bind(cap::cap_time(i.sent))
-            .bind(cap::cap_time(m.expires))
-            .bind(i.msg_type.cap_value())
-            .bind(i64::from(i.active))
-            .bind(material)
-            .bind(&m.document)
-            .bind(&m.title)
-            .bind(&m.summary)
-            .bind(m.run_id)
-            .execute(&mut *tx)
-            .await?;
-            audit_alerts(
-                &mut tx,
-                "cap.issue",
-                format!("cap:{}", i.identifier),
-                serde_json::json!({
-                    "msg_type": i.msg_type.cap_value(),
-                    "reach": i.key.reach,
-                    "point": i.key.point,
-                    "level": i.key.level,
-                    "run_id": m.run_id,
-                }),
-            )
-            .await?;
+                )
+                .bind(&i.identifier)
+                .bind(&i.key.reach)
+                .bind(key_text(&i.key))
+                .bind(&i.key.point)
+                .bind(&i.key.level)
+                .bind(&i.sender)
+                .bind(cap::cap_time(i.sent))
+                .bind(cap::cap_time(m.expires))
+                .bind(i.msg_type.cap_value())
+                .bind(i64::from(i.active))
+                .bind(material)
+                .bind(&m.document)
+                .bind(&m.title)
+                .bind(&m.summary)
+                .bind(m.run_id)
+                .execute(&mut *tx)
+                .await?;
+                audit_alerts(
+                    &mut tx,
+                    "cap.issue",
+                    format!("cap:{}", i.identifier),
+                    serde_json::json!({
+                        "msg_type": i.msg_type.cap_value(),
+                        "reach": i.key.reach,
+                        "point": i.key.point,
+                        "level": i.key.level,
+                        "run_id": m.run_id,
+                    }),
+                )
+                .await?;
+            }
+            self.commit(tx).await?;
+            Ok(())
         }
-        tx.commit().await?;
-        Ok(())
+        .await;
+        self.watched(r)
     }
 
     /// The current messages of one reach, or of all with `None`: for each

@@ -163,7 +163,7 @@ impl Store {
             },
         )
         .await?;
-        tx.commit().await?;
+        self.commit(tx).await?;
         Ok(version)
     }
 
@@ -200,6 +200,7 @@ impl Store {
         reason: &str,
         key_id: &str,
     ) -> Result<i64, StoreError> {
+        let r = async {
         let series = &inflow.series;
         let json = encode("inflow series", series)?;
         let traces = if inflow.traces.is_empty() {
@@ -240,8 +241,11 @@ impl Store {
             },
         )
         .await?;
-        tx.commit().await?;
+        self.commit(tx).await?;
         Ok(version)
+    }
+        .await;
+        self.watched(r)
     }
 
     /// Marks an upload withdrawn (it is kept for audit). `Ok(false)` when
@@ -277,7 +281,7 @@ impl Store {
             )
             .await?;
         }
-        tx.commit().await?;
+        self.commit(tx).await?;
         Ok(done)
     }
 
@@ -323,9 +327,10 @@ impl Store {
         inflow_forecast_id: Option<i64>,
         provenance: &RunProvenance,
     ) -> Result<i64, StoreError> {
-        let provenance = encode("run provenance", provenance)?;
-        let (_guard, mut tx) = self.begin_write().await?;
-        let id = sqlx::query(
+        let r = async {
+            let provenance = encode("run provenance", provenance)?;
+            let (_guard, mut tx) = self.begin_write().await?;
+            let id = sqlx::query(
             "INSERT INTO forecast_runs (reach_id, reach_version, inflow_forecast_id, started_at,
                  status, provenance)
              VALUES (?1, ?2, ?3, ?4, 'running', ?5)",
@@ -338,8 +343,11 @@ impl Store {
         .execute(&mut *tx)
         .await?
         .last_insert_rowid();
-        tx.commit().await?;
-        Ok(id)
+            self.commit(tx).await?;
+            Ok(id)
+        }
+        .await;
+        self.watched(r)
     }
 
     /// Records how a run ended: results on success, the error otherwise,
@@ -351,6 +359,7 @@ impl Store {
         outcome: Result<&StoredResults, &str>,
         provenance: &RunProvenance,
     ) -> Result<DateTime<Utc>, StoreError> {
+        let r = async {
         let (status, results, error) = match outcome {
             Ok(r) => (RunStatus::Ok, Some(encode("run results", r)?), None),
             Err(e) => (RunStatus::Failed, None, Some(e.to_owned())),
@@ -385,8 +394,11 @@ impl Store {
             },
         )
         .await?;
-        tx.commit().await?;
+        self.commit(tx).await?;
         Ok(finished)
+    }
+        .await;
+        self.watched(r)
     }
 
     /// Attaches the ensemble of a successful run (its deterministic
@@ -397,17 +409,22 @@ impl Store {
         run_id: i64,
         ensemble: &EnsembleRecord,
     ) -> Result<bool, StoreError> {
-        let json = encode("run ensemble", ensemble)?;
-        let (_guard, mut tx) = self.begin_write().await?;
-        let done =
-            sqlx::query("UPDATE forecast_runs SET ensemble = ?2 WHERE id = ?1 AND status = 'ok'")
-                .bind(run_id)
-                .bind(json)
-                .execute(&mut *tx)
-                .await?
-                .rows_affected();
-        tx.commit().await?;
-        Ok(done == 1)
+        let r = async {
+            let json = encode("run ensemble", ensemble)?;
+            let (_guard, mut tx) = self.begin_write().await?;
+            let done = sqlx::query(
+                "UPDATE forecast_runs SET ensemble = ?2 WHERE id = ?1 AND status = 'ok'",
+            )
+            .bind(run_id)
+            .bind(json)
+            .execute(&mut *tx)
+            .await?
+            .rows_affected();
+            self.commit(tx).await?;
+            Ok(done == 1)
+        }
+        .await;
+        self.watched(r)
     }
 
     /// A run by id.

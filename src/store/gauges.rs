@@ -152,7 +152,7 @@ impl Store {
         let gauge = find_in(&mut tx, id)
             .await?
             .ok_or_else(|| StoreError::Corrupt(format!("gauge {id} vanished")))?;
-        tx.commit().await?;
+        self.commit(tx).await?;
         Ok(SavedGauge {
             gauge,
             created: !existed,

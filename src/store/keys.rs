@@ -51,7 +51,7 @@ impl Store {
             },
         )
         .await?;
-        tx.commit().await?;
+        self.commit(tx).await?;
         let mut gauges = gauges.to_vec();
         gauges.sort();
         gauges.dedup();
@@ -136,7 +136,7 @@ impl Store {
             )
             .await?;
         }
-        tx.commit().await?;
+        self.commit(tx).await?;
         Ok(done)
     }
 }

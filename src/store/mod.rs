@@ -112,6 +112,36 @@ pub struct Store {
     /// Told how long each write waited for the lock and a connection
     /// (the metrics' histogram); set once by the application.
     write_waits: std::sync::Arc<std::sync::OnceLock<WaitObserver>>,
+    /// How the latest write transactions went, for `/ready`.
+    write_health: std::sync::Arc<std::sync::Mutex<WriteHealth>>,
+}
+
+/// How this process's writes have gone: the latest that committed and the
+/// latest that failed to begin or commit (a lock held too long by another
+/// process, a full disk). Writing is failing while the failure is the
+/// newer of the two.
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize)]
+pub struct WriteHealth {
+    #[serde(with = "crate::wire_time::option")]
+    pub last_ok: Option<DateTime<Utc>>,
+    pub last_failure: Option<WriteFailure>,
+}
+
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct WriteFailure {
+    #[serde(with = "crate::wire_time")]
+    pub at: DateTime<Utc>,
+    pub error: String,
+}
+
+impl WriteHealth {
+    pub fn failing(&self) -> bool {
+        match (&self.last_failure, self.last_ok) {
+            (None, _) => false,
+            (Some(_), None) => true,
+            (Some(f), Some(ok)) => f.at >= ok,
+        }
+    }
 }
 
 impl std::fmt::Debug for Store {
@@ -142,13 +172,17 @@ impl Store {
             source,
         })?;
         let path = cfg.data_dir.join("reachcast.sqlite3");
-        let options = SqliteConnectOptions::from_str("sqlite:")?
+        let mut options = SqliteConnectOptions::from_str("sqlite:")?
             .filename(&path)
             .create_if_missing(true)
             .journal_mode(SqliteJournalMode::Wal)
             .synchronous(SqliteSynchronous::Full)
             .foreign_keys(true)
             .busy_timeout(Duration::from_millis(cfg.busy_timeout_ms));
+        if cfg.max_size_mib > 0 {
+            // Pages of SQLite's default 4 KiB, the size this file is made with.
+            options = options.pragma("max_page_count", (cfg.max_size_mib * 256).to_string());
+        }
         let pool = SqlitePoolOptions::new()
             .max_connections(cfg.max_connections)
             .connect_with(options)
@@ -158,12 +192,63 @@ impl Store {
             pool,
             write_lock: std::sync::Arc::default(),
             write_waits: std::sync::Arc::default(),
+            write_health: std::sync::Arc::default(),
         })
     }
 
     /// Begins a write transaction (`BEGIN IMMEDIATE`, so the write lock is
     /// taken at the start and a read-then-write never fails midway), after
     /// taking this process's writer lock. Keep the guard until commit.
+    /// Commits a write transaction and notes how it went.
+    async fn commit(&self, tx: sqlx::Transaction<'static, sqlx::Sqlite>) -> Result<(), StoreError> {
+        let done = tx.commit().await;
+        self.note_write(done.as_ref().map(|_| ()));
+        done.map_err(Into::into)
+    }
+
+    /// Notes a database failure of a write method's body (a statement
+    /// refused for a full database fails before the commit).
+    fn watched<T>(&self, r: Result<T, StoreError>) -> Result<T, StoreError> {
+        if let Err(StoreError::Database(e)) = &r {
+            self.note_failure(e.to_string());
+        }
+        r
+    }
+
+    fn note_failure(&self, error: String) {
+        if let Ok(mut h) = self.write_health.lock() {
+            tracing::error!(error = %error, "a database write failed; nothing of it was stored");
+            h.last_failure = Some(WriteFailure {
+                at: Utc::now(),
+                error,
+            });
+        }
+    }
+
+    fn note_write(&self, outcome: Result<(), &sqlx::Error>) {
+        let Ok(mut h) = self.write_health.lock() else {
+            return;
+        };
+        match outcome {
+            Ok(()) => h.last_ok = Some(Utc::now()),
+            Err(e) => {
+                tracing::error!(error = %e, "a database write failed; nothing of it was stored");
+                h.last_failure = Some(WriteFailure {
+                    at: Utc::now(),
+                    error: e.to_string(),
+                });
+            }
+        }
+    }
+
+    /// How this process's writes have gone.
+    pub fn write_health(&self) -> WriteHealth {
+        self.write_health
+            .lock()
+            .map(|h| h.clone())
+            .unwrap_or_default()
+    }
+
     /// Reports every write's wait to `observe` from now on (the first
     /// observer set stays).
     pub fn observe_write_waits(&self, observe: WaitObserver) {
@@ -181,7 +266,13 @@ impl Store {
     > {
         let asked = std::time::Instant::now();
         let guard = self.write_lock.clone().lock_owned().await;
-        let tx = self.pool.begin_with("BEGIN IMMEDIATE").await?;
+        let tx = match self.pool.begin_with("BEGIN IMMEDIATE").await {
+            Ok(tx) => tx,
+            Err(e) => {
+                self.note_write(Err(&e));
+                return Err(e.into());
+            }
+        };
         if let Some(observe) = self.write_waits.get() {
             observe(asked.elapsed());
         }

@@ -146,95 +146,99 @@ impl Store {
         audit_extra: serde_json::Value,
         in_batch_duplicates: usize,
     ) -> Result<Option<IngestOutcome>, StoreError> {
-        let (_writer, mut tx) = self.begin_write().await?;
-        let Some(gauge) = gauges::find_in(&mut tx, gauge_id).await? else {
-            return Ok(None);
-        };
-        let mut outcome = IngestOutcome {
-            duplicate: in_batch_duplicates,
-            ..IngestOutcome::default()
-        };
-        if let (Some(first), Some(last)) = (rows.first(), rows.last()) {
-            let sql = format!(
-                "SELECT {READ_COLUMNS} FROM readings
+        let r = async {
+            let (_writer, mut tx) = self.begin_write().await?;
+            let Some(gauge) = gauges::find_in(&mut tx, gauge_id).await? else {
+                return Ok(None);
+            };
+            let mut outcome = IngestOutcome {
+                duplicate: in_batch_duplicates,
+                ..IngestOutcome::default()
+            };
+            if let (Some(first), Some(last)) = (rows.first(), rows.last()) {
+                let sql = format!(
+                    "SELECT {READ_COLUMNS} FROM readings
                  WHERE gauge_id = ?1 AND time_ms BETWEEN ?2 AND ?3"
-            );
-            let existing_rows = sqlx::query(sqlx::AssertSqlSafe(sql))
-                .bind(gauge_id)
-                .bind(first.time_ms)
-                .bind(last.time_ms)
-                .fetch_all(&mut *tx)
-                .await?;
-            let mut existing = BTreeMap::new();
-            for row in &existing_rows {
-                let r = stored_from_row(row)?;
-                existing.insert(r.time_ms, r);
-            }
-            let before = anchor(&mut tx, gauge_id, first.time_ms, true).await?;
-            let after = anchor(&mut tx, gauge_id, last.time_ms, false).await?;
-            let actions = plan(&gauge, rows, &existing, before, after);
+                );
+                let existing_rows = sqlx::query(sqlx::AssertSqlSafe(sql))
+                    .bind(gauge_id)
+                    .bind(first.time_ms)
+                    .bind(last.time_ms)
+                    .fetch_all(&mut *tx)
+                    .await?;
+                let mut existing = BTreeMap::new();
+                for row in &existing_rows {
+                    let r = stored_from_row(row)?;
+                    existing.insert(r.time_ms, r);
+                }
+                let before = anchor(&mut tx, gauge_id, first.time_ms, true).await?;
+                let after = anchor(&mut tx, gauge_id, last.time_ms, false).await?;
+                let actions = plan(&gauge, rows, &existing, before, after);
 
-            let now_ms = Utc::now().timestamp_millis();
-            let mut inserts: Vec<(NewReading, RateCheck)> = Vec::new();
-            for action in actions {
-                match action {
-                    Action::Duplicate => outcome.duplicate += 1,
-                    Action::Insert(r, c) => {
-                        outcome.accepted += 1;
-                        if c == RateCheck::Suspect {
-                            outcome.suspect_by_rate += 1;
+                let now_ms = Utc::now().timestamp_millis();
+                let mut inserts: Vec<(NewReading, RateCheck)> = Vec::new();
+                for action in actions {
+                    match action {
+                        Action::Duplicate => outcome.duplicate += 1,
+                        Action::Insert(r, c) => {
+                            outcome.accepted += 1;
+                            if c == RateCheck::Suspect {
+                                outcome.suspect_by_rate += 1;
+                            }
+                            inserts.push((r, c));
                         }
-                        inserts.push((r, c));
-                    }
-                    Action::Revise { new, check, old } => {
-                        outcome.revised += 1;
-                        if check == RateCheck::Suspect {
-                            outcome.suspect_by_rate += 1;
+                        Action::Revise { new, check, old } => {
+                            outcome.revised += 1;
+                            if check == RateCheck::Suspect {
+                                outcome.suspect_by_rate += 1;
+                            }
+                            revise(&mut tx, gauge_id, &new, check, &old, key_id, now_ms).await?;
                         }
-                        revise(&mut tx, gauge_id, &new, check, &old, key_id, now_ms).await?;
                     }
                 }
-            }
-            for chunk in inserts.chunks(INSERT_CHUNK) {
-                let sql = insert_sql(chunk.len());
-                let mut q = sqlx::query(sqlx::AssertSqlSafe(sql));
-                for (r, c) in chunk {
-                    q = q
-                        .bind(gauge_id)
-                        .bind(r.time_ms)
-                        .bind(r.stage_m)
-                        .bind(r.discharge_m3s)
-                        .bind(r.quality.as_str())
-                        .bind(c.as_str())
-                        .bind(now_ms)
-                        .bind(key_id);
+                for chunk in inserts.chunks(INSERT_CHUNK) {
+                    let sql = insert_sql(chunk.len());
+                    let mut q = sqlx::query(sqlx::AssertSqlSafe(sql));
+                    for (r, c) in chunk {
+                        q = q
+                            .bind(gauge_id)
+                            .bind(r.time_ms)
+                            .bind(r.stage_m)
+                            .bind(r.discharge_m3s)
+                            .bind(r.quality.as_str())
+                            .bind(c.as_str())
+                            .bind(now_ms)
+                            .bind(key_id);
+                    }
+                    q.execute(&mut *tx).await?;
                 }
-                q.execute(&mut *tx).await?;
             }
+            let mut summary = serde_json::json!({
+                "accepted": outcome.accepted,
+                "duplicate": outcome.duplicate,
+                "revised": outcome.revised,
+                "suspect_by_rate": outcome.suspect_by_rate,
+            });
+            if let (Some(map), serde_json::Value::Object(extra)) =
+                (summary.as_object_mut(), audit_extra)
+            {
+                map.extend(extra);
+            }
+            audit::record(
+                &mut tx,
+                &Audit {
+                    key_id: Some(key_id.to_owned()),
+                    action: "readings.ingest".to_owned(),
+                    target: format!("gauge:{gauge_id}"),
+                    summary,
+                },
+            )
+            .await?;
+            self.commit(tx).await?;
+            Ok(Some(outcome))
         }
-        let mut summary = serde_json::json!({
-            "accepted": outcome.accepted,
-            "duplicate": outcome.duplicate,
-            "revised": outcome.revised,
-            "suspect_by_rate": outcome.suspect_by_rate,
-        });
-        if let (Some(map), serde_json::Value::Object(extra)) =
-            (summary.as_object_mut(), audit_extra)
-        {
-            map.extend(extra);
-        }
-        audit::record(
-            &mut tx,
-            &Audit {
-                key_id: Some(key_id.to_owned()),
-                action: "readings.ingest".to_owned(),
-                target: format!("gauge:{gauge_id}"),
-                summary,
-            },
-        )
-        .await?;
-        tx.commit().await?;
-        Ok(Some(outcome))
+        .await;
+        self.watched(r)
     }
 
     /// One page of a gauge's readings. Fetches `limit + 1` rows so the
@@ -380,7 +384,7 @@ impl Store {
             )
             .await?;
         }
-        tx.commit().await?;
+        self.commit(tx).await?;
         Ok(reading)
     }
 }

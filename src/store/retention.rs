@@ -109,7 +109,7 @@ impl Store {
                 .execute(&mut *tx)
                 .await?
                 .rows_affected();
-            tx.commit().await?;
+            self.commit(tx).await?;
         }
         if !out.is_empty() {
             let (_guard, mut tx) = self.begin_write().await?;
@@ -122,7 +122,7 @@ impl Store {
                 summary,
             };
             audit::record_system(&mut tx, "retention", &entry).await?;
-            tx.commit().await?;
+            self.commit(tx).await?;
         }
         Ok(out)
     }
@@ -178,7 +178,7 @@ impl Store {
                 .await?
                 .rows_affected();
             }
-            tx.commit().await?;
+            self.commit(tx).await?;
         }
     }
 
@@ -229,7 +229,7 @@ impl Store {
                 .execute(&mut *tx)
                 .await?
                 .rows_affected();
-            tx.commit().await?;
+            self.commit(tx).await?;
         }
         Ok((readings, revisions))
     }
@@ -253,7 +253,7 @@ impl Store {
         .execute(&mut *tx)
         .await?
         .rows_affected();
-        tx.commit().await?;
+        self.commit(tx).await?;
         Ok(n)
     }
 }

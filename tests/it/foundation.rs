@@ -196,6 +196,22 @@ fn bad_config_value_fails_start_naming_the_key() {
         "nothing written before config is valid"
     );
 
+    // A corrupted file (cut off mid-write, with a stray byte): the start
+    // stops naming the file; nothing is created.
+    let broken = dir.path().join("broken.toml");
+    std::fs::write(&broken, b"[server]\nbind = \"127.0.0.1:80\xff\n[stor").expect("write");
+    let out = reachcast()
+        .args(["--config"])
+        .arg(&broken)
+        .args(["--data-dir"])
+        .arg(dir.path().join("data"))
+        .output()
+        .expect("run binary");
+    assert!(!out.status.success());
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("broken.toml"), "{stderr}");
+    assert!(!dir.path().join("data").exists());
+
     let out = reachcast()
         .env("REACHCAST_STORAGE_MAX_CONNECTIONS", "0")
         .args(["--data-dir"])

@@ -19,6 +19,7 @@ mod deploy_files;
 mod durability;
 mod engine_routing;
 mod engine_sections;
+mod faults;
 mod forecast_cycle;
 mod foundation;
 mod inflow_traces;

@@ -1,0 +1,163 @@
+//! Faults an unattended install meets (issue "Operations", part 6), on the
+//! real server and SQLite file: each gives a clear answer, a visible state
+//! on `/ready`, and loses nothing acknowledged.
+
+use sqlx::{ConnectOptions, Connection};
+
+use crate::common::{gauge_body, json_of, problem, spawn_app_with, test_config};
+
+/// The database locked by another process (here another connection to the
+/// same file, which SQLite locks the same way): a write waits
+/// `storage.busy_timeout_ms`, then is refused with a 503 problem that says
+/// nothing was changed; `/ready` answers 503 naming the failing writes;
+/// once the lock is gone, writes go on, `/ready` recovers, and exactly the
+/// acknowledged readings are stored.
+#[tokio::test]
+async fn a_database_locked_by_another_process_refuses_writes_visibly() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let mut config = test_config(dir.path());
+    config.storage.busy_timeout_ms = 300;
+    let app = spawn_app_with(config).await;
+    let keys = app.keys("lock-gauge").await;
+    json_of(
+        app.put_gauge(&keys.admin, "lock-gauge", &gauge_body("Lock gauge"))
+            .await,
+        201,
+    )
+    .await;
+    let reading = |t: &str| serde_json::json!({"readings": [{"time": t, "stage": 1.5}]});
+
+    let mut other = sqlx::sqlite::SqliteConnectOptions::new()
+        .filename(dir.path().join("reachcast.sqlite3"))
+        .connect()
+        .await
+        .expect("second connection");
+    sqlx::query("BEGIN EXCLUSIVE")
+        .execute(&mut other)
+        .await
+        .expect("lock");
+    let res = app
+        .post_readings(&keys.gauge, "lock-gauge", &reading("2026-12-01T00:00:00Z"))
+        .await;
+    let p = problem(res, 503).await;
+    assert!(
+        p["detail"]
+            .as_str()
+            .unwrap()
+            .contains("nothing was changed"),
+        "{p}"
+    );
+    let p = problem(app.get("/ready").await, 503).await;
+    assert!(
+        p["detail"].as_str().unwrap().contains("writes are failing"),
+        "{p}"
+    );
+
+    sqlx::query("COMMIT")
+        .execute(&mut other)
+        .await
+        .expect("unlock");
+    other.close().await.expect("close");
+    let res = app
+        .post_readings(&keys.gauge, "lock-gauge", &reading("2026-12-01T00:15:00Z"))
+        .await;
+    let ok = json_of(res, 200).await;
+    assert_eq!(ok["accepted"], 1, "{ok}");
+    let (status, ready) = app.get_json("/ready").await;
+    assert_eq!(status, 200, "{ready}");
+    assert!(
+        ready["writes"]["last_failure"]["error"]
+            .as_str()
+            .unwrap()
+            .contains("locked")
+    );
+    let stored = app
+        .store
+        .readings_for_forecast("lock-gauge", i64::MIN, i64::MAX)
+        .await
+        .expect("readings");
+    let times: Vec<i64> = stored.iter().map(|r| r.time_ms).collect();
+    let acknowledged = chrono::DateTime::parse_from_rfc3339("2026-12-01T00:15:00Z").unwrap();
+    assert_eq!(times, [acknowledged.timestamp_millis()]);
+    app.stop().await;
+}
+
+/// The disk filling up, made with SQLite's own size limit
+/// (`storage.max_size_mib`, `PRAGMA max_page_count`; no loop-mounted file
+/// system is needed): batches are acknowledged until the database is full,
+/// then refused with a 503 that says nothing was changed, `/ready` says
+/// writes are failing, and after a restart with room again every
+/// acknowledged reading is there and no refused one is.
+#[tokio::test]
+async fn a_full_database_refuses_batches_whole_and_loses_nothing_acknowledged() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let mut config = test_config(dir.path());
+    config.storage.max_size_mib = 1;
+    let app = spawn_app_with(config.clone()).await;
+    let keys = app.keys("full-gauge").await;
+    json_of(
+        app.put_gauge(&keys.admin, "full-gauge", &gauge_body("Full gauge"))
+            .await,
+        201,
+    )
+    .await;
+    let t0 = chrono::DateTime::parse_from_rfc3339("2026-11-01T00:00:00Z").unwrap();
+    let mut acknowledged = Vec::new();
+    let mut refused = false;
+    for batch in 0..200 {
+        let times: Vec<i64> = (0..500)
+            .map(|k| (t0 + chrono::Duration::minutes(batch * 500 + k)).timestamp_millis())
+            .collect();
+        let rows: Vec<serde_json::Value> = times
+            .iter()
+            .map(|&ms| {
+                let t = chrono::DateTime::from_timestamp_millis(ms).unwrap();
+                serde_json::json!({"time": t.to_rfc3339(), "stage": 1.25, "quality": "good"})
+            })
+            .collect();
+        let res = app
+            .post_readings(
+                &keys.gauge,
+                "full-gauge",
+                &serde_json::json!({"readings": rows}),
+            )
+            .await;
+        if res.status() == 503 {
+            let p: serde_json::Value = res.json().await.expect("problem");
+            assert!(
+                p["detail"]
+                    .as_str()
+                    .unwrap()
+                    .contains("nothing was changed"),
+                "{p}"
+            );
+            refused = true;
+            break;
+        }
+        assert_eq!(json_of(res, 200).await["accepted"], 500);
+        acknowledged.extend(times);
+    }
+    assert!(refused, "1 MiB filled within 200 batches of 500 readings");
+    assert!(!acknowledged.is_empty());
+    let p = problem(app.get("/ready").await, 503).await;
+    assert!(
+        p["detail"].as_str().unwrap().contains("writes are failing"),
+        "{p}"
+    );
+    app.stop().await;
+
+    config.storage.max_size_mib = 0;
+    let app = spawn_app_with(config).await;
+    let stored: Vec<i64> = app
+        .store
+        .readings_for_forecast("full-gauge", i64::MIN, i64::MAX)
+        .await
+        .expect("readings")
+        .iter()
+        .map(|r| r.time_ms)
+        .collect();
+    assert_eq!(stored, acknowledged);
+    let (status, _) = app.get_json("/ready").await;
+    assert_eq!(status, 200);
+    app.stop().await;
+}
