@@ -24,4 +24,5 @@ pub mod report;
 pub mod run;
 pub mod spec;
 pub mod traces;
+pub mod verify;
 pub mod view;

@@ -1,0 +1,22 @@
+//! Verification: how past forecasts compared with what the gauges later
+//! saw. Pure functions over pairs of forecast and observed stage, grouped
+//! by lead time, with the persistence forecast (the last observed stage
+//! held) scored on the same pairs as the baseline every score is shown
+//! beside.
+//!
+//! - [`pairs`]: forecast–observation pairs of one run at one gauged point,
+//!   by lead-time band;
+//! - [`scores`]: bias, MAE, RMSE, Nash–Sutcliffe and Kling–Gupta
+//!   efficiency, and skill against a reference;
+//! - [`contingency`]: the two-by-two table of a level reached or not, and
+//!   POD, FAR, CSI and frequency bias;
+//! - [`ensemble`]: CRPS of an ensemble and the rank of an observation
+//!   among its members.
+//!
+//! The first step of the verification issue: the service does not yet
+//! store or serve these scores.
+
+pub mod contingency;
+pub mod ensemble;
+pub mod pairs;
+pub mod scores;
