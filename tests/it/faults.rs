@@ -4,7 +4,20 @@
 
 use sqlx::{ConnectOptions, Connection};
 
-use crate::common::{gauge_body, json_of, problem, spawn_app_with, test_config};
+use reachcast::config::Config;
+
+use crate::common::{Keys, TestApp, gauge_body, json_of, problem, spawn_app_with, test_config};
+
+/// The app on `config` with the gauge `id` created.
+async fn app_with_gauge(config: Config, id: &str) -> (TestApp, Keys) {
+    let app = spawn_app_with(config).await;
+    let keys = app.keys(id).await;
+    let res = app
+        .put_gauge(&keys.admin, id, &gauge_body("Fault gauge"))
+        .await;
+    json_of(res, 201).await;
+    (app, keys)
+}
 
 /// The database locked by another process (here another connection to the
 /// same file, which SQLite locks the same way): a write waits
@@ -17,14 +30,7 @@ async fn a_database_locked_by_another_process_refuses_writes_visibly() {
     let dir = tempfile::tempdir().expect("temp dir");
     let mut config = test_config(dir.path());
     config.storage.busy_timeout_ms = 300;
-    let app = spawn_app_with(config).await;
-    let keys = app.keys("lock-gauge").await;
-    json_of(
-        app.put_gauge(&keys.admin, "lock-gauge", &gauge_body("Lock gauge"))
-            .await,
-        201,
-    )
-    .await;
+    let (app, keys) = app_with_gauge(config, "lock-gauge").await;
     let reading = |t: &str| serde_json::json!({"readings": [{"time": t, "stage": 1.5}]});
 
     let mut other = sqlx::sqlite::SqliteConnectOptions::new()
@@ -93,14 +99,7 @@ async fn a_full_database_refuses_batches_whole_and_loses_nothing_acknowledged() 
     let dir = tempfile::tempdir().expect("temp dir");
     let mut config = test_config(dir.path());
     config.storage.max_size_mib = 1;
-    let app = spawn_app_with(config.clone()).await;
-    let keys = app.keys("full-gauge").await;
-    json_of(
-        app.put_gauge(&keys.admin, "full-gauge", &gauge_body("Full gauge"))
-            .await,
-        201,
-    )
-    .await;
+    let (app, keys) = app_with_gauge(config.clone(), "full-gauge").await;
     let t0 = chrono::DateTime::parse_from_rfc3339("2026-11-01T00:00:00Z").unwrap();
     let mut acknowledged = Vec::new();
     let mut refused = false;

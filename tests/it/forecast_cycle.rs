@@ -207,21 +207,7 @@ async fn uploads_supersede_extrapolation_and_each_other() {
     assert_eq!(f0["run"]["inflow"]["source_beyond_now"], "persistence");
     // A triangular flood: 40 m³/s now, the peak 6 h ahead, back to 40 m³/s
     // at 18 h, then steady.
-    let flood = |peak: f64| -> Vec<(DateTime<Utc>, f64)> {
-        (0..=24)
-            .map(|h| {
-                let h = f64::from(h);
-                let q = if h <= 6.0 {
-                    40.0 + (peak - 40.0) * h / 6.0
-                } else if h <= 18.0 {
-                    peak - (peak - 40.0) * (h - 6.0) / 12.0
-                } else {
-                    40.0
-                };
-                (now + chrono::Duration::minutes((h * 60.0) as i64), q)
-            })
-            .collect()
-    };
+    let flood = |peak: f64| crate::common::triangular_flood(now, peak);
     let v1 = upload(&s, &flood(150.0), "first revision").await;
     assert_eq!(run_now(&s).await["status"], "ok");
     let (_, f1) = forecast(&s.app).await;

@@ -9,6 +9,7 @@ use serde_json::{Value, json};
 
 use crate::common::{
     ReachApp, assert_success, body_of, bridge_reach, json_of, problem, reach_gauge,
+    triangular_flood as flood,
 };
 
 const REACH: &str = "trace-reach";
@@ -40,23 +41,6 @@ async fn setup() -> ReachApp {
         .await;
     assert_success(res).await;
     s
-}
-
-/// A triangular flood from 40 m³/s now to `peak` at 6 h, back at 18 h.
-fn flood(now: DateTime<Utc>, peak: f64) -> Vec<(DateTime<Utc>, f64)> {
-    (0..=24)
-        .map(|h| {
-            let h = f64::from(h);
-            let q = if h <= 6.0 {
-                40.0 + (peak - 40.0) * h / 6.0
-            } else if h <= 18.0 {
-                peak - (peak - 40.0) * (h - 6.0) / 12.0
-            } else {
-                40.0
-            };
-            (now + chrono::Duration::minutes((h * 60.0) as i64), q)
-        })
-        .collect()
 }
 
 fn csv_of(columns: &[&[(DateTime<Utc>, f64)]]) -> String {

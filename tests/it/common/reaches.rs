@@ -85,3 +85,24 @@ pub fn gauge_body(name: &str) -> Value {
         "discharge_max_m3s": 500.0,
     })
 }
+
+/// A triangular flood, hourly for 24 h from `now`: 40 m³/s now, `peak` at
+/// 6 h, back to 40 m³/s at 18 h, then steady.
+pub fn triangular_flood(
+    now: chrono::DateTime<chrono::Utc>,
+    peak: f64,
+) -> Vec<(chrono::DateTime<chrono::Utc>, f64)> {
+    (0..=24)
+        .map(|h| {
+            let h = f64::from(h);
+            let q = if h <= 6.0 {
+                40.0 + (peak - 40.0) * h / 6.0
+            } else if h <= 18.0 {
+                peak - (peak - 40.0) * (h - 6.0) / 12.0
+            } else {
+                40.0
+            };
+            (now + chrono::Duration::minutes((h * 60.0) as i64), q)
+        })
+        .collect()
+}
