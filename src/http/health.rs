@@ -132,6 +132,14 @@ async fn ready(State(state): State<AppState>) -> Result<Json<Ready>, Problem> {
         tracing::warn!(error = %e, "readiness: cannot read the runs");
         unavailable("cannot read the forecast runs".to_owned())
     })?;
+    if let Some(r) = clock_behind(&reaches) {
+        return Err(unavailable(format!(
+            "the system clock is {} s behind the last good run of reach `{}`: it went back, \
+             so issue times, ages and staleness would be wrong; correct the clock (NTP)",
+            -r.last_good_run_age_s.unwrap_or_default(),
+            r.reach
+        )));
+    }
     Ok(Json(Ready {
         status: "ready",
         database: "ok",
@@ -171,6 +179,22 @@ fn disk_check(state: &AppState) -> Result<Disk, String> {
         free_bytes: free,
         floor_bytes,
     })
+}
+
+/// More than this behind a stored run's finish time, the clock went back
+/// (a run's own timing cannot explain it).
+const CLOCK_TOLERANCE_S: i64 = 60;
+
+/// The reach whose last good run finished furthest in the future of
+/// now, beyond the tolerance.
+fn clock_behind(reaches: &[ReachReady]) -> Option<&ReachReady> {
+    reaches
+        .iter()
+        .filter(|r| {
+            r.last_good_run_age_s
+                .is_some_and(|a| a < -CLOCK_TOLERANCE_S)
+        })
+        .min_by_key(|r| r.last_good_run_age_s)
 }
 
 async fn reach_states(state: &AppState) -> Result<Vec<ReachReady>, crate::store::StoreError> {

@@ -160,3 +160,68 @@ async fn a_full_database_refuses_batches_whole_and_loses_nothing_acknowledged() 
     assert_eq!(status, 200);
     app.stop().await;
 }
+
+/// The clock jumping back: a good run that finished an hour "in the
+/// future" of now (what a clock set back an hour sees; made here by moving
+/// the stored finish time through another connection) makes `/ready`
+/// answer 503 saying the clock went back. A clock jumping forward makes
+/// every forecast older than its schedule allows, which the forecast
+/// already reports as stale (`forecast_cycle::silent_gauge_marks_the_forecast_stale`).
+#[tokio::test]
+async fn a_clock_set_back_is_reported_by_ready() {
+    let s = crate::common::ReachApp::start(
+        |c| c.forecast.debounce_ms = 600_000,
+        (
+            "clock-reach",
+            &crate::common::bridge_reach("Clock reach (invented)", "Clock Bridge", "clock-gauge"),
+        ),
+        (
+            "clock-gauge",
+            &crate::common::reach_gauge("Clock gauge", "clock-reach", "discharge", 19.0, 2.0),
+        ),
+    )
+    .await;
+    let now = chrono::Utc::now();
+    let rows: Vec<serde_json::Value> = (0..=8)
+        .map(|k| {
+            let t = now - chrono::Duration::minutes(15 * (8 - k));
+            serde_json::json!({"time": t.to_rfc3339(), "discharge": 30.0, "quality": "good"})
+        })
+        .collect();
+    let res = s
+        .app
+        .post_readings(
+            &s.keys.gauge,
+            "clock-gauge",
+            &serde_json::json!({"readings": rows}),
+        )
+        .await;
+    json_of(res, 200).await;
+    let r = json_of(
+        s.app.run_and_wait(&s.keys.forecaster, "clock-reach").await,
+        200,
+    )
+    .await;
+    assert_eq!(r["status"], "ok", "{r}");
+    let (status, _) = s.app.get_json("/ready").await;
+    assert_eq!(status, 200);
+    let mut other = sqlx::sqlite::SqliteConnectOptions::new()
+        .filename(s.dir.path().join("reachcast.sqlite3"))
+        .connect()
+        .await
+        .expect("second connection");
+    let ahead = reachcast::wire_time::format(now + chrono::Duration::hours(1));
+    sqlx::query("UPDATE forecast_runs SET finished_at = ?1 WHERE status = 'ok'")
+        .bind(&ahead)
+        .execute(&mut other)
+        .await
+        .expect("move the finish time");
+    other.close().await.expect("close");
+    let p = problem(s.app.get("/ready").await, 503).await;
+    let detail = p["detail"].as_str().unwrap();
+    assert!(
+        detail.contains("clock") && detail.contains("clock-reach"),
+        "{p}"
+    );
+    s.app.stop().await;
+}
