@@ -9,6 +9,7 @@ import { profileRows, renderProfile } from "./js/profile.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
 import { $, h, HttpError, readBody } from "./js/dom.js";
+import { serviceProblem } from "./js/service.js";
 import { BAND, bandTraces, chanceLines, crestRangeText, defaultsNote, ensembleSummary, onlyInScenarios, percentileName, rangeNote } from "./js/ensemble.js";
 import { loadUploads, wireForecaster } from "./js/forecaster.js";
 
@@ -81,6 +82,7 @@ async function refresh() {
       state.reachId = (state.reaches.find((r) => r.id === wanted) || state.reaches[0] || {}).id || null;
       renderReachPicker();
     }
+    await refreshService();
     if (!state.reachId) {
       showNoForecast("No reach is configured on this server yet.");
     } else {
@@ -101,6 +103,16 @@ async function refresh() {
     // Soon while there is no forecast to show yet, then the normal interval.
     state.timer = setTimeout(refresh, nextCheckMs(state.misses, POLL_MS));
   }
+}
+
+/** Shows what /ready says when the service is not ready. */
+async function refreshService() {
+  const res = await fetch("/ready", { headers: { Accept: "application/json" }, cache: "no-store" });
+  const body = await readBody(res);
+  const text = serviceProblem(res.status, body);
+  const box = document.getElementById("service-problem");
+  box.hidden = !text;
+  document.getElementById("service-problem-text").textContent = text || "";
 }
 
 async function refreshForecast() {

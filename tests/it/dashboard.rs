@@ -2644,3 +2644,65 @@ async fn a_pending_range_says_so_and_the_band_follows_without_a_reload() {
     drop(b);
     s.app.stop().await;
 }
+
+/// The page repeats what `/ready` says when the service is not ready:
+/// with the clock set back (the last good run's finish time moved an hour
+/// ahead through another connection, as `faults::` does), the service
+/// problem notice appears with the server's reason, above the forecast.
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn a_service_problem_on_ready_is_shown_on_the_page() {
+    let _one = BROWSER.lock().await;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let (app, key) = demo_app(dir.path(), |c| {
+        c.demo.replay_secs = 3600;
+        c.forecast.interval_minutes = 60;
+    })
+    .await;
+    wait_for_forecast(&app, &key).await;
+    let b = Browser::start().await;
+    b.goto(&app.url("/?poll=2000")).await;
+    b.wait_for(
+        "the overview",
+        "return document.querySelectorAll('#overview-body tr').length",
+        30,
+    )
+    .await;
+    let hidden = b
+        .wait_for(
+            "the notice hidden while ready",
+            "return document.getElementById('service-problem').hidden ? true : null",
+            10,
+        )
+        .await;
+    assert_eq!(hidden, Value::Bool(true));
+    let options =
+        sqlx::sqlite::SqliteConnectOptions::new().filename(dir.path().join("reachcast.sqlite3"));
+    let mut other = sqlx::ConnectOptions::connect(&options)
+        .await
+        .expect("second connection");
+    let ahead = reachcast::wire_time::format(chrono::Utc::now() + chrono::Duration::hours(1));
+    sqlx::query("UPDATE forecast_runs SET finished_at = ?1 WHERE status = 'ok'")
+        .bind(&ahead)
+        .execute(&mut other)
+        .await
+        .expect("move the finish time");
+    sqlx::Connection::close(other).await.expect("close");
+    let text = b
+        .wait_for(
+            "the service problem notice",
+            "const s = document.getElementById('service-problem'); return !s.hidden && s.getBoundingClientRect().height > 0 ? s.textContent : null",
+            30,
+        )
+        .await;
+    let text = text.as_str().unwrap_or_default();
+    assert!(
+        text.contains("clock") && text.contains("follow official warnings"),
+        "{text}"
+    );
+    // The browser logs the 503 of /ready itself; nothing else.
+    let errors = b.page_errors(&["/ready - Failed to load resource"]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    app.stop().await;
+}
