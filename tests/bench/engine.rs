@@ -11,13 +11,72 @@
 //! ensemble of 1,000 perturbed inflows (peak scaled 0.7–1.3, timing shifted
 //! up to ±3 h) on every available core.
 
-use std::time::Instant;
+use std::{
+    alloc::{GlobalAlloc, Layout, System},
+    sync::atomic::{AtomicUsize, Ordering},
+    time::Instant,
+};
 
 use reachcast::engine::{
     diffusive::{self, DownstreamBoundary, InitialState, Options, Problem, Reach},
     section::{CrossSection, Node, SectionGeometry, build_nodes},
     series::Series,
 };
+
+/// Counts heap allocations, so the benchmark can show that a run allocates
+/// per output row (its result) and not per time step or Newton iteration.
+struct Counting;
+
+static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
+
+// SAFETY: every call is forwarded unchanged to the system allocator; the
+// counter has no effect on the memory handed out.
+unsafe impl GlobalAlloc for Counting {
+    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::Relaxed);
+        // SAFETY: same contract as the caller's.
+        unsafe { System.alloc(layout) }
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
+        // SAFETY: same contract as the caller's.
+        unsafe { System.dealloc(ptr, layout) }
+    }
+    unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, new_size: usize) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::Relaxed);
+        // SAFETY: same contract as the caller's.
+        unsafe { System.realloc(ptr, layout, new_size) }
+    }
+}
+
+#[global_allocator]
+static GLOBAL: Counting = Counting;
+
+/// On-CPU time of every thread of this process (ns), from
+/// `/proc/self/task/*/schedstat` (Linux; first field). Wall time on a
+/// shared machine includes time other processes held the core; this does
+/// not. `None` where the file is not available.
+fn cpu_ns() -> Option<u64> {
+    let mut total = 0;
+    for task in std::fs::read_dir("/proc/self/task").ok()? {
+        let path = task.ok()?.path().join("schedstat");
+        let text = std::fs::read_to_string(path).ok()?;
+        total += text.split_whitespace().next()?.parse::<u64>().ok()?;
+    }
+    Some(total)
+}
+
+/// An order-sensitive hash of every bit of a result (FNV-1a over the
+/// stages, discharges and final state), printed so that an optimisation
+/// can be checked to leave the numbers bit for bit the same.
+fn fingerprint(r: &diffusive::RoutingResult) -> u64 {
+    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+    let rows = r.stage.iter().chain(&r.discharge);
+    for v in rows.flatten().chain(&r.final_state) {
+        h ^= v.to_bits();
+        h = h.wrapping_mul(0x0000_0100_0000_01b3);
+    }
+    h
+}
 
 const LENGTH_M: f64 = 50_000.0;
 const SLOPE: f64 = 0.0005;
@@ -110,6 +169,10 @@ impl Lcg {
 }
 
 fn main() {
+    // `cargo bench --bench engine -- single` runs only the parts whose
+    // name contains the argument.
+    let filter: Option<String> = std::env::args().skip(1).find(|a| !a.starts_with('-'));
+    let wanted = |part: &str| filter.as_deref().is_none_or(|f| part.contains(f));
     let started = Instant::now();
     let nodes = reach_nodes();
     let build_ms = started.elapsed().as_secs_f64() * 1e3;
@@ -122,32 +185,59 @@ fn main() {
     );
 
     for (label, step) in [("15-minute output", 900.0), ("1-minute output", 60.0)] {
+        if !wanted("single") {
+            break;
+        }
         let p = problem(reach, inflow(600.0, 20.0), step);
         let mut times = Vec::new();
+        let mut cpu = Vec::new();
         let mut last = None;
+        let mut allocations = 0;
         for _ in 0..15 {
+            let c = cpu_ns();
+            let before = ALLOCATIONS.load(Ordering::Relaxed);
             let t = Instant::now();
             let r = diffusive::route(&p).expect("benchmark run succeeds");
             times.push(t.elapsed().as_secs_f64());
+            allocations = ALLOCATIONS.load(Ordering::Relaxed) - before;
+            if let (Some(a), Some(b)) = (c, cpu_ns()) {
+                cpu.push((b - a) as f64 * 1e-9);
+            }
             last = Some(r);
         }
         times.sort_by(f64::total_cmp);
+        cpu.sort_by(f64::total_cmp);
         let median = times[times.len() / 2];
         let r = last.expect("at least one run");
         let d = &r.diagnostics;
         let node_steps = (nodes.len() * d.steps) as f64;
         println!(
-            "single run, {label}: median {:.1} ms (min {:.1}, max {:.1}) over {} runs; \
-             {} steps, {:.2} Newton iterations/step, {:.2e} node-steps/s, mass balance {:.2e} %",
+            "single run, {label}: median {:.1} ms (min {:.1}, max {:.1}) over {} runs, \
+             on-CPU median {:.1} ms; {} steps, {:.2} Newton iterations/step, \
+             {:.2e} node-steps/s, mass balance {:.2e} %",
             median * 1e3,
             times[0] * 1e3,
             times[times.len() - 1] * 1e3,
             times.len(),
+            cpu.get(cpu.len() / 2).copied().unwrap_or(f64::NAN) * 1e3,
             d.steps,
             d.newton_iterations_total as f64 / d.steps as f64,
             node_steps / median,
             d.mass_balance_error_pct
         );
+        // Each output time is one stage row and one discharge row: the
+        // result itself. Anything beyond those and a fixed setup count
+        // would be per-step allocation.
+        let rows = 2 * r.output_times.len();
+        println!(
+            "  allocations per run: {allocations} ({rows} output rows, {} other); \
+             result fingerprint {:016x}",
+            allocations as i64 - rows as i64,
+            fingerprint(&r)
+        );
+    }
+    if !wanted("ensemble") {
+        return;
     }
 
     let members = 1_000usize;

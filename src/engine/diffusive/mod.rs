@@ -173,9 +173,9 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Routing
     // about inertia and are left out.
     let mut watch = Watch::new(n, x[0], t0, MIN_DEPTH + DRY_RAMP_DEPTH);
     state::observe(&w, &g, x, &old, t0, &mut watch);
-    let q0 = state::discharges(&w, &old);
-    let start = MeanState::of(w.props.iter().copied().zip(q0.iter().copied()));
-    let mut out = DenseOutput::new(&p.output_times, t0, &w.z, q0);
+    state::fill_discharges(&mut w, &old);
+    let start = MeanState::of(w.props.iter().copied().zip(w.q_node.iter().copied()));
+    let mut out = DenseOutput::new(&p.output_times, t0, &w.z, &w.q_node);
     let mut control = StepControl::new(o);
     let mut stats = StepStats::new();
 
@@ -202,7 +202,8 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Routing
                 let t_prev = t;
                 t = t_new;
                 state::observe(&w, &g, x, &old, t, &mut watch);
-                out.step(t_prev, t_new, &w.z, state::discharges(&w, &old));
+                state::fill_discharges(&mut w, &old);
+                out.step(t_prev, t_new, &w.z, &w.q_node);
                 control.accept(iters);
             }
         }

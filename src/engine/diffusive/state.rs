@@ -31,6 +31,9 @@ pub(super) struct Work {
     pub(super) upper: Vec<f64>,
     pub(super) rhs: Vec<f64>,
     pub(super) scratch: Vec<f64>,
+    /// Node discharges of the last accepted level, handed to the dense
+    /// output (filled in place rather than collected anew every step).
+    pub(super) q_node: Vec<f64>,
 }
 
 impl Work {
@@ -52,6 +55,7 @@ impl Work {
             upper: vec![0.0; n],
             rhs: vec![0.0; n],
             scratch: vec![0.0; n],
+            q_node: vec![0.0; n],
         }
     }
 }
@@ -145,11 +149,12 @@ pub(super) fn node_discharge(w: &Work, i: usize, q_up: f64, q_out: f64) -> f64 {
     }
 }
 
-/// Discharge at every node, as [`node_discharge`] reports it.
-pub(super) fn discharges(w: &Work, flows: &Flows) -> Vec<f64> {
-    (0..w.z.len())
-        .map(|i| node_discharge(w, i, flows.upstream, flows.outflow))
-        .collect()
+/// Discharge at every node, as [`node_discharge`] reports it, into
+/// `w.q_node` (reused, so a step allocates nothing).
+pub(super) fn fill_discharges(w: &mut Work, flows: &Flows) {
+    for i in 0..w.z.len() {
+        w.q_node[i] = node_discharge(w, i, flows.upstream, flows.outflow);
+    }
 }
 
 /// Storage in the reach at the old time level (m³).
