@@ -78,6 +78,9 @@ fn fingerprint(r: &diffusive::RoutingResult) -> u64 {
     h
 }
 
+/// Repetitions of each single-run case (median and minimum reported).
+const RUNS: usize = 21;
+
 const LENGTH_M: f64 = 50_000.0;
 const SLOPE: f64 = 0.0005;
 const HOURS: usize = 72;
@@ -190,36 +193,37 @@ fn main() {
         }
         let p = problem(reach, inflow(600.0, 20.0), step);
         let mut times = Vec::new();
-        let mut cpu = Vec::new();
         let mut last = None;
         let mut allocations = 0;
-        for _ in 0..15 {
-            let c = cpu_ns();
+        // The kernel updates a thread's CPU time at scheduler ticks (a few
+        // ms), so it is read around all runs together, not around each.
+        let cpu_start = cpu_ns();
+        for _ in 0..RUNS {
             let before = ALLOCATIONS.load(Ordering::Relaxed);
             let t = Instant::now();
             let r = diffusive::route(&p).expect("benchmark run succeeds");
             times.push(t.elapsed().as_secs_f64());
             allocations = ALLOCATIONS.load(Ordering::Relaxed) - before;
-            if let (Some(a), Some(b)) = (c, cpu_ns()) {
-                cpu.push((b - a) as f64 * 1e-9);
-            }
             last = Some(r);
         }
+        let cpu = match (cpu_start, cpu_ns()) {
+            (Some(a), Some(b)) => (b - a) as f64 * 1e-9 / RUNS as f64,
+            _ => f64::NAN,
+        };
         times.sort_by(f64::total_cmp);
-        cpu.sort_by(f64::total_cmp);
         let median = times[times.len() / 2];
         let r = last.expect("at least one run");
         let d = &r.diagnostics;
         let node_steps = (nodes.len() * d.steps) as f64;
         println!(
             "single run, {label}: median {:.1} ms (min {:.1}, max {:.1}) over {} runs, \
-             on-CPU median {:.1} ms; {} steps, {:.2} Newton iterations/step, \
+             on-CPU mean {:.1} ms; {} steps, {:.2} Newton iterations/step, \
              {:.2e} node-steps/s, mass balance {:.2e} %",
             median * 1e3,
             times[0] * 1e3,
             times[times.len() - 1] * 1e3,
             times.len(),
-            cpu.get(cpu.len() / 2).copied().unwrap_or(f64::NAN) * 1e3,
+            cpu * 1e3,
             d.steps,
             d.newton_iterations_total as f64 / d.steps as f64,
             node_steps / median,
@@ -228,6 +232,19 @@ fn main() {
         // Each output time is one stage row and one discharge row: the
         // result itself. Anything beyond those and a fixed setup count
         // would be per-step allocation.
+        if let Ok(path) = std::env::var("REACHCAST_BENCH_DUMP") {
+            // Every stage of the run, one output time a line, so two builds
+            // can be compared value by value when the fingerprint differs.
+            let text: String = r
+                .stage
+                .iter()
+                .map(|row| {
+                    let cells: Vec<String> = row.iter().map(|z| format!("{z:e}")).collect();
+                    cells.join(" ") + "\n"
+                })
+                .collect();
+            std::fs::write(format!("{path}.{}", step as u64), text).expect("dump written");
+        }
         let rows = 2 * r.output_times.len();
         println!(
             "  allocations per run: {allocations} ({rows} output rows, {} other); \

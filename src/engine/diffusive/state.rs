@@ -2,7 +2,7 @@
 //! stages and at the old time level, how they are evaluated, and how the
 //! old level is rolled forward after an accepted step.
 
-use super::flux::{boundary_outflow, face_flow};
+use super::flux::{boundary_outflow, face_flow_inv};
 use super::newton::NewLevel;
 use super::problem::DownstreamBoundary;
 use crate::engine::budget::Flows;
@@ -62,7 +62,8 @@ impl Work {
 
 /// Fixed geometry derived once from the reach.
 pub(super) struct Geometry {
-    pub(super) dx: Vec<f64>,
+    /// 1 / (x_{j+1} − x_j) per face: the face law multiplies by it.
+    pub(super) inv_dx: Vec<f64>,
     pub(super) length: Vec<f64>,
     pub(super) bed: Vec<f64>,
 }
@@ -71,7 +72,7 @@ impl Geometry {
     pub(super) fn new<H: Hydraulics>(reach: &Reach<'_, H>) -> Self {
         let x = reach.chainage();
         Self {
-            dx: x.windows(2).map(|w| w[1] - w[0]).collect(),
+            inv_dx: x.windows(2).map(|w| 1.0 / (w[1] - w[0])).collect(),
             length: reach.control_lengths(),
             bed: reach.nodes().iter().map(|h| h.bed_elevation()).collect(),
         }
@@ -89,26 +90,31 @@ fn props_finite(p: &Props) -> bool {
 
 /// Evaluate node properties and face flows at `w.z`. Returns the first node
 /// with non-finite properties on failure.
+///
+/// Two passes on purpose: the lookups of the first are independent of one
+/// another, so the processor overlaps their table reads (each node has its
+/// own table, and a lookup that misses the cache is the slowest part of
+/// an iteration); the face laws then read the properties back from one
+/// small array.
 pub(super) fn evaluate<H: Hydraulics>(
     nodes: &[H],
     g: &Geometry,
     eps: f64,
     w: &mut Work,
 ) -> Result<(), usize> {
-    for (i, node) in nodes.iter().enumerate() {
-        let p = node.props(w.z[i]);
-        if !props_finite(&p) {
-            return Err(i);
-        }
-        w.props[i] = p;
+    for ((node, &z), slot) in nodes.iter().zip(&w.z).zip(&mut w.props) {
+        node.props_into(z, slot);
+    }
+    if let Some(i) = w.props.iter().position(|p| !props_finite(p)) {
+        return Err(i);
     }
     for j in 0..nodes.len() - 1 {
-        let (q, a, b) = face_flow(
+        let (q, a, b) = face_flow_inv(
             &w.props[j],
             &w.props[j + 1],
             g.bed[j],
             g.bed[j + 1],
-            g.dx[j],
+            g.inv_dx[j],
             eps,
         );
         w.q_face[j] = q;

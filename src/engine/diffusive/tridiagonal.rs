@@ -25,15 +25,20 @@ pub(super) fn solve_tridiagonal(
     if beta == 0.0 || !beta.is_finite() {
         return Err(0);
     }
-    work[0] = upper[0] / beta;
-    rhs[0] /= beta;
+    // One reciprocal per row instead of two divisions: the forward sweep
+    // is a serial chain through the pivots, and the division is most of
+    // each link.
+    let mut inv = 1.0 / beta;
+    work[0] = upper[0] * inv;
+    rhs[0] *= inv;
     for i in 1..n {
         beta = diag[i] - lower[i] * work[i - 1];
         if beta == 0.0 || !beta.is_finite() {
             return Err(i);
         }
-        work[i] = if i + 1 < n { upper[i] / beta } else { 0.0 };
-        rhs[i] = (rhs[i] - lower[i] * rhs[i - 1]) / beta;
+        inv = 1.0 / beta;
+        work[i] = if i + 1 < n { upper[i] * inv } else { 0.0 };
+        rhs[i] = (rhs[i] - lower[i] * rhs[i - 1]) * inv;
     }
     for i in (0..n - 1).rev() {
         rhs[i] -= work[i] * rhs[i + 1];

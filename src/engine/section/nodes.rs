@@ -96,6 +96,11 @@ impl Hydraulics for Node {
     fn props(&self, z: f64) -> Props {
         self.table.props(z)
     }
+
+    #[inline(always)]
+    fn props_into(&self, z: f64, out: &mut Props) {
+        self.table.props_into(z, out);
+    }
 }
 
 /// Validates a reach and builds its computational nodes with default

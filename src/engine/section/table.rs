@@ -371,6 +371,15 @@ impl Hydraulics for PropertyTable {
 
     #[inline]
     fn props(&self, z: f64) -> Props {
+        let mut p = Props::default();
+        self.props_into(z, &mut p);
+        p
+    }
+
+    // Always inlined: the solver calls it for every node of every Newton
+    // iteration.
+    #[inline(always)]
+    fn props_into(&self, z: f64, out: &mut Props) {
         let s = (z - self.bed) * self.inv_dz;
         if s >= 0.0 && s < self.last {
             let i = s as usize;
@@ -379,25 +388,23 @@ impl Hydraulics for PropertyTable {
             let r = &self.rows[i];
             let g = h - self.dz;
             let hg = h + g;
-            Props {
-                z,
-                flow_area: r.flow_area + h * (r.flow_width + r.flow_curvature * g),
-                storage_area: r.storage_area + h * (r.storage_width + r.storage_curvature * g),
-                flow_top_width: r.flow_width + r.flow_curvature * hg,
-                storage_top_width: r.storage_width + r.storage_curvature * hg,
-                wetted_perimeter: r.perimeter + h * r.perimeter_slope,
-                conveyance: r.conveyance + h * (r.conveyance_slope + r.conveyance_curvature * g),
-                dconveyance_dz: r.conveyance_slope + r.conveyance_curvature * hg,
-                extrapolated: z - self.bed > self.flag_depth,
-            }
+            out.z = z;
+            out.flow_area = r.flow_area + h * (r.flow_width + r.flow_curvature * g);
+            out.storage_area = r.storage_area + h * (r.storage_width + r.storage_curvature * g);
+            out.flow_top_width = r.flow_width + r.flow_curvature * hg;
+            out.storage_top_width = r.storage_width + r.storage_curvature * hg;
+            out.wetted_perimeter = r.perimeter + h * r.perimeter_slope;
+            out.conveyance = r.conveyance + h * (r.conveyance_slope + r.conveyance_curvature * g);
+            out.dconveyance_dz = r.conveyance_slope + r.conveyance_curvature * hg;
+            out.extrapolated = z - self.bed > self.flag_depth;
         } else if s >= self.last {
-            self.beyond_props(z)
+            *out = self.beyond_props(z);
         } else {
             // Below the bed (or NaN): dry.
-            Props {
+            *out = Props {
                 z,
                 ..Props::default()
-            }
+            };
         }
     }
 }
