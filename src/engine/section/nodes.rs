@@ -71,7 +71,7 @@ impl PropertyTable {
         Ok(Self::assemble(
             (1.0 - w) * a.bed + w * b.bed,
             dz,
-            &samples,
+            samples,
             flag_depth,
             beyond,
         ))
