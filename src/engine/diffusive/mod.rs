@@ -161,7 +161,7 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Routing
     forcing.laterals(t0, &mut w.lat_new);
     let z0 = initial::initial_stages(p, &mut forcing, q_up0, &w.lat_new)?;
     w.z.copy_from_slice(&z0);
-    state::evaluate(nodes, &g, o.slope_regularisation, &mut w).map_err(|node| {
+    state::evaluate::<_, false>(nodes, &g, o.slope_regularisation, &mut w).map_err(|node| {
         RoutingError::NonFinite {
             what: "section properties at the initial stage",
             index: node,

@@ -57,7 +57,7 @@ pub(super) fn newton_step<H: Hydraulics>(
     }
     let mut worst = 0;
     for iter in 1..=o.max_newton_iter {
-        evaluate(nodes, g, o.slope_regularisation, w).map_err(|node| StepFailure {
+        evaluate::<_, true>(nodes, g, o.slope_regularisation, w).map_err(|node| StepFailure {
             node,
             reason: FailureReason::NonFinite,
         })?;
@@ -95,9 +95,12 @@ pub(super) fn newton_step<H: Hydraulics>(
             w.z[i] = (w.z[i] + scale * w.rhs[i]).max(g.bed[i] + MIN_DEPTH);
         }
         if max_dz <= o.newton_tol {
-            evaluate(nodes, g, o.slope_regularisation, w).map_err(|node| StepFailure {
-                node,
-                reason: FailureReason::NonFinite,
+            // Only the discharges and properties are needed from here on.
+            evaluate::<_, false>(nodes, g, o.slope_regularisation, w).map_err(|node| {
+                StepFailure {
+                    node,
+                    reason: FailureReason::NonFinite,
+                }
             })?;
             return Ok(iter);
         }

@@ -96,7 +96,12 @@ fn props_finite(p: &Props) -> bool {
 /// own table, and a lookup that misses the cache is the slowest part of
 /// an iteration); the face laws then read the properties back from one
 /// small array.
-pub(super) fn evaluate<H: Hydraulics>(
+///
+/// `JACOBIAN` says whether the face derivatives are wanted: the evaluation
+/// at converged stages (which only rolls the time level forward) skips
+/// them, and `w.dq_a`/`w.dq_b` are then stale until the next Newton
+/// iteration. The discharges are the same bits either way.
+pub(super) fn evaluate<H: Hydraulics, const JACOBIAN: bool>(
     nodes: &[H],
     g: &Geometry,
     eps: f64,
@@ -118,8 +123,10 @@ pub(super) fn evaluate<H: Hydraulics>(
             eps,
         );
         w.q_face[j] = q;
-        w.dq_a[j] = a;
-        w.dq_b[j] = b;
+        if JACOBIAN {
+            w.dq_a[j] = a;
+            w.dq_b[j] = b;
+        }
     }
     Ok(())
 }
