@@ -283,6 +283,25 @@ impl PropertyTable {
         table
     }
 
+    /// Whether `other` has the same properties at every depth above its
+    /// bed (same grid, rows, continuation and flag depth): the sections of
+    /// a prismatic reach differ only in bed elevation.
+    pub(super) fn same_shape(&self, other: &Self) -> bool {
+        self.dz == other.dz
+            && self.last == other.last
+            && self.flag_depth == other.flag_depth
+            && self.rows == other.rows
+            && self.beyond == other.beyond
+    }
+
+    /// This table moved to another bed elevation.
+    pub(super) fn with_bed(&self, bed: f64) -> Self {
+        Self {
+            bed,
+            ..self.clone()
+        }
+    }
+
     /// Lowest bed elevation (m): the table's first row.
     pub fn bed(&self) -> f64 {
         self.bed
