@@ -1,15 +1,34 @@
 //! Engine benchmark (run by hand, never as a test):
 //!
 //! ```sh
-//! cargo bench --bench engine
+//! cargo bench --bench engine              # everything
+//! cargo bench --bench engine -- single    # only the parts named so
 //! ```
 //!
-//! Routes a 72-hour flood through a 50 km invented compound-channel reach
-//! with 501 computational nodes (100 m spacing) with the diffusive-wave
-//! solver, and reports wall time per run, node-steps per second and Newton
-//! iterations per step, for 15-minute and 1-minute output. Then runs an
-//! ensemble of 1,000 perturbed inflows (peak scaled 0.7–1.3, timing shifted
-//! up to ±3 h) on every available core.
+//! Parts:
+//!
+//! * `single`: routes a 72-hour flood through a 50 km invented
+//!   compound-channel reach with 501 computational nodes (100 m spacing)
+//!   with the diffusive-wave solver, for 15-minute and 1-minute output, 21
+//!   runs each. Reports wall time (median, min, max), on-CPU time per run
+//!   (from `/proc`, so time other processes held the core is left out),
+//!   steps, Newton iterations per step, nanoseconds per node-iteration
+//!   (wall time / (nodes × Newton iterations); the flop count it is
+//!   compared with is in the comment above `prismatic`), the allocations
+//!   of one run beside its output rows, and a fingerprint of every bit of
+//!   the result, so an optimisation can be shown to leave the numbers as
+//!   they were. `REACHCAST_BENCH_DUMP=PATH` also writes every stage to
+//!   `PATH.900` and `PATH.60` for a value-by-value comparison.
+//! * `prismatic`: a 201-node, 96-hour run of a 20 km trapezoidal channel on
+//!   a uniform slope, with its nodes and property tables built inside the
+//!   timed region.
+//! * `ensemble`: 1,000 members through the service's own path
+//!   (`forecast::run::Prepared` built once, `forecast::ensemble::
+//!   run_ensemble`: Latin hypercube design, `run_prepared` per member on
+//!   rayon's pool, summary), peak scaled 0.7–1.3, timing shifted up to
+//!   ±3 h, Manning's n by the default spread; wall and on-CPU time.
+//!
+//! Figures and what limits them: README.md, "Performance".
 
 use std::{
     alloc::{GlobalAlloc, Layout, System},
@@ -237,16 +256,18 @@ fn report(label: &str, nodes: usize, times: &[f64], cpu: f64, r: &RoutingResult)
 // * update and convergence test: 5.
 //
 // About 115 flops per node-iteration, 4 of them square roots or divisions.
-// Every accepted step also evaluates properties and faces once more at the
-// converged stages (about 85 flops per node, shared out over about two
-// iterations per step) and rolls the time level forward and watches
-// Froude numbers (about 30 flops per node per step): some 170 flops per
-// node-iteration all told. At about one scalar flop per cycle at 2.6 GHz
-// that is 65 ns if nothing overlapped and 15–25 ns with the overlap a
-// modern core gets from independent nodes; square roots and divisions
-// alone (a few cycles' throughput each) bound it at about 8 ns; the
-// Thomas sweep's serial chain (a reciprocal's latency per row) at about
-// 8 ns per node. The measured figure is compared with this in README.md,
+// Every accepted step also evaluates properties and discharges once more
+// at the converged stages (about 65 flops per node: no face derivatives),
+// rolls the time level forward and watches Froude numbers (about 30 flops
+// per node), shared out over about two iterations per step: some 160
+// flops per node-iteration all told, about 60 ns at one flop per cycle at
+// 2.6 GHz. A core that overlapped independent nodes fully, issuing two
+// floating-point instructions a cycle (about 100 instructions, the
+// multiply-adds fused), would take 20–30 ns; the square roots and
+// divisions alone (4–6 cycles' throughput each, some 5 per node-iteration)
+// bound it near 10 ns, and the Thomas sweep's two serial chains (about 22
+// cycles' latency per row, two rows at a time) near 4 ns. What
+// was measured (about 55 ns) and why it is slower: README.md,
 // "Performance".
 
 /// A prismatic reach: 20 km of one trapezoid (30 m bed, 1:2 banks,
