@@ -22,6 +22,10 @@
 //! * `prismatic`: a 201-node, 96-hour run of a 20 km trapezoidal channel on
 //!   a uniform slope, with its nodes and property tables built inside the
 //!   timed region.
+//! * `schemes`: the θ-method and TR-BDF2 (`diffusive::TimeScheme`)
+//!   against a converged run (TR-BDF2 at a fixed 15 s step): error of the
+//!   mid-reach crest stage, worst stage error at any node and output time,
+//!   steps and wall time.
 //! * `ensemble`: 1,000 members through the service's own path
 //!   (`forecast::run::Prepared` built once, `forecast::ensemble::
 //!   run_ensemble`: Latin hypercube design, `run_prepared` per member on
@@ -38,7 +42,9 @@ use std::{
 
 use chrono::{DateTime, Duration};
 use reachcast::engine::{
-    diffusive::{self, DownstreamBoundary, InitialState, Options, Problem, Reach, RoutingResult},
+    diffusive::{
+        self, DownstreamBoundary, InitialState, Options, Problem, Reach, RoutingResult, TimeScheme,
+    },
     section::{CrossSection, Node, SectionGeometry, build_nodes},
     series::Series,
 };
@@ -415,9 +421,87 @@ fn service_ensemble(sections: &[CrossSection]) {
     );
 }
 
+/// The θ-method and TR-BDF2 against a converged run of the benchmark
+/// reach (TR-BDF2, second order, at a fixed 15 s step): the error of the
+/// mid-reach crest stage and the worst stage error at any node and output
+/// time, beside wall time.
+fn schemes(reach: Reach<'_, Node>) {
+    let run = |options: Options| {
+        let mut p = problem(reach, inflow(600.0, 20.0), 900.0);
+        p.options = options;
+        let mut times = Vec::new();
+        let mut last = None;
+        for _ in 0..5 {
+            let t = Instant::now();
+            last = Some(diffusive::route(&p).expect("scheme run succeeds"));
+            times.push(t.elapsed().as_secs_f64());
+        }
+        times.sort_by(f64::total_cmp);
+        (times[times.len() / 2], last.expect("runs"))
+    };
+    let fine = Options {
+        scheme: TimeScheme::TrBdf2,
+        dt_initial: 15.0,
+        dt_max: 15.0,
+        local_error_tol: 1e3,
+        newton_tol: 1e-7,
+        ..Options::default()
+    };
+    let (_, reference) = run(fine.clone());
+    let (_, coarser) = run(Options {
+        dt_initial: 30.0,
+        dt_max: 30.0,
+        ..fine
+    });
+    let mid = reference.stage[0].len() / 2;
+    let crest = |r: &RoutingResult| r.stage.iter().map(|row| row[mid]).fold(f64::MIN, f64::max);
+    let crest_ref = crest(&reference);
+    let theta = |dt_max: f64| Options {
+        dt_max,
+        ..Options::default()
+    };
+    let trbdf2 = |tol: f64| Options {
+        scheme: TimeScheme::TrBdf2,
+        dt_max: 3600.0,
+        local_error_tol: tol,
+        ..Options::default()
+    };
+    let worst = |r: &RoutingResult| {
+        r.stage
+            .iter()
+            .zip(&reference.stage)
+            .flat_map(|(a, b)| a.iter().zip(b).map(|(x, y)| (x - y).abs()))
+            .fold(0.0, f64::max)
+    };
+    println!(
+        "schemes against a converged run (TR-BDF2 at 15 s; at 30 s it differs by at most \
+         {:.2} mm), 501 nodes, 15-minute output:",
+        worst(&coarser) * 1e3
+    );
+    println!(
+        "  | scheme | steps (rejected) | mid-reach crest error | worst stage error | wall time |"
+    );
+    for (label, options) in [
+        ("θ = 0.6, dt_max 600 s (default)", theta(600.0)),
+        ("θ = 0.6, dt_max 120 s", theta(120.0)),
+        ("TR-BDF2, tol 1 mm, dt_max 3600 s", trbdf2(1e-3)),
+        ("TR-BDF2, tol 0.1 mm, dt_max 3600 s", trbdf2(1e-4)),
+    ] {
+        let (wall, r) = run(options);
+        println!(
+            "  | {label} | {} ({}) | {:+.2} mm | {:.1} mm | {:.1} ms |",
+            r.diagnostics.steps,
+            r.diagnostics.rejected_steps,
+            (crest(&r) - crest_ref) * 1e3,
+            worst(&r) * 1e3,
+            wall * 1e3
+        );
+    }
+}
+
 fn main() {
     // `cargo bench --bench engine -- single` runs only the parts whose
-    // name contains the argument (single, prismatic, ensemble).
+    // name contains the argument (single, prismatic, schemes, ensemble).
     let filter: Option<String> = std::env::args().skip(1).find(|a| !a.starts_with('-'));
     let wanted = |part: &str| filter.as_deref().is_none_or(|f| part.contains(f));
     let sections = reach_sections();
@@ -472,6 +556,9 @@ fn main() {
     }
     if wanted("prismatic") {
         prismatic();
+    }
+    if wanted("schemes") {
+        schemes(reach);
     }
     if wanted("ensemble") {
         service_ensemble(&sections);

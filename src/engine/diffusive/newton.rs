@@ -36,16 +36,21 @@ pub(super) struct NewLevel {
 /// One θ-step by Newton. On success `w.z` holds the new state and the
 /// return value is the number of iterations; `w.props`/`w.q_face` are then
 /// evaluated at the new state.
+///
+/// `theta` is the time weighting of this solve: [`Options::theta`] for the
+/// θ-method, ½ and 1 for the two stages of TR-BDF2 (whose second stage
+/// puts its history terms into `w.v_old`).
 pub(super) fn newton_step<H: Hydraulics>(
     nodes: &[H],
     g: &Geometry,
     b: &DownstreamBoundary,
     o: &Options,
+    theta: f64,
     lvl: &NewLevel,
     w: &mut Work,
 ) -> Result<usize, StepFailure> {
     let n = nodes.len();
-    let (theta, dt) = (o.theta, lvl.dt);
+    let dt = lvl.dt;
     // Start from the old state extrapolated with the last step's rate (a
     // linear predictor saves about one Newton iteration per step on a
     // smooth flood), with the imposed stage already in place.

@@ -34,6 +34,20 @@ pub(super) struct Work {
     /// Node discharges of the last accepted level, handed to the dense
     /// output (filled in place rather than collected anew every step).
     pub(super) q_node: Vec<f64>,
+    /// TR-BDF2: the old level kept while the two stages overwrite it
+    /// (stages, storage, net inflow, predictor rate, laterals), and the
+    /// net inflow at the intermediate stage, for the error estimate.
+    pub(super) saved: Saved,
+}
+
+/// The old time level as TR-BDF2 keeps it across its two stages.
+pub(super) struct Saved {
+    pub(super) z: Vec<f64>,
+    pub(super) v: Vec<f64>,
+    pub(super) f: Vec<f64>,
+    pub(super) rate: Vec<f64>,
+    pub(super) lat: Vec<f64>,
+    pub(super) f_mid: Vec<f64>,
 }
 
 impl Work {
@@ -56,6 +70,14 @@ impl Work {
             rhs: vec![0.0; n],
             scratch: vec![0.0; n],
             q_node: vec![0.0; n],
+            saved: Saved {
+                z: vec![0.0; n],
+                v: vec![0.0; n],
+                f: vec![0.0; n],
+                rate: vec![0.0; n],
+                lat: vec![0.0; n],
+                f_mid: vec![0.0; n],
+            },
         }
     }
 }
