@@ -52,7 +52,9 @@
 //!     bed, which is what makes wetting and drying work without negative
 //!     depths. It is exactly 1 once the donor is a centimetre deep, so it does
 //!     not touch normal flows.
-//! * Time stepping is the θ-method (θ ∈ [0.55, 1]); the nonlinear system of
+//! * Time stepping is the θ-method (θ ∈ [0.55, 1]) by default, or TR-BDF2
+//!   ([`TimeScheme::TrBdf2`], module `trbdf2`: two such solves per step and
+//!   an error-controlled step); the nonlinear system of
 //!   each step is solved by Newton's method whose Jacobian is tridiagonal
 //!   (each residual involves a node and its two neighbours), solved by the
 //!   Thomas algorithm in O(N). Newton starts from the previous state
@@ -78,7 +80,10 @@
 //! the step are interpolated linearly in time inside it (dense output), so
 //! minute-by-minute output does not force minute-long steps. Accuracy is
 //! set by `dt_max` (numerical diffusion of the θ-scheme is about
-//! (θ − ½) c² Δt, common practice) and the Newton tolerance.
+//! (θ − ½) c² Δt, common practice) and the Newton tolerance. With TR-BDF2
+//! the step also follows its local error estimate
+//! ([`Options::local_error_tol`]): shortened and retried above it, grown
+//! (at most twofold, up to `dt_max`) below it.
 //!
 //! # Inputs outside their range
 //!
