@@ -163,7 +163,7 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Routing
     let b = &p.downstream;
     let t0 = p.start_time;
 
-    let mut w = Work::new(n);
+    let mut w = Work::new(n, o.scheme == TimeScheme::TrBdf2);
     let q_up0 = forcing.upstream(t0);
     forcing.laterals(t0, &mut w.lat_new);
     let z0 = initial::initial_stages(p, &mut forcing, q_up0, &w.lat_new)?;

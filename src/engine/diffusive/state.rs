@@ -51,7 +51,9 @@ pub(super) struct Saved {
 }
 
 impl Work {
-    pub(super) fn new(n: usize) -> Self {
+    /// Arrays for `n` nodes; TR-BDF2's saved level only when `two_stage`.
+    pub(super) fn new(n: usize, two_stage: bool) -> Self {
+        let saved_len = if two_stage { n } else { 0 };
         Self {
             z: vec![0.0; n],
             z_old: vec![0.0; n],
@@ -71,12 +73,12 @@ impl Work {
             scratch: vec![0.0; n],
             q_node: vec![0.0; n],
             saved: Saved {
-                z: vec![0.0; n],
-                v: vec![0.0; n],
-                f: vec![0.0; n],
-                rate: vec![0.0; n],
-                lat: vec![0.0; n],
-                f_mid: vec![0.0; n],
+                z: vec![0.0; saved_len],
+                v: vec![0.0; saved_len],
+                f: vec![0.0; saved_len],
+                rate: vec![0.0; saved_len],
+                lat: vec![0.0; saved_len],
+                f_mid: vec![0.0; saved_len],
             },
         }
     }
@@ -123,6 +125,9 @@ fn props_finite(p: &Props) -> bool {
 /// at converged stages (which only rolls the time level forward) skips
 /// them, and `w.dq_a`/`w.dq_b` are then stale until the next Newton
 /// iteration. The discharges are the same bits either way.
+// Kept out of line: inlined into its callers it measured slower (bench
+// `engine`), the larger caller's code crowding the loop.
+#[inline(never)]
 pub(super) fn evaluate<H: Hydraulics, const JACOBIAN: bool>(
     nodes: &[H],
     g: &Geometry,

@@ -29,30 +29,12 @@ pub(super) fn solve_tridiagonal(
     if n == 0 {
         return Ok(());
     }
-    let pivot = |beta: f64, row: usize| {
-        if beta == 0.0 || !beta.is_finite() {
-            Err(row)
-        } else {
-            Ok(1.0 / beta)
-        }
-    };
     // Rows 0..m are eliminated downwards (work = upper/β, rhs = d'), rows
     // m+1..n upwards (work = lower/α, rhs = g), row m last.
     let m = n / 2;
     let below = n - 1 - m; // rows m+1..n; never more than m
-    let top = |i: usize, work: &mut [f64], rhs: &mut [f64]| -> Result<(), usize> {
-        let (beta, prev) = if i == 0 {
-            (diag[0], 0.0)
-        } else {
-            (diag[i] - lower[i] * work[i - 1], rhs[i - 1])
-        };
-        let inv = pivot(beta, i)?;
-        work[i] = upper[i] * inv;
-        rhs[i] = (rhs[i] - lower[i] * prev) * inv;
-        Ok(())
-    };
     for k in 0..below {
-        top(k, work, rhs)?;
+        top_row(k, (lower, diag, upper), work, rhs)?;
         let i = n - 1 - k;
         let (alpha, next) = if k == 0 {
             (diag[i], 0.0)
@@ -64,7 +46,7 @@ pub(super) fn solve_tridiagonal(
         rhs[i] = (rhs[i] - upper[i] * next) * inv;
     }
     if m > below {
-        top(m - 1, work, rhs)?;
+        top_row(m - 1, (lower, diag, upper), work, rhs)?;
     }
     // The middle row sees both eliminated neighbours.
     let mut beta = diag[m];
@@ -84,6 +66,35 @@ pub(super) fn solve_tridiagonal(
     for i in m + 1..n {
         rhs[i] -= work[i] * rhs[i - 1];
     }
+    Ok(())
+}
+
+/// The reciprocal of a pivot, or the row of a zero or non-finite one.
+#[inline(always)]
+fn pivot(beta: f64, row: usize) -> Result<f64, usize> {
+    if beta == 0.0 || !beta.is_finite() {
+        Err(row)
+    } else {
+        Ok(1.0 / beta)
+    }
+}
+
+/// Row `i` of the downward elimination.
+#[inline(always)]
+fn top_row(
+    i: usize,
+    (lower, diag, upper): (&[f64], &[f64], &[f64]),
+    work: &mut [f64],
+    rhs: &mut [f64],
+) -> Result<(), usize> {
+    let (beta, prev) = if i == 0 {
+        (diag[0], 0.0)
+    } else {
+        (diag[i] - lower[i] * work[i - 1], rhs[i - 1])
+    };
+    let inv = pivot(beta, i)?;
+    work[i] = upper[i] * inv;
+    rhs[i] = (rhs[i] - lower[i] * prev) * inv;
     Ok(())
 }
 
