@@ -68,6 +68,17 @@ impl Budget {
         self.outflow += dt * (theta * new.outflow + (1.0 - theta) * old.outflow);
     }
 
+    /// Add a step of `dt` seconds whose scheme weights the flows of several
+    /// time levels: `levels` pairs each level's flows with its weight
+    /// (weights summing to one), as TR-BDF2's two stages do.
+    pub(crate) fn step_weighted(&mut self, dt: f64, levels: &[(f64, &Flows)]) {
+        for &(w, f) in levels {
+            self.inflow += dt * w * f.upstream;
+            self.lateral += dt * w * f.lateral;
+            self.outflow += dt * w * f.outflow;
+        }
+    }
+
     /// Close the budget with `storage1` m³ in the reach at the end.
     pub(crate) fn close(&self, storage1: f64) -> MassBalance {
         let storage_change = storage1 - self.storage0;

@@ -74,4 +74,14 @@ pub trait Hydraulics {
     fn bed_elevation(&self) -> f64;
     /// Properties at water-surface elevation `z` (m).
     fn props(&self, z: f64) -> Props;
+
+    /// [`Hydraulics::props`] written into `out`. The solver's inner loop
+    /// uses it: an implementation that writes the fields one by one into
+    /// the caller's slot spares building a `Props` on the stack and copying
+    /// it, a copy whose wide reads of just-written narrow fields stall the
+    /// processor (store forwarding fails).
+    #[inline(always)]
+    fn props_into(&self, z: f64, out: &mut Props) {
+        *out = self.props(z);
+    }
 }

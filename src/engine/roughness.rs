@@ -36,6 +36,13 @@ impl<H: Hydraulics> Hydraulics for Roughened<'_, H> {
         p.dconveyance_dz *= self.inv_factor;
         p
     }
+
+    #[inline(always)]
+    fn props_into(&self, z: f64, out: &mut Props) {
+        self.inner.props_into(z, out);
+        out.conveyance *= self.inv_factor;
+        out.dconveyance_dz *= self.inv_factor;
+    }
 }
 
 #[cfg(test)]

@@ -1,29 +1,123 @@
 //! Engine benchmark (run by hand, never as a test):
 //!
 //! ```sh
-//! cargo bench --bench engine
+//! cargo bench --bench engine              # everything
+//! cargo bench --bench engine -- single    # only the parts named so
 //! ```
 //!
-//! Routes a 72-hour flood through a 50 km invented compound-channel reach
-//! with 501 computational nodes (100 m spacing) with the diffusive-wave
-//! solver, and reports wall time per run, node-steps per second and Newton
-//! iterations per step, for 15-minute and 1-minute output. Then runs an
-//! ensemble of 1,000 perturbed inflows (peak scaled 0.7–1.3, timing shifted
-//! up to ±3 h) on every available core.
+//! Parts:
+//!
+//! * `single`: routes a 72-hour flood through a 50 km invented
+//!   compound-channel reach with 501 computational nodes (100 m spacing)
+//!   with the diffusive-wave solver, for 15-minute and 1-minute output, 21
+//!   runs each. Reports wall time (median, min, max), on-CPU time per run
+//!   (from `/proc`, so time other processes held the core is left out),
+//!   steps, Newton iterations per step, nanoseconds per node-iteration
+//!   (wall time / (nodes × Newton iterations); the flop count it is
+//!   compared with is in the comment above `prismatic`), the allocations
+//!   of one run beside its output rows, and a fingerprint of every bit of
+//!   the result, so an optimisation can be shown to leave the numbers as
+//!   they were. `REACHCAST_BENCH_DUMP=PATH` also writes every stage to
+//!   `PATH.900` and `PATH.60` for a value-by-value comparison.
+//! * `prismatic`: a 201-node, 96-hour run of a 20 km trapezoidal channel on
+//!   a uniform slope, with its nodes and property tables built inside the
+//!   timed region.
+//! * `schemes`: the θ-method and TR-BDF2 (`diffusive::TimeScheme`)
+//!   against a converged run (TR-BDF2 at a fixed 15 s step): error of the
+//!   mid-reach crest stage, worst stage error at any node and output time,
+//!   steps and wall time.
+//! * `ensemble`: 1,000 members through the service's own path
+//!   (`forecast::run::Prepared` built once, `forecast::ensemble::
+//!   run_ensemble`: Latin hypercube design, `run_prepared` per member on
+//!   rayon's pool, summary), peak scaled 0.7–1.3, timing shifted up to
+//!   ±3 h, Manning's n by the default spread; wall and on-CPU time.
+//!
+//! Figures and what limits them: README.md, "Performance".
 
-use std::time::Instant;
+use std::{
+    alloc::{GlobalAlloc, Layout, System},
+    sync::atomic::{AtomicUsize, Ordering},
+    time::Instant,
+};
 
+use chrono::{DateTime, Duration};
 use reachcast::engine::{
-    diffusive::{self, DownstreamBoundary, InitialState, Options, Problem, Reach},
+    diffusive::{
+        self, DownstreamBoundary, InitialState, Options, Problem, Reach, RoutingResult, TimeScheme,
+    },
     section::{CrossSection, Node, SectionGeometry, build_nodes},
     series::Series,
 };
+use reachcast::forecast::{
+    ensemble::{EnsembleInput, EnsembleSpec, perturb::RatedInflow, run_ensemble},
+    hydrograph::Hydrograph,
+    run::{self, Adjust, Prepared},
+    spec::ReachSpec,
+};
+
+/// Counts heap allocations, so the benchmark can show that a run allocates
+/// per output row (its result) and not per time step or Newton iteration.
+struct Counting;
+
+static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
+
+// SAFETY: every call is forwarded unchanged to the system allocator; the
+// counter has no effect on the memory handed out.
+unsafe impl GlobalAlloc for Counting {
+    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::Relaxed);
+        // SAFETY: same contract as the caller's.
+        unsafe { System.alloc(layout) }
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
+        // SAFETY: same contract as the caller's.
+        unsafe { System.dealloc(ptr, layout) }
+    }
+    unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, new_size: usize) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::Relaxed);
+        // SAFETY: same contract as the caller's.
+        unsafe { System.realloc(ptr, layout, new_size) }
+    }
+}
+
+#[global_allocator]
+static GLOBAL: Counting = Counting;
+
+/// On-CPU time of every thread of this process (ns), from
+/// `/proc/self/task/*/schedstat` (Linux; first field). Wall time on a
+/// shared machine includes time other processes held the core; this does
+/// not. `None` where the file is not available.
+fn cpu_ns() -> Option<u64> {
+    let mut total = 0;
+    for task in std::fs::read_dir("/proc/self/task").ok()? {
+        let path = task.ok()?.path().join("schedstat");
+        let text = std::fs::read_to_string(path).ok()?;
+        total += text.split_whitespace().next()?.parse::<u64>().ok()?;
+    }
+    Some(total)
+}
+
+/// An order-sensitive hash of every bit of a result (FNV-1a over the
+/// stages, discharges and final state), printed so that an optimisation
+/// can be checked to leave the numbers bit for bit the same.
+fn fingerprint(r: &RoutingResult) -> u64 {
+    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+    let rows = r.stage.iter().chain(&r.discharge);
+    for v in rows.flatten().chain(&r.final_state) {
+        h ^= v.to_bits();
+        h = h.wrapping_mul(0x0000_0100_0000_01b3);
+    }
+    h
+}
+
+/// Repetitions of each single-run case (median and minimum reported).
+const RUNS: usize = 21;
 
 const LENGTH_M: f64 = 50_000.0;
 const SLOPE: f64 = 0.0005;
 const HOURS: usize = 72;
 
-fn reach_nodes() -> Vec<Node> {
+fn reach_sections() -> Vec<CrossSection> {
     // Eleven surveyed sections 5 km apart: a 40 m channel 3 m deep with
     // 150–250 m floodplains; widths vary so interpolation does real work.
     let sections: Vec<CrossSection> = (0..=10)
@@ -59,7 +153,7 @@ fn reach_nodes() -> Vec<Node> {
             }
         })
         .collect();
-    build_nodes(&sections, 100.0).expect("benchmark reach is valid")
+    sections
 }
 
 /// A gamma-shaped flood: base 40 m³/s, peak `40 + rise` at `peak_h`.
@@ -96,22 +190,323 @@ fn problem<'a>(reach: Reach<'a, Node>, up: Series, output_step: f64) -> Problem<
     }
 }
 
-/// Small deterministic generator (64-bit LCG, Knuth's MMIX constants) so
-/// the ensemble is the same on every run.
-struct Lcg(u64);
-impl Lcg {
-    fn next(&mut self) -> f64 {
-        self.0 = self
-            .0
-            .wrapping_mul(6_364_136_223_846_793_005)
-            .wrapping_add(1_442_695_040_888_963_407);
-        (self.0 >> 11) as f64 / (1u64 << 53) as f64
+/// Wall times of `RUNS` repetitions (sorted, s), the on-CPU time per run
+/// (s), the allocations of the last run and its result.
+fn repeat(mut run: impl FnMut() -> RoutingResult) -> (Vec<f64>, f64, usize, RoutingResult) {
+    let mut times = Vec::new();
+    let mut last = None;
+    let mut allocations = 0;
+    // The kernel updates a thread's CPU time at scheduler ticks (a few
+    // ms), so it is read around all runs together, not around each.
+    let cpu_start = cpu_ns();
+    for _ in 0..RUNS {
+        let before = ALLOCATIONS.load(Ordering::Relaxed);
+        let t = Instant::now();
+        let r = run();
+        times.push(t.elapsed().as_secs_f64());
+        allocations = ALLOCATIONS.load(Ordering::Relaxed) - before;
+        last = Some(r);
+    }
+    let cpu = match (cpu_start, cpu_ns()) {
+        (Some(a), Some(b)) => (b - a) as f64 * 1e-9 / RUNS as f64,
+        _ => f64::NAN,
+    };
+    times.sort_by(f64::total_cmp);
+    (times, cpu, allocations, last.expect("at least one run"))
+}
+
+/// One line of timings and work counts for a case of `nodes` nodes.
+fn report(label: &str, nodes: usize, times: &[f64], cpu: f64, r: &RoutingResult) {
+    let median = times[times.len() / 2];
+    let d = &r.diagnostics;
+    let node_iterations = (nodes * d.newton_iterations_total) as f64;
+    println!(
+        "{label}: median {:.1} ms (min {:.1}, max {:.1}) over {} runs, on-CPU mean {:.1} ms; \
+         {} steps, {:.2} Newton iterations/step, {:.1} ns per node-iteration \
+         (on-CPU {:.1}), mass balance {:.2e} %",
+        median * 1e3,
+        times[0] * 1e3,
+        times[times.len() - 1] * 1e3,
+        times.len(),
+        cpu * 1e3,
+        d.steps,
+        d.newton_iterations_total as f64 / d.steps as f64,
+        median * 1e9 / node_iterations,
+        cpu * 1e9 / node_iterations,
+        d.mass_balance_error_pct
+    );
+}
+
+// Arithmetic per node-iteration (the figure above divides wall time by
+// nodes × Newton iterations), counted from the source, a fused
+// multiply-add as two flops, comparisons and max/min as one:
+//
+// * table lookup (`PropertyTable::props_into`): grid index and offset
+//   (sub, mul, two conversions, mul, add, sub: 7), then quadratic
+//   interpolation of storage and flow area (4 each), the two top widths
+//   (2 each), the perimeter (2), conveyance (4) and dK/dz (2), and the
+//   `extrapolated` test (2): about 29 flops, 11 doubles (88 bytes, often
+//   two cache lines) read from the node's own table.
+// * face law (`flux::face_flow_inv`), per face: slope (2), S² + ε² (3),
+//   two square roots, one reciprocal, r and dr/dS (8), donor choice and
+//   donor conveyance with its derivatives (about 14), mean and cap test
+//   (5), dK_f (8), the dry ramp (3) and q, dq/dz_a, dq/dz_b (9): about
+//   52 flops, of which 3 are square roots or divisions.
+// * the finite-values check of the properties: 6 comparisons.
+// * residual and Jacobian row (`newton::assemble`): net inflow (2),
+//   off-diagonals (2), storage minus old storage minus the θ-weighted
+//   flux (8), diagonal (4): about 16 flops.
+// * Thomas algorithm: forward sweep 2 mul + 2 sub + 1 reciprocal + 2 mul
+//   (7), back substitution 2 (9 flops, one division), on a serial chain
+//   through the pivots.
+// * update and convergence test: 5.
+//
+// About 115 flops per node-iteration, 4 of them square roots or divisions.
+// Every accepted step also evaluates properties and discharges once more
+// at the converged stages (about 65 flops per node: no face derivatives),
+// rolls the time level forward and watches Froude numbers (about 30 flops
+// per node), shared out over about two iterations per step: some 160
+// flops per node-iteration all told, about 60 ns at one flop per cycle at
+// 2.6 GHz. A core that overlapped independent nodes fully, issuing two
+// floating-point instructions a cycle (about 100 instructions, the
+// multiply-adds fused), would take 20–30 ns; the square roots and
+// divisions alone (4–6 cycles' throughput each, some 5 per node-iteration)
+// bound it near 10 ns, and the Thomas sweep's two serial chains (about 22
+// cycles' latency per row, two rows at a time) near 4 ns. What
+// was measured (about 55 ns) and why it is slower: README.md,
+// "Performance".
+
+/// A prismatic reach: 20 km of one trapezoid (30 m bed, 1:2 banks,
+/// n = 0.035, unbounded) on a uniform slope of 5e-4, two sections and
+/// 201 nodes 100 m apart, routing a 96-hour flood. The tables are built
+/// inside the timed region, as a run of a newly uploaded reach builds
+/// them.
+fn prismatic() {
+    let section = |name: &str, x: f64| CrossSection {
+        name: name.to_owned(),
+        chainage: x,
+        geometry: SectionGeometry::Trapezoid {
+            bed_elevation: 50.0 - SLOPE * x,
+            bottom_width: 30.0,
+            side_slope: 2.0,
+            n: 0.035,
+            height: None,
+        },
+    };
+    let sections = [section("P0", 0.0), section("P1", 20_000.0)];
+    let hours = 96usize;
+    let t: Vec<f64> = (0..=hours).map(|h| h as f64 * 3600.0).collect();
+    let q = t
+        .iter()
+        .map(|&s| {
+            let x = s / 3600.0 / 24.0;
+            20.0 + 300.0 * x.powi(4) * (4.0 * (1.0 - x)).exp()
+        })
+        .collect();
+    let up = Series::new(t, q).expect("valid series");
+    let outputs: Vec<f64> = (0..=hours * 4).map(|k| k as f64 * 900.0).collect();
+    let mut build = Vec::new();
+    let (times, cpu, _, r) = repeat(|| {
+        let t = Instant::now();
+        let nodes = build_nodes(&sections, 100.0).expect("prismatic reach is valid");
+        build.push(t.elapsed().as_secs_f64());
+        let chainage: Vec<f64> = nodes.iter().map(|n| n.chainage).collect();
+        let reach = Reach::new(&chainage, &nodes).expect("reach");
+        let p = Problem {
+            reach,
+            upstream: up.clone(),
+            downstream: DownstreamBoundary::NormalDepth {
+                friction_slope: SLOPE,
+            },
+            laterals: Vec::new(),
+            initial: InitialState::Steady,
+            start_time: 0.0,
+            output_times: outputs.clone(),
+            options: Options::default(),
+        };
+        diffusive::route(&p).expect("prismatic run succeeds")
+    });
+    build.sort_by(f64::total_cmp);
+    let nodes = r.final_state.len();
+    report(
+        &format!("prismatic {nodes}-node, {hours} h, tables included"),
+        nodes,
+        &times,
+        cpu,
+        &r,
+    );
+    println!(
+        "  of which building nodes and tables: median {:.1} ms; result fingerprint {:016x}",
+        build[build.len() / 2] * 1e3,
+        fingerprint(&r)
+    );
+}
+
+/// The bench reach as a reach description, so the ensemble runs through
+/// the service's own code: [`Prepared`] built once, members drawn by
+/// [`reachcast::forecast::ensemble::design`], routed by `run_prepared`
+/// in parallel with rayon and summarised, exactly as
+/// `service::ensemble` does for a forecast run.
+fn reach_spec(sections: &[CrossSection], members: usize) -> ReachSpec {
+    let doc = serde_json::json!({
+        "name": "Benchmark compound channel (invented)",
+        "sections": serde_json::to_value(sections).expect("sections serialise"),
+        "max_node_spacing": 100,
+        "downstream": {"kind": "normal_depth", "friction_slope": SLOPE},
+        "points": [{"name": "Mid-reach", "chainage": LENGTH_M / 2.0, "kind": "other",
+            "thresholds": [{"id": "t1", "name": "Bankfull", "elevation": 92.5}]}],
+        "routing": {"output_interval_s": 900, "dt_max_s": 600},
+    });
+    let mut spec = ReachSpec::from_json(&doc.to_string()).expect("benchmark reach spec");
+    spec.ensemble = EnsembleSpec {
+        members,
+        // The engine-only ensemble's spreads (rise 0.7–1.3, ±3 h) plus the
+        // default spread of Manning's n, which the service also draws.
+        peak_scale: [0.7, 1.3],
+        timing_shift_hours: 3.0,
+        ..EnsembleSpec::default()
+    };
+    spec
+}
+
+fn service_ensemble(sections: &[CrossSection]) {
+    let members = 1_000usize;
+    let threads = rayon::current_num_threads();
+    let spec = reach_spec(sections, members);
+    let t0 = DateTime::from_timestamp(1_790_000_000, 0).expect("valid time");
+    let flood = inflow(600.0, 20.0);
+    let inflow = Hydrograph::parse(
+        (0..=HOURS)
+            .map(|h| (t0 + Duration::hours(h as i64), flood.at(h as f64 * 3600.0)))
+            .collect(),
+    )
+    .expect("valid hydrograph");
+    let t = Instant::now();
+    let prepared = Prepared::new(&spec).expect("prepared");
+    let prepare_s = t.elapsed().as_secs_f64();
+    let det = run::run_prepared(&spec, &prepared, &inflow, None, Adjust::NONE)
+        .expect("deterministic run");
+    let input = EnsembleInput {
+        spec: &spec,
+        settings: &spec.ensemble,
+        prepared: &prepared,
+        inflow: &inflow,
+        issued: t0,
+        rated: RatedInflow::None,
+        seed: 0x5eed,
+        method: None,
+    };
+    let cpu_start = cpu_ns();
+    let t = Instant::now();
+    let summary = run_ensemble(&input, &det.points)
+        .expect("ensemble routes")
+        .expect("ensemble is on");
+    let wall = t.elapsed().as_secs_f64();
+    let cpu = match (cpu_start, cpu_ns()) {
+        (Some(a), Some(b)) => (b - a) as f64 * 1e-9,
+        _ => f64::NAN,
+    };
+    let crest = &summary.points[0].crest;
+    println!(
+        "ensemble (service path): {} members ({} failed) on {threads} thread(s) in {wall:.1} s \
+         ({:.1} ms/member per thread), on-CPU {cpu:.1} s ({:.1} ms/member); tables prepared \
+         once in {:.0} ms; mid-reach crest {:.2} m to {:.2} m",
+        summary.members,
+        summary.failed_members,
+        wall * 1e3 * threads as f64 / members as f64,
+        cpu * 1e3 / members as f64,
+        prepare_s * 1e3,
+        crest.min,
+        crest.max
+    );
+}
+
+/// The θ-method and TR-BDF2 against a converged run of the benchmark
+/// reach (TR-BDF2, second order, at a fixed 15 s step): the error of the
+/// mid-reach crest stage and the worst stage error at any node and output
+/// time, beside wall time.
+fn schemes(reach: Reach<'_, Node>) {
+    let run = |options: Options| {
+        let mut p = problem(reach, inflow(600.0, 20.0), 900.0);
+        p.options = options;
+        let mut times = Vec::new();
+        let mut last = None;
+        for _ in 0..5 {
+            let t = Instant::now();
+            last = Some(diffusive::route(&p).expect("scheme run succeeds"));
+            times.push(t.elapsed().as_secs_f64());
+        }
+        times.sort_by(f64::total_cmp);
+        (times[times.len() / 2], last.expect("runs"))
+    };
+    let fine = Options {
+        scheme: TimeScheme::TrBdf2,
+        dt_initial: 15.0,
+        dt_max: 15.0,
+        local_error_tol: 1e3,
+        newton_tol: 1e-7,
+        ..Options::default()
+    };
+    let (_, reference) = run(fine.clone());
+    let (_, coarser) = run(Options {
+        dt_initial: 30.0,
+        dt_max: 30.0,
+        ..fine
+    });
+    let mid = reference.stage[0].len() / 2;
+    let crest = |r: &RoutingResult| r.stage.iter().map(|row| row[mid]).fold(f64::MIN, f64::max);
+    let crest_ref = crest(&reference);
+    let theta = |dt_max: f64| Options {
+        dt_max,
+        ..Options::default()
+    };
+    let trbdf2 = |tol: f64| Options {
+        scheme: TimeScheme::TrBdf2,
+        dt_max: 3600.0,
+        local_error_tol: tol,
+        ..Options::default()
+    };
+    let worst = |r: &RoutingResult| {
+        r.stage
+            .iter()
+            .zip(&reference.stage)
+            .flat_map(|(a, b)| a.iter().zip(b).map(|(x, y)| (x - y).abs()))
+            .fold(0.0, f64::max)
+    };
+    println!(
+        "schemes against a converged run (TR-BDF2 at 15 s; at 30 s it differs by at most \
+         {:.2} mm), 501 nodes, 15-minute output:",
+        worst(&coarser) * 1e3
+    );
+    println!(
+        "  | scheme | steps (rejected) | mid-reach crest error | worst stage error | wall time |"
+    );
+    for (label, options) in [
+        ("θ = 0.6, dt_max 600 s (default)", theta(600.0)),
+        ("θ = 0.6, dt_max 120 s", theta(120.0)),
+        ("TR-BDF2, tol 1 mm, dt_max 3600 s", trbdf2(1e-3)),
+        ("TR-BDF2, tol 0.1 mm, dt_max 3600 s", trbdf2(1e-4)),
+    ] {
+        let (wall, r) = run(options);
+        println!(
+            "  | {label} | {} ({}) | {:+.2} mm | {:.1} mm | {:.1} ms |",
+            r.diagnostics.steps,
+            r.diagnostics.rejected_steps,
+            (crest(&r) - crest_ref) * 1e3,
+            worst(&r) * 1e3,
+            wall * 1e3
+        );
     }
 }
 
 fn main() {
+    // `cargo bench --bench engine -- single` runs only the parts whose
+    // name contains the argument (single, prismatic, schemes, ensemble).
+    let filter: Option<String> = std::env::args().skip(1).find(|a| !a.starts_with('-'));
+    let wanted = |part: &str| filter.as_deref().is_none_or(|f| part.contains(f));
+    let sections = reach_sections();
     let started = Instant::now();
-    let nodes = reach_nodes();
+    let nodes = build_nodes(&sections, 100.0).expect("benchmark reach is valid");
     let build_ms = started.elapsed().as_secs_f64() * 1e3;
     let chainage: Vec<f64> = nodes.iter().map(|n| n.chainage).collect();
     let reach = Reach::new(&chainage, &nodes).expect("reach");
@@ -122,76 +517,50 @@ fn main() {
     );
 
     for (label, step) in [("15-minute output", 900.0), ("1-minute output", 60.0)] {
-        let p = problem(reach, inflow(600.0, 20.0), step);
-        let mut times = Vec::new();
-        let mut last = None;
-        for _ in 0..15 {
-            let t = Instant::now();
-            let r = diffusive::route(&p).expect("benchmark run succeeds");
-            times.push(t.elapsed().as_secs_f64());
-            last = Some(r);
+        if !wanted("single") {
+            break;
         }
-        times.sort_by(f64::total_cmp);
-        let median = times[times.len() / 2];
-        let r = last.expect("at least one run");
-        let d = &r.diagnostics;
-        let node_steps = (nodes.len() * d.steps) as f64;
+        let p = problem(reach, inflow(600.0, 20.0), step);
+        let (times, cpu, allocations, r) =
+            repeat(|| diffusive::route(&p).expect("benchmark run succeeds"));
+        report(
+            &format!("single run, {label}"),
+            nodes.len(),
+            &times,
+            cpu,
+            &r,
+        );
+        if let Ok(path) = std::env::var("REACHCAST_BENCH_DUMP") {
+            // Every stage of the run, one output time a line, so two builds
+            // can be compared value by value when the fingerprint differs.
+            let text: String = r
+                .stage
+                .iter()
+                .map(|row| {
+                    let cells: Vec<String> = row.iter().map(|z| format!("{z:e}")).collect();
+                    cells.join(" ") + "\n"
+                })
+                .collect();
+            std::fs::write(format!("{path}.{}", step as u64), text).expect("dump written");
+        }
+        // Each output time is one stage row and one discharge row: the
+        // result itself. Anything beyond those and a fixed setup count
+        // would be per-step allocation.
+        let rows = 2 * r.output_times.len();
         println!(
-            "single run, {label}: median {:.1} ms (min {:.1}, max {:.1}) over {} runs; \
-             {} steps, {:.2} Newton iterations/step, {:.2e} node-steps/s, mass balance {:.2e} %",
-            median * 1e3,
-            times[0] * 1e3,
-            times[times.len() - 1] * 1e3,
-            times.len(),
-            d.steps,
-            d.newton_iterations_total as f64 / d.steps as f64,
-            node_steps / median,
-            d.mass_balance_error_pct
+            "  allocations per run: {allocations} ({rows} output rows, {} other); \
+             result fingerprint {:016x}",
+            allocations as i64 - rows as i64,
+            fingerprint(&r)
         );
     }
-
-    let members = 1_000usize;
-    let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
-    let mut rng = Lcg(0x5eed);
-    let params: Vec<(f64, f64)> = (0..members)
-        .map(|_| {
-            (
-                600.0 * (0.7 + 0.6 * rng.next()),
-                20.0 + 6.0 * (rng.next() - 0.5),
-            )
-        })
-        .collect();
-    let t = Instant::now();
-    let crests: Vec<f64> = std::thread::scope(|s| {
-        let chunks: Vec<_> = params
-            .chunks(members.div_ceil(threads))
-            .map(|chunk| {
-                s.spawn(move || {
-                    chunk
-                        .iter()
-                        .map(|&(rise, peak)| {
-                            let r = diffusive::route(&problem(reach, inflow(rise, peak), 900.0))
-                                .expect("ensemble member succeeds");
-                            // Crest stage at mid-reach.
-                            let mid = r.stage[0].len() / 2;
-                            r.stage.iter().map(|row| row[mid]).fold(f64::MIN, f64::max)
-                        })
-                        .collect::<Vec<f64>>()
-                })
-            })
-            .collect();
-        chunks
-            .into_iter()
-            .flat_map(|h| h.join().expect("worker thread"))
-            .collect()
-    });
-    let wall = t.elapsed().as_secs_f64();
-    let (lo, hi) = crests
-        .iter()
-        .fold((f64::MAX, f64::MIN), |(a, b), &c| (a.min(c), b.max(c)));
-    println!(
-        "ensemble: {members} runs on {threads} thread(s) in {wall:.1} s ({:.1} ms/run per thread); \
-         mid-reach crest range {lo:.2} m to {hi:.2} m",
-        wall * 1e3 * threads as f64 / members as f64
-    );
+    if wanted("prismatic") {
+        prismatic();
+    }
+    if wanted("schemes") {
+        schemes(reach);
+    }
+    if wanted("ensemble") {
+        service_ensemble(&sections);
+    }
 }

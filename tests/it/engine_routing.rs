@@ -8,6 +8,7 @@
 use reachcast::engine::GRAVITY;
 use reachcast::engine::diffusive::{
     self, DownstreamBoundary, InitialState, Lateral, Options, Problem, Reach, RoutingResult,
+    TimeScheme,
 };
 use reachcast::engine::kinematic;
 use reachcast::engine::props::{Hydraulics, Props};
@@ -252,6 +253,35 @@ fn problem<'a, H: Hydraulics>(
 ///   u(x, t) = x / (2 √(π D t³)) · exp(−(x − c t)² / (4 D t)).
 #[test]
 fn hayami_linear_diffusion_wave() {
+    let options = Options {
+        theta: 0.55,
+        dt_initial: 60.0,
+        dt_max: 60.0,
+        newton_tol: 1e-6,
+        ..Options::default()
+    };
+    hayami_check(options);
+}
+
+/// The same check with the TR-BDF2 integrator (second order, L-stable;
+/// Bank et al. 1985, from memory) choosing its own steps up to ten times
+/// the θ run's from its local error estimate, against the same analytical
+/// response and the same tolerances.
+#[test]
+fn hayami_linear_diffusion_wave_with_trbdf2() {
+    let options = Options {
+        scheme: TimeScheme::TrBdf2,
+        local_error_tol: 1e-5,
+        dt_initial: 60.0,
+        dt_max: 600.0,
+        newton_tol: 1e-6,
+        ..Options::default()
+    };
+    hayami_check(options);
+}
+
+/// Hayami (1951) linear diffusion wave, routed with `options`.
+fn hayami_check(options: Options) {
     let (width, n_man, s0): (f64, f64, f64) = (100.0, 0.03, 5e-4);
     let q_base = 100.0; // m³/s, q0 = 1 m²/s
     let amp = 2.0; // a 2 % pulse keeps the problem close to linear
@@ -279,13 +309,6 @@ fn hayami_linear_diffusion_wave() {
     let out: Vec<f64> = (0..=(end / out_step) as usize)
         .map(|i| i as f64 * out_step)
         .collect();
-    let options = Options {
-        theta: 0.55,
-        dt_initial: 60.0,
-        dt_max: 60.0,
-        newton_tol: 1e-6,
-        ..Options::default()
-    };
     let p = problem(
         reach,
         series_from(&inflow, pulse, 60.0),
@@ -540,6 +563,21 @@ fn backwater_matches_direct_step() {
 /// overtops a compound section.
 #[test]
 fn flood_wave_conserves_mass() {
+    flood_wave_mass(Options::default());
+}
+
+/// The same budget with TR-BDF2, whose budget weights the flows of both
+/// stages as its formulas do, so it must close within the same bound.
+#[test]
+fn flood_wave_conserves_mass_with_trbdf2() {
+    flood_wave_mass(Options {
+        scheme: TimeScheme::TrBdf2,
+        dt_max: 1800.0,
+        ..Options::default()
+    });
+}
+
+fn flood_wave_mass(options: Options) {
     let s0 = 4e-4;
     let x = uniform_chainage(121, 250.0); // 30 km
     let nodes: Vec<Compound> = x
@@ -560,7 +598,7 @@ fn flood_wave_conserves_mass() {
         series_from(sine_flood(50.0, 600.0, day), 2.0 * day, 900.0),
         DownstreamBoundary::NormalDepth { friction_slope: s0 },
         (0..=48).map(|i| i as f64 * 3600.0).collect(),
-        Options::default(),
+        options,
     );
     p.laterals = vec![Lateral {
         chainage: 12_300.0,

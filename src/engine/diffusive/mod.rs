@@ -52,7 +52,9 @@
 //!     bed, which is what makes wetting and drying work without negative
 //!     depths. It is exactly 1 once the donor is a centimetre deep, so it does
 //!     not touch normal flows.
-//! * Time stepping is the θ-method (θ ∈ [0.55, 1]); the nonlinear system of
+//! * Time stepping is the θ-method (θ ∈ [0.55, 1]) by default, or TR-BDF2
+//!   ([`TimeScheme::TrBdf2`], module `trbdf2`: two such solves per step and
+//!   an error-controlled step); the nonlinear system of
 //!   each step is solved by Newton's method whose Jacobian is tridiagonal
 //!   (each residual involves a node and its two neighbours), solved by the
 //!   Thomas algorithm in O(N). Newton starts from the previous state
@@ -78,7 +80,10 @@
 //! the step are interpolated linearly in time inside it (dense output), so
 //! minute-by-minute output does not force minute-long steps. Accuracy is
 //! set by `dt_max` (numerical diffusion of the θ-scheme is about
-//! (θ − ½) c² Δt, common practice) and the Newton tolerance.
+//! (θ − ½) c² Δt, common practice) and the Newton tolerance. With TR-BDF2
+//! the step also follows its local error estimate
+//! ([`Options::local_error_tol`]): shortened and retried above it, grown
+//! (at most twofold, up to `dt_max`) below it.
 //!
 //! # Inputs outside their range
 //!
@@ -110,6 +115,7 @@ mod step;
 mod test_support;
 #[cfg(test)]
 mod tests;
+mod trbdf2;
 mod tridiagonal;
 
 use crate::engine::budget::Budget;
@@ -123,7 +129,7 @@ pub use crate::engine::diagnostics::{
 };
 pub use crate::engine::routing::{FailureReason, Lateral, Reach, RoutingError, RoutingResult};
 pub use initial::steady_profile;
-pub use problem::{DownstreamBoundary, InitialState, Options, Problem};
+pub use problem::{DownstreamBoundary, InitialState, Options, Problem, TimeScheme};
 
 use forcing::Forcing;
 use newton::{NewLevel, newton_step};
@@ -131,6 +137,7 @@ use output::DenseOutput;
 use problem::{check_boundary, check_options};
 use state::{Geometry, Work};
 use step::StepControl;
+use trbdf2::{Context, Outcome, trbdf2_step};
 
 /// Smallest depth a node is allowed to have (m). Stages are clipped to
 /// `bed + MIN_DEPTH` so that no node ever sits below its bed.
@@ -156,12 +163,12 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Routing
     let b = &p.downstream;
     let t0 = p.start_time;
 
-    let mut w = Work::new(n);
+    let mut w = Work::new(n, o.scheme == TimeScheme::TrBdf2);
     let q_up0 = forcing.upstream(t0);
     forcing.laterals(t0, &mut w.lat_new);
     let z0 = initial::initial_stages(p, &mut forcing, q_up0, &w.lat_new)?;
     w.z.copy_from_slice(&z0);
-    state::evaluate(nodes, &g, o.slope_regularisation, &mut w).map_err(|node| {
+    state::evaluate::<_, false>(nodes, &g, o.slope_regularisation, &mut w).map_err(|node| {
         RoutingError::NonFinite {
             what: "section properties at the initial stage",
             index: node,
@@ -173,22 +180,60 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Routing
     // about inertia and are left out.
     let mut watch = Watch::new(n, x[0], t0, MIN_DEPTH + DRY_RAMP_DEPTH);
     state::observe(&w, &g, x, &old, t0, &mut watch);
-    let q0 = state::discharges(&w, &old);
-    let start = MeanState::of(w.props.iter().copied().zip(q0.iter().copied()));
-    let mut out = DenseOutput::new(&p.output_times, t0, &w.z, q0);
+    state::fill_discharges(&mut w, &old);
+    let start = MeanState::of(w.props.iter().copied().zip(w.q_node.iter().copied()));
+    let mut out = DenseOutput::new(&p.output_times, t0, &w.z, &w.q_node);
     let mut control = StepControl::new(o);
     let mut stats = StepStats::new();
 
+    // TR-BDF2's error estimate differences the net inflows of three levels,
+    // so Newton must solve each stage well inside the error tolerance or
+    // its residue drives the step size.
+    let tr_options = Options {
+        newton_tol: o.newton_tol.min(0.1 * o.local_error_tol),
+        ..o.clone()
+    };
     let mut t = t0;
     while !out.pending().is_empty() {
         let (dt, t_new) = control.next(t, out.pending())?;
+        if o.scheme == TimeScheme::TrBdf2 {
+            let mut cx = Context {
+                nodes,
+                g: &g,
+                b,
+                o: &tr_options,
+                forcing: &mut forcing,
+            };
+            match trbdf2_step(&mut cx, (t, dt, control.at_min(dt)), &mut w) {
+                Err(fail) => {
+                    stats.reject();
+                    control.reject(t, dt, fail, x)?;
+                }
+                Ok(Outcome::TooLarge(error)) => {
+                    stats.reject();
+                    control.shrink(dt, trbdf2::step_factor(error, o.local_error_tol));
+                }
+                Ok(Outcome::Accepted(a)) => {
+                    stats.accept(dt, a.iterations);
+                    trbdf2::budget_step(&mut budget, dt, &old, &a);
+                    old = a.new;
+                    let t_prev = t;
+                    t = t_new;
+                    state::observe(&w, &g, x, &old, t, &mut watch);
+                    state::fill_discharges(&mut w, &old);
+                    out.step(t_prev, t_new, &w.z, &w.q_node);
+                    control.resize(dt, trbdf2::step_factor(a.error, o.local_error_tol));
+                }
+            }
+            continue;
+        }
         let lvl = NewLevel {
             dt,
             q_up: forcing.upstream(t_new),
             stage: forcing.stage(t_new),
         };
         forcing.laterals(t_new, &mut w.lat_new);
-        match newton_step(nodes, &g, b, o, &lvl, &mut w) {
+        match newton_step(nodes, &g, b, o, o.theta, &lvl, &mut w) {
             Err(fail) => {
                 stats.reject();
                 control.reject(t, dt, fail, x)?;
@@ -202,7 +247,8 @@ pub fn route<H: Hydraulics>(p: &Problem<'_, H>) -> Result<RoutingResult, Routing
                 let t_prev = t;
                 t = t_new;
                 state::observe(&w, &g, x, &old, t, &mut watch);
-                out.step(t_prev, t_new, &w.z, state::discharges(&w, &old));
+                state::fill_discharges(&mut w, &old);
+                out.step(t_prev, t_new, &w.z, &w.q_node);
                 control.accept(iters);
             }
         }

@@ -5,7 +5,7 @@
 use super::MIN_DEPTH;
 use super::flux::boundary_outflow;
 use super::problem::{DownstreamBoundary, Options};
-use super::state::{Geometry, Work, evaluate, net_inflow};
+use super::state::{Geometry, Work, evaluate};
 use super::tridiagonal::solve_tridiagonal;
 use crate::engine::props::Hydraulics;
 use crate::engine::routing::FailureReason;
@@ -36,17 +36,21 @@ pub(super) struct NewLevel {
 /// One θ-step by Newton. On success `w.z` holds the new state and the
 /// return value is the number of iterations; `w.props`/`w.q_face` are then
 /// evaluated at the new state.
+///
+/// `theta` is the time weighting of this solve: [`Options::theta`] for the
+/// θ-method, ½ and 1 for the two stages of TR-BDF2 (whose second stage
+/// puts its history terms into `w.v_old`).
 pub(super) fn newton_step<H: Hydraulics>(
     nodes: &[H],
     g: &Geometry,
     b: &DownstreamBoundary,
     o: &Options,
+    theta: f64,
     lvl: &NewLevel,
     w: &mut Work,
 ) -> Result<usize, StepFailure> {
     let n = nodes.len();
-    let (theta, dt) = (o.theta, lvl.dt);
-    let dtt = dt * theta;
+    let dt = lvl.dt;
     // Start from the old state extrapolated with the last step's rate (a
     // linear predictor saves about one Newton iteration per step on a
     // smooth flood), with the imposed stage already in place.
@@ -58,34 +62,11 @@ pub(super) fn newton_step<H: Hydraulics>(
     }
     let mut worst = 0;
     for iter in 1..=o.max_newton_iter {
-        evaluate(nodes, g, o.slope_regularisation, w).map_err(|node| StepFailure {
+        evaluate::<_, true>(nodes, g, o.slope_regularisation, w).map_err(|node| StepFailure {
             node,
             reason: FailureReason::NonFinite,
         })?;
-        for i in 0..n {
-            let p = w.props[i];
-            let mut net = net_inflow(w, i, lvl.q_up);
-            let mut d_self = 0.0;
-            w.lower[i] = 0.0;
-            w.upper[i] = 0.0;
-            if i > 0 {
-                d_self += w.dq_b[i - 1];
-                w.lower[i] = -dtt * w.dq_a[i - 1];
-            }
-            if i + 1 < n {
-                d_self -= w.dq_a[i];
-                w.upper[i] = dtt * w.dq_b[i];
-            } else if lvl.stage.is_none() {
-                let (qo, dqo) = boundary_outflow(b, &p, g.bed[i]);
-                net -= qo;
-                d_self -= dqo;
-            }
-            let residual = p.storage_area * g.length[i]
-                - w.v_old[i]
-                - dt * (theta * net + (1.0 - theta) * w.f_old[i]);
-            w.rhs[i] = -residual;
-            w.diag[i] = p.storage_top_width.max(JACOBIAN_WIDTH_FLOOR) * g.length[i] - dtt * d_self;
-        }
+        assemble(g, b, lvl, theta, w);
         if let Some(s) = lvl.stage {
             w.lower[n - 1] = 0.0;
             w.diag[n - 1] = 1.0;
@@ -119,9 +100,12 @@ pub(super) fn newton_step<H: Hydraulics>(
             w.z[i] = (w.z[i] + scale * w.rhs[i]).max(g.bed[i] + MIN_DEPTH);
         }
         if max_dz <= o.newton_tol {
-            evaluate(nodes, g, o.slope_regularisation, w).map_err(|node| StepFailure {
-                node,
-                reason: FailureReason::NonFinite,
+            // Only the discharges and properties are needed from here on.
+            evaluate::<_, false>(nodes, g, o.slope_regularisation, w).map_err(|node| {
+                StepFailure {
+                    node,
+                    reason: FailureReason::NonFinite,
+                }
             })?;
             return Ok(iter);
         }
@@ -130,6 +114,52 @@ pub(super) fn newton_step<H: Hydraulics>(
         node: worst,
         reason: FailureReason::NewtonNotConverged,
     })
+}
+
+/// The Newton system at the current evaluation: `w.rhs` = −residual of
+/// every control volume's θ-weighted continuity equation, and the
+/// tridiagonal Jacobian in `w.lower`, `w.diag`, `w.upper`.
+///
+/// The end nodes are written out on their own so the interior loop has no
+/// branch; every node's arithmetic is the same, in the same order, as a
+/// single loop with the end cases inside would do (bench `engine` checks
+/// the results bit for bit).
+fn assemble(g: &Geometry, b: &DownstreamBoundary, lvl: &NewLevel, theta: f64, w: &mut Work) {
+    let n = w.z.len();
+    let dt = lvl.dt;
+    let dtt = dt * theta;
+    let explicit = 1.0 - theta;
+    let row = |w: &mut Work, i: usize, net: f64, d_self: f64| {
+        let p = &w.props[i];
+        let residual =
+            p.storage_area * g.length[i] - w.v_old[i] - dt * (theta * net + explicit * w.f_old[i]);
+        w.rhs[i] = -residual;
+        w.diag[i] = p.storage_top_width.max(JACOBIAN_WIDTH_FLOOR) * g.length[i] - dtt * d_self;
+    };
+    // First node: the inflow enters, face 0 leaves.
+    w.lower[0] = 0.0;
+    w.upper[0] = dtt * w.dq_b[0];
+    let net = w.lat_new[0] + lvl.q_up - w.q_face[0];
+    row(w, 0, net, -w.dq_a[0]);
+    for i in 1..n - 1 {
+        w.lower[i] = -dtt * w.dq_a[i - 1];
+        w.upper[i] = dtt * w.dq_b[i];
+        let net = w.lat_new[i] + w.q_face[i - 1] - w.q_face[i];
+        row(w, i, net, w.dq_b[i - 1] - w.dq_a[i]);
+    }
+    // Last node: face n − 2 enters, the boundary releases (a stage
+    // boundary's row is replaced by the caller).
+    let last = n - 1;
+    w.lower[last] = -dtt * w.dq_a[last - 1];
+    w.upper[last] = 0.0;
+    let mut net = w.lat_new[last] + w.q_face[last - 1];
+    let mut d_self = w.dq_b[last - 1];
+    if lvl.stage.is_none() {
+        let (qo, dqo) = boundary_outflow(b, &w.props[last], g.bed[last]);
+        net -= qo;
+        d_self -= dqo;
+    }
+    row(w, last, net, d_self);
 }
 
 #[cfg(test)]

@@ -17,14 +17,14 @@ pub(super) struct DenseOutput<'a> {
 impl<'a> DenseOutput<'a> {
     /// Start at time `t0` with stages `z` and node discharges `q`; output
     /// times up to `t0` report this state.
-    pub(super) fn new(times: &'a [f64], t0: f64, z: &[f64], q: Vec<f64>) -> Self {
+    pub(super) fn new(times: &'a [f64], t0: f64, z: &[f64], q: &[f64]) -> Self {
         let mut out = Self {
             times,
             next: 0,
             stage: Vec::with_capacity(times.len()),
             discharge: Vec::with_capacity(times.len()),
             prev_z: z.to_vec(),
-            prev_q: q,
+            prev_q: q.to_vec(),
         };
         while out.next < times.len() && times[out.next] <= t0 {
             out.stage.push(z.to_vec());
@@ -40,22 +40,24 @@ impl<'a> DenseOutput<'a> {
     }
 
     /// A step from `t_prev` to `t_new` ended with stages `z` and node
-    /// discharges `q`: record every output time it reached.
-    pub(super) fn step(&mut self, t_prev: f64, t_new: f64, z: &[f64], q: Vec<f64>) {
+    /// discharges `q`: record every output time it reached. Allocates only
+    /// the rows it records (they are the result); the previous state is
+    /// kept in place.
+    pub(super) fn step(&mut self, t_prev: f64, t_new: f64, z: &[f64], q: &[f64]) {
         while self.next < self.times.len() && self.times[self.next] <= t_new {
             let to = self.times[self.next];
             if to == t_new {
                 self.stage.push(z.to_vec());
-                self.discharge.push(q.clone());
+                self.discharge.push(q.to_vec());
             } else {
                 let a = ((to - t_prev) / (t_new - t_prev)).clamp(0.0, 1.0);
                 self.stage.push(lerp(&self.prev_z, z, a));
-                self.discharge.push(lerp(&self.prev_q, &q, a));
+                self.discharge.push(lerp(&self.prev_q, q, a));
             }
             self.next += 1;
         }
         self.prev_z.copy_from_slice(z);
-        self.prev_q = q;
+        self.prev_q.copy_from_slice(q);
     }
 
     /// Stages and discharges, `[output time][node]`.
@@ -81,9 +83,9 @@ mod tests {
         // Linear interpolation reproduces a linear function exactly
         // (arithmetic): z goes 1 → 3 and q 10 → 30 over the step 0–100 s.
         let times = [0.0, 25.0, 50.0, 100.0, 150.0];
-        let mut out = DenseOutput::new(&times, 0.0, &[1.0], vec![10.0]);
+        let mut out = DenseOutput::new(&times, 0.0, &[1.0], &[10.0]);
         assert_eq!(out.pending(), &times[1..]);
-        out.step(0.0, 100.0, &[3.0], vec![30.0]);
+        out.step(0.0, 100.0, &[3.0], &[30.0]);
         assert_eq!(out.pending(), &times[4..]);
         let (stage, discharge) = out.finish();
         assert_eq!(stage, vec![vec![1.0], vec![1.5], vec![2.0], vec![3.0]]);

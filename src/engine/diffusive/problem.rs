@@ -54,6 +54,21 @@ pub enum InitialState {
     Hot(Vec<f64>),
 }
 
+/// The time integrator of the diffusive-wave solver.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum TimeScheme {
+    /// The θ-method with [`Options::theta`]; the step is chosen for
+    /// Newton's convergence and capped at [`Options::dt_max`].
+    #[default]
+    Theta,
+    /// TR-BDF2 (Bank et al. 1985): a trapezoid stage to t + γΔt and a
+    /// BDF2 stage to t + Δt, γ = 2 − √2, second order and L-stable, with
+    /// a local error estimate (Hosea and Shampine 1996) choosing the step
+    /// against [`Options::local_error_tol`].
+    TrBdf2,
+}
+
 /// Numerical options. Defaults suit reaches of a few to a few hundred
 /// kilometres with node spacing of tens to hundreds of metres.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -78,6 +93,12 @@ pub struct Options {
     /// Hard cap on accepted plus rejected steps, so no input can make a run
     /// loop for ever.
     pub max_steps: usize,
+    /// Time integrator; the θ-method unless chosen otherwise.
+    pub scheme: TimeScheme,
+    /// TR-BDF2 only: largest estimated local error of a step in stage (m);
+    /// a step above it is retried shorter. Newton then also stops at a
+    /// tenth of it if that is below [`Options::newton_tol`].
+    pub local_error_tol: f64,
 }
 
 impl Default for Options {
@@ -91,6 +112,8 @@ impl Default for Options {
             max_newton_iter: 12,
             slope_regularisation: 1e-7,
             max_steps: 2_000_000,
+            scheme: TimeScheme::Theta,
+            local_error_tol: 1e-3,
         }
     }
 }
@@ -168,6 +191,9 @@ pub(super) fn check_options(o: &Options) -> Result<(), RoutingError> {
     }
     if o.max_steps == 0 {
         return bad("max_steps", 0.0, "must be at least 1");
+    }
+    if !(o.local_error_tol.is_finite() && o.local_error_tol > 0.0) {
+        return bad("local_error_tol", o.local_error_tol, "must be positive");
     }
     Ok(())
 }

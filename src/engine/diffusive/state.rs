@@ -2,7 +2,7 @@
 //! stages and at the old time level, how they are evaluated, and how the
 //! old level is rolled forward after an accepted step.
 
-use super::flux::{boundary_outflow, face_flow};
+use super::flux::{boundary_outflow, face_flow_inv};
 use super::newton::NewLevel;
 use super::problem::DownstreamBoundary;
 use crate::engine::budget::Flows;
@@ -31,10 +31,29 @@ pub(super) struct Work {
     pub(super) upper: Vec<f64>,
     pub(super) rhs: Vec<f64>,
     pub(super) scratch: Vec<f64>,
+    /// Node discharges of the last accepted level, handed to the dense
+    /// output (filled in place rather than collected anew every step).
+    pub(super) q_node: Vec<f64>,
+    /// TR-BDF2: the old level kept while the two stages overwrite it
+    /// (stages, storage, net inflow, predictor rate, laterals), and the
+    /// net inflow at the intermediate stage, for the error estimate.
+    pub(super) saved: Saved,
+}
+
+/// The old time level as TR-BDF2 keeps it across its two stages.
+pub(super) struct Saved {
+    pub(super) z: Vec<f64>,
+    pub(super) v: Vec<f64>,
+    pub(super) f: Vec<f64>,
+    pub(super) rate: Vec<f64>,
+    pub(super) lat: Vec<f64>,
+    pub(super) f_mid: Vec<f64>,
 }
 
 impl Work {
-    pub(super) fn new(n: usize) -> Self {
+    /// Arrays for `n` nodes; TR-BDF2's saved level only when `two_stage`.
+    pub(super) fn new(n: usize, two_stage: bool) -> Self {
+        let saved_len = if two_stage { n } else { 0 };
         Self {
             z: vec![0.0; n],
             z_old: vec![0.0; n],
@@ -52,13 +71,23 @@ impl Work {
             upper: vec![0.0; n],
             rhs: vec![0.0; n],
             scratch: vec![0.0; n],
+            q_node: vec![0.0; n],
+            saved: Saved {
+                z: vec![0.0; saved_len],
+                v: vec![0.0; saved_len],
+                f: vec![0.0; saved_len],
+                rate: vec![0.0; saved_len],
+                lat: vec![0.0; saved_len],
+                f_mid: vec![0.0; saved_len],
+            },
         }
     }
 }
 
 /// Fixed geometry derived once from the reach.
 pub(super) struct Geometry {
-    pub(super) dx: Vec<f64>,
+    /// 1 / (x_{j+1} − x_j) per face: the face law multiplies by it.
+    pub(super) inv_dx: Vec<f64>,
     pub(super) length: Vec<f64>,
     pub(super) bed: Vec<f64>,
 }
@@ -67,7 +96,7 @@ impl Geometry {
     pub(super) fn new<H: Hydraulics>(reach: &Reach<'_, H>) -> Self {
         let x = reach.chainage();
         Self {
-            dx: x.windows(2).map(|w| w[1] - w[0]).collect(),
+            inv_dx: x.windows(2).map(|w| 1.0 / (w[1] - w[0])).collect(),
             length: reach.control_lengths(),
             bed: reach.nodes().iter().map(|h| h.bed_elevation()).collect(),
         }
@@ -85,31 +114,46 @@ fn props_finite(p: &Props) -> bool {
 
 /// Evaluate node properties and face flows at `w.z`. Returns the first node
 /// with non-finite properties on failure.
-pub(super) fn evaluate<H: Hydraulics>(
+///
+/// Two passes on purpose: the lookups of the first are independent of one
+/// another, so the processor overlaps their table reads (each node has its
+/// own table, and a lookup that misses the cache is the slowest part of
+/// an iteration); the face laws then read the properties back from one
+/// small array.
+///
+/// `JACOBIAN` says whether the face derivatives are wanted: the evaluation
+/// at converged stages (which only rolls the time level forward) skips
+/// them, and `w.dq_a`/`w.dq_b` are then stale until the next Newton
+/// iteration. The discharges are the same bits either way.
+// Kept out of line: inlined into its callers it measured slower (bench
+// `engine`), the larger caller's code crowding the loop.
+#[inline(never)]
+pub(super) fn evaluate<H: Hydraulics, const JACOBIAN: bool>(
     nodes: &[H],
     g: &Geometry,
     eps: f64,
     w: &mut Work,
 ) -> Result<(), usize> {
-    for (i, node) in nodes.iter().enumerate() {
-        let p = node.props(w.z[i]);
-        if !props_finite(&p) {
-            return Err(i);
-        }
-        w.props[i] = p;
+    for ((node, &z), slot) in nodes.iter().zip(&w.z).zip(&mut w.props) {
+        node.props_into(z, slot);
+    }
+    if let Some(i) = w.props.iter().position(|p| !props_finite(p)) {
+        return Err(i);
     }
     for j in 0..nodes.len() - 1 {
-        let (q, a, b) = face_flow(
+        let (q, a, b) = face_flow_inv(
             &w.props[j],
             &w.props[j + 1],
             g.bed[j],
             g.bed[j + 1],
-            g.dx[j],
+            g.inv_dx[j],
             eps,
         );
         w.q_face[j] = q;
-        w.dq_a[j] = a;
-        w.dq_b[j] = b;
+        if JACOBIAN {
+            w.dq_a[j] = a;
+            w.dq_b[j] = b;
+        }
     }
     Ok(())
 }
@@ -145,11 +189,12 @@ pub(super) fn node_discharge(w: &Work, i: usize, q_up: f64, q_out: f64) -> f64 {
     }
 }
 
-/// Discharge at every node, as [`node_discharge`] reports it.
-pub(super) fn discharges(w: &Work, flows: &Flows) -> Vec<f64> {
-    (0..w.z.len())
-        .map(|i| node_discharge(w, i, flows.upstream, flows.outflow))
-        .collect()
+/// Discharge at every node, as [`node_discharge`] reports it, into
+/// `w.q_node` (reused, so a step allocates nothing).
+pub(super) fn fill_discharges(w: &mut Work, flows: &Flows) {
+    for i in 0..w.z.len() {
+        w.q_node[i] = node_discharge(w, i, flows.upstream, flows.outflow);
+    }
 }
 
 /// Storage in the reach at the old time level (m³).

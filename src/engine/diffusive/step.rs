@@ -85,6 +85,29 @@ impl StepControl {
         Ok(())
     }
 
+    /// Whether `dt` is the smallest step allowed.
+    pub(super) fn at_min(&self, dt: f64) -> bool {
+        dt <= self.dt_min * (1.0 + 1e-9)
+    }
+
+    /// TR-BDF2: the attempt of `dt` was estimated too inaccurate; retry with
+    /// `dt × factor` (factor < 1), not below `dt_min`.
+    pub(super) fn shrink(&mut self, dt: f64, factor: f64) {
+        self.dt = (dt * factor).max(self.dt_min);
+    }
+
+    /// TR-BDF2: the attempt of `dt` was accepted with the error estimate
+    /// asking for `dt × factor` next. A step that was cut short to land on
+    /// an output time does not shrink the nominal step when it was easy.
+    pub(super) fn resize(&mut self, dt: f64, factor: f64) {
+        let next = if factor >= 1.0 {
+            self.dt.max(dt * factor)
+        } else {
+            dt * factor
+        };
+        self.dt = next.clamp(self.dt_min, self.dt_max);
+    }
+
     /// The attempt converged in `iterations`: grow the step if that was easy.
     pub(super) fn accept(&mut self, iterations: usize) {
         if iterations <= self.easy {

@@ -71,7 +71,7 @@ impl PropertyTable {
         Ok(Self::assemble(
             (1.0 - w) * a.bed + w * b.bed,
             dz,
-            &samples,
+            samples,
             flag_depth,
             beyond,
         ))
@@ -95,6 +95,11 @@ impl Hydraulics for Node {
     #[inline]
     fn props(&self, z: f64) -> Props {
         self.table.props(z)
+    }
+
+    #[inline(always)]
+    fn props_into(&self, z: f64, out: &mut Props) {
+        self.table.props_into(z, out);
     }
 }
 
@@ -163,11 +168,22 @@ pub fn build_nodes_with(
             (parts.get(i), sections.get(i + 1), tables.get(i + 1))
         {
             let gap = next.chainage - section.chainage;
+            // Between sections of one shape (a prismatic stretch) the
+            // equal-depth blend is that shape again on the interpolated
+            // bed, up to rounding; taking it as such spares resampling
+            // both tables for every node, most of the cost of building a
+            // prismatic reach (bench `engine`, prismatic case).
+            let same = table.same_shape(next_table);
             for j in 1..k {
                 let w = j as f64 / k as f64;
+                let table = if same {
+                    table.with_bed((1.0 - w) * table.bed() + w * next_table.bed())
+                } else {
+                    PropertyTable::blend(table, next_table, w)?
+                };
                 nodes.push(Node {
                     chainage: section.chainage + w * gap,
-                    table: PropertyTable::blend(table, next_table, w)?,
+                    table,
                 });
             }
         }
@@ -178,6 +194,7 @@ pub fn build_nodes_with(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::engine::section::SectionGeometry;
     use crate::engine::section::fixtures::{close, profile, rect, v_profile, xs};
 
     #[test]
@@ -262,6 +279,52 @@ mod tests {
         let d = 40.0;
         let expect = 0.5 * m.props(m.bed() + d).conveyance + 0.5 * b.props(5.0 + d).conveyance;
         assert!(close(mm.props(mm.bed() + d).conveyance, expect, 1e-9));
+    }
+
+    /// Equal-depth interpolation between two sections of one shape gives
+    /// that shape (arithmetic: (1 − w) P + w P = P), so the nodes of a
+    /// prismatic reach, built without blending, match the blend to
+    /// rounding at every depth, inside and above the tables.
+    #[test]
+    fn prismatic_nodes_match_the_blend_of_their_sections() {
+        let trapezoid = |bed: f64| SectionGeometry::Trapezoid {
+            bed_elevation: bed,
+            bottom_width: 12.0,
+            side_slope: 1.5,
+            n: 0.03,
+            height: None,
+        };
+        let s = vec![xs("a", 0.0, trapezoid(5.0)), xs("b", 400.0, trapezoid(4.6))];
+        let nodes = build_nodes(&s, 100.0).expect("ok");
+        assert_eq!(nodes.len(), 5);
+        let (a, b) = (&nodes[0].table, &nodes[4].table);
+        for (j, node) in nodes.iter().enumerate().take(4).skip(1) {
+            let w = j as f64 / 4.0;
+            let blend = PropertyTable::blend(a, b, w).expect("ok");
+            assert!(close(node.bed_elevation(), blend.bed(), 1e-15));
+            for d in [0.0, 0.004, 0.37, 2.0, 9.99, 11.5, 40.0] {
+                let (p, q) = (
+                    node.props(node.bed_elevation() + d),
+                    blend.props(blend.bed() + d),
+                );
+                assert!(close(p.storage_area, q.storage_area, 1e-12), "d={d}");
+                assert!(close(p.conveyance, q.conveyance, 1e-12), "d={d}");
+                assert!(close(p.dconveyance_dz, q.dconveyance_dz, 1e-10), "d={d}");
+                assert!(
+                    close(p.storage_top_width, q.storage_top_width, 1e-10),
+                    "d={d}"
+                );
+                assert_eq!(p.extrapolated, q.extrapolated);
+            }
+        }
+        // Sections of different shape are still blended.
+        let t = vec![
+            xs("a", 0.0, trapezoid(5.0)),
+            xs("c", 400.0, rect(20.0, 4.6, 0.03)),
+        ];
+        let mixed = build_nodes(&t, 100.0).expect("ok");
+        let blend = PropertyTable::blend(&mixed[0].table, &mixed[4].table, 0.5).expect("ok");
+        assert_eq!(mixed[2].table, blend);
     }
 
     #[test]
