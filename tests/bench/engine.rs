@@ -391,6 +391,7 @@ fn service_ensemble(sections: &[CrossSection]) {
         settings: &spec.ensemble,
         prepared: &prepared,
         inflow: &inflow,
+        traces: &[],
         issued: t0,
         rated: RatedInflow::None,
         seed: 0x5eed,
