@@ -8,6 +8,16 @@ use reachcast::config::Config;
 
 use crate::common::{Keys, TestApp, gauge_body, json_of, problem, spawn_app_with, test_config};
 
+/// A connection of its own to the app's database file, as another
+/// process would open it.
+async fn other_connection(data_dir: &std::path::Path) -> sqlx::SqliteConnection {
+    sqlx::sqlite::SqliteConnectOptions::new()
+        .filename(data_dir.join("reachcast.sqlite3"))
+        .connect()
+        .await
+        .expect("second connection")
+}
+
 /// The app on `config` with the gauge `id` created.
 async fn app_with_gauge(config: Config, id: &str) -> (TestApp, Keys) {
     let app = spawn_app_with(config).await;
@@ -33,11 +43,7 @@ async fn a_database_locked_by_another_process_refuses_writes_visibly() {
     let (app, keys) = app_with_gauge(config, "lock-gauge").await;
     let reading = |t: &str| serde_json::json!({"readings": [{"time": t, "stage": 1.5}]});
 
-    let mut other = sqlx::sqlite::SqliteConnectOptions::new()
-        .filename(dir.path().join("reachcast.sqlite3"))
-        .connect()
-        .await
-        .expect("second connection");
+    let mut other = other_connection(dir.path()).await;
     sqlx::query("BEGIN EXCLUSIVE")
         .execute(&mut other)
         .await
@@ -205,11 +211,7 @@ async fn a_clock_set_back_is_reported_by_ready() {
     assert_eq!(r["status"], "ok", "{r}");
     let (status, _) = s.app.get_json("/ready").await;
     assert_eq!(status, 200);
-    let mut other = sqlx::sqlite::SqliteConnectOptions::new()
-        .filename(s.dir.path().join("reachcast.sqlite3"))
-        .connect()
-        .await
-        .expect("second connection");
+    let mut other = other_connection(s.dir.path()).await;
     let ahead = reachcast::wire_time::format(now + chrono::Duration::hours(1));
     sqlx::query("UPDATE forecast_runs SET finished_at = ?1 WHERE status = 'ok'")
         .bind(&ahead)

@@ -179,38 +179,31 @@ async fn restart_on_same_data_dir_keeps_what_was_written() {
 #[test]
 fn bad_config_value_fails_start_naming_the_key() {
     let dir = tempfile::tempdir().expect("temp dir");
-    let cfg = dir.path().join("bad.toml");
-    std::fs::write(&cfg, "[server]\nshutdown_grace_secs = \"later\"\n").expect("write");
-    let out = reachcast()
-        .args(["--config"])
-        .arg(&cfg)
-        .args(["--data-dir"])
-        .arg(dir.path().join("data"))
-        .output()
-        .expect("run binary");
-    assert!(!out.status.success());
-    let stderr = String::from_utf8_lossy(&out.stderr);
+    // Starts with the configuration file `name` holding `text`; the start
+    // must fail before anything is written. Returns standard error.
+    let refused = |name: &str, text: &[u8]| -> String {
+        let cfg = dir.path().join(name);
+        std::fs::write(&cfg, text).expect("write");
+        let out = reachcast()
+            .args(["--config"])
+            .arg(&cfg)
+            .args(["--data-dir"])
+            .arg(dir.path().join("data"))
+            .output()
+            .expect("run binary");
+        assert!(!out.status.success());
+        assert!(
+            !dir.path().join("data").exists(),
+            "nothing written before config is valid"
+        );
+        String::from_utf8_lossy(&out.stderr).into_owned()
+    };
+    let stderr = refused("bad.toml", b"[server]\nshutdown_grace_secs = \"later\"\n");
     assert!(stderr.contains("server.shutdown_grace_secs"), "{stderr}");
-    assert!(
-        !dir.path().join("data").exists(),
-        "nothing written before config is valid"
-    );
-
     // A corrupted file (cut off mid-write, with a stray byte): the start
-    // stops naming the file; nothing is created.
-    let broken = dir.path().join("broken.toml");
-    std::fs::write(&broken, b"[server]\nbind = \"127.0.0.1:80\xff\n[stor").expect("write");
-    let out = reachcast()
-        .args(["--config"])
-        .arg(&broken)
-        .args(["--data-dir"])
-        .arg(dir.path().join("data"))
-        .output()
-        .expect("run binary");
-    assert!(!out.status.success());
-    let stderr = String::from_utf8_lossy(&out.stderr);
+    // stops naming the file.
+    let stderr = refused("broken.toml", b"[server]\nbind = \"127.0.0.1:80\xff\n[stor");
     assert!(stderr.contains("broken.toml"), "{stderr}");
-    assert!(!dir.path().join("data").exists());
 
     let out = reachcast()
         .env("REACHCAST_STORAGE_MAX_CONNECTIONS", "0")

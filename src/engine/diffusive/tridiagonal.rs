@@ -118,15 +118,34 @@ mod tests {
 
     #[test]
     fn thomas_matches_dense_elimination_on_random_dominant_system() {
-        // Compare with Gaussian elimination on the same dense matrix.
-        let n = 7;
-        let mut seed = 12345u64;
-        let mut rnd = || {
+        let mut rnd = lcg(12345);
+        check_against_dense(7, &mut rnd);
+    }
+
+    /// Both halves and the meeting row: every size from 1 to 9 against
+    /// Gaussian elimination on the dense matrix (textbook method).
+    #[test]
+    fn both_way_elimination_matches_dense_elimination_at_every_small_size() {
+        let mut rnd = lcg(987);
+        for n in 1..=9 {
+            check_against_dense(n, &mut rnd);
+        }
+    }
+
+    /// Uniform draws in [-0.5, 0.5) from a linear congruential generator
+    /// (Knuth's MMIX constants).
+    fn lcg(mut seed: u64) -> impl FnMut() -> f64 {
+        move || {
             seed = seed
                 .wrapping_mul(6364136223846793005)
                 .wrapping_add(1442695040888963407);
             ((seed >> 33) as f64) / (1u64 << 31) as f64 - 0.5
-        };
+        }
+    }
+
+    /// A random diagonally dominant system of size `n` solved by the Thomas
+    /// algorithm and by Gaussian elimination on the dense matrix.
+    fn check_against_dense(n: usize, rnd: &mut impl FnMut() -> f64) {
         let lower: Vec<f64> = (0..n).map(|_| rnd()).collect();
         let upper: Vec<f64> = (0..n).map(|_| rnd()).collect();
         let diag: Vec<f64> = (0..n).map(|_| 2.0 + rnd()).collect();
@@ -160,57 +179,7 @@ mod tests {
         let mut work = vec![0.0; n];
         solve_tridiagonal(&lower, &diag, &upper, &mut rhs, &mut work).expect("regular");
         for i in 0..n {
-            assert!((rhs[i] - xs[i]).abs() < 1e-12);
-        }
-    }
-
-    /// Both halves and the meeting row: every size from 1 to 9 against
-    /// Gaussian elimination on the dense matrix (textbook method).
-    #[test]
-    fn both_way_elimination_matches_dense_elimination_at_every_small_size() {
-        let mut seed = 987u64;
-        let mut rnd = || {
-            seed = seed
-                .wrapping_mul(6364136223846793005)
-                .wrapping_add(1442695040888963407);
-            ((seed >> 33) as f64) / (1u64 << 31) as f64 - 0.5
-        };
-        for n in 1..=9 {
-            let lower: Vec<f64> = (0..n).map(|_| rnd()).collect();
-            let upper: Vec<f64> = (0..n).map(|_| rnd()).collect();
-            let diag: Vec<f64> = (0..n).map(|_| 2.0 + rnd()).collect();
-            let b: Vec<f64> = (0..n).map(|_| rnd()).collect();
-            let mut dense = vec![vec![0.0; n + 1]; n];
-            for i in 0..n {
-                dense[i][i] = diag[i];
-                if i > 0 {
-                    dense[i][i - 1] = lower[i];
-                }
-                if i + 1 < n {
-                    dense[i][i + 1] = upper[i];
-                }
-                dense[i][n] = b[i];
-            }
-            for k in 0..n {
-                for i in k + 1..n {
-                    let f = dense[i][k] / dense[k][k];
-                    let pivot_row = dense[k].clone();
-                    for (dst, src) in dense[i][k..].iter_mut().zip(&pivot_row[k..]) {
-                        *dst -= f * src;
-                    }
-                }
-            }
-            let mut xs = vec![0.0; n];
-            for i in (0..n).rev() {
-                let s: f64 = (i + 1..n).map(|j| dense[i][j] * xs[j]).sum();
-                xs[i] = (dense[i][n] - s) / dense[i][i];
-            }
-            let mut rhs = b.clone();
-            let mut work = vec![0.0; n];
-            solve_tridiagonal(&lower, &diag, &upper, &mut rhs, &mut work).expect("regular");
-            for i in 0..n {
-                assert!((rhs[i] - xs[i]).abs() < 1e-12, "n = {n}, row {i}");
-            }
+            assert!((rhs[i] - xs[i]).abs() < 1e-12, "n = {n}, row {i}");
         }
     }
 
