@@ -11,12 +11,20 @@
 //! - [`contingency`]: the two-by-two table of a level reached or not, and
 //!   POD, FAR, CSI and frequency bias;
 //! - [`ensemble`]: CRPS of an ensemble and the rank of an observation
-//!   among its members.
-//!
-//! The first step of the verification issue: the service does not yet
-//! store or serve these scores.
+//!   among its members, and both from stored percentiles;
+//! - [`moments`]: the mergeable running statistics every continuous score
+//!   follows from;
+//! - [`tally`]: one verification pass of a run at a point, by lead hour;
+//! - [`events`]: a run's crest and level outcomes once its window is seen;
+//! - [`summary`]: the scores as served, by lead-time band and per level.
 
 pub mod contingency;
 pub mod ensemble;
+pub mod events;
+pub mod moments;
 pub mod pairs;
 pub mod scores;
+pub mod summary;
+pub mod tally;
+
+pub use pairs::Pair;

@@ -38,6 +38,18 @@ pub fn pairs(
     let Some(&(_, persistence)) = observed.iter().rev().find(|(t, _)| *t <= issued) else {
         return Vec::new();
     };
+    pairs_held(issued, times, stage, persistence, observed)
+}
+
+/// [`pairs`] with the persistence forecast given: the stage last observed
+/// at the issue time, fixed when the run was first verified.
+pub fn pairs_held(
+    issued: DateTime<Utc>,
+    times: &[DateTime<Utc>],
+    stage: &[f64],
+    persistence: f64,
+    observed: &[(DateTime<Utc>, f64)],
+) -> Vec<Pair> {
     let (Some(&first), Some(&last)) = (times.first(), times.last()) else {
         return Vec::new();
     };
@@ -56,7 +68,7 @@ pub fn pairs(
 }
 
 /// The forecast stage at `t`, linear between output samples.
-fn at(times: &[DateTime<Utc>], stage: &[f64], t: DateTime<Utc>) -> Option<f64> {
+pub(super) fn at(times: &[DateTime<Utc>], stage: &[f64], t: DateTime<Utc>) -> Option<f64> {
     let i = times.partition_point(|x| *x < t);
     if i < times.len() && times[i] == t {
         return stage.get(i).copied();
