@@ -39,6 +39,7 @@ impl Application {
         let forecaster = Forecaster::new(
             store.clone(),
             config.forecast.clone(),
+            config.verification.clone(),
             crate::service::alerts::Alerter::new(&config),
             stop_rx.clone(),
         );

@@ -64,6 +64,7 @@ pub struct Config {
     pub alerts: AlertsConfig,
     pub retention: RetentionConfig,
     pub backup: BackupConfig,
+    pub verification: VerificationConfig,
 }
 
 /// `[backup]`: scheduled online backups with a kept count.
@@ -98,6 +99,73 @@ impl Config {
             self.storage.data_dir.join("backups")
         } else {
             self.backup.dir.clone()
+        }
+    }
+}
+
+/// `[verification]`: how forecasts are scored against what the gauges at
+/// points of interest later saw.
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct VerificationConfig {
+    /// Edges of the lead-time bands scores are reported by, whole hours,
+    /// increasing, comma-separated: `0,3,6` gives the bands 0–3 h and
+    /// 3–6 h.
+    pub bands_hours: String,
+    /// Scores cover the runs issued in this many days up to now.
+    pub window_days: u64,
+    /// A band is shown as verified only with pairs from at least this many
+    /// runs …
+    pub min_runs: u64,
+    /// … and at least this many forecast–observation pairs; otherwise it
+    /// says "not yet verified".
+    pub min_pairs: u64,
+    /// A forecast whose window has ended is closed this long after its end
+    /// even when its gauge has not reported up to it.
+    pub grace_minutes: u64,
+}
+
+impl Default for VerificationConfig {
+    fn default() -> Self {
+        Self {
+            bands_hours: "0,3,6,12,24,48".to_owned(),
+            window_days: 30,
+            min_runs: 5,
+            min_pairs: 20,
+            grace_minutes: 60,
+        }
+    }
+}
+
+impl VerificationConfig {
+    /// The band edges (h); `Err` names what is wrong.
+    pub fn band_edges(&self) -> Result<Vec<u32>, String> {
+        let edges = self
+            .bands_hours
+            .split(',')
+            .map(|e| {
+                e.trim()
+                    .parse::<u32>()
+                    .map_err(|_| format!("`{}` is not a whole number of hours", e.trim()))
+            })
+            .collect::<Result<Vec<u32>, String>>()?;
+        if edges.len() < 2 {
+            return Err("needs at least two edges, such as `0,3`".to_owned());
+        }
+        if !edges.windows(2).all(|w| w[0] < w[1]) {
+            return Err("edges must increase".to_owned());
+        }
+        if edges.last().is_some_and(|&e| e > 720) {
+            return Err("the last edge must be at most 720 h".to_owned());
+        }
+        Ok(edges)
+    }
+
+    /// How much history a band needs.
+    pub fn enough(&self) -> crate::forecast::verify::summary::Enough {
+        crate::forecast::verify::summary::Enough {
+            runs: self.min_runs,
+            pairs: self.min_pairs,
         }
     }
 }
@@ -485,6 +553,11 @@ pub const KEYS: &[&str] = &[
     "backup.interval_hours",
     "backup.dir",
     "backup.keep",
+    "verification.bands_hours",
+    "verification.window_days",
+    "verification.min_runs",
+    "verification.min_pairs",
+    "verification.grace_minutes",
 ];
 
 impl Config {
@@ -612,6 +685,10 @@ impl Config {
             ("retention.audit_days", self.retention.audit_days, 0, 36_500),
             ("backup.interval_hours", self.backup.interval_hours, 0, 8_760),
             ("backup.keep", self.backup.keep, 1, 1_000),
+            ("verification.window_days", self.verification.window_days, 1, 3_650),
+            ("verification.min_runs", self.verification.min_runs, 1, u64::MAX),
+            ("verification.min_pairs", self.verification.min_pairs, 1, u64::MAX),
+            ("verification.grace_minutes", self.verification.grace_minutes, 0, 10_080),
         ];
         for (key, v, lo, hi) in ranges {
             if !(lo..=hi).contains(&v) {
@@ -622,6 +699,9 @@ impl Config {
                 };
                 return Err(bad(key, format!("must be {expected}, got {v}")));
             }
+        }
+        if let Err(m) = self.verification.band_edges() {
+            return Err(bad("verification.bands_hours", m));
         }
         for (key, rate) in [
             ("auth.rate_limit_per_sec", self.auth.rate_limit_per_sec),

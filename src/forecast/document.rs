@@ -16,6 +16,7 @@ use super::{
     levels_csv,
     record::{EnsembleRecord, RunDiagnostics, RunRecord, StoredResults},
     spec::{Method, ReachSpec, Units},
+    verify::report::PointVerification,
     view::{self, Freshness, ObservedStage, PointView, UnitNames},
 };
 
@@ -184,6 +185,8 @@ pub struct Inputs<'a> {
     pub observed: &'a HashMap<String, Vec<ObservedStage>>,
     pub units: Units,
     pub now: DateTime<Utc>,
+    /// How forecasts at each point have verified, with the window (days).
+    pub verification: (&'a [PointVerification], u64),
 }
 
 fn inflow_brief(run: &RunRecord) -> InflowBrief {
@@ -205,6 +208,13 @@ pub fn build(i: &Inputs<'_>, freshness: Freshness) -> ForecastDoc {
     let lookup = |g: &str| i.observed.get(g).cloned().unwrap_or_default();
     let ensemble = i.run.ensemble.as_ref().and_then(EnsembleRecord::summary);
     let mut points = view::points(i.spec, i.results, ensemble, &lookup, i.now);
+    let (verified, days) = i.verification;
+    for p in &mut points {
+        p.verification = verified
+            .iter()
+            .find(|v| v.id == p.forecast.id)
+            .map(|v| v.brief(days));
+    }
     if i.units == Units::Us {
         points.iter_mut().for_each(PointView::to_us);
     }
@@ -420,6 +430,7 @@ mod tests {
             observed: &observed,
             units,
             now: t0() + Duration::hours(2),
+            verification: (&[], 30),
         };
         build(&inputs, fresh())
     }

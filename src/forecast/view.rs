@@ -3,6 +3,7 @@
 //! margins, observations, and the run's freshness; in SI or US customary
 //! units. Pure: the handler passes `now` and what it loaded.
 
+use crate::forecast::verify::report::VerificationBrief;
 use chrono::{DateTime, Utc};
 use serde::Serialize;
 
@@ -68,6 +69,10 @@ pub struct PointView {
     /// The run's ensemble at this point; `null` until it is attached, or
     /// when the reach has none. Each level's `chance` comes from it too.
     pub ensemble: Option<PointEnsembleView>,
+    /// How forecasts at this point have verified; `None` only where the
+    /// view is built without a verification report (offline).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub verification: Option<VerificationBrief>,
 }
 
 /// What an ensemble says at a point, beside the deterministic forecast.
@@ -174,6 +179,7 @@ pub fn point(
         .filter(|t| t.exceeded)
         .max_by(|a, b| a.elevation.total_cmp(&b.elevation));
     PointView {
+        verification: None,
         current_stage: ahead.stage_now(),
         observed,
         highest_exceeded: highest.map(|t| t.name.clone()),

@@ -164,6 +164,15 @@ async fn build_doc(
 ) -> Result<ForecastDoc, ApiError> {
     let results = l.results()?;
     let observed = observations(state, l, results.start, now).await?;
+    let days = state.config.verification.window_days;
+    let verified = crate::service::verifier::report(
+        &state.store,
+        &state.config.verification,
+        &l.reach,
+        days,
+        now,
+    )
+    .await?;
     let inputs = Inputs {
         reach_id: &l.reach.reach_id,
         reach_version: l.reach.version,
@@ -174,6 +183,7 @@ async fn build_doc(
         observed: &observed,
         units,
         now,
+        verification: (&verified, days),
     };
     Ok(document::build(&inputs, fresh))
 }

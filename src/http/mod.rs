@@ -26,6 +26,7 @@ pub mod query;
 pub mod reaches;
 pub mod readings;
 pub mod runs;
+pub mod verification;
 
 use std::{
     sync::{
@@ -127,6 +128,7 @@ pub fn router(state: AppState) -> Router {
         .merge(reaches::router())
         .merge(forecast::router())
         .merge(profile::router())
+        .merge(verification::router())
         .merge(runs::router())
         .merge(exceedances::router())
         .merge(inflows::router())

@@ -6,7 +6,9 @@
 //! A run: load the newest reach version, assemble the inflow (observed
 //! upstream discharge, then the newest upload or the extrapolation rule),
 //! route it, store results and provenance, refresh the exceedance board and
-//! issue the CAP messages due (`super::alerts`; never fails the run). A
+//! issue the CAP messages due (`super::alerts`; never fails the run), then
+//! verify what earlier runs forecast against the readings since
+//! (`super::verifier`; never fails the run either). A
 //! failed run is logged and stored with its error; the last good forecast
 //! stays served.
 
@@ -24,7 +26,7 @@ use super::{
     board::{Board, GoodRun},
 };
 use crate::{
-    config::ForecastConfig,
+    config::{ForecastConfig, VerificationConfig},
     forecast::{cap::Situation, record::RunStatus, run::Prepared},
     store::{Store, StoreError},
 };
@@ -47,6 +49,8 @@ struct Worker {
 pub(super) struct Inner {
     pub(super) store: Store,
     pub(super) config: ForecastConfig,
+    /// How forecasts are verified.
+    pub(super) verification: VerificationConfig,
     /// Issues CAP messages after each successful run.
     pub(super) alerts: Alerter,
     workers: StdMutex<HashMap<String, Worker>>,
@@ -80,6 +84,7 @@ impl Forecaster {
     pub fn new(
         store: Store,
         config: ForecastConfig,
+        verification: VerificationConfig,
         alerts: Alerter,
         shutdown: watch::Receiver<bool>,
     ) -> Self {
@@ -89,6 +94,7 @@ impl Forecaster {
                 store,
                 alerts,
                 config,
+                verification,
                 workers: StdMutex::new(HashMap::new()),
                 board: RwLock::new(Board::default()),
                 board_version,
@@ -240,7 +246,9 @@ impl Forecaster {
             }
         };
         let _guard = lock.lock().await;
-        self.cycle(reach_id).await
+        let summary = self.cycle(reach_id).await;
+        self.verify(reach_id).await;
+        summary
     }
 
     async fn worker_loop(self, reach_id: String, notify: Arc<Notify>) {
@@ -279,6 +287,7 @@ impl Forecaster {
             if let Err(e) = self.cycle(&reach_id).await {
                 tracing::error!(reach = %reach_id, error = %e, "forecast cycle could not run");
             }
+            self.verify(&reach_id).await;
         }
         tracing::debug!(reach = %reach_id, "forecast worker stopped");
     }

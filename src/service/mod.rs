@@ -12,5 +12,6 @@ mod ensemble;
 pub mod forecaster;
 pub mod preview;
 pub mod retention;
+pub mod verifier;
 
 pub use forecaster::{CycleError, Forecaster, RunSummary};

@@ -179,6 +179,23 @@ impl Store {
         row.map(|r| reach_from_row(&r)).transpose()
     }
 
+    /// One version of a reach.
+    pub async fn reach_version(
+        &self,
+        id: &str,
+        version: i64,
+    ) -> Result<Option<ReachVersion>, StoreError> {
+        let row = sqlx::query(
+            "SELECT reach_id, version, document, created_at, created_by FROM reach_versions
+             WHERE reach_id = ?1 AND version = ?2",
+        )
+        .bind(id)
+        .bind(version)
+        .fetch_optional(&self.pool)
+        .await?;
+        row.map(|r| reach_from_row(&r)).transpose()
+    }
+
     /// The newest version of every reach, ordered by id.
     pub async fn reaches(&self) -> Result<Vec<ReachVersion>, StoreError> {
         let rows = sqlx::query(
@@ -471,6 +488,29 @@ impl Store {
         .fetch_optional(&self.pool)
         .await?;
         time::read_opt("forecast_runs.finished_at", finished.flatten())
+    }
+
+    /// The finished runs of a reach after run `after_id` that started at
+    /// or after `since`, oldest first, with their results (the ones
+    /// verification has yet to look at).
+    pub async fn finished_runs_after(
+        &self,
+        reach_id: &str,
+        after_id: i64,
+        since: DateTime<Utc>,
+    ) -> Result<Vec<RunRecord>, StoreError> {
+        let sql = format!(
+            "SELECT {RUN_COLUMNS} FROM forecast_runs
+             WHERE reach_id = ?1 AND id > ?2 AND started_at >= ?3 AND status != 'running'
+             ORDER BY id"
+        );
+        let rows = sqlx::query(sqlx::AssertSqlSafe(sql))
+            .bind(reach_id)
+            .bind(after_id)
+            .bind(crate::wire_time::format(since))
+            .fetch_all(&self.pool)
+            .await?;
+        rows.iter().map(run_from_row).collect()
     }
 
     /// Runs of a reach, newest first, without their results.

@@ -31,6 +31,7 @@ mod keys;
 mod readings;
 mod retention;
 mod time;
+mod verification;
 
 pub use alerts::{CapEntry, CurrentCap, NewCapMessage, OpenMessage};
 pub use audit::{Audit, AuditEntry};

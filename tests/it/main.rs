@@ -29,3 +29,4 @@ mod openapi;
 mod panel;
 mod retention;
 mod route_command;
+mod verification;

@@ -16,13 +16,17 @@
 //!   follows from;
 //! - [`tally`]: one verification pass of a run at a point, by lead hour;
 //! - [`events`]: a run's crest and level outcomes once its window is seen;
-//! - [`summary`]: the scores as served, by lead-time band and per level.
+//! - [`pass`]: one verification pass over the open forecasts of a reach;
+//! - [`summary`]: the scores as served, by lead-time band and per level;
+//! - [`report`]: the report of a reach per point of interest, JSON and CSV.
 
 pub mod contingency;
 pub mod ensemble;
 pub mod events;
 pub mod moments;
 pub mod pairs;
+pub mod pass;
+pub mod report;
 pub mod scores;
 pub mod summary;
 pub mod tally;

@@ -63,7 +63,7 @@ impl Moments {
 
     /// Mean of `f − o` (m).
     pub fn bias(&self) -> Option<f64> {
-        (self.n > 0).then(|| self.mean_f - self.mean_o)
+        (self.n > 0).then_some(self.mean_f - self.mean_o)
     }
 
     /// Mean absolute error (m).

@@ -42,6 +42,16 @@ impl PointSeries {
     }
 }
 
+/// One point's running statistics at one lead hour over the runs issued
+/// on one day (UTC), as stored.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StoredHour {
+    pub point_id: String,
+    pub issue_day: chrono::NaiveDate,
+    pub lead_hour: u32,
+    pub tally: HourTally,
+}
+
 /// Running statistics of one point at one lead hour.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct HourTally {

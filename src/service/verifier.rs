@@ -1,0 +1,182 @@
+//! Verification passes: after each cycle of a reach, open the forecasts of
+//! the runs finished since the last pass at every gauged point (with the
+//! stage last observed at their issue time as persistence), add the
+//! readings that arrived since to the running statistics, and close the
+//! forecasts whose window is over. A pass is logged when it fails and
+//! never fails a run; the next pass picks up where the stored state says.
+
+use std::collections::HashMap;
+
+use chrono::{DateTime, Duration, Utc};
+
+use super::Forecaster;
+use crate::{
+    config::VerificationConfig,
+    forecast::{
+        record::RunRecord,
+        verify::{
+            pass::{self, Open, PassOutcome, Stepped},
+            report::{self, PointVerification, Sources},
+        },
+    },
+    store::{ReachVersion, Store, StoreError},
+};
+
+/// The verification of every point of `reach` over the runs issued in the
+/// `days` up to `now`, merged from the stored tallies and events.
+pub async fn report(
+    store: &Store,
+    cfg: &VerificationConfig,
+    reach: &ReachVersion,
+    days: u64,
+    now: DateTime<Utc>,
+) -> Result<Vec<PointVerification>, StoreError> {
+    let from = now - Duration::days(i64::try_from(days).unwrap_or(3_650).min(3_650));
+    let hours = store
+        .verification_hours(&reach.reach_id, from.date_naive())
+        .await?;
+    let events = store.verification_events(&reach.reach_id, from).await?;
+    // Validated when the configuration loaded, so never empty here.
+    let edges = cfg.band_edges().unwrap_or_default();
+    Ok(report::points(&Sources {
+        spec: &reach.spec,
+        hours: &hours,
+        events: &events,
+        edges_h: &edges,
+        enough: cfg.enough(),
+    }))
+}
+
+impl Forecaster {
+    /// One verification pass of a reach, now.
+    pub(super) async fn verify(&self, reach_id: &str) {
+        if let Err(e) = self.verify_at(reach_id, Utc::now()).await {
+            tracing::warn!(reach = %reach_id, error = %e, "verification pass failed; the next one retries");
+        }
+    }
+
+    async fn verify_at(&self, reach_id: &str, now: DateTime<Utc>) -> Result<(), StoreError> {
+        let store = &self.inner.store;
+        let mut outcome = PassOutcome::default();
+        let cursor = store.verification_cursor(reach_id).await?;
+        // A first pass (a new reach, or an upgrade) looks back one run
+        // window only: older runs' windows are long over.
+        let since = now - self.window();
+        let runs = store
+            .finished_runs_after(reach_id, cursor.unwrap_or(0), since)
+            .await?;
+        let mut open = store.open_verifications(reach_id).await?;
+        for run in &runs {
+            let opened = self.open_run(run).await?;
+            open.extend(opened.iter().cloned());
+            outcome.opened.extend(opened);
+        }
+        outcome.cursor = runs.last().map(|r| r.id);
+        let grace =
+            Duration::minutes(i64::try_from(self.inner.verification.grace_minutes).unwrap_or(0));
+        for (gauge, forecasts) in by_gauge(&open) {
+            let from = forecasts
+                .iter()
+                .map(|o| o.series.issued)
+                .min()
+                .unwrap_or(now);
+            // To the latest end, not to now: a reading ahead of this
+            // clock was accepted within `ingest.max_future_secs` and is
+            // what the gauge reported.
+            let to = forecasts
+                .iter()
+                .filter_map(|o| o.series.end())
+                .max()
+                .unwrap_or(now);
+            let observed = self.stages(gauge, from, to.max(now)).await?;
+            for o in forecasts {
+                outcome.stepped.push(Stepped {
+                    run_id: o.run_id,
+                    point_id: o.point_id.clone(),
+                    issued: o.series.issued,
+                    step: pass::step(o, &observed, now, grace),
+                });
+            }
+        }
+        // Steps that change nothing are not written.
+        outcome
+            .stepped
+            .retain(|s| !s.step.hours.is_empty() || s.step.closed.is_some());
+        if outcome.is_empty() {
+            return Ok(());
+        }
+        store.apply_verification(reach_id, &outcome).await
+    }
+
+    /// How far back the first pass of a reach opens runs: one run window.
+    fn window(&self) -> Duration {
+        let c = &self.inner.config;
+        Duration::hours(
+            i64::try_from(c.lookback_hours + c.horizon_hours).unwrap_or(i64::MAX / 7_200_000),
+        )
+    }
+
+    /// The forecasts of a finished run at its gauged points, with
+    /// persistence; a point whose gauge saw nothing in the run's look-back
+    /// before the issue time has no persistence and is not verified.
+    async fn open_run(&self, run: &RunRecord) -> Result<Vec<Open>, StoreError> {
+        if run.results.is_none() {
+            return Ok(Vec::new());
+        }
+        let Some(reach) = self
+            .inner
+            .store
+            .reach_version(&run.reach_id, run.reach_version)
+            .await?
+        else {
+            return Ok(Vec::new());
+        };
+        let issued = pass::issued(run);
+        let lookback =
+            Duration::hours(i64::try_from(run.provenance.rules.lookback_hours).unwrap_or(24));
+        let mut out = Vec::new();
+        for t in pass::to_open(run, &reach.spec) {
+            let before = self.stages(&t.gauge_id, issued - lookback, issued).await?;
+            let Some(&(_, persistence)) = before.last() else {
+                continue;
+            };
+            out.push(Open {
+                run_id: run.id,
+                point_id: t.point_id,
+                gauge_id: t.gauge_id,
+                series: t.series,
+                levels: t.levels,
+                persistence,
+                counted_until: issued,
+            });
+        }
+        Ok(out)
+    }
+
+    /// Usable stage readings of a gauge in `[from, to]`, oldest first.
+    async fn stages(
+        &self,
+        gauge: &str,
+        from: DateTime<Utc>,
+        to: DateTime<Utc>,
+    ) -> Result<Vec<(DateTime<Utc>, f64)>, StoreError> {
+        let rows = self
+            .inner
+            .store
+            .readings_for_forecast(gauge, from.timestamp_millis(), to.timestamp_millis())
+            .await?;
+        Ok(rows
+            .into_iter()
+            .filter(|r| r.for_forecast())
+            .filter_map(|r| Some((DateTime::from_timestamp_millis(r.time_ms)?, r.stage_m?)))
+            .collect())
+    }
+}
+
+fn by_gauge(open: &[Open]) -> HashMap<&str, Vec<&Open>> {
+    let mut out: HashMap<&str, Vec<&Open>> = HashMap::new();
+    for o in open {
+        out.entry(o.gauge_id.as_str()).or_default().push(o);
+    }
+    out
+}
