@@ -46,6 +46,7 @@ const ROUTES: &[(&str, &str)] = &[
     ("GET", "/api/reaches/{reach}/forecast"),
     ("GET", "/api/reaches/{reach}/forecast/points/{point}"),
     ("GET", "/api/reaches/{reach}/profile"),
+    ("GET", "/api/reaches/{reach}/verification"),
     ("GET", "/api/reaches/{reach}/runs"),
     ("POST", "/api/reaches/{reach}/runs"),
     ("GET", "/api/runs/{id}"),
