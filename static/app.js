@@ -12,6 +12,7 @@ import { $, h, HttpError, readBody } from "./js/dom.js";
 import { serviceProblem } from "./js/service.js";
 import { BAND, bandTraces, chanceLines, crestRangeText, defaultsNote, ensembleSummary, onlyInScenarios, percentileName, rangeNote } from "./js/ensemble.js";
 import { loadUploads, wireForecaster } from "./js/forecaster.js";
+import { bandRows, crestLine, levelLines, skillChart, trackRecord } from "./js/verification.js";
 
 const params = new URLSearchParams(location.search);
 const POLL_MS = Math.max(1000, Number(params.get("poll")) || 30_000);
@@ -88,6 +89,7 @@ async function refresh() {
     } else {
       await refreshForecast();
       if (state.forecast) await refreshProfile();
+      await refreshVerification();
     }
     state.lastOk = Date.now();
     state.misses = state.forecast ? 0 : state.misses + 1;
@@ -138,6 +140,54 @@ async function refreshForecast() {
   } else {
     renderFreshness(); // ages move on even when the forecast did not
   }
+}
+
+/**
+ * The verification of the reach. On any failure the section says it
+ * could not be read; the forecast above stays as it is.
+ */
+async function refreshVerification() {
+  const url = `/api/reaches/${encodeURIComponent(state.reachId)}/verification`;
+  try {
+    const { body } = await getJson(url);
+    renderVerification(body);
+  } catch (err) {
+    $("verification-body").replaceChildren(h("p", { class: "muted", text: `The verification could not be read (${err.message}).` }));
+  }
+}
+
+function renderVerification(v) {
+  const gauged = (v.points || []).filter((p) => p.status !== "no_gauge");
+  const ungauged = (v.points || []).filter((p) => p.status === "no_gauge").map((p) => p.name);
+  const parts = [h("p", { class: "muted", text: `Runs issued in the last ${v.days} days. A lead-time band is shown as verified once it has pairs from ${v.needs.runs} runs and ${v.needs.pairs} readings.` })];
+  gauged.forEach((p, i) => parts.push(verificationPoint(p, i)));
+  if (!gauged.length) parts.push(h("p", { text: "No point of interest on this reach has a gauge, so no forecast here can be verified." }));
+  if (ungauged.length) parts.push(h("p", { class: "muted", text: `Not verified (no gauge at the point): ${ungauged.join(", ")}.` }));
+  $("verification-body").replaceChildren(...parts);
+}
+
+function verificationPoint(p, i) {
+  const titleId = `skill-title-${i}`;
+  const rows = bandRows(p).map((r) =>
+    h("tr", { class: r.status === "verified" ? "" : "muted" },
+      h("th", { scope: "row", text: r.band }),
+      ...[r.runs, r.pairs, r.mae, r.bias, r.persistence, r.skill, r.crps].map((t) => h("td", { class: "num", text: t })),
+      h("td", { text: r.status })),
+  );
+  const head = ["Lead time", "Runs", "Readings", "Typical error (MAE)", "Bias", "Holding last reading (MAE)", "Skill", "Scenario CRPS", "Status"];
+  const table = h("table", { class: "verify-table" },
+    h("caption", { text: `${p.name}: forecasts against gauge ${p.gauge}, by lead time` }),
+    h("thead", {}, h("tr", {}, ...head.map((t) => h("th", { scope: "col", text: t })))),
+    h("tbody", {}, ...rows));
+  const lines = levelLines(p.events);
+  const crest = crestLine(p.events);
+  return h("section", { class: "verify-point", "data-point": p.name },
+    h("h3", { text: `${p.name}: ${p.status_text}` }),
+    h("div", { class: "chart-box" }, skillChart(document, p, { titleId })),
+    h("div", { class: "table-wrap" }, table),
+    crest ? h("p", { text: crest }) : null,
+    lines.length ? h("ul", { class: "level-record" }, ...lines.map((t) => h("li", { text: t }))) : h("p", { class: "muted", text: "No run's whole window has been observed yet: no crest or level record." }),
+  );
 }
 
 /**
@@ -379,6 +429,7 @@ function renderCharts(f, zone, printWidth) {
       h("h3", { id: `chart-h-${i}`, text: p.name }),
       h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)};${lowChordText(p, f.units.elevation)} peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}${crests ? `; ${crests}` : ""}.` }),
       rangeParagraph(range, f.run.ensemble),
+      h("p", { class: "track-record", text: trackRecord(p.verification) }),
       h("div", { class: "chart-box" }, svg),
       legend(p, range),
       dataTable(p, f, zone),

@@ -2706,3 +2706,66 @@ async fn a_service_problem_on_ready_is_shown_on_the_page() {
     drop(b);
     app.stop().await;
 }
+
+/// The verification on the page equals the API's: each chart carries its
+/// point's track record in words, and the verification section has the
+/// point's table and one bar per verified band, above zero (the model beat
+/// holding the last reading, by construction in
+/// `verification::verified_scenario`: skill 0.5).
+#[tokio::test]
+#[ignore = "needs chromium and chromedriver; run with --include-ignored"]
+async fn the_track_record_is_shown_beside_each_forecast_and_in_its_own_section() {
+    let _one = BROWSER.lock().await;
+    let s = crate::verification::verified_scenario().await;
+    let reach = crate::verification::REACH;
+    let b = Browser::start().await;
+    b.goto(&s.app.url(&format!("/?poll=2000#reach={reach}")))
+        .await;
+    let page = b
+        .wait_for(
+            "the verification section",
+            "const p = document.querySelector('.verify-point'); const t = document.querySelector('.track-record'); return p && t ? {title: p.querySelector('h3').textContent, bars: [...p.querySelectorAll('rect.bar-better')].map(r => r.dataset.band), worse: p.querySelectorAll('rect.bar-worse').length, rows: [...p.querySelectorAll('tbody tr')].map(r => [...r.children].map(c => c.textContent)), record: t.textContent, levels: [...p.querySelectorAll('.level-record li')].map(l => l.textContent)} : null",
+            60,
+        )
+        .await;
+    let (status, v) = s
+        .app
+        .get_json(&format!("/api/reaches/{reach}/verification"))
+        .await;
+    assert_eq!(status, 200);
+    let point = &v["points"][0];
+    assert_eq!(
+        page["title"],
+        format!("{}: verified", point["name"].as_str().unwrap_or_default()),
+        "{page}"
+    );
+    assert_eq!(page["bars"], json!(["0–3 h", "3–6 h"]), "{page}");
+    assert_eq!(page["worse"], 0);
+    let rows = page["rows"].as_array().expect("rows");
+    assert_eq!(rows.len(), 2);
+    for (row, band) in rows.iter().zip(point["bands"].as_array().expect("bands")) {
+        let mae = format!(
+            "{:.2} m",
+            band["model"]["mae_m"].as_f64().unwrap_or(f64::NAN)
+        );
+        assert_eq!(row[3], json!(mae), "{row}");
+        assert_eq!(row[8], "verified");
+    }
+    let record = page["record"].as_str().unwrap_or_default();
+    assert!(
+        record.contains(
+            "0–3 h ahead, typical error 0.10 m (50 % better than holding the last reading; 2 runs)"
+        ),
+        "{record}"
+    );
+    assert!(
+        page["levels"].as_array().is_some_and(|l| l.iter().any(|t| t
+            .as_str()
+            .is_some_and(|t| t.starts_with("low (16.00 m): 1 hit")))),
+        "{page}"
+    );
+    let errors = b.page_errors(&[]).await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}

@@ -29,4 +29,4 @@ mod openapi;
 mod panel;
 mod retention;
 mod route_command;
-mod verification;
+pub mod verification;

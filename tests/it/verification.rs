@@ -19,7 +19,7 @@ use crate::common::{
     ReachApp, assert_success, body_of, bridge_reach, json_of, problem, reach_gauge,
 };
 
-const REACH: &str = "verify-reach";
+pub const REACH: &str = "verify-reach";
 const UPSTREAM: &str = "verify-upstream";
 const POINT_GAUGE: &str = "verify-point";
 
@@ -79,8 +79,12 @@ fn num(v: &Value) -> f64 {
     v.as_f64().unwrap_or_else(|| panic!("not a number: {v}"))
 }
 
-#[tokio::test]
-async fn forecasts_are_scored_against_what_the_point_gauge_saw_later() {
+/// The constructed case of the module comment, through three runs: run 1
+/// before the point gauge says anything, run 2 after its reading 0.3 m
+/// above the steady stage, then the "later" readings 0.1 m above run 2's
+/// forecast, then run 3, whose pass scores runs 2 and 3 and closes run 2
+/// (its window seen). Shared with the dashboard's browser test.
+pub async fn verified_scenario() -> ReachApp {
     let s = setup().await;
     let now = Utc::now();
     let steady: Vec<Value> = (0..=24)
@@ -137,6 +141,12 @@ async fn forecasts_are_scored_against_what_the_point_gauge_saw_later() {
 
     // Run 3's pass scores runs 2 and 3 and closes run 2 (its window seen).
     run(&s).await;
+    s
+}
+
+#[tokio::test]
+async fn forecasts_are_scored_against_what_the_point_gauge_saw_later() {
+    let s = verified_scenario().await;
     let (status, v) = s
         .app
         .get_json(&format!("/api/reaches/{REACH}/verification"))
