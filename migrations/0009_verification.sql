@@ -25,14 +25,17 @@ CREATE TABLE verification_open (
     levels           TEXT    NOT NULL CHECK (json_valid(levels)),
     persistence_m    REAL    NOT NULL,
     counted_until_ms INTEGER NOT NULL,
+    correction       TEXT    NOT NULL CHECK (json_valid(correction)),
     PRIMARY KEY (run_id, poi_id)
 ) STRICT;
 CREATE INDEX verification_open_by_reach ON verification_open (reach_id);
 
 -- Running statistics of one point at one lead hour (leads in (h, h + 1]
 -- hours) over the runs issued on one UTC day: JSON of `verify::moments::
--- Moments` for the model and for persistence, and of `verify::tally::
--- QuantileTally` for the ensemble's percentiles (NULL: no ensemble).
+-- Moments` for the model, persistence and the corrected model, of
+-- `verify::correction::CorrectionSums` (what the correction's decay is fitted
+-- from), and of `verify::tally::QuantileTally` for the ensemble's percentiles
+-- (NULL: no ensemble).
 CREATE TABLE verification_hours (
     reach_id    TEXT    NOT NULL,
     poi_id      TEXT    NOT NULL,
@@ -41,6 +44,8 @@ CREATE TABLE verification_hours (
     runs        INTEGER NOT NULL CHECK (runs >= 0),
     model       TEXT    NOT NULL CHECK (json_valid(model)),
     persistence TEXT    NOT NULL CHECK (json_valid(persistence)),
+    corrected   TEXT    NOT NULL CHECK (json_valid(corrected)),
+    correction  TEXT    NOT NULL CHECK (json_valid(correction)),
     ensemble    TEXT    CHECK (ensemble IS NULL OR json_valid(ensemble)),
     PRIMARY KEY (reach_id, poi_id, issue_day, lead_hour)
 ) STRICT;
@@ -55,3 +60,14 @@ CREATE TABLE verification_events (
     PRIMARY KEY (run_id, poi_id)
 ) STRICT;
 CREATE INDEX verification_events_by_point ON verification_events (reach_id, poi_id, issued_at);
+
+-- The error correction decided for each run at each gauged point (JSON of
+-- `verify::correction::Correction`), served with the run's forecast; kept
+-- when the forecast closes.
+CREATE TABLE verification_corrections (
+    run_id     INTEGER NOT NULL,
+    poi_id     TEXT    NOT NULL,
+    reach_id   TEXT    NOT NULL,
+    correction TEXT    NOT NULL CHECK (json_valid(correction)),
+    PRIMARY KEY (run_id, poi_id)
+) STRICT;

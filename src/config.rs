@@ -123,6 +123,12 @@ pub struct VerificationConfig {
     /// A forecast whose window has ended is closed this long after its end
     /// even when its gauge has not reported up to it.
     pub grace_minutes: u64,
+    /// The error correction at a gauged point is fitted on, and judged
+    /// over, the runs issued in this many days.
+    pub correction_window_days: u64,
+    /// The correction is used only while, over that window, its RMSE is
+    /// below both the raw model's and persistence's by this fraction.
+    pub correction_min_gain: f64,
 }
 
 impl Default for VerificationConfig {
@@ -133,6 +139,8 @@ impl Default for VerificationConfig {
             min_runs: 5,
             min_pairs: 20,
             grace_minutes: 60,
+            correction_window_days: 14,
+            correction_min_gain: 0.05,
         }
     }
 }
@@ -159,6 +167,15 @@ impl VerificationConfig {
             return Err("the last edge must be at most 720 h".to_owned());
         }
         Ok(edges)
+    }
+
+    /// When the error correction is used.
+    pub fn correction_rules(&self) -> crate::forecast::verify::correction::Rules {
+        crate::forecast::verify::correction::Rules {
+            min_runs: self.min_runs,
+            min_pairs: self.min_pairs,
+            min_gain: self.correction_min_gain,
+        }
     }
 
     /// How much history a band needs.
@@ -558,6 +575,8 @@ pub const KEYS: &[&str] = &[
     "verification.min_runs",
     "verification.min_pairs",
     "verification.grace_minutes",
+    "verification.correction_window_days",
+    "verification.correction_min_gain",
 ];
 
 impl Config {
@@ -689,6 +708,7 @@ impl Config {
             ("verification.min_runs", self.verification.min_runs, 1, u64::MAX),
             ("verification.min_pairs", self.verification.min_pairs, 1, u64::MAX),
             ("verification.grace_minutes", self.verification.grace_minutes, 0, 10_080),
+            ("verification.correction_window_days", self.verification.correction_window_days, 1, 3_650),
         ];
         for (key, v, lo, hi) in ranges {
             if !(lo..=hi).contains(&v) {
@@ -702,6 +722,11 @@ impl Config {
         }
         if let Err(m) = self.verification.band_edges() {
             return Err(bad("verification.bands_hours", m));
+        }
+        let gain = self.verification.correction_min_gain;
+        if !(gain.is_finite() && (0.0..1.0).contains(&gain)) {
+            let m = format!("must be at least 0 and below 1, got {gain}");
+            return Err(bad("verification.correction_min_gain", m));
         }
         for (key, rate) in [
             ("auth.rate_limit_per_sec", self.auth.rate_limit_per_sec),

@@ -16,8 +16,12 @@ use super::{
     levels_csv,
     record::{EnsembleRecord, RunDiagnostics, RunRecord, StoredResults},
     spec::{Method, ReachSpec, Units},
-    verify::report::PointVerification,
-    view::{self, Freshness, ObservedStage, PointView, UnitNames},
+    verify::{
+        correction::{self, Correction},
+        pass,
+        report::PointVerification,
+    },
+    view::{self, CorrectedView, Freshness, ObservedStage, PointView, UnitNames},
 };
 
 /// The reach as the document names it.
@@ -187,6 +191,27 @@ pub struct Inputs<'a> {
     pub now: DateTime<Utc>,
     /// How forecasts at each point have verified, with the window (days).
     pub verification: (&'a [PointVerification], u64),
+    /// The error correction decided for the run, by point id.
+    pub corrections: &'a [(String, Correction)],
+}
+
+/// The corrected view of one point of a run issued at `issued`.
+fn corrected_view(p: &PointView, c: &Correction, issued: DateTime<Utc>) -> CorrectedView {
+    let f = &p.forecast;
+    let stage = match (c.on, c.initial_error_m, c.decay()) {
+        (true, Some(e0), Some(phi)) => {
+            Some(correction::series(&f.times, &f.stage, issued, e0, phi))
+        }
+        _ => None,
+    };
+    CorrectedView {
+        label: view::CORRECTED_LABEL,
+        on: stage.is_some(),
+        reason: c.reason.clone(),
+        decay_per_hour: c.decay(),
+        initial_error: c.initial_error_m,
+        stage,
+    }
 }
 
 fn inflow_brief(run: &RunRecord) -> InflowBrief {
@@ -209,11 +234,17 @@ pub fn build(i: &Inputs<'_>, freshness: Freshness) -> ForecastDoc {
     let ensemble = i.run.ensemble.as_ref().and_then(EnsembleRecord::summary);
     let mut points = view::points(i.spec, i.results, ensemble, &lookup, i.now);
     let (verified, days) = i.verification;
+    let issued = pass::issued(i.run);
     for p in &mut points {
         p.verification = verified
             .iter()
             .find(|v| v.id == p.forecast.id)
             .map(|v| v.brief(days));
+        p.corrected = i
+            .corrections
+            .iter()
+            .find(|(id, _)| *id == p.forecast.id)
+            .map(|(_, c)| corrected_view(p, c, issued));
     }
     if i.units == Units::Us {
         points.iter_mut().for_each(PointView::to_us);
@@ -431,6 +462,7 @@ mod tests {
             units,
             now: t0() + Duration::hours(2),
             verification: (&[], 30),
+            corrections: &[],
         };
         build(&inputs, fresh())
     }

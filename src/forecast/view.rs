@@ -73,7 +73,32 @@ pub struct PointView {
     /// view is built without a verification report (offline).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub verification: Option<VerificationBrief>,
+    /// The forecast corrected at the point's gauge, beside the raw model;
+    /// `None` where the point has no gauge or the run no correction.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub corrected: Option<CorrectedView>,
 }
+
+/// The model's stage corrected with its error at the issue time, seen by
+/// the point's gauge and decaying with lead time. A separate series: the
+/// levels, crossings and CAP messages stay those of the raw model.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct CorrectedView {
+    pub label: &'static str,
+    /// Whether the correction is in use at this point for this run.
+    pub on: bool,
+    /// Why it is on or off.
+    pub reason: String,
+    /// Share of the error left after one hour (fitted), if fitted.
+    pub decay_per_hour: Option<f64>,
+    /// Observed minus model at the issue time (answer's units).
+    pub initial_error: Option<f64>,
+    /// The corrected stage on the point's `times`; `null` while off.
+    pub stage: Option<Vec<f64>>,
+}
+
+/// What the corrected series is called wherever it is shown.
+pub const CORRECTED_LABEL: &str = "model corrected with its error at the gauge at the issue time";
 
 /// What an ensemble says at a point, beside the deterministic forecast.
 #[derive(Debug, Clone, Serialize, PartialEq)]
@@ -180,6 +205,7 @@ pub fn point(
         .max_by(|a, b| a.elevation.total_cmp(&b.elevation));
     PointView {
         verification: None,
+        corrected: None,
         current_stage: ahead.stage_now(),
         observed,
         highest_exceeded: highest.map(|t| t.name.clone()),
@@ -252,6 +278,10 @@ impl PointView {
         for t in &mut f.levels {
             t.elevation *= FT_PER_M;
             t.margin *= FT_PER_M;
+        }
+        if let Some(c) = &mut self.corrected {
+            c.initial_error.iter_mut().for_each(l);
+            c.stage.iter_mut().flatten().for_each(l);
         }
         if let Some(e) = &mut self.ensemble {
             e.stage

@@ -173,6 +173,7 @@ async fn build_doc(
         now,
     )
     .await?;
+    let corrections = state.store.run_corrections(l.run.id).await?;
     let inputs = Inputs {
         reach_id: &l.reach.reach_id,
         reach_version: l.reach.version,
@@ -184,6 +185,7 @@ async fn build_doc(
         units,
         now,
         verification: (&verified, days),
+        corrections: &corrections,
     };
     Ok(document::build(&inputs, fresh))
 }

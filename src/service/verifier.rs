@@ -5,7 +5,7 @@
 //! forecasts whose window is over. A pass is logged when it fails and
 //! never fails a run; the next pass picks up where the stored state says.
 
-use std::collections::HashMap;
+use std::collections::{BTreeMap, HashMap};
 
 use chrono::{DateTime, Duration, Utc};
 
@@ -17,6 +17,7 @@ use crate::{
         verify::{
             pass::{self, Open, PassOutcome, Stepped},
             report::{self, PointVerification, Sources},
+            tally::{HourTally, StoredHour},
         },
     },
     store::{ReachVersion, Store, StoreError},
@@ -134,21 +135,22 @@ impl Forecaster {
         let issued = pass::issued(run);
         let lookback =
             Duration::hours(i64::try_from(run.provenance.rules.lookback_hours).unwrap_or(24));
+        let cfg = &self.inner.verification;
+        let window = Duration::days(i64::try_from(cfg.correction_window_days).unwrap_or(14));
+        let history = self
+            .inner
+            .store
+            .verification_hours(&run.reach_id, (issued - window).date_naive())
+            .await?;
+        let rules = cfg.correction_rules();
         let mut out = Vec::new();
         for t in pass::to_open(run, &reach.spec) {
             let before = self.stages(&t.gauge_id, issued - lookback, issued).await?;
-            let Some(&(_, persistence)) = before.last() else {
+            let Some(&last) = before.last() else {
                 continue;
             };
-            out.push(Open {
-                run_id: run.id,
-                point_id: t.point_id,
-                gauge_id: t.gauge_id,
-                series: t.series,
-                levels: t.levels,
-                persistence,
-                counted_until: issued,
-            });
+            let mine = by_hour(&history, &t.point_id);
+            out.push(pass::open(run.id, t, last, &mine, rules));
         }
         Ok(out)
     }
@@ -171,6 +173,15 @@ impl Forecaster {
             .filter_map(|r| Some((DateTime::from_timestamp_millis(r.time_ms)?, r.stage_m?)))
             .collect())
     }
+}
+
+/// One point's stored tallies merged by lead hour.
+fn by_hour(history: &[StoredHour], point: &str) -> BTreeMap<u32, HourTally> {
+    let mut out: BTreeMap<u32, HourTally> = BTreeMap::new();
+    for h in history.iter().filter(|h| h.point_id == point) {
+        out.entry(h.lead_hour).or_default().merge(&h.tally);
+    }
+    out
 }
 
 fn by_gauge(open: &[Open]) -> HashMap<&str, Vec<&Open>> {

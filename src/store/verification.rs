@@ -7,6 +7,7 @@ use sqlx::Row;
 
 use super::{Store, StoreError};
 use crate::forecast::verify::{
+    correction::Correction,
     events::Event,
     moments::Moments,
     pass::{Open, PassOutcome},
@@ -43,7 +44,8 @@ impl Store {
     /// The forecasts of a reach still open, oldest run first.
     pub async fn open_verifications(&self, reach_id: &str) -> Result<Vec<Open>, StoreError> {
         let rows = sqlx::query(
-            "SELECT run_id, poi_id, gauge_id, series, levels, persistence_m, counted_until_ms
+            "SELECT run_id, poi_id, gauge_id, series, levels, persistence_m, counted_until_ms,
+                    correction
              FROM verification_open WHERE reach_id = ?1 ORDER BY run_id, poi_id",
         )
         .bind(reach_id)
@@ -53,7 +55,9 @@ impl Store {
             .map(|r| {
                 let series: String = r.try_get("series")?;
                 let levels: String = r.try_get("levels")?;
+                let correction: String = r.try_get("correction")?;
                 Ok(Open {
+                    correction: decode("verification_open.correction", &correction)?,
                     run_id: r.try_get("run_id")?,
                     point_id: r.try_get("poi_id")?,
                     gauge_id: r.try_get("gauge_id")?,
@@ -120,6 +124,29 @@ impl Store {
         self.watched(r)
     }
 
+    /// The error corrections decided for a run, by point id.
+    pub async fn run_corrections(
+        &self,
+        run_id: i64,
+    ) -> Result<Vec<(String, Correction)>, StoreError> {
+        let rows = sqlx::query(
+            "SELECT poi_id, correction FROM verification_corrections WHERE run_id = ?1
+             ORDER BY poi_id",
+        )
+        .bind(run_id)
+        .fetch_all(&self.pool)
+        .await?;
+        rows.iter()
+            .map(|r| {
+                let c: String = r.try_get("correction")?;
+                Ok((
+                    r.try_get("poi_id")?,
+                    decode("verification_corrections.correction", &c)?,
+                ))
+            })
+            .collect()
+    }
+
     /// Every stored lead-hour tally of a reach issued on or after `from`.
     pub async fn verification_hours(
         &self,
@@ -127,7 +154,8 @@ impl Store {
         from: NaiveDate,
     ) -> Result<Vec<StoredHour>, StoreError> {
         let rows = sqlx::query(
-            "SELECT poi_id, issue_day, lead_hour, runs, model, persistence, ensemble
+            "SELECT poi_id, issue_day, lead_hour, runs, model, persistence, corrected,
+                    correction, ensemble
              FROM verification_hours WHERE reach_id = ?1 AND issue_day >= ?2
              ORDER BY poi_id, issue_day, lead_hour",
         )
@@ -168,10 +196,22 @@ impl Store {
 type Tx = sqlx::Transaction<'static, sqlx::Sqlite>;
 
 async fn insert_open(tx: &mut Tx, reach_id: &str, o: &Open) -> Result<(), StoreError> {
+    let correction = encode("verification correction", &o.correction)?;
+    sqlx::query(
+        "INSERT OR IGNORE INTO verification_corrections (run_id, poi_id, reach_id, correction)
+         VALUES (?1, ?2, ?3, ?4)",
+    )
+    .bind(o.run_id)
+    .bind(&o.point_id)
+    .bind(reach_id)
+    .bind(&correction)
+    .execute(&mut **tx)
+    .await?;
     sqlx::query(
         "INSERT OR IGNORE INTO verification_open
-             (run_id, poi_id, reach_id, gauge_id, series, levels, persistence_m, counted_until_ms)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
+             (run_id, poi_id, reach_id, gauge_id, series, levels, persistence_m, counted_until_ms,
+              correction)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
     )
     .bind(o.run_id)
     .bind(&o.point_id)
@@ -181,6 +221,7 @@ async fn insert_open(tx: &mut Tx, reach_id: &str, o: &Open) -> Result<(), StoreE
     .bind(encode("verification levels", &o.levels)?)
     .bind(o.persistence)
     .bind(o.counted_until.timestamp_millis())
+    .bind(&correction)
     .execute(&mut **tx)
     .await?;
     Ok(())
@@ -222,7 +263,8 @@ async fn merge_hour(
     add: &HourTally,
 ) -> Result<(), StoreError> {
     let row = sqlx::query(
-        "SELECT poi_id, issue_day, lead_hour, runs, model, persistence, ensemble
+        "SELECT poi_id, issue_day, lead_hour, runs, model, persistence, corrected, correction,
+                ensemble
          FROM verification_hours
          WHERE reach_id = ?1 AND poi_id = ?2 AND issue_day = ?3 AND lead_hour = ?4",
     )
@@ -239,8 +281,9 @@ async fn merge_hour(
     tally.merge(add);
     sqlx::query(
         "INSERT OR REPLACE INTO verification_hours
-             (reach_id, poi_id, issue_day, lead_hour, runs, model, persistence, ensemble)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
+             (reach_id, poi_id, issue_day, lead_hour, runs, model, persistence, corrected,
+              correction, ensemble)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)",
     )
     .bind(reach_id)
     .bind(point_id)
@@ -249,6 +292,8 @@ async fn merge_hour(
     .bind(i64::try_from(tally.runs).unwrap_or(i64::MAX))
     .bind(encode("verification model", &tally.model)?)
     .bind(encode("verification persistence", &tally.persistence)?)
+    .bind(encode("verification corrected", &tally.corrected)?)
+    .bind(encode("verification correction", &tally.correction)?)
     .bind(
         tally
             .ensemble
@@ -265,6 +310,8 @@ fn hour_from_row(r: &sqlx::sqlite::SqliteRow) -> Result<StoredHour, StoreError> 
     let day: String = r.try_get("issue_day")?;
     let model: String = r.try_get("model")?;
     let persistence: String = r.try_get("persistence")?;
+    let corrected: String = r.try_get("corrected")?;
+    let correction: String = r.try_get("correction")?;
     let ensemble: Option<String> = r.try_get("ensemble")?;
     let hour: i64 = r.try_get("lead_hour")?;
     let runs: i64 = r.try_get("runs")?;
@@ -278,6 +325,8 @@ fn hour_from_row(r: &sqlx::sqlite::SqliteRow) -> Result<StoredHour, StoreError> 
             runs: u64::try_from(runs).map_err(|e| corrupt("verification_hours.runs", e))?,
             model: decode::<Moments>("verification_hours.model", &model)?,
             persistence: decode::<Moments>("verification_hours.persistence", &persistence)?,
+            corrected: decode::<Moments>("verification_hours.corrected", &corrected)?,
+            correction: decode("verification_hours.correction", &correction)?,
             ensemble: ensemble
                 .map(|e| decode::<QuantileTally>("verification_hours.ensemble", &e))
                 .transpose()?,

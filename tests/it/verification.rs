@@ -194,6 +194,57 @@ async fn forecasts_are_scored_against_what_the_point_gauge_saw_later() {
     assert_eq!(brief["status"], "verified", "{brief}");
     assert!((num(&brief["bands"][0]["mae_m"]) - 0.1).abs() < 0.005);
 
+    // Run 3 was opened before any history was tallied: its correction is
+    // off and says why; the raw model stays the forecast.
+    let c = &p["corrected"];
+    assert_eq!(c["on"], false, "{c}");
+    assert!(
+        c["reason"]
+            .as_str()
+            .unwrap()
+            .contains("no verified history"),
+        "{c}"
+    );
+    assert_eq!(c["stage"], Value::Null);
+    assert!((num(&c["initial_error"]) - 0.3).abs() < 0.005, "{c}");
+
+    // Run 4 is opened on the history of runs 2 and 3 (errors +0.1 m after
+    // an issue-time error of +0.3 m): correcting would have cut the RMSE
+    // below the raw model's 0.1 m and persistence's 0.2 m, so it is on, and
+    // its series is the raw one plus e0·φ^L (recomputed here).
+    run(&s).await;
+    let p = forecast_point(&s).await;
+    let c = &p["corrected"];
+    assert_eq!(c["on"], true, "{c}");
+    assert!(c["reason"].as_str().unwrap().starts_with("on:"), "{c}");
+    let (e0, phi) = (num(&c["initial_error"]), num(&c["decay_per_hour"]));
+    assert!((0.0..=1.0).contains(&phi));
+    let corrected: Vec<f64> = c["stage"].as_array().unwrap().iter().map(num).collect();
+    let raw: Vec<f64> = p["stage"].as_array().unwrap().iter().map(num).collect();
+    assert_eq!(corrected.len(), raw.len());
+    let last = raw.len() - 1;
+    let run_started: DateTime<Utc> = s
+        .app
+        .get_json(&format!("/api/reaches/{REACH}/forecast"))
+        .await
+        .1["run"]["started_at"]
+        .as_str()
+        .unwrap()
+        .parse()
+        .unwrap();
+    let end: DateTime<Utc> = p["times"][last].as_str().unwrap().parse().unwrap();
+    let lead_h = (end - run_started).num_milliseconds() as f64 / 3.6e6;
+    let want = raw[last] + e0 * phi.powf(lead_h);
+    assert!(
+        (corrected[last] - want).abs() < 1e-3,
+        "{} vs {want}",
+        corrected[last]
+    );
+    assert_eq!(
+        corrected[0], raw[0],
+        "before the issue time nothing changes"
+    );
+
     // The CSV: a header and one row per point and band, each advisory.
     let res = s
         .app

@@ -15,12 +15,15 @@
 //! - [`moments`]: the mergeable running statistics every continuous score
 //!   follows from;
 //! - [`tally`]: one verification pass of a run at a point, by lead hour;
+//! - [`correction`]: the error at the issue time carried forward, its
+//!   decay fitted from the history, and the switch that turns it off;
 //! - [`events`]: a run's crest and level outcomes once its window is seen;
 //! - [`pass`]: one verification pass over the open forecasts of a reach;
 //! - [`summary`]: the scores as served, by lead-time band and per level;
 //! - [`report`]: the report of a reach per point of interest, JSON and CSV.
 
 pub mod contingency;
+pub mod correction;
 pub mod ensemble;
 pub mod events;
 pub mod moments;

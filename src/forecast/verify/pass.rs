@@ -10,9 +10,10 @@ use std::collections::BTreeMap;
 use chrono::{DateTime, Duration, NaiveDate, Utc};
 
 use super::{
+    correction::{self, Correction},
     events::{self, Event},
-    pairs::pairs_held,
-    tally::{self, HourTally, PercentileSeries, PointSeries},
+    pairs::{at, pairs_held},
+    tally::{self, HourTally, PercentileSeries, PointSeries, Start},
 };
 use crate::forecast::{record::RunRecord, spec::ReachSpec};
 
@@ -29,6 +30,51 @@ pub struct Open {
     pub persistence: f64,
     /// The newest observation counted so far (the issue time at first).
     pub counted_until: DateTime<Utc>,
+    /// The error correction decided for the run at this point.
+    pub correction: Correction,
+}
+
+impl Open {
+    /// Where the run's corrected series starts, when it has one.
+    pub fn start(&self) -> Option<Start> {
+        Some(Start {
+            error: self.correction.initial_error_m?,
+            decay_per_hour: self.correction.decay(),
+        })
+    }
+}
+
+/// An error older than this before the issue time is not the error at
+/// the issue time: the correction then has no start.
+pub const MAX_START_AGE: Duration = Duration::hours(1);
+
+/// Opens a run's forecast at a point: persistence is the gauge's last
+/// reading at or before the issue time (`last`), the correction starts
+/// from the model's error at that reading, and is switched on or off on
+/// the point's `history` (lead-hour tallies over the correction window).
+pub fn open(
+    run_id: i64,
+    t: ToOpen,
+    last: (DateTime<Utc>, f64),
+    history: &BTreeMap<u32, HourTally>,
+    rules: correction::Rules,
+) -> Open {
+    let s = &t.series;
+    let (when, stage) = last;
+    let e0 = (s.issued - when <= MAX_START_AGE)
+        .then(|| at(&s.times, &s.stage, when).map(|model| stage - model))
+        .flatten();
+    let decided = correction::decide(correction::fit(history), e0, rules);
+    Open {
+        run_id,
+        counted_until: s.issued,
+        point_id: t.point_id,
+        gauge_id: t.gauge_id,
+        levels: t.levels,
+        persistence: stage,
+        series: t.series,
+        correction: decided,
+    }
 }
 
 /// A forecast to open, before its persistence is known.
@@ -130,7 +176,13 @@ pub fn step(
     grace: Duration,
 ) -> Step {
     let s = &open.series;
-    let hours = tally::tally(s, open.persistence, open.counted_until, observed);
+    let hours = tally::tally(
+        s,
+        open.persistence,
+        open.start(),
+        open.counted_until,
+        observed,
+    );
     let end = s.end().unwrap_or(s.issued);
     let counted_until = observed
         .iter()
@@ -187,6 +239,12 @@ mod tests {
             + Duration::milliseconds((h * 3_600_000.0) as i64)
     }
 
+    const RULES: correction::Rules = correction::Rules {
+        min_runs: 1,
+        min_pairs: 1,
+        min_gain: 0.05,
+    };
+
     fn open() -> Open {
         let times: Vec<_> = (0..=4).map(|h| t(f64::from(h))).collect();
         Open {
@@ -202,6 +260,7 @@ mod tests {
             levels: vec![("minor".into(), 10.8)],
             persistence: 10.0,
             counted_until: t(0.0),
+            correction: correction::decide(None, None, RULES),
         }
     }
 

@@ -62,6 +62,10 @@ pub struct Band {
     pub status: Status,
     pub model: Scores,
     pub persistence: Scores,
+    /// The model corrected with the error at the issue time (on the
+    /// pairs of runs that had one; `None` without such pairs), scored
+    /// whether or not the correction was switched on.
+    pub corrected: Option<Scores>,
     /// 1 − RMSE / persistence's RMSE: above 0 the model beat holding the
     /// last observed stage.
     pub skill_rmse: Option<f64>,
@@ -128,6 +132,7 @@ fn band(from_h: u32, to_h: u32, runs: u64, t: &HourTally, enough: Enough) -> Ban
         status,
         model: Scores::of(model),
         persistence: Scores::of(held),
+        corrected: (t.corrected.n > 0).then(|| Scores::of(&t.corrected)),
         skill_rmse: ratio(model.rmse(), held.rmse()),
         skill_mae: ratio(model.mae(), held.mae()),
         ensemble: t.ensemble.as_ref().filter(|e| e.n > 0).map(|e| {

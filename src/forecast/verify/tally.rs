@@ -10,6 +10,7 @@ use chrono::{DateTime, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::{
+    correction::{self, CorrectionSums},
     ensemble::{crps_of_quantiles, quantile_bin},
     moments::Moments,
     pairs::{at, pairs_held},
@@ -59,6 +60,10 @@ pub struct HourTally {
     pub runs: u64,
     pub model: Moments,
     pub persistence: Moments,
+    /// The model corrected with the error at the issue time.
+    pub corrected: Moments,
+    /// What the correction's decay is fitted from.
+    pub correction: CorrectionSums,
     pub ensemble: Option<QuantileTally>,
 }
 
@@ -103,6 +108,8 @@ impl HourTally {
         self.runs += other.runs;
         self.model.merge(&other.model);
         self.persistence.merge(&other.persistence);
+        self.corrected.merge(&other.corrected);
+        self.correction.merge(&other.correction);
         let Some(b) = &other.ensemble else { return };
         let merged = self.ensemble.as_mut().is_some_and(|a| a.merge(b));
         if !merged {
@@ -116,6 +123,15 @@ pub fn lead_hour(lead_s: f64) -> u32 {
     ((lead_s / 3600.0).ceil() as u32).saturating_sub(1)
 }
 
+/// The error at the issue time a run's corrected series starts from.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Start {
+    /// Observed − model at the last reading at or before the issue (m).
+    pub error: f64,
+    /// The decay fitted then (per hour), if there was history to fit.
+    pub decay_per_hour: Option<f64>,
+}
+
 /// Tallies the observations of one run at one point that are newer than
 /// `since` (the newest observation already counted, or the issue time),
 /// by lead hour. A run counts in an hour when this pass adds its first
@@ -124,6 +140,7 @@ pub fn lead_hour(lead_s: f64) -> u32 {
 pub fn tally(
     series: &PointSeries,
     persistence: f64,
+    start: Option<Start>,
     since: DateTime<Utc>,
     observed: &[(DateTime<Utc>, f64)],
 ) -> BTreeMap<u32, HourTally> {
@@ -149,6 +166,14 @@ pub fn tally(
         }
         slot.model.add(p.forecast, p.observed);
         slot.persistence.add(p.persistence, p.observed);
+        if let Some(st) = start {
+            let e = p.observed - p.forecast;
+            slot.correction.add(st.error, e, p.observed - p.persistence);
+            if let Some(phi) = st.decay_per_hour {
+                let c = correction::corrected(p.forecast, p.lead_s / 3600.0, st.error, phi);
+                slot.corrected.add(c, p.observed);
+            }
+        }
         let t = series.issued + chrono::Duration::milliseconds((p.lead_s * 1000.0) as i64);
         if let Some(q) = quantiles_at(series, t) {
             add_quantiles(slot, &series.percentiles, &q, p);
@@ -239,11 +264,11 @@ mod tests {
                 (t(h), 10.05 + 0.1 * h)
             })
             .collect();
-        let once = tally(&s, 10.0, s.issued, &obs);
+        let once = tally(&s, 10.0, None, s.issued, &obs);
         let split = t(1.5);
         let first: Vec<_> = obs.iter().copied().filter(|(x, _)| *x <= split).collect();
-        let mut twice = tally(&s, 10.0, s.issued, &first);
-        for (h, v) in tally(&s, 10.0, split, &obs) {
+        let mut twice = tally(&s, 10.0, None, s.issued, &first);
+        for (h, v) in tally(&s, 10.0, None, split, &obs) {
             twice.entry(h).or_default().merge(&v);
         }
         assert_eq!(once.len(), 6);
@@ -264,6 +289,6 @@ mod tests {
     fn observations_before_since_are_not_counted_again() {
         let s = series();
         let obs = [(t(0.5), 10.0), (t(1.0), 10.1)];
-        assert!(tally(&s, 10.0, t(1.0), &obs).is_empty());
+        assert!(tally(&s, 10.0, None, t(1.0), &obs).is_empty());
     }
 }
