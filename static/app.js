@@ -12,7 +12,7 @@ import { $, h, HttpError, readBody } from "./js/dom.js";
 import { serviceProblem } from "./js/service.js";
 import { BAND, bandTraces, chanceLines, crestRangeText, defaultsNote, ensembleSummary, onlyInScenarios, percentileName, rangeNote } from "./js/ensemble.js";
 import { loadUploads, wireForecaster } from "./js/forecaster.js";
-import { bandRows, crestLine, levelLines, skillChart, trackRecord } from "./js/verification.js";
+import { bandRows, correctionText, crestLine, levelLines, skillChart, trackRecord } from "./js/verification.js";
 
 const params = new URLSearchParams(location.search);
 const POLL_MS = Math.max(1000, Number(params.get("poll")) || 30_000);
@@ -430,6 +430,7 @@ function renderCharts(f, zone, printWidth) {
       h("p", { class: "muted", text: `Crest ${formatLevel(p.crest_stage, f.units.stage)} at ${formatTime(p.crest_time, zone)};${lowChordText(p, f.units.elevation)} peak discharge ${formatFlow(p.peak_discharge, f.units.discharge)}${crests ? `; ${crests}` : ""}.` }),
       rangeParagraph(range, f.run.ensemble),
       h("p", { class: "track-record", text: trackRecord(p.verification) }),
+      p.corrected ? h("p", { class: "correction-note", text: correctionText(p.corrected, f.units.stage) }) : null,
       h("div", { class: "chart-box" }, svg),
       legend(p, range),
       dataTable(p, f, zone),
@@ -472,6 +473,7 @@ function swatch(kind) {
   };
   if (kind === "observed") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#1d2733", "stroke-width": 2.5 });
   if (kind === "forecast") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5" });
+  if (kind === "corrected") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#1f4a1a", "stroke-width": 2, "stroke-dasharray": "2 3" });
   if (kind === "threshold") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#8a5a00", "stroke-width": 1.25 });
   if (kind === "structure") add("line", { x1: 0, x2: 28, y1: 6, y2: 6, stroke: "#4d5b6a", "stroke-width": 2 });
   if (kind === "now") add("line", { x1: 14, x2: 14, y1: 0, y2: 12, stroke: "#1f4f8a", "stroke-width": 2 });
@@ -490,6 +492,7 @@ function legend(p, range) {
   const items = [
     (p.observed || []).length ? ["observed", "observed stage (solid)"] : null,
     ["forecast", "model stage (dashed)"],
+    p.corrected?.on ? ["corrected", "model corrected at the gauge (dotted)"] : null,
     band ? ["band", `${range.label} (shaded)`] : null,
     band?.mid ? ["median", `${percentileName(band.mid.percentile)} of the scenarios (short dashes)`] : null,
     levelsOf(p).some((l) => !l.kind || l.kind === "threshold") ? ["threshold", "threshold"] : null,

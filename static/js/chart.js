@@ -223,7 +223,7 @@ function chartFrame(doc, point, ctx) {
   if (Number.isFinite(nowMs)) allT.push(nowMs);
   const t0 = Math.min(...allT);
   const t1 = Math.max(...allT);
-  const vals = (point.stage || []).concat(obs.map((o) => o[1]), levels.map((l) => l.value), bandValues(band)).filter((v) => v != null && Number.isFinite(v));
+  const vals = (point.stage || []).concat(obs.map((o) => o[1]), levels.map((l) => l.value), bandValues(band), correctedStage(point) || []).filter((v) => v != null && Number.isFinite(v));
   // 5 cm, or the same length in feet (0.3048 m each, NIST SP 811).
   const resolution = unit === "ft" ? 0.05 / 0.3048 : 0.05;
   const plotPx = height - m.bottom - m.top;
@@ -284,10 +284,22 @@ function plotClip({ doc, svg, m, width, plotPx, yt }, titleId) {
   return { "clip-path": `url(#clip-${titleId})` };
 }
 
-/** Series: model stage dashed, observed solid on top of it. */
+/** The corrected stage when the correction is in use at the point, else null. */
+export function correctedStage(point) {
+  const c = point.corrected;
+  return c && c.on && Array.isArray(c.stage) ? c.stage : null;
+}
+
+/**
+ * Series: model stage dashed, the corrected stage (when in use) dotted,
+ * observed solid on top of both.
+ */
 function drawSeries({ doc, svg, x, y, times, obs }, point, clip) {
   const fcPath = pathOf(times, point.stage || [], x, y);
   if (fcPath) el(doc, "path", { d: fcPath, fill: "none", stroke: "#b03a12", "stroke-width": 2.5, "stroke-dasharray": "8 5", class: "series-forecast", ...clip }, svg);
+  const corrected = correctedStage(point);
+  const cPath = corrected && pathOf(times, corrected, x, y);
+  if (cPath) el(doc, "path", { d: cPath, fill: "none", stroke: "#1f4a1a", "stroke-width": 2, "stroke-dasharray": "2 3", class: "series-corrected", ...clip }, svg);
   const obsPath = pathOf(obs.map((o) => o[0]), obs.map((o) => o[1]), x, y);
   if (obsPath) el(doc, "path", { d: obsPath, fill: "none", stroke: "#1d2733", "stroke-width": 2.5, class: "series-observed", ...clip }, svg);
 }

@@ -111,3 +111,19 @@ export function skillChart(doc, point, { width = 320, height = 140, titleId }) {
   });
   return svg;
 }
+
+/**
+ * What the correction at the point's gauge does for this run, in words:
+ * in use (and from what error), or off and why. The levels and warnings
+ * above stay those of the raw model.
+ */
+export function correctionText(c, unit) {
+  if (!c) return null;
+  const reason = String(c.reason || "").replace(/^(on|off): /, "");
+  if (c.on) {
+    const e = Number.isFinite(c.initial_error) ? `${c.initial_error >= 0 ? "+" : ""}${c.initial_error.toFixed(2)} ${unit}` : "?";
+    const keep = Number.isFinite(c.decay_per_hour) ? `, ${Math.round(c.decay_per_hour * 100)} % of it kept per hour` : "";
+    return `Corrected at the gauge (dotted line): the gauge read ${e} against the model at issue time${keep}; ${reason}. Levels and warnings use the raw model.`;
+  }
+  return `Correction at the gauge not in use: ${reason}.`;
+}

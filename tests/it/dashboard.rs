@@ -2724,7 +2724,7 @@ async fn the_track_record_is_shown_beside_each_forecast_and_in_its_own_section()
     let page = b
         .wait_for(
             "the verification section",
-            "const p = document.querySelector('.verify-point'); const t = document.querySelector('.track-record'); return p && t ? {title: p.querySelector('h3').textContent, bars: [...p.querySelectorAll('rect.bar-better')].map(r => r.dataset.band), worse: p.querySelectorAll('rect.bar-worse').length, rows: [...p.querySelectorAll('tbody tr')].map(r => [...r.children].map(c => c.textContent)), record: t.textContent, levels: [...p.querySelectorAll('.level-record li')].map(l => l.textContent)} : null",
+            "const p = document.querySelector('.verify-point'); const t = document.querySelector('.track-record'); return p && t ? {title: p.querySelector('h3').textContent, bars: [...p.querySelectorAll('rect.bar-better')].map(r => r.dataset.band), worse: p.querySelectorAll('rect.bar-worse').length, rows: [...p.querySelectorAll('tbody tr')].map(r => [...r.children].map(c => c.textContent)), record: t.textContent, correction: document.querySelector('.correction-note')?.textContent, corrected_lines: document.querySelectorAll('.series-corrected').length, levels: [...p.querySelectorAll('.level-record li')].map(l => l.textContent)} : null",
             60,
         )
         .await;
@@ -2763,6 +2763,31 @@ async fn the_track_record_is_shown_beside_each_forecast_and_in_its_own_section()
             .as_str()
             .is_some_and(|t| t.starts_with("low (16.00 m): 1 hit")))),
         "{page}"
+    );
+    // Run 3 was opened before there was history: its correction is off,
+    // says why, and is not drawn.
+    assert_eq!(
+        page["correction"],
+        "Correction at the gauge not in use: no verified history at this point yet."
+    );
+    assert_eq!(page["corrected_lines"], 0);
+    // Run 4 is opened on that history and its correction is on
+    // (`verification::forecasts_are_scored_…`): the page draws it dotted
+    // and keys it.
+    let run = s.app.run_and_wait(&s.keys.forecaster, reach).await;
+    assert!(run.status().is_success());
+    let shown = b
+        .wait_for(
+            "the corrected series",
+            "const n = document.querySelectorAll('.series-corrected').length; const k = [...document.querySelectorAll('.legend li')].some(l => l.textContent.includes('corrected at the gauge')); const t = document.querySelector('.correction-note')?.textContent || ''; return n && k && t.startsWith('Corrected at the gauge') ? t : null",
+            30,
+        )
+        .await;
+    assert!(
+        shown
+            .as_str()
+            .is_some_and(|t| t.contains("Levels and warnings use the raw model")),
+        "{shown}"
     );
     let errors = b.page_errors(&[]).await;
     assert!(errors.is_empty(), "console errors: {errors:#?}");

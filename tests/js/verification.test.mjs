@@ -3,7 +3,8 @@
 import { test } from "node:test";
 import assert from "node:assert/strict";
 
-import { bandRows, crestLine, levelLines, skillWords, trackRecord } from "../../static/js/verification.js";
+import { bandRows, correctionText, crestLine, levelLines, skillWords, trackRecord } from "../../static/js/verification.js";
+import { correctedStage } from "../../static/js/chart.js";
 
 const band = (from, to, status, mae, skill, runs = 12) => ({
   from_h: from, to_h: to, status, runs, pairs: runs * 10,
@@ -51,4 +52,14 @@ test("level lines and crest line read the event scores", () => {
   assert.equal(crestLine(events), "Crests of 2 observed runs: forecast 0.12 m too low on average (typical error 0.20 m), on average 1.5 h late.");
   assert.equal(crestLine({ events: 1, crests: 0 }), null);
   assert.deepEqual(levelLines({ events: 0, levels: [] }), []);
+});
+
+test("the correction says whether it is in use and why, and only an active one is drawn", () => {
+  const on = { on: true, reason: "on: cut the RMSE", initial_error: 0.3, decay_per_hour: 0.8, stage: [1, 2] };
+  assert.equal(correctionText(on, "m"), "Corrected at the gauge (dotted line): the gauge read +0.30 m against the model at issue time, 80 % of it kept per hour; cut the RMSE. Levels and warnings use the raw model.");
+  const off = { on: false, reason: "off: no verified history at this point yet", initial_error: 0.3, decay_per_hour: null, stage: null };
+  assert.equal(correctionText(off, "m"), "Correction at the gauge not in use: no verified history at this point yet.");
+  assert.deepEqual(correctedStage({ corrected: on }), [1, 2]);
+  assert.equal(correctedStage({ corrected: off }), null);
+  assert.equal(correctedStage({}), null);
 });
