@@ -300,6 +300,8 @@ pub struct ForecastConfig {
     /// gets this many, and its runs' provenance says so. 0 turns ensembles
     /// off.
     pub max_ensemble_members: usize,
+    /// Runs one hindcast request may make at most (API and command line).
+    pub max_hindcast_runs: u64,
 }
 
 impl ForecastConfig {
@@ -336,6 +338,7 @@ impl Default for ForecastConfig {
             max_output_values: 5_000_000,
             max_steps: 200_000,
             max_ensemble_members: 200,
+            max_hindcast_runs: 200,
         }
     }
 }
@@ -559,6 +562,7 @@ pub const KEYS: &[&str] = &[
     "forecast.max_output_values",
     "forecast.max_steps",
     "forecast.max_ensemble_members",
+    "forecast.max_hindcast_runs",
     "alerts.sender",
     "alerts.cap_status",
     "alerts.base_url",
@@ -697,6 +701,7 @@ impl Config {
             ("forecast.max_nodes", f.max_nodes, 2, 1_000_000),
             ("forecast.max_output_values", f.max_output_values, 1, u64::MAX),
             ("forecast.max_steps", f.max_steps, 1, u64::MAX),
+            ("forecast.max_hindcast_runs", f.max_hindcast_runs, 1, 100_000),
             ("retention.interval_minutes", self.retention.interval_minutes, 0, 10_080),
             ("retention.run_results_days", self.retention.run_results_days, 0, 36_500),
             ("retention.readings_days", self.retention.readings_days, 0, 36_500),

@@ -42,6 +42,9 @@ fn main() -> ExitCode {
     if let Some(Command::Backup(b)) = &cli.command {
         return run_maintenance("backup", reachcast::cli::run_backup(&b.to, &config.storage));
     }
+    if let Some(Command::Hindcast(h)) = &cli.command {
+        return run_maintenance("hindcast", reachcast::cli::run_hindcast(&config, h));
+    }
     if let Some(Command::Prune(_)) = &cli.command {
         return run_maintenance("prune", reachcast::cli::run_prune(&config));
     }

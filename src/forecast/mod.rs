@@ -13,6 +13,7 @@ pub mod document;
 pub mod ensemble;
 pub mod exceed;
 pub mod export;
+pub mod hindcast;
 pub mod hydrograph;
 pub mod inflow;
 pub mod level;

@@ -143,6 +143,44 @@ pub struct RunProvenance {
     /// The ensemble's settings and seed; `None` when it is off (and in
     /// runs made before ensembles).
     pub ensemble: Option<EnsembleProvenance>,
+    /// Set for a hindcast run: a past instant replayed as if live.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub hindcast: Option<HindcastProvenance>,
+}
+
+/// How a hindcast run was made.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct HindcastProvenance {
+    /// The past instant the run is issued for.
+    #[serde(with = "crate::wire_time")]
+    pub issued: DateTime<Utc>,
+    pub knowledge: Knowledge,
+    /// The reach version in force then was none (the reach was described
+    /// later), so its first version was used.
+    #[serde(default)]
+    pub first_version_used: bool,
+}
+
+/// What a hindcast counts as known at its issue time.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum Knowledge {
+    /// Readings timed and received by then, at the revision in force then
+    /// (a confirmation after then does not count): what the service had.
+    #[default]
+    AsReceived,
+    /// Readings timed by then, as stored now (later revisions included):
+    /// for a period from before the readings were loaded.
+    AsTimed,
+}
+
+impl Knowledge {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Knowledge::AsReceived => "as_received",
+            Knowledge::AsTimed => "as_timed",
+        }
+    }
 }
 
 /// How a run's ensemble was made.

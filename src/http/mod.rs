@@ -15,6 +15,7 @@ pub mod exceedances;
 pub mod forecast;
 pub mod gauges;
 pub mod health;
+pub mod hindcasts;
 pub mod inflow_csv;
 pub mod inflows;
 pub mod keys;
@@ -130,6 +131,7 @@ pub fn router(state: AppState) -> Router {
         .merge(profile::router())
         .merge(verification::router())
         .merge(runs::router())
+        .merge(hindcasts::router())
         .merge(exceedances::router())
         .merge(inflows::router())
         .merge(keys::router())

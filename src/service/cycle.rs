@@ -18,20 +18,37 @@ use crate::{
     forecast::{
         assemble::{self, Extrapolation, GaugeBasis, Reading, Rules},
         record::{
-            EnsembleProvenance, EnsembleRecord, RuleSettings, RunDiagnostics, RunProvenance,
-            RunStatus, StoredResults,
+            EnsembleProvenance, EnsembleRecord, HindcastProvenance, Knowledge, RuleSettings,
+            RunDiagnostics, RunProvenance, RunStatus, StoredResults,
         },
         run::{self, Adjust},
         spec::ReachSpec,
         traces::Traces,
     },
     gauge::Measures,
-    store::{ReachVersion, StoreError},
+    store::{InflowUpload, ReachVersion, StoreError},
 };
 
 /// The readings of the upstream gauge and how to turn them into
 /// discharge, or why the gauge cannot be used.
 type Observed = Result<(Vec<Reading>, GaugeBasis), String>;
+
+/// What a run is issued from: now and all the service has (a live run),
+/// or a past instant and what counted as known then (a hindcast).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(super) struct Basis {
+    pub(super) issued: DateTime<Utc>,
+    pub(super) hindcast: Option<Knowledge>,
+}
+
+impl Basis {
+    pub(super) fn live(now: DateTime<Utc>) -> Self {
+        Self {
+            issued: now,
+            hindcast: None,
+        }
+    }
+}
 
 impl Forecaster {
     pub(super) fn rules(&self) -> Rules {
@@ -75,25 +92,57 @@ impl Forecaster {
         }
     }
 
-    /// One forecast run of a reach, recorded whatever happens.
-    #[tracing::instrument(skip(self), fields(run_id))]
+    /// One forecast run of a reach, now, recorded whatever happens.
     pub(super) async fn cycle(&self, reach_id: &str) -> Result<RunSummary, CycleError> {
+        self.cycle_on(reach_id, Basis::live(Utc::now())).await
+    }
+
+    /// The reach version, its provenance and the upload a run on `basis`
+    /// starts from.
+    async fn starting_point(
+        &self,
+        reach_id: &str,
+        basis: Basis,
+    ) -> Result<(ReachVersion, RunProvenance, Option<InflowUpload>), CycleError> {
         let store = &self.inner.store;
-        let reach = store
-            .latest_reach(reach_id)
+        let missing = || CycleError::NoReach(reach_id.to_owned());
+        let Some(knowledge) = basis.hindcast else {
+            let reach = store.latest_reach(reach_id).await?.ok_or_else(missing)?;
+            let provenance = self.provenance(&reach);
+            return Ok((reach, provenance, store.newest_upload(reach_id).await?));
+        };
+        let (reach, first) = store
+            .reach_as_of(reach_id, basis.issued)
             .await?
-            .ok_or_else(|| CycleError::NoReach(reach_id.to_owned()))?;
-        let now = Utc::now();
+            .ok_or_else(missing)?;
+        let mut provenance = self.provenance(&reach);
+        provenance.hindcast = Some(HindcastProvenance {
+            issued: basis.issued,
+            knowledge,
+            first_version_used: first,
+        });
+        let upload = store.upload_as_of(reach_id, basis.issued).await?;
+        Ok((reach, provenance, upload))
+    }
+
+    /// One run of a reach issued on `basis`, recorded whatever happens.
+    #[tracing::instrument(skip(self), fields(run_id))]
+    pub(super) async fn cycle_on(
+        &self,
+        reach_id: &str,
+        basis: Basis,
+    ) -> Result<RunSummary, CycleError> {
+        let store = &self.inner.store;
+        let (reach, mut provenance, upload) = self.starting_point(reach_id, basis).await?;
+        let now = basis.issued;
         let rules = self.rules();
-        let observed = self.observed(&reach.spec, now, &rules).await?;
-        let upload = store.newest_upload(reach_id).await?;
+        let observed = self.observed(&reach.spec, basis, &rules).await?;
         let upload_input = upload.as_ref().map(|u| assemble::Upload {
             version: u.version,
             issued_at: u.uploaded_at,
             issued_by: u.uploaded_by.clone(),
             series: u.series.clone(),
         });
-        let mut provenance = self.provenance(&reach);
         let upload_id = upload.as_ref().map(|u| u.id);
         let gauge_rated = matches!(&observed, Ok((_, GaugeBasis::Stage(_))));
         let no_traces = Traces::NONE;
@@ -132,12 +181,14 @@ impl Forecaster {
             .start_run(reach_id, reach.version, upload_id, &provenance)
             .await?;
         tracing::Span::current().record("run_id", run_id);
+        // Hindcasts are deterministic: they exist to be verified.
         provenance.ensemble = EnsembleProvenance::of(
             &reach.spec.ensemble,
             self.inner.config.max_ensemble_members,
             run_id.unsigned_abs(),
             trace_names,
-        );
+        )
+        .filter(|_| basis.hindcast.is_none());
         let (this, job_reach, series) = (self.clone(), reach.clone(), assembled.series.clone());
         let joined = tokio::task::spawn_blocking(move || {
             let started = Instant::now();
@@ -189,6 +240,14 @@ impl Forecaster {
     ) -> Result<RunSummary, CycleError> {
         let store = &self.inner.store;
         let finished = store.finish_run(run_id, Ok(results), provenance).await?;
+        if provenance.hindcast.is_some() {
+            // Never the current forecast: no board, no CAP, no run metrics.
+            return Ok(RunSummary {
+                run_id,
+                status: RunStatus::Ok,
+                error: None,
+            });
+        }
         // The board is built from what was just stored, held in memory: no
         // read-back of the run's results.
         let good = GoodRun {
@@ -254,7 +313,9 @@ impl Forecaster {
         provenance: &RunProvenance,
         wall: f64,
     ) -> Result<RunSummary, CycleError> {
-        self.inner.metrics.run(reach_id, false, wall);
+        if provenance.hindcast.is_none() {
+            self.inner.metrics.run(reach_id, false, wall);
+        }
         self.inner
             .store
             .finish_run(run_id, Err(&error), provenance)
@@ -272,9 +333,10 @@ impl Forecaster {
     pub(super) async fn observed(
         &self,
         spec: &ReachSpec,
-        now: DateTime<Utc>,
+        on: Basis,
         rules: &Rules,
     ) -> Result<Observed, StoreError> {
+        let now = on.issued;
         let Some(gauge_id) = spec.service.upstream_gauge.as_deref() else {
             return Ok(Ok((Vec::new(), GaugeBasis::Discharge)));
         };
@@ -301,11 +363,14 @@ impl Forecaster {
             }
         };
         let from = now - rules.lookback - rules.max_gap;
-        let rows = self
-            .inner
-            .store
-            .readings_for_forecast(gauge_id, from.timestamp_millis(), now.timestamp_millis())
-            .await?;
+        let (from, to) = (from.timestamp_millis(), now.timestamp_millis());
+        let store = &self.inner.store;
+        let rows = match on.hindcast {
+            Some(Knowledge::AsReceived) => store.readings_known_at(gauge_id, from, to, to).await?,
+            None | Some(Knowledge::AsTimed) => {
+                store.readings_for_forecast(gauge_id, from, to).await?
+            }
+        };
         let readings = rows
             .into_iter()
             .filter_map(|r| {

@@ -229,8 +229,9 @@ impl Forecaster {
         }
     }
 
-    /// Runs a reach now (waiting for a run in progress to finish first).
-    pub async fn run_now(&self, reach_id: &str) -> Result<RunSummary, CycleError> {
+    /// The lock one reach's runs take, so they never interleave (a fresh
+    /// one, after starting the worker, for a reach without a worker yet).
+    pub(super) fn run_lock(&self, reach_id: &str) -> Arc<Mutex<()>> {
         let lock = {
             let workers = match self.inner.workers.lock() {
                 Ok(w) => w,
@@ -238,13 +239,15 @@ impl Forecaster {
             };
             workers.get(reach_id).map(|w| w.run_lock.clone())
         };
-        let lock = match lock {
-            Some(l) => l,
-            None => {
-                self.ensure_worker(reach_id);
-                Arc::new(Mutex::new(()))
-            }
-        };
+        lock.unwrap_or_else(|| {
+            self.ensure_worker(reach_id);
+            Arc::new(Mutex::new(()))
+        })
+    }
+
+    /// Runs a reach now (waiting for a run in progress to finish first).
+    pub async fn run_now(&self, reach_id: &str) -> Result<RunSummary, CycleError> {
+        let lock = self.run_lock(reach_id);
         let _guard = lock.lock().await;
         let summary = self.cycle(reach_id).await;
         self.verify(reach_id).await;

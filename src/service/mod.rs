@@ -10,6 +10,7 @@ pub mod board;
 mod cycle;
 mod ensemble;
 pub mod forecaster;
+pub mod hindcast;
 pub mod preview;
 pub mod retention;
 pub mod verifier;

@@ -69,13 +69,13 @@ impl Forecaster {
             issued_by: "preview".to_owned(),
             series: candidate.clone(),
         };
-        let assembled =
-            self.observed(&reach.spec, now, &rules)
-                .await?
-                .and_then(|(readings, basis)| {
-                    assemble::assemble(now, &readings, &basis, Some(&upload), &rules)
-                        .map_err(|e| format!("inflow: {e}"))
-                });
+        let assembled = self
+            .observed(&reach.spec, super::cycle::Basis::live(now), &rules)
+            .await?
+            .and_then(|(readings, basis)| {
+                assemble::assemble(now, &readings, &basis, Some(&upload), &rules)
+                    .map_err(|e| format!("inflow: {e}"))
+            });
         Ok(match assembled {
             Ok(a) => join_of(now, &a, candidate),
             Err(why) => JoinPreview {

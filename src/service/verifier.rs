@@ -34,7 +34,7 @@ pub async fn report(
 ) -> Result<Vec<PointVerification>, StoreError> {
     let from = now - Duration::days(i64::try_from(days).unwrap_or(3_650).min(3_650));
     let hours = store
-        .verification_hours(&reach.reach_id, from.date_naive())
+        .verification_hours(&reach.reach_id, from.date_naive(), now.date_naive())
         .await?;
     let events = store.verification_events(&reach.reach_id, from).await?;
     // Validated when the configuration loaded, so never empty here.
@@ -140,7 +140,13 @@ impl Forecaster {
         let history = self
             .inner
             .store
-            .verification_hours(&run.reach_id, (issued - window).date_naive())
+            // Up to the issue day: a hindcast's correction never rests on
+            // runs issued on later days (runs later the same day may count).
+            .verification_hours(
+                &run.reach_id,
+                (issued - window).date_naive(),
+                issued.date_naive(),
+            )
             .await?;
         let rules = cfg.correction_rules();
         let mut out = Vec::new();

@@ -196,6 +196,28 @@ impl Store {
         row.map(|r| reach_from_row(&r)).transpose()
     }
 
+    /// The version of a reach in force at `at`: the newest created by
+    /// then, else (a period before the reach was described) its first;
+    /// `true` with the first.
+    pub async fn reach_as_of(
+        &self,
+        id: &str,
+        at: DateTime<Utc>,
+    ) -> Result<Option<(ReachVersion, bool)>, StoreError> {
+        let row = sqlx::query(
+            "SELECT reach_id, version, document, created_at, created_by FROM reach_versions
+             WHERE reach_id = ?1 AND created_at <= ?2 ORDER BY version DESC LIMIT 1",
+        )
+        .bind(id)
+        .bind(crate::wire_time::format(at))
+        .fetch_optional(&self.pool)
+        .await?;
+        if let Some(r) = row {
+            return Ok(Some((reach_from_row(&r)?, false)));
+        }
+        Ok(self.reach_version(id, 1).await?.map(|v| (v, true)))
+    }
+
     /// The newest version of every reach, ordered by id.
     pub async fn reaches(&self) -> Result<Vec<ReachVersion>, StoreError> {
         let rows = sqlx::query(
@@ -336,6 +358,25 @@ impl Store {
         row.as_ref().map(upload_from_row).transpose()
     }
 
+    /// The upload in force at `at`: the newest uploaded by then and not
+    /// withdrawn by then.
+    pub async fn upload_as_of(
+        &self,
+        reach_id: &str,
+        at: DateTime<Utc>,
+    ) -> Result<Option<InflowUpload>, StoreError> {
+        let row = sqlx::query(select_uploads!(
+            "WHERE f.reach_id = ?1 AND f.uploaded_at <= ?2
+               AND (f.withdrawn = 0 OR f.withdrawn_at > ?2)
+             ORDER BY f.version DESC LIMIT 1"
+        ))
+        .bind(reach_id)
+        .bind(crate::wire_time::format(at))
+        .fetch_optional(&self.pool)
+        .await?;
+        row.as_ref().map(upload_from_row).transpose()
+    }
+
     /// Records the start of a run; returns its id.
     pub async fn start_run(
         &self,
@@ -344,19 +385,27 @@ impl Store {
         inflow_forecast_id: Option<i64>,
         provenance: &RunProvenance,
     ) -> Result<i64, StoreError> {
+        // The kind column is the one the serving queries filter on; the
+        // provenance says how a hindcast was made.
+        let kind = if provenance.hindcast.is_some() {
+            "hindcast"
+        } else {
+            "live"
+        };
         let r = async {
             let provenance = encode("run provenance", provenance)?;
             let (_guard, mut tx) = self.begin_write().await?;
             let id = sqlx::query(
             "INSERT INTO forecast_runs (reach_id, reach_version, inflow_forecast_id, started_at,
-                 status, provenance)
-             VALUES (?1, ?2, ?3, ?4, 'running', ?5)",
+                 status, provenance, kind)
+             VALUES (?1, ?2, ?3, ?4, 'running', ?5, ?6)",
         )
         .bind(reach_id)
         .bind(reach_version)
         .bind(inflow_forecast_id)
         .bind(time::now_text())
         .bind(provenance)
+        .bind(kind)
         .execute(&mut *tx)
         .await?
         .last_insert_rowid();
@@ -454,7 +503,8 @@ impl Store {
         row.as_ref().map(run_from_row).transpose()
     }
 
-    /// The newest run of a reach with the given status (`None`: any).
+    /// The newest live run of a reach with the given status (`None`:
+    /// any); hindcast runs are never the current forecast.
     pub async fn latest_run(
         &self,
         reach_id: &str,
@@ -462,7 +512,7 @@ impl Store {
     ) -> Result<Option<RunRecord>, StoreError> {
         let sql = format!(
             "SELECT {RUN_COLUMNS} FROM forecast_runs
-             WHERE reach_id = ?1 AND (?2 IS NULL OR status = ?2)
+             WHERE reach_id = ?1 AND kind = 'live' AND (?2 IS NULL OR status = ?2)
              ORDER BY id DESC LIMIT 1"
         );
         let row = sqlx::query(sqlx::AssertSqlSafe(sql))
@@ -480,7 +530,8 @@ impl Store {
         reach_id: &str,
     ) -> Result<Option<DateTime<Utc>>, StoreError> {
         let finished: Option<Option<String>> = sqlx::query_scalar(
-            "SELECT finished_at FROM forecast_runs WHERE reach_id = ?1 AND status = ?2
+            "SELECT finished_at FROM forecast_runs
+             WHERE reach_id = ?1 AND kind = 'live' AND status = ?2
              ORDER BY id DESC LIMIT 1",
         )
         .bind(reach_id)

@@ -271,6 +271,42 @@ impl Store {
         self.range(gauge_id, from_ms, to_ms, false, -1).await
     }
 
+    /// The readings of a gauge in `[from_ms, to_ms]` as they stood at
+    /// `known_ms`, oldest first: each reading received by then, at the
+    /// value in force then (the current one if received by then, else the
+    /// revision it replaced later); a confirmation given after then does
+    /// not count, so such a reading is still suspect.
+    pub async fn readings_known_at(
+        &self,
+        gauge_id: &str,
+        from_ms: i64,
+        to_ms: i64,
+        known_ms: i64,
+    ) -> Result<Vec<StoredReading>, StoreError> {
+        let rows: Vec<ReadingTuple> = sqlx::query_as(
+            "SELECT time_ms, stage_m, discharge_m3s, quality,
+                    CASE WHEN rate_check = 'confirmed' AND confirmed_at_ms > ?4
+                         THEN 'suspect' ELSE rate_check END AS rate_check,
+                    revision, received_at_ms, key_id
+             FROM readings
+             WHERE gauge_id = ?1 AND time_ms >= ?2 AND time_ms <= ?3 AND received_at_ms <= ?4
+             UNION ALL
+             SELECT time_ms, stage_m, discharge_m3s, quality, rate_check,
+                    revision, received_at_ms, key_id
+             FROM reading_revisions
+             WHERE gauge_id = ?1 AND time_ms >= ?2 AND time_ms <= ?3
+               AND received_at_ms <= ?4 AND replaced_at_ms > ?4
+             ORDER BY time_ms",
+        )
+        .bind(gauge_id)
+        .bind(from_ms)
+        .bind(to_ms)
+        .bind(known_ms)
+        .fetch_all(&self.pool)
+        .await?;
+        rows.into_iter().map(stored_from_tuple).collect()
+    }
+
     async fn range(
         &self,
         gauge_id: &str,

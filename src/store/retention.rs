@@ -140,7 +140,7 @@ impl Store {
                 "SELECT id FROM forecast_runs
                  WHERE results IS NOT NULL AND started_at < ?1
                    AND id NOT IN (SELECT MAX(id) FROM forecast_runs WHERE status = 'ok'
-                                  GROUP BY reach_id)
+                                  AND kind = 'live' GROUP BY reach_id)
                  ORDER BY id LIMIT ?2",
             )
             .bind(crate::wire_time::format(before))

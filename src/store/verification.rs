@@ -147,20 +147,24 @@ impl Store {
             .collect()
     }
 
-    /// Every stored lead-hour tally of a reach issued on or after `from`.
+    /// Every stored lead-hour tally of a reach issued from day `from` to
+    /// day `to` (both included).
     pub async fn verification_hours(
         &self,
         reach_id: &str,
         from: NaiveDate,
+        to: NaiveDate,
     ) -> Result<Vec<StoredHour>, StoreError> {
         let rows = sqlx::query(
             "SELECT poi_id, issue_day, lead_hour, runs, model, persistence, corrected,
                     correction, ensemble
-             FROM verification_hours WHERE reach_id = ?1 AND issue_day >= ?2
+             FROM verification_hours
+             WHERE reach_id = ?1 AND issue_day >= ?2 AND issue_day <= ?3
              ORDER BY poi_id, issue_day, lead_hour",
         )
         .bind(reach_id)
         .bind(from.to_string())
+        .bind(to.to_string())
         .fetch_all(&self.pool)
         .await?;
         rows.iter().map(hour_from_row).collect()

@@ -22,6 +22,7 @@ mod engine_sections;
 mod faults;
 mod forecast_cycle;
 mod foundation;
+mod hindcast;
 mod inflow_traces;
 mod ingest;
 mod metrics;

@@ -49,6 +49,7 @@ const ROUTES: &[(&str, &str)] = &[
     ("GET", "/api/reaches/{reach}/verification"),
     ("GET", "/api/reaches/{reach}/runs"),
     ("POST", "/api/reaches/{reach}/runs"),
+    ("POST", "/api/reaches/{reach}/hindcasts"),
     ("GET", "/api/runs/{id}"),
     ("GET", "/api/exceedances"),
     ("GET", "/api/reaches/{reach}/inflows"),
