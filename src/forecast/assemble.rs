@@ -83,7 +83,7 @@ use chrono::{DateTime, Duration, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::hydrograph::Hydrograph;
-use crate::engine::rating::{RatingCurve, RatingError};
+use crate::{engine::rating::RatingError, gauge::ratings::Ratings};
 
 /// Relative difference between the last observation and the upload where
 /// they meet above which the provenance warns (fraction of the larger value).
@@ -126,8 +126,9 @@ pub struct Reading {
 pub enum GaugeBasis {
     /// Use the readings' discharge values.
     Discharge,
-    /// Convert the readings' stages with this rating.
-    Stage(RatingCurve),
+    /// Convert the readings' stages with the rating valid at each
+    /// reading's time (versions and shifts).
+    Stage(Ratings),
 }
 
 /// A forecaster's uploaded inflow forecast (the newest non-withdrawn one;
@@ -488,7 +489,9 @@ fn discharge_of(r: &Reading, basis: &GaugeBasis) -> Result<f64, String> {
             (None, None) => return Err("no discharge value".to_owned()),
         },
         GaugeBasis::Stage(rating) => match r.stage {
-            Some(h) => rating.discharge(h).map_err(|e| format!("rating: {e}"))?,
+            Some(h) => rating
+                .discharge(r.time, h)
+                .map_err(|e| format!("rating: {e}"))?,
             None => return Err("no stage value, and the gauge basis is stage".to_owned()),
         },
     };
@@ -909,6 +912,7 @@ fn check_output(series: Vec<Sample>) -> Result<Hydrograph, AssembleError> {
 mod tests {
     use super::*;
     use crate::engine::rating::PowerSegment;
+    use crate::engine::rating::RatingCurve;
     use chrono::TimeZone;
 
     fn now() -> DateTime<Utc> {
@@ -1185,7 +1189,7 @@ mod tests {
     #[test]
     fn stage_is_converted_with_a_power_rating() {
         let r = rules(Extrapolation::Persistence);
-        let basis = GaugeBasis::Stage(power_rating());
+        let basis = GaugeBasis::Stage(power_rating().into());
         let readings = [
             stage(-30, 0.4), // below e: zero flow
             stage(-15, 2.5),
@@ -1213,9 +1217,9 @@ mod tests {
         assert_eq!(a.provenance.observed_from, Some(at(-15)));
         assert!(has_warning(&a, "stage only"));
         // A rating error (stage outside a table) and bad values.
-        let table = GaugeBasis::Stage(RatingCurve::Table {
+        let table = GaugeBasis::Stage(Ratings::from(RatingCurve::Table {
             points: vec![[1.0, 0.0], [3.0, 100.0]],
-        });
+        }));
         let readings = [
             stage(-45, 5.0),
             stage(-30, f64::NAN),
@@ -1234,9 +1238,9 @@ mod tests {
 
     #[test]
     fn invalid_rating_is_an_error_naming_the_field() {
-        let basis = GaugeBasis::Stage(RatingCurve::Power {
+        let basis = GaugeBasis::Stage(Ratings::from(RatingCurve::Power {
             segments: Vec::new(),
-        });
+        }));
         let e = assemble(
             now(),
             &[stage(0, 1.0)],
@@ -1632,7 +1636,7 @@ mod tests {
             let basis = if g.int(0, 1) == 0 {
                 GaugeBasis::Discharge
             } else {
-                GaugeBasis::Stage(power_rating())
+                GaugeBasis::Stage(power_rating().into())
             };
             let n = g.int(0, 40);
             let readings: Vec<Reading> = (0..n)

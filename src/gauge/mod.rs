@@ -24,6 +24,7 @@
 //! assert_eq!(bad.check().unwrap_err().field, "stage_max_m");
 //! ```
 
+pub mod ratings;
 pub mod readings;
 
 use chrono::{DateTime, Utc};

@@ -350,7 +350,7 @@ impl Forecaster {
             .map(|r| r.validate().map(|()| r));
         let basis = match (gauge.spec.measures, rating) {
             (Measures::Discharge, _) | (Measures::Both, None) => GaugeBasis::Discharge,
-            (_, Some(Ok(r))) => GaugeBasis::Stage(r),
+            (_, Some(Ok(r))) => GaugeBasis::Stage(r.into()),
             (_, Some(Err(e))) => {
                 return Ok(Err(format!(
                     "rating curve of gauge `{gauge_id}` is invalid: {e}"
