@@ -17,6 +17,7 @@ use crate::engine::rating::{PowerFit, RatingCurve, RatingError, fit_power_segmen
 
 /// One discharge measurement at a gauge.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct Gauging {
     #[serde(with = "crate::wire_time")]
     pub time: DateTime<Utc>,
@@ -49,10 +50,11 @@ pub struct RatingVersion {
 
 /// A gauge-height offset (m) added to stages read in `[from, to)`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct Shift {
     #[serde(with = "crate::wire_time")]
     pub from: DateTime<Utc>,
-    #[serde(with = "crate::wire_time::option")]
+    #[serde(default, with = "crate::wire_time::option")]
     pub to: Option<DateTime<Utc>>,
     pub offset_m: f64,
     pub reason: String,

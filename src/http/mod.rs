@@ -24,6 +24,7 @@ pub mod metrics;
 pub mod openapi;
 pub mod profile;
 pub mod query;
+pub mod ratings;
 pub mod reaches;
 pub mod readings;
 pub mod runs;
@@ -126,6 +127,7 @@ pub fn router(state: AppState) -> Router {
     let api = Router::new()
         .merge(gauges::router())
         .merge(readings::router())
+        .merge(ratings::router())
         .merge(reaches::router())
         .merge(forecast::router())
         .merge(profile::router())

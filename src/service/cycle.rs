@@ -343,14 +343,17 @@ impl Forecaster {
         let Some(gauge) = self.inner.store.gauge(gauge_id).await? else {
             return Ok(Err(format!("upstream gauge `{gauge_id}` does not exist")));
         };
-        let rating = gauge
-            .spec
-            .rating_curve
-            .clone()
-            .map(|r| r.validate().map(|()| r));
+        // The gauge's own curve and its versions and shifts; each reading
+        // is converted with the one valid at its time.
+        let ratings = self
+            .inner
+            .store
+            .ratings(gauge_id, gauge.spec.rating_curve.clone())
+            .await?;
+        let rating = (!ratings.is_empty()).then(|| ratings.validate().map(|()| ratings));
         let basis = match (gauge.spec.measures, rating) {
             (Measures::Discharge, _) | (Measures::Both, None) => GaugeBasis::Discharge,
-            (_, Some(Ok(r))) => GaugeBasis::Stage(r.into()),
+            (_, Some(Ok(r))) => GaugeBasis::Stage(r),
             (_, Some(Err(e))) => {
                 return Ok(Err(format!(
                     "rating curve of gauge `{gauge_id}` is invalid: {e}"

@@ -28,6 +28,7 @@ mod forecasts;
 pub use forecasts::{InflowUpload, ReachVersion};
 mod gauges;
 mod keys;
+mod ratings;
 mod readings;
 mod retention;
 mod time;

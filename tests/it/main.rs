@@ -28,6 +28,7 @@ mod ingest;
 mod metrics;
 mod openapi;
 mod panel;
+mod ratings;
 mod retention;
 mod route_command;
 pub mod verification;
