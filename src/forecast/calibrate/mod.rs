@@ -306,7 +306,8 @@ fn fit(
 }
 
 fn rounded(m: RoughnessMultipliers) -> RoughnessMultipliers {
-    let r = |x: f64| (x / TOLERANCE).round() * TOLERANCE;
+    // Divided, not multiplied by TOLERANCE, so 0.83 prints as 0.83.
+    let r = |x: f64| (x / TOLERANCE).round() / TOLERANCE.recip();
     RoughnessMultipliers {
         channel: r(m.channel),
         floodplain: r(m.floodplain),
