@@ -8,6 +8,7 @@
 pub mod assets;
 pub mod auth;
 pub mod cache;
+pub mod calibration;
 pub mod cap;
 pub mod conditional;
 pub mod error;
@@ -128,6 +129,7 @@ pub fn router(state: AppState) -> Router {
         .merge(forecast::router())
         .merge(profile::router())
         .merge(runs::router())
+        .merge(calibration::router())
         .merge(exceedances::router())
         .merge(inflows::router())
         .merge(keys::router())

@@ -23,6 +23,7 @@ pub mod window;
 mod tests;
 
 use chrono::{DateTime, Utc};
+use serde::Serialize;
 
 use crate::engine::section::SectionGeometry;
 
@@ -66,7 +67,8 @@ pub struct Problem<'a> {
 }
 
 /// Which multipliers were fitted.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
 pub enum Fitted {
     /// Channel and floodplain, each its own.
     Separately,
@@ -75,7 +77,7 @@ pub enum Fitted {
 }
 
 /// Scores of one set of multipliers on one window.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Skill {
     pub pairs: usize,
     pub rmse: Option<f64>,
@@ -83,7 +85,7 @@ pub struct Skill {
 }
 
 /// One set of multipliers and its scores on both windows.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Scored {
     pub multipliers: RoughnessMultipliers,
     pub fit: Skill,
@@ -91,7 +93,7 @@ pub struct Scored {
 }
 
 /// A calibration's result: a proposal for a forecaster to review.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Calibration {
     pub point: String,
     pub fit_window: Window,

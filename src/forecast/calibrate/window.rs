@@ -4,9 +4,11 @@
 use chrono::{DateTime, Utc};
 
 /// `from ..= to`, `from` before `to`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
 pub struct Window {
+    #[serde(with = "crate::wire_time")]
     pub from: DateTime<Utc>,
+    #[serde(with = "crate::wire_time")]
     pub to: DateTime<Utc>,
 }
 
