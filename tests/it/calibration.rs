@@ -118,12 +118,27 @@ async fn the_endpoint_recovers_a_known_multiplier_and_applies_nothing() {
     assert_eq!(v["proposed"]["roughness"]["channel"].as_f64(), Some(got));
     assert_eq!(v["applied"], false);
 
-    // Nothing applied: the stored reach carries no multipliers.
+    // Nothing applied yet: the stored reach carries no multipliers.
     let (status, stored) = s.app.get_json(&format!("/api/reaches/{REACH}")).await;
     assert_eq!(status, 200);
-    assert!(stored.to_string().find("roughness").is_none(), "{stored}");
+    assert!(!stored.to_string().contains("roughness"), "{stored}");
 
-    // A point without a gauge, or overlapping windows: 422.
+    // Applied by an admin's PUT, the proposal is a new reach version, and
+    // a run on it records the multipliers it used.
+    let put = s.app.put_reach(&s.keys.admin, REACH, &v["proposed"]).await;
+    assert_success(put).await;
+    let run = json_of(s.app.run_and_wait(&s.keys.forecaster, REACH).await, 200).await;
+    let (status, detail) = s
+        .app
+        .get_json(&format!("/api/runs/{}", run["run_id"]))
+        .await;
+    assert_eq!(status, 200);
+    let p = &detail["provenance"];
+    assert_eq!(p["roughness"]["channel"].as_f64(), Some(got), "{p}");
+    assert_eq!(p["roughness"]["floodplain"].as_f64(), Some(1.0));
+    assert!(p["reach_version"].as_i64() > v["reach_version"].as_i64());
+
+    // Overlapping windows: 422.
     let overlapping = json!({"point": "cal-bridge", "fit": body["fit"], "held_out": body["fit"]});
     let a = s
         .app
