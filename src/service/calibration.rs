@@ -8,6 +8,7 @@ use chrono::{DateTime, Duration, Utc};
 use super::{CycleError, Forecaster};
 use crate::forecast::{
     assemble::{self, Rules},
+    budget,
     calibrate::{self, Calibration, window::Window},
     spec::ReachSpec,
 };
@@ -55,6 +56,12 @@ impl Forecaster {
         };
         let from = req.fit.from.min(req.held_out.from) - WARM_UP;
         let to = req.fit.to.max(req.held_out.to);
+        // Each of the fit's routings must fit the budgets a forecast run
+        // does (the fit makes at most about eighty of them).
+        let span_s = (to - from).num_seconds() as f64;
+        if let Err(e) = budget::admit(&spec, &self.inner.config.budget(), span_s) {
+            return Ok(Err(format!("the windows are too long to route: {e}")));
+        }
         let observed = self.observed_stage(&gauge, from, to).await?;
         let inflow = match self.past_inflow(&spec, from, to).await? {
             Ok(i) => i,

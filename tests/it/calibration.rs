@@ -145,5 +145,13 @@ async fn the_endpoint_recovers_a_known_multiplier_and_applies_nothing() {
         .post_json(&s.keys.forecaster, &url, &overlapping)
         .await;
     assert_eq!(a.status(), 422);
+    // Windows whose routings would exceed the forecast budgets: 422.
+    let ten_years = Duration::days(3650);
+    let long = json!({"point": "cal-bridge", "held_out": body["held_out"],
+                      "fit": window(now - ten_years, now - Duration::hours(26))});
+    let a = s.app.post_json(&s.keys.forecaster, &url, &long).await;
+    let problem = json_of(a, 422).await;
+    let detail = problem["detail"].as_str().unwrap_or_default();
+    assert!(detail.contains("too long"), "{problem}");
     s.app.stop().await;
 }
