@@ -67,7 +67,7 @@ pub fn summary(c: &Calibration) -> String {
     let _ = writeln!(out, "{} routing runs.", c.evaluations);
     out.push_str(
         "A proposal, not applied: review it, then PUT the proposed reach description to \
-         /api/reaches/{id} (a new, audited reach version). Advisory model output only: \
+         /api/reaches/{id} with an admin key (a new, audited reach version). Advisory model output only: \
          follow official warnings, local codes and licensed practice.\n",
     );
     out
