@@ -47,6 +47,13 @@ pub enum Command {
     /// For what-if runs and checks; uses no database. See the README for
     /// the REACH.json and INFLOW.csv formats.
     Route(RouteArgs),
+    /// Fit the reach's Manning's n multipliers (channel, floodplain) to the
+    /// observed stage at one point, offline, and report the skill before
+    /// and after on a fit window and a held-out window.
+    ///
+    /// Writes a proposal (the reach description with the multipliers) for a
+    /// forecaster to review and apply with PUT; applies nothing itself.
+    Calibrate(CalibrateArgs),
     /// Manage API keys in the database of the data directory.
     Keys(KeysArgs),
     /// Write a consistent copy of the database to a new file, while the
@@ -278,6 +285,40 @@ pub struct RouteArgs {
 }
 
 #[derive(Debug, Args, Clone)]
+pub struct CalibrateArgs {
+    /// Reach description (JSON), as for `route`.
+    #[arg(long, value_name = "REACH.json")]
+    pub reach: PathBuf,
+    /// Upstream inflow (CSV `time,discharge`) covering both windows and a
+    /// warm-up before them.
+    #[arg(long, value_name = "INFLOW.csv")]
+    pub inflow: PathBuf,
+    /// Observed stage at the point (CSV `time,stage`; RFC 3339 times with
+    /// offset; m).
+    #[arg(long, value_name = "OBSERVED.csv")]
+    pub observed: PathBuf,
+    /// The point of interest's id.
+    #[arg(long, value_name = "ID")]
+    pub point: String,
+    /// The window fitted to: FROM/TO, two RFC 3339 times.
+    #[arg(long, value_name = "FROM/TO")]
+    pub fit: crate::forecast::calibrate::window::Window,
+    /// The window scored but never fitted to: FROM/TO; must not overlap
+    /// the fit window.
+    #[arg(long, value_name = "FROM/TO")]
+    pub held_out: crate::forecast::calibrate::window::Window,
+    /// Smallest multiplier tried.
+    #[arg(long, value_name = "X", default_value_t = 0.5)]
+    pub lower: f64,
+    /// Largest multiplier tried.
+    #[arg(long, value_name = "X", default_value_t = 2.0)]
+    pub upper: f64,
+    /// Write the proposed reach description (JSON) here.
+    #[arg(long, value_name = "PROPOSED.json")]
+    pub out: Option<PathBuf>,
+}
+
+#[derive(Debug, Args, Clone)]
 pub struct KeysArgs {
     /// Folder of the SQLite database [overrides storage.data_dir].
     #[arg(long, value_name = "DIR", global = true)]
@@ -398,7 +439,7 @@ impl Cli {
                 data_dir: k.data_dir.clone(),
             },
             None => self.serve.clone(),
-            Some(Command::Route(_)) => self.serve.clone(),
+            Some(Command::Route(_) | Command::Calibrate(_)) => self.serve.clone(),
             Some(Command::Backup(b)) => ServeArgs {
                 bind: None,
                 data_dir: b.data_dir.clone(),
@@ -462,6 +503,37 @@ mod tests {
                 "fast"
             ])
             .is_err()
+        );
+    }
+
+    #[test]
+    fn calibrate_takes_files_and_windows() {
+        let args = |held: &str| {
+            Cli::try_parse_from([
+                "reachcast",
+                "calibrate",
+                "--reach",
+                "r.json",
+                "--inflow",
+                "i.csv",
+                "--observed",
+                "o.csv",
+                "--point",
+                "mill",
+                "--fit",
+                "2026-03-14T00:00:00Z/2026-03-15T00:00:00Z",
+                "--held-out",
+                held,
+            ])
+        };
+        let c = args("2026-03-15T01:00:00Z/2026-03-16T00:00:00Z").expect("parse");
+        let Some(Command::Calibrate(a)) = c.command else {
+            panic!("calibrate expected");
+        };
+        assert_eq!((a.point.as_str(), a.lower, a.upper), ("mill", 0.5, 2.0));
+        assert!(
+            args("2026-03-15T01:00:00Z").is_err(),
+            "a window needs two ends"
         );
     }
 

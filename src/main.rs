@@ -22,6 +22,18 @@ fn main() -> ExitCode {
             }
         };
     }
+    if let Some(Command::Calibrate(args)) = &cli.command {
+        return match reachcast::offline::calibrate(args) {
+            Ok(summary) => {
+                print!("{summary}");
+                ExitCode::SUCCESS
+            }
+            Err(e) => {
+                eprintln!("reachcast calibrate: {e:#}");
+                ExitCode::from(2)
+            }
+        };
+    }
     let args = cli.serve_args();
     let overrides = Overrides {
         bind: args.bind,

@@ -6,8 +6,9 @@ use std::time::Instant;
 use anyhow::Context;
 
 use crate::{
-    cli::RouteArgs,
+    cli::{CalibrateArgs, RouteArgs},
     forecast::{
+        calibrate,
         ensemble::{
             EnsembleInput, EnsembleSpec, perturb::RatedInflow, run_ensemble, spec::member_count,
             summary::EnsembleSummary,
@@ -55,6 +56,46 @@ pub fn route(args: &RouteArgs) -> anyhow::Result<String> {
         text.push_str(&report::ensemble(&out, e, &spec.ensemble));
     }
     Ok(text)
+}
+
+/// Runs `reachcast calibrate`; returns the summary text and writes the
+/// proposal where `--out` says.
+pub fn calibrate(args: &CalibrateArgs) -> anyhow::Result<String> {
+    let spec = read_reach(&args.reach)?;
+    let inflow_text = std::fs::read(&args.inflow)
+        .with_context(|| format!("reading {}", args.inflow.display()))?;
+    let inflow =
+        inflow::parse_csv(&inflow_text).with_context(|| format!("in {}", args.inflow.display()))?;
+    let observed_text = std::fs::read(&args.observed)
+        .with_context(|| format!("reading {}", args.observed.display()))?;
+    let observed = calibrate::observed::parse_csv(&observed_text)
+        .with_context(|| format!("in {}", args.observed.display()))?;
+    let problem = calibrate::Problem {
+        spec: &spec,
+        inflow: &inflow.series,
+        observed: &observed,
+        point: &args.point,
+        fit: args.fit,
+        held_out: args.held_out,
+        bounds: (args.lower, args.upper),
+    };
+    let result = calibrate::calibrate(&problem)?;
+    let mut text = calibrate::report::summary(&result);
+    if let Some(path) = &args.out {
+        let json = serde_json::to_string_pretty(&result.proposed)?;
+        std::fs::write(path, json + "\n").with_context(|| format!("writing {}", path.display()))?;
+        text.push_str(&format!(
+            "proposed reach description written to {}\n",
+            path.display()
+        ));
+    }
+    Ok(text)
+}
+
+fn read_reach(path: &std::path::Path) -> anyhow::Result<ReachSpec> {
+    let text =
+        std::fs::read_to_string(path).with_context(|| format!("reading {}", path.display()))?;
+    ReachSpec::from_json(&text).with_context(|| format!("in {}", path.display()))
 }
 
 /// The ensemble of an offline run: the reach's spreads, `members` members

@@ -7,6 +7,7 @@
 
 pub mod assemble;
 pub mod budget;
+pub mod calibrate;
 pub mod cap;
 pub mod digest;
 pub mod document;
@@ -19,6 +20,7 @@ pub mod inflow;
 pub mod level;
 pub mod levels;
 pub mod levels_csv;
+pub mod multipliers;
 pub mod profile;
 pub mod record;
 pub mod report;

@@ -14,6 +14,7 @@ use super::{
     assemble,
     digest::ResultsDigest,
     ensemble::{EnsembleSpec, spec::member_count, summary::EnsembleSummary},
+    multipliers::RoughnessMultipliers,
     profile::StoredProfile,
     run::{PointForecast, RunOutput},
     spec::{Method, RoutingSpec},
@@ -131,6 +132,9 @@ pub struct RunProvenance {
     pub method: Method,
     pub routing: RoutingSpec,
     pub upstream_gauge: Option<String>,
+    /// The Manning's n multipliers of the reach version routed (1 and 1
+    /// when it carries none, and in runs made before calibration).
+    pub roughness: RoughnessMultipliers,
     pub rules: RuleSettings,
     /// The reachcast version that made the run.
     pub engine_version: String,

@@ -94,7 +94,7 @@ pub struct RunOutput {
 /// Builds the computational nodes of a reach (validated).
 pub fn nodes_for(spec: &ReachSpec) -> Result<Vec<Node>, RunError> {
     spec.validate()?;
-    build_nodes(&spec.sections, spec.max_node_spacing)
+    build_nodes(&spec.roughness.apply(&spec.sections), spec.max_node_spacing)
         .map_err(|e| RunError::Spec(SpecError::new("sections", e.to_string())))
 }
 

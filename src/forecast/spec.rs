@@ -12,6 +12,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::engine::{rating::RatingCurve, section::CrossSection};
 use crate::forecast::ensemble::EnsembleSpec;
+use crate::forecast::multipliers::RoughnessMultipliers;
 use crate::gauge::{slug_of, valid_slug};
 
 /// A reach: surveyed sections, the downstream boundary, tributaries and the
@@ -46,6 +47,10 @@ pub struct ReachSpec {
     /// How the service uses the reach (ignored by the offline command).
     #[serde(default)]
     pub service: ServiceSpec,
+    /// Calibrated factors on Manning's n (`reachcast calibrate` proposes
+    /// them); omitted when both are 1.
+    #[serde(default, skip_serializing_if = "RoughnessMultipliers::is_identity")]
+    pub roughness: RoughnessMultipliers,
 }
 
 /// Units a reach is displayed in. Storage and computation are always SI.
@@ -428,6 +433,7 @@ impl ReachSpec {
             ));
         }
         self.ensemble.validate()?;
+        self.roughness.validate("roughness")?;
         self.routing.validate()
     }
 }

@@ -8,6 +8,7 @@
 pub mod assets;
 pub mod auth;
 pub mod cache;
+pub mod calibration;
 pub mod cap;
 pub mod conditional;
 pub mod error;
@@ -134,6 +135,7 @@ pub fn router(state: AppState) -> Router {
         .merge(verification::router())
         .merge(runs::router())
         .merge(hindcasts::router())
+        .merge(calibration::router())
         .merge(exceedances::router())
         .merge(inflows::router())
         .merge(keys::router())

@@ -40,6 +40,9 @@ pub fn router() -> Router<AppState> {
 /// Gaugings one request may carry at most.
 const MAX_GAUGINGS: usize = 10_000;
 
+/// Gaugings one fit takes at most (a rating is fitted from tens).
+const MAX_FITTED: usize = 2_000;
+
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct GaugingsBody {
@@ -229,7 +232,19 @@ async fn fit(
         .filter(|g| b.from.is_none_or(|f| g.time >= f) && b.to.is_none_or(|t| g.time <= t))
         .filter(|g| !(b.exclude_poor && g.quality == GaugingQuality::Poor))
         .collect();
-    let report = ratings::fit(&chosen).map_err(|e| Problem::invalid("gaugings", e.to_string()))?;
+    if chosen.len() > MAX_FITTED {
+        let m = format!(
+            "{} gaugings chosen; a fit takes at most {MAX_FITTED}: narrow the window",
+            chosen.len()
+        );
+        return Err(Problem::invalid("from", m).into());
+    }
+    // The fit solves a least-squares problem per trial zero-flow stage:
+    // off the async runtime, like routing.
+    let (report, chosen) = tokio::task::spawn_blocking(move || (ratings::fit(&chosen), chosen))
+        .await
+        .map_err(|e| ApiError::Internal(anyhow::anyhow!("rating fit task failed: {e}")))?;
+    let report = report.map_err(|e| Problem::invalid("gaugings", e.to_string()))?;
     Ok(Json(FitAnswer {
         gauge: id,
         gaugings: chosen

@@ -80,6 +80,7 @@ impl Forecaster {
             method: reach.spec.routing.method,
             routing: reach.spec.routing.clone(),
             upstream_gauge: reach.spec.service.upstream_gauge.clone(),
+            roughness: reach.spec.roughness,
             rules: RuleSettings {
                 lookback_hours: c.lookback_hours,
                 horizon_hours: c.horizon_hours,

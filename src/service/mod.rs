@@ -7,6 +7,7 @@
 pub mod alerts;
 pub mod backups;
 pub mod board;
+pub mod calibration;
 mod cycle;
 mod ensemble;
 pub mod forecaster;

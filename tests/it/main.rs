@@ -9,6 +9,8 @@ mod common;
 
 mod backup;
 mod bridge_levels;
+mod calibrate_command;
+mod calibration;
 mod cap_reference;
 mod cap_service;
 mod cli_keys;

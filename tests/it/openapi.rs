@@ -56,6 +56,7 @@ const ROUTES: &[(&str, &str)] = &[
     ("GET", "/api/reaches/{reach}/runs"),
     ("POST", "/api/reaches/{reach}/runs"),
     ("POST", "/api/reaches/{reach}/hindcasts"),
+    ("POST", "/api/reaches/{reach}/calibration"),
     ("GET", "/api/runs/{id}"),
     ("GET", "/api/exceedances"),
     ("GET", "/api/reaches/{reach}/inflows"),
