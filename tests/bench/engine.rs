@@ -615,6 +615,23 @@ fn network_part(nodes: &[Node], chainage: &[f64], single_ms: f64) {
             r.balance.error_pct,
             median * 1e3 / single_ms
         );
+        // The steady start alone: a run whose only output is the start.
+        let start_only = NetworkProblem {
+            output_times: vec![0.0],
+            ..p.clone()
+        };
+        let mut start_times: Vec<f64> = (0..RUNS)
+            .map(|_| {
+                let t = Instant::now();
+                network::route_network(&start_only).expect("steady start succeeds");
+                t.elapsed().as_secs_f64()
+            })
+            .collect();
+        start_times.sort_by(f64::total_cmp);
+        println!(
+            "  of which the steady start (pseudo-time stepping): median {:.1} ms",
+            start_times[RUNS / 2] * 1e3
+        );
         if label == "chain" {
             // The chain is the single-channel problem: same stages.
             let offsets = [0usize, 200, 300];
