@@ -13,7 +13,7 @@ use crate::engine::test_sections::Rect;
 
 /// `copies` identical rectangles side by side: areas, widths, perimeter
 /// and conveyance all multiply by `copies` (the composite conveyance of
-/// sub-sections is their sum, Chow 1959, Open-Channel Hydraulics, §6-6;
+/// sub-sections is their sum, Chow 1959, Open-Channel Hydraulics,
 /// from memory).
 struct Copies {
     rect: Rect,
