@@ -768,3 +768,77 @@ fn malformed_networks_are_refused() {
         }))
     ));
 }
+
+/// A run restarted from its own saved state at 6 h ends where the whole
+/// run ends (a restart must not lose or invent water; the two take
+/// different step sequences, so they agree to the scheme's accuracy, as
+/// the single-channel hot-start check allows).
+#[test]
+fn hot_start_continues_a_network_run() {
+    let (xu, xa, xb, xd) = (
+        chainage(0.0, 1000.0, 100.0),
+        chainage(1000.0, 3000.0, 100.0),
+        chainage(1000.0, 5000.0, 200.0),
+        chainage(3000.0, 5000.0, 100.0),
+    );
+    let up = rects(&xu, (21.0, 20.0), 20.0, 0.03, 1.0);
+    let a = rects(&xa, (20.0, 18.0), 10.0, 0.03, 1.0);
+    let b = rects(&xb, (20.5, 18.5), 10.0, 0.05, 1.0);
+    let down = rects(&xd, (18.0, 16.0), 20.0, 0.03, 1.0);
+    let inflow = flood(5.0, 90.0, 4.0 * 3600.0, 12.0 * 3600.0);
+    let mut p = network_problem(
+        vec![
+            channel(
+                "upper",
+                Reach::new(&xu, &up).expect("valid"),
+                UpstreamEnd::Inflow(inflow),
+                DownstreamEnd::Junction(0),
+            ),
+            channel(
+                "short",
+                Reach::new(&xa, &a).expect("valid"),
+                UpstreamEnd::Junction(0),
+                DownstreamEnd::Junction(1),
+            ),
+            channel(
+                "long",
+                Reach::new(&xb, &b).expect("valid"),
+                UpstreamEnd::Junction(0),
+                DownstreamEnd::Junction(1),
+            ),
+            channel(
+                "lower",
+                Reach::new(&xd, &down).expect("valid"),
+                UpstreamEnd::Junction(1),
+                DownstreamEnd::Outlet,
+            ),
+        ],
+        DownstreamBoundary::NormalDepth {
+            friction_slope: 1e-3,
+        },
+        vec![12.0 * 3600.0],
+    );
+    let full = route_network(&p).expect("whole run");
+    p.output_times = vec![6.0 * 3600.0];
+    let first = route_network(&p).expect("first half");
+    p.initial = NetworkInitial::Hot(first.final_state.clone());
+    p.start_time = 6.0 * 3600.0;
+    p.output_times = vec![12.0 * 3600.0];
+    let second = route_network(&p).expect("second half");
+    let mut worst = 0.0_f64;
+    for (a, b) in second
+        .final_state
+        .iter()
+        .flatten()
+        .zip(full.final_state.iter().flatten())
+    {
+        worst = worst.max((a - b).abs());
+    }
+    assert!(worst < 0.03, "restart differs by {worst} m");
+    // A hot start of the wrong shape is refused.
+    p.initial = NetworkInitial::Hot(vec![vec![20.0; 3]]);
+    assert!(matches!(
+        route_network(&p),
+        Err(NetworkError::Routing(RoutingError::LengthMismatch { .. }))
+    ));
+}
