@@ -44,9 +44,11 @@
 //! `topology` (channels, ends, junctions and their checks), `layout`
 //! (which unknown each node's stage is), `work` (arrays, balances, the
 //! Newton system), `bordered` (its solve), `newton` (one step), `problem`
-//! (inputs and forcing), `initial` (hot or steady start), `result`.
+//! (inputs and forcing), `initial` (hot or steady start), `result`,
+//! `description` (a network as serde data, built into nodes).
 
 pub mod bordered;
+mod description;
 mod initial;
 mod layout;
 mod newton;
@@ -57,6 +59,10 @@ mod tests;
 mod topology;
 mod work;
 
+pub use description::{
+    BuiltChannel, BuiltNetwork, ChannelDescription, DescriptionError, DownstreamDescription,
+    NetworkDescription, UpstreamDescription,
+};
 pub use problem::{NetworkInitial, NetworkProblem};
 pub use result::{ChannelOutput, JunctionEnd, NetworkBalance, NetworkResult};
 pub use topology::{Channel, DownstreamEnd, Network, NetworkError, UpstreamEnd};
