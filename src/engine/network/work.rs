@@ -202,6 +202,16 @@ pub(super) fn assemble(
         for f in f0..lay.face_offset[ci + 1] {
             let g = g0 + (f - f0);
             let (da, db) = (dtt * w.dq_a[f], dtt * w.dq_b[f]);
+            // Most faces join two own nodes: their four entries go
+            // straight into the tridiagonal block.
+            if let (Slot::Own(k), Slot::Own(_)) = (lay.slot[g], lay.slot[g + 1]) {
+                let sys = &mut w.sys;
+                sys.diag[k] += da;
+                sys.upper[k] += db;
+                sys.lower[k + 1] -= da;
+                sys.diag[k + 1] -= db;
+                continue;
+            }
             add(&mut w.sys, lay, ci, g, g, da);
             add(&mut w.sys, lay, ci, g, g + 1, db);
             add(&mut w.sys, lay, ci, g + 1, g, -da);
