@@ -23,6 +23,7 @@ pub mod diagnostics;
 pub mod diffusive;
 pub mod kinematic;
 pub mod manning;
+pub mod network;
 pub mod rating;
 mod roots;
 pub mod roughness;

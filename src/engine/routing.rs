@@ -292,7 +292,7 @@ pub(crate) fn check_run_inputs(
 }
 
 /// Check the output times against the start time.
-fn validate_output_times(start: f64, times: &[f64]) -> Result<(), RoutingError> {
+pub(crate) fn validate_output_times(start: f64, times: &[f64]) -> Result<(), RoutingError> {
     if !start.is_finite() {
         return Err(RoutingError::NonFinite {
             what: "start time",
@@ -319,7 +319,10 @@ fn validate_output_times(start: f64, times: &[f64]) -> Result<(), RoutingError> 
 }
 
 /// Reject negative inflow samples (a `Series` is already finite).
-fn validate_inflow(series: &Series, what: impl Fn() -> String) -> Result<(), RoutingError> {
+pub(crate) fn validate_inflow(
+    series: &Series,
+    what: impl Fn() -> String,
+) -> Result<(), RoutingError> {
     for (&time, &value) in series.times().iter().zip(series.values()) {
         if value < 0.0 {
             return Err(RoutingError::NegativeInflow {

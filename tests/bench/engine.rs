@@ -31,6 +31,12 @@
 //!   run_ensemble`: Latin hypercube design, `run_prepared` per member on
 //!   rayon's pool, summary), peak scaled 0.7–1.3, timing shifted up to
 //!   ±3 h, Manning's n by the default spread; wall and on-CPU time.
+//! * `network`: the network solver (`engine::network`) on networks of the
+//!   bench reach's size: the reach cut into a chain of three channels
+//!   (checked against the single-channel run) and the same with a 101-node
+//!   floodplain path forming a loop, wall time beside the single-channel
+//!   median; then the loop's linear solve alone, bordered elimination
+//!   against a dense LU of the same matrix.
 //!
 //! Figures and what limits them: README.md, "Performance".
 
@@ -44,6 +50,10 @@ use chrono::{DateTime, Duration};
 use reachcast::engine::{
     diffusive::{
         self, DownstreamBoundary, InitialState, Options, Problem, Reach, RoutingResult, TimeScheme,
+    },
+    network::{
+        self, Channel, DownstreamEnd, Network, NetworkInitial, NetworkProblem, UpstreamEnd,
+        bordered::{Block, Bordered},
     },
     section::{CrossSection, Node, SectionGeometry, build_nodes},
     series::Series,
@@ -500,9 +510,256 @@ fn schemes(reach: Reach<'_, Node>) {
     }
 }
 
+/// The benchmark reach as a network of its own size, solved by the
+/// network solver: (a) the 501-node reach cut into three channels at
+/// 20 km and 30 km (a chain: the network solver's overhead on the
+/// single-channel problem, whose results it must reproduce), and (b) the
+/// same with a 12 km floodplain path from 20 km to 30 km (101 nodes,
+/// 120 m spacing, a wide shallow trapezoid whose bed lies at the channel's
+/// bank tops, so it only flows once the flood overtops them): a loop.
+/// Then the linear solve alone: the bordered (Schur complement) solve of
+/// the loop's Newton system against a dense LU (nalgebra, partial
+/// pivoting) of the same matrix.
+fn network_part(nodes: &[Node], chainage: &[f64], single_ms: f64) {
+    let reach = |a: usize, b: usize| Reach::new(&chainage[a..=b], &nodes[a..=b]).expect("reach");
+    let flood = inflow(600.0, 20.0);
+    let chain = vec![
+        Channel {
+            name: "upper".into(),
+            reach: reach(0, 200),
+            upstream: UpstreamEnd::Inflow(flood.clone()),
+            downstream: DownstreamEnd::Junction(0),
+            laterals: Vec::new(),
+        },
+        Channel {
+            name: "middle".into(),
+            reach: reach(200, 300),
+            upstream: UpstreamEnd::Junction(0),
+            downstream: DownstreamEnd::Junction(1),
+            laterals: Vec::new(),
+        },
+        Channel {
+            name: "lower".into(),
+            reach: reach(300, 500),
+            upstream: UpstreamEnd::Junction(1),
+            downstream: DownstreamEnd::Outlet,
+            laterals: Vec::new(),
+        },
+    ];
+    // Bank tops at 20 and 30 km (bench sections: bed + 3 m).
+    let top = |x: f64| 100.0 - SLOPE * x + 3.0;
+    let path_section = |name: &str, x: f64, bed: f64| CrossSection {
+        name: name.to_owned(),
+        chainage: x,
+        geometry: SectionGeometry::Trapezoid {
+            bed_elevation: bed,
+            bottom_width: 80.0,
+            side_slope: 10.0,
+            n: 0.08,
+            height: None,
+        },
+    };
+    let path_nodes = build_nodes(
+        &[
+            path_section("F0", 0.0, top(20_000.0)),
+            path_section("F1", 12_000.0, top(30_000.0)),
+        ],
+        120.0,
+    )
+    .expect("floodplain path is valid");
+    let path_x: Vec<f64> = path_nodes.iter().map(|n| n.chainage).collect();
+    let mut looped = chain.clone();
+    looped.push(Channel {
+        name: "floodplain path".into(),
+        reach: Reach::new(&path_x, &path_nodes).expect("reach"),
+        upstream: UpstreamEnd::Junction(0),
+        downstream: DownstreamEnd::Junction(1),
+        laterals: Vec::new(),
+    });
+    let outputs: Vec<f64> = (0..=HOURS * 4).map(|k| k as f64 * 900.0).collect();
+    let single = diffusive::route(&problem(reach(0, 500), flood.clone(), 900.0))
+        .expect("single run succeeds");
+    for (label, p) in [
+        ("chain", net_problem(chain, &outputs)),
+        ("loop", net_problem(looped, &outputs)),
+    ] {
+        let nodes_total = p.network.node_count();
+        let mut times = Vec::new();
+        let mut last = None;
+        let cpu_start = cpu_ns();
+        for _ in 0..RUNS {
+            let t = Instant::now();
+            last = Some(network::route_network(&p).expect("network run succeeds"));
+            times.push(t.elapsed().as_secs_f64());
+        }
+        let cpu = match (cpu_start, cpu_ns()) {
+            (Some(a), Some(b)) => (b - a) as f64 * 1e-9 / RUNS as f64,
+            _ => f64::NAN,
+        };
+        times.sort_by(f64::total_cmp);
+        let r = last.expect("runs");
+        let median = times[times.len() / 2];
+        println!(
+            "network {label}: {} channels, {nodes_total} channel nodes, 15-minute output: median \
+             {:.1} ms (min {:.1}, max {:.1}) over {RUNS} runs, on-CPU mean {:.1} ms; {} steps, \
+             {:.2} Newton iterations/step, {:.1} ns per node-iteration; mass balance {:.2e} %; \
+             {:.2}× the single-channel median ({single_ms:.1} ms)",
+            r.channels.len(),
+            median * 1e3,
+            times[0] * 1e3,
+            times[times.len() - 1] * 1e3,
+            cpu * 1e3,
+            r.steps,
+            r.newton_iterations as f64 / r.steps as f64,
+            median * 1e9 / (nodes_total * r.newton_iterations) as f64,
+            r.balance.error_pct,
+            median * 1e3 / single_ms
+        );
+        // The steady start alone: a run whose only output is the start.
+        let start_only = NetworkProblem {
+            output_times: vec![0.0],
+            ..p.clone()
+        };
+        let mut start_times: Vec<f64> = (0..RUNS)
+            .map(|_| {
+                let t = Instant::now();
+                network::route_network(&start_only).expect("steady start succeeds");
+                t.elapsed().as_secs_f64()
+            })
+            .collect();
+        start_times.sort_by(f64::total_cmp);
+        println!(
+            "  of which the steady start (pseudo-time stepping): median {:.1} ms",
+            start_times[RUNS / 2] * 1e3
+        );
+        if label == "chain" {
+            // The chain is the single-channel problem: same stages.
+            let offsets = [0usize, 200, 300];
+            let worst = r
+                .channels
+                .iter()
+                .zip(offsets)
+                .flat_map(|(c, o)| {
+                    c.stage.iter().zip(&single.stage).flat_map(move |(a, b)| {
+                        a.iter().enumerate().map(move |(i, z)| (z - b[o + i]).abs())
+                    })
+                })
+                .fold(0.0, f64::max);
+            println!(
+                "  chain against the single-channel run: worst stage difference {:.2e} m",
+                worst
+            );
+        } else {
+            let split = r.junction_flows(&p.network, 0);
+            let path = split
+                .iter()
+                .find(|e| e.channel == 3)
+                .expect("path end")
+                .discharge
+                .iter()
+                .fold(0.0_f64, |m, &q| m.max(q));
+            println!("  floodplain path peak discharge {path:.1} m³/s");
+        }
+    }
+    linear_solve_comparison();
+}
+
+/// A network run of the bench reach's flood from a steady start.
+fn net_problem<'a>(channels: Vec<Channel<'a, Node>>, outputs: &[f64]) -> NetworkProblem<'a, Node> {
+    NetworkProblem {
+        network: Network::new(channels).expect("valid network"),
+        downstream: DownstreamBoundary::NormalDepth {
+            friction_slope: SLOPE,
+        },
+        initial: NetworkInitial::Steady,
+        start_time: 0.0,
+        output_times: outputs.to_vec(),
+        options: Options::default(),
+    }
+}
+
+/// The loop's Newton system shape (own unknowns 200, 99, 200 and 99, two
+/// junctions), filled with a diagonally dominant system, solved by the
+/// bordered elimination and by a dense LU; the solutions must agree.
+fn linear_solve_comparison() {
+    let lens = [
+        (200, None, Some(0)),
+        (99, Some(0), Some(1)),
+        (200, Some(1), None),
+        (99, Some(0), Some(1)),
+    ];
+    let mut start = 0;
+    let blocks: Vec<Block> = lens
+        .iter()
+        .map(|&(len, up, down)| {
+            let b = Block {
+                start,
+                len,
+                up,
+                down,
+            };
+            start += len;
+            b
+        })
+        .collect();
+    let mut s = Bordered::new(blocks, 2);
+    let mut seed = 0x9e37_79b9_7f4a_7c15_u64;
+    let mut rnd = move || {
+        seed ^= seed << 13;
+        seed ^= seed >> 7;
+        seed ^= seed << 17;
+        (seed >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+    };
+    for v in [
+        &mut s.lower,
+        &mut s.upper,
+        &mut s.c_up,
+        &mut s.c_down,
+        &mut s.b_up,
+        &mut s.b_down,
+    ] {
+        v.iter_mut().for_each(|x| *x = rnd());
+    }
+    s.diag.iter_mut().for_each(|x| *x = 3.0 + rnd());
+    s.d = vec![5.0, 0.0, 0.0, 5.0];
+    let n = s.len();
+    let b: Vec<f64> = (0..n).map(|_| rnd()).collect();
+    let reps = 2_000;
+    let t = Instant::now();
+    let mut x = b.clone();
+    for _ in 0..reps {
+        x.copy_from_slice(&b);
+        s.solve(&mut x).expect("regular");
+    }
+    let bordered_us = t.elapsed().as_secs_f64() * 1e6 / reps as f64;
+    let dense = s.to_dense();
+    let dense_reps = 5;
+    let t = Instant::now();
+    let mut y = nalgebra::DVector::zeros(n);
+    for _ in 0..dense_reps {
+        let m = nalgebra::DMatrix::from_row_slice(n, n, &dense);
+        y = m
+            .lu()
+            .solve(&nalgebra::DVector::from_column_slice(&b))
+            .expect("regular");
+    }
+    let dense_us = t.elapsed().as_secs_f64() * 1e6 / dense_reps as f64;
+    let diff = x
+        .iter()
+        .zip(y.iter())
+        .map(|(a, b)| (a - b).abs())
+        .fold(0.0, f64::max);
+    println!(
+        "  linear solve of the loop's {n}-unknown Newton system: bordered (Schur) {bordered_us:.1} µs, \
+         dense LU {dense_us:.0} µs ({:.0}× slower); solutions differ by at most {diff:.1e}",
+        dense_us / bordered_us
+    );
+}
+
 fn main() {
     // `cargo bench --bench engine -- single` runs only the parts whose
-    // name contains the argument (single, prismatic, schemes, ensemble).
+    // name contains the argument (single, prismatic, schemes, network,
+    // ensemble).
     let filter: Option<String> = std::env::args().skip(1).find(|a| !a.starts_with('-'));
     let wanted = |part: &str| filter.as_deref().is_none_or(|f| part.contains(f));
     let sections = reach_sections();
@@ -517,6 +774,7 @@ fn main() {
         nodes.len()
     );
 
+    let mut single_ms = f64::NAN;
     for (label, step) in [("15-minute output", 900.0), ("1-minute output", 60.0)] {
         if !wanted("single") {
             break;
@@ -524,6 +782,9 @@ fn main() {
         let p = problem(reach, inflow(600.0, 20.0), step);
         let (times, cpu, allocations, r) =
             repeat(|| diffusive::route(&p).expect("benchmark run succeeds"));
+        if step == 900.0 {
+            single_ms = times[times.len() / 2] * 1e3;
+        }
         report(
             &format!("single run, {label}"),
             nodes.len(),
@@ -560,6 +821,14 @@ fn main() {
     }
     if wanted("schemes") {
         schemes(reach);
+    }
+    if wanted("network") {
+        if single_ms.is_nan() {
+            let p = problem(reach, inflow(600.0, 20.0), 900.0);
+            let (times, _, _, _) = repeat(|| diffusive::route(&p).expect("benchmark run succeeds"));
+            single_ms = times[times.len() / 2] * 1e3;
+        }
+        network_part(&nodes, &chainage, single_ms);
     }
     if wanted("ensemble") {
         service_ensemble(&sections);

@@ -51,7 +51,7 @@ pub(super) fn face_flow(
 /// reciprocal of (S² + ε²)^¼ gives both r = S (S² + ε²)^(−¼) and
 /// 1 / ((S² + ε²) (S² + ε²)^¼) = ((S² + ε²)^(−¼))⁵.
 #[inline(always)]
-pub(super) fn face_flow_inv(
+pub(crate) fn face_flow_inv(
     pa: &Props,
     pb: &Props,
     bed_a: f64,
@@ -134,7 +134,7 @@ fn rating_flow(table: &[(f64, f64)], z: f64) -> (f64, f64) {
 
 /// Outflow through a discharge-type downstream boundary and its derivative.
 /// Zero for stage boundaries (their outflow comes from continuity).
-pub(super) fn boundary_outflow(b: &DownstreamBoundary, p: &Props, bed: f64) -> (f64, f64) {
+pub(crate) fn boundary_outflow(b: &DownstreamBoundary, p: &Props, bed: f64) -> (f64, f64) {
     let (phi, dphi) = dry_ramp(p.z - bed);
     match b {
         DownstreamBoundary::NormalDepth { friction_slope } => {

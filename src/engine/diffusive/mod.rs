@@ -103,20 +103,20 @@
 //! [`crate::engine::routing`], the volume budget in `engine::budget`
 //! and the diagnostics and warnings in [`crate::engine::diagnostics`].
 
-mod flux;
+pub(crate) mod flux;
 mod forcing;
 mod initial;
-mod newton;
-mod output;
-mod problem;
+pub(crate) mod newton;
+pub(crate) mod output;
+pub(crate) mod problem;
 mod state;
-mod step;
+pub(crate) mod step;
 #[cfg(test)]
 mod test_support;
 #[cfg(test)]
 mod tests;
 mod trbdf2;
-mod tridiagonal;
+pub(crate) mod tridiagonal;
 
 use crate::engine::budget::Budget;
 use crate::engine::diagnostics::{self, MeanState, Method, StepStats, Watch, wave_duration};

@@ -13,16 +13,16 @@ use crate::engine::routing::FailureReason;
 /// Lower bound on the storage width used in the Jacobian only (m), so a
 /// dry node with a zero-width bed keeps a non-singular Newton matrix. It does
 /// not change the converged solution.
-const JACOBIAN_WIDTH_FLOOR: f64 = 0.01;
+pub(crate) const JACOBIAN_WIDTH_FLOOR: f64 = 0.01;
 /// Largest stage change one Newton iteration may make (m); larger updates
 /// are scaled down, which keeps the first iterations of a big step from
 /// overshooting into dry or absurd states.
-const NEWTON_STEP_CAP: f64 = 2.0;
+pub(crate) const NEWTON_STEP_CAP: f64 = 2.0;
 
 /// Why and where a step failed.
-pub(super) struct StepFailure {
-    pub(super) node: usize,
-    pub(super) reason: FailureReason,
+pub(crate) struct StepFailure {
+    pub(crate) node: usize,
+    pub(crate) reason: FailureReason,
 }
 
 /// Boundary values at the new time level.

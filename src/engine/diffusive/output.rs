@@ -3,7 +3,7 @@
 //! minute-by-minute output does not force minute-long steps.
 
 /// The output times and what has been recorded for them so far.
-pub(super) struct DenseOutput<'a> {
+pub(crate) struct DenseOutput<'a> {
     times: &'a [f64],
     /// Index of the first output time not yet recorded.
     next: usize,
@@ -17,7 +17,7 @@ pub(super) struct DenseOutput<'a> {
 impl<'a> DenseOutput<'a> {
     /// Start at time `t0` with stages `z` and node discharges `q`; output
     /// times up to `t0` report this state.
-    pub(super) fn new(times: &'a [f64], t0: f64, z: &[f64], q: &[f64]) -> Self {
+    pub(crate) fn new(times: &'a [f64], t0: f64, z: &[f64], q: &[f64]) -> Self {
         let mut out = Self {
             times,
             next: 0,
@@ -35,7 +35,7 @@ impl<'a> DenseOutput<'a> {
     }
 
     /// Output times not yet reached.
-    pub(super) fn pending(&self) -> &'a [f64] {
+    pub(crate) fn pending(&self) -> &'a [f64] {
         &self.times[self.next..]
     }
 
@@ -43,7 +43,7 @@ impl<'a> DenseOutput<'a> {
     /// discharges `q`: record every output time it reached. Allocates only
     /// the rows it records (they are the result); the previous state is
     /// kept in place.
-    pub(super) fn step(&mut self, t_prev: f64, t_new: f64, z: &[f64], q: &[f64]) {
+    pub(crate) fn step(&mut self, t_prev: f64, t_new: f64, z: &[f64], q: &[f64]) {
         while self.next < self.times.len() && self.times[self.next] <= t_new {
             let to = self.times[self.next];
             if to == t_new {
@@ -61,7 +61,7 @@ impl<'a> DenseOutput<'a> {
     }
 
     /// Stages and discharges, `[output time][node]`.
-    pub(super) fn finish(self) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
+    pub(crate) fn finish(self) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
         (self.stage, self.discharge)
     }
 }

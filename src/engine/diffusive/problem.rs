@@ -36,7 +36,7 @@ pub enum DownstreamBoundary {
 }
 
 impl DownstreamBoundary {
-    pub(super) fn is_stage(&self) -> bool {
+    pub(crate) fn is_stage(&self) -> bool {
         matches!(self, Self::FixedStage { .. } | Self::StageSeries(_))
     }
 }
@@ -156,7 +156,7 @@ impl<H> Clone for Problem<'_, H> {
     }
 }
 
-pub(super) fn check_options(o: &Options) -> Result<(), RoutingError> {
+pub(crate) fn check_options(o: &Options) -> Result<(), RoutingError> {
     let bad = |name, value, reason| {
         Err(RoutingError::InvalidOption {
             name,
@@ -198,7 +198,7 @@ pub(super) fn check_options(o: &Options) -> Result<(), RoutingError> {
     Ok(())
 }
 
-pub(super) fn check_boundary(b: &DownstreamBoundary) -> Result<(), RoutingError> {
+pub(crate) fn check_boundary(b: &DownstreamBoundary) -> Result<(), RoutingError> {
     match b {
         DownstreamBoundary::NormalDepth { friction_slope } => {
             if !(friction_slope.is_finite() && *friction_slope > 0.0) {

@@ -8,7 +8,7 @@ use super::problem::Options;
 use crate::engine::routing::RoutingError;
 
 /// The nominal step and the limits it moves within.
-pub(super) struct StepControl {
+pub(crate) struct StepControl {
     /// Step the next attempt would take if no output time intervenes (s).
     dt: f64,
     dt_min: f64,
@@ -20,7 +20,7 @@ pub(super) struct StepControl {
 }
 
 impl StepControl {
-    pub(super) fn new(o: &Options) -> Self {
+    pub(crate) fn new(o: &Options) -> Self {
         Self {
             dt: o.dt_initial,
             dt_min: o.dt_min,
@@ -34,7 +34,7 @@ impl StepControl {
     /// Size and end time of the next attempt from `t`, with `pending` the
     /// output times not yet reached (not empty). Counts the attempt against
     /// [`Options::max_steps`].
-    pub(super) fn next(&mut self, t: f64, pending: &[f64]) -> Result<(f64, f64), RoutingError> {
+    pub(crate) fn next(&mut self, t: f64, pending: &[f64]) -> Result<(f64, f64), RoutingError> {
         self.attempts += 1;
         if self.attempts > self.max_steps {
             return Err(RoutingError::TooManySteps {
@@ -65,7 +65,7 @@ impl StepControl {
 
     /// The attempt of `dt` from `t` failed: halve the step, or give up with
     /// the place of the failure once it would fall below `dt_min`.
-    pub(super) fn reject(
+    pub(crate) fn reject(
         &mut self,
         t: f64,
         dt: f64,
@@ -86,20 +86,20 @@ impl StepControl {
     }
 
     /// Whether `dt` is the smallest step allowed.
-    pub(super) fn at_min(&self, dt: f64) -> bool {
+    pub(crate) fn at_min(&self, dt: f64) -> bool {
         dt <= self.dt_min * (1.0 + 1e-9)
     }
 
     /// TR-BDF2: the attempt of `dt` was estimated too inaccurate; retry with
     /// `dt × factor` (factor < 1), not below `dt_min`.
-    pub(super) fn shrink(&mut self, dt: f64, factor: f64) {
+    pub(crate) fn shrink(&mut self, dt: f64, factor: f64) {
         self.dt = (dt * factor).max(self.dt_min);
     }
 
     /// TR-BDF2: the attempt of `dt` was accepted with the error estimate
     /// asking for `dt × factor` next. A step that was cut short to land on
     /// an output time does not shrink the nominal step when it was easy.
-    pub(super) fn resize(&mut self, dt: f64, factor: f64) {
+    pub(crate) fn resize(&mut self, dt: f64, factor: f64) {
         let next = if factor >= 1.0 {
             self.dt.max(dt * factor)
         } else {
@@ -109,7 +109,7 @@ impl StepControl {
     }
 
     /// The attempt converged in `iterations`: grow the step if that was easy.
-    pub(super) fn accept(&mut self, iterations: usize) {
+    pub(crate) fn accept(&mut self, iterations: usize) {
         if iterations <= self.easy {
             self.dt = (self.dt * 1.5).min(self.dt_max);
         }

@@ -18,7 +18,7 @@
 /// independent chains of N/2 that the processor runs side by side; they
 /// meet in the middle row (a "twisted" factorisation, common practice).
 /// Same operation count as the one-way sweep.
-pub(super) fn solve_tridiagonal(
+pub(crate) fn solve_tridiagonal(
     lower: &[f64],
     diag: &[f64],
     upper: &[f64],
