@@ -429,6 +429,7 @@ mod tests {
             has_gauge: false,
             stale_after_s: 3600,
             run_overdue_s: 86_400,
+            stale_tributaries: Vec::new(),
         })
     }
 

@@ -147,9 +147,32 @@ pub struct RunProvenance {
     /// The ensemble's settings and seed; `None` when it is off (and in
     /// runs made before ensembles).
     pub ensemble: Option<EnsembleProvenance>,
+    /// Each tributary with a gauge: where its inflow came from.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub laterals: Vec<LateralProvenance>,
     /// Set for a hindcast run: a past instant replayed as if live.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub hindcast: Option<HindcastProvenance>,
+}
+
+/// Where a gauged tributary's inflow came from in one run.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LateralProvenance {
+    /// The tributary's name in the reach description.
+    pub name: String,
+    pub gauge: String,
+    /// The assembly from the gauge's readings; `None` when the gauge could
+    /// not be used.
+    pub inflow: Option<assemble::Provenance>,
+    /// Why the reach description's own hydrograph was used instead.
+    pub fallback: Option<String>,
+}
+
+impl LateralProvenance {
+    /// The gauge was silent (or unusable) when the run was made.
+    pub fn stale(&self) -> bool {
+        self.inflow.as_ref().is_none_or(|i| i.stale)
+    }
 }
 
 /// How a hindcast run was made.

@@ -135,8 +135,16 @@ pub struct LateralSpec {
     /// Chainage where it joins (m).
     pub chainage: f64,
     /// Its hydrograph; held constant before the first and after the last
-    /// sample.
+    /// sample. With a `gauge`, the one used while the gauge cannot be
+    /// (it may then be empty).
+    #[serde(default)]
     pub inflow: Vec<FlowPoint>,
+    /// A gauge on the tributary: its readings (through its rating when it
+    /// reports stage) are the inflow, assembled by the upstream inflow's
+    /// rules (observed, gaps interpolated, suspect left out, then the
+    /// extrapolation rule).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub gauge: Option<String>,
 }
 
 /// What kind of place a point of interest is; it changes what is reported
@@ -515,8 +523,19 @@ impl LateralSpec {
             return Err(SpecError::new(format!("{at}.name"), "must not be empty"));
         }
         within(&format!("{at}.chainage"), self.chainage, extent)?;
-        if self.inflow.is_empty() {
-            return Err(SpecError::new(format!("{at}.inflow"), "must not be empty"));
+        if self.inflow.is_empty() && self.gauge.is_none() {
+            return Err(SpecError::new(
+                format!("{at}.inflow"),
+                "must not be empty (or name a `gauge`)",
+            ));
+        }
+        if let Some(g) = &self.gauge
+            && !crate::gauge::valid_slug(g)
+        {
+            return Err(SpecError::new(
+                format!("{at}.gauge"),
+                "a gauge id is 1 to 64 of a-z, 0-9 and -",
+            ));
         }
         for (j, p) in self.inflow.iter().enumerate() {
             let f = format!("{at}.inflow[{j}].discharge");

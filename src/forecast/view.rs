@@ -136,6 +136,9 @@ pub struct FreshnessInput {
     pub stale_after_s: i64,
     /// A run older than this is overdue (two scheduling intervals).
     pub run_overdue_s: i64,
+    /// Gauged tributaries whose gauge was silent or unusable when the run
+    /// was made, as `name (gauge)`.
+    pub stale_tributaries: Vec<String>,
 }
 
 /// The stale verdict and its reasons, in words a planner reads.
@@ -156,6 +159,11 @@ pub fn freshness(f: &FreshnessInput) -> Freshness {
     }
     if f.has_gauge && f.inflow_stale && reasons.is_empty() {
         reasons.push("the upstream gauge was silent when this forecast was made".to_owned());
+    }
+    for t in &f.stale_tributaries {
+        reasons.push(format!(
+            "the tributary gauge of {t} was silent or unusable when this forecast was made"
+        ));
     }
     if run_age_s > f.run_overdue_s {
         reasons.push(format!(
@@ -317,8 +325,18 @@ mod tests {
             has_gauge: true,
             stale_after_s: 3600,
             run_overdue_s: 1800,
+            stale_tributaries: Vec::new(),
         };
         assert!(!freshness(&base).stale);
+        let tributary = FreshnessInput {
+            stale_tributaries: vec!["Mill Brook (mill-brook)".into()],
+            ..base.clone()
+        };
+        let f = freshness(&tributary);
+        assert!(
+            f.stale && f.reasons[0].contains("Mill Brook (mill-brook)"),
+            "{f:?}"
+        );
         let silent = FreshnessInput {
             last_reading_at: Some(now - chrono::Duration::minutes(90)),
             ..base.clone()

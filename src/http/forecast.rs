@@ -124,6 +124,14 @@ pub(super) async fn freshness_of(
         has_gauge: gauge.is_some(),
         stale_after_s: i64::try_from(cfg.stale_after_minutes * 60).unwrap_or(i64::MAX),
         run_overdue_s: i64::try_from(cfg.interval_minutes * 120 + 300).unwrap_or(i64::MAX),
+        stale_tributaries: l
+            .run
+            .provenance
+            .laterals
+            .iter()
+            .filter(|t| t.stale())
+            .map(|t| format!("{} ({})", t.name, t.gauge))
+            .collect(),
     }))
 }
 

@@ -170,6 +170,19 @@ impl Forecaster {
                 return self.failed(reach_id, run_id, e, &provenance, 0.0).await;
             }
         };
+        // Gauged tributaries: their hydrographs from their gauges.
+        let reach = match self.gauged_laterals(&reach, basis, &rules).await? {
+            Ok((filled, laterals)) => {
+                provenance.laterals = laterals;
+                filled
+            }
+            Err(e) => {
+                let run_id = store
+                    .start_run(reach_id, reach.version, upload_id, &provenance)
+                    .await?;
+                return self.failed(reach_id, run_id, e, &provenance, 0.0).await;
+            }
+        };
         // The traces are the scenarios only when the main series' join
         // used the upload (the one rule, in `assemble_traces`).
         let trace_names = match &trace_inflows {
@@ -337,10 +350,22 @@ impl Forecaster {
         on: Basis,
         rules: &Rules,
     ) -> Result<Observed, StoreError> {
-        let now = on.issued;
         let Some(gauge_id) = spec.service.upstream_gauge.as_deref() else {
             return Ok(Ok((Vec::new(), GaugeBasis::Discharge)));
         };
+        self.observed_gauge(gauge_id, on, rules).await
+    }
+
+    /// Observed readings of one gauge and how to turn them into discharge,
+    /// with what counted as known on `on`; `Err` says why the gauge cannot
+    /// be used.
+    pub(super) async fn observed_gauge(
+        &self,
+        gauge_id: &str,
+        on: Basis,
+        rules: &Rules,
+    ) -> Result<Observed, StoreError> {
+        let now = on.issued;
         let Some(gauge) = self.inner.store.gauge(gauge_id).await? else {
             return Ok(Err(format!("upstream gauge `{gauge_id}` does not exist")));
         };

@@ -209,8 +209,8 @@ impl Forecaster {
         }
     }
 
-    /// New readings of a gauge: wake every reach whose upstream gauge or
-    /// point gauge it is.
+    /// New readings of a gauge: wake every reach whose upstream gauge,
+    /// tributary gauge or point gauge it is.
     pub async fn gauge_updated(&self, gauge_id: &str) {
         match self.inner.store.reaches().await {
             Ok(reaches) => {
@@ -219,7 +219,11 @@ impl Forecaster {
                         || r.spec
                             .points
                             .iter()
-                            .any(|p| p.gauge.as_deref() == Some(gauge_id));
+                            .any(|p| p.gauge.as_deref() == Some(gauge_id))
+                        || r.spec
+                            .laterals
+                            .iter()
+                            .any(|l| l.gauge.as_deref() == Some(gauge_id));
                     if uses {
                         self.data_arrived(&r.reach_id);
                     }

@@ -12,6 +12,7 @@ mod cycle;
 mod ensemble;
 pub mod forecaster;
 pub mod hindcast;
+mod laterals;
 pub mod preview;
 pub mod retention;
 pub mod verifier;

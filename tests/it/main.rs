@@ -33,4 +33,5 @@ mod panel;
 mod ratings;
 mod retention;
 mod route_command;
+mod tributaries;
 pub mod verification;
