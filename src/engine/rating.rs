@@ -536,6 +536,11 @@ pub fn fit_power_segment(points: &[(f64, f64)]) -> Result<PowerFit, RatingError>
                 (points[r].0 - e).ln()
             }
         });
+        // Stages spanning hundreds of orders of magnitude make ln(h − e)
+        // overflow; the SVD must not see a non-finite entry (it may panic).
+        if !x.iter().all(|v| v.is_finite()) {
+            return None;
+        }
         let coef = x.clone().svd(true, true).solve(&y, 1e-12).ok()?;
         let residual = &y - &x * &coef;
         let rss = residual.norm_squared();
@@ -595,6 +600,11 @@ pub fn fit_power_segment(points: &[(f64, f64)]) -> Result<PowerFit, RatingError>
     }
     let e = h_min - s_best.exp();
     let c = ln_c.exp();
+    if !(c.is_finite() && c > 0.0 && exponent.is_finite() && e.is_finite()) {
+        return Err(RatingError::FitFailed {
+            reason: "the fitted curve is not finite (stages or discharges span too many orders of magnitude)",
+        });
+    }
     let max_relative_error = points
         .iter()
         .map(|&(h, q)| (c * (h - e).powf(exponent) / q - 1.0).abs())

@@ -239,4 +239,41 @@ mod tests {
         assert_eq!(r.curve_at(t(11)).map(|(_, v)| v), Some(Some(1)));
         assert!(Ratings::default().discharge(t(0), 1.0).is_err());
     }
+
+    /// Gaugings of any finite magnitude (stages and discharges from 1e-308
+    /// to 1e308, seeded) give a fit or an error, never a panic: the service
+    /// fits whatever a forecaster stored. (A fuzzer found that stages
+    /// spanning hundreds of orders of magnitude made the least squares see
+    /// infinite logarithms.)
+    #[test]
+    fn gaugings_of_any_magnitude_fit_or_fail_without_panicking() {
+        let mut rng = SplitMix64::new(1);
+        let wild = |rng: &mut SplitMix64| {
+            let v = 10f64.powi((rng.next_unit() * 616.0 - 308.0) as i32) * rng.next_unit();
+            if rng.below(2) == 0 { v } else { -v }
+        };
+        for trial in 0..200 {
+            let n = 3 + rng.below(20);
+            let set: Vec<Gauging> = (0..n)
+                .map(|k| Gauging {
+                    time: t(k as i64),
+                    stage_m: if trial % 2 == 0 {
+                        wild(&mut rng)
+                    } else {
+                        10.0 * rng.next_unit()
+                    },
+                    discharge_m3s: wild(&mut rng).abs().max(f64::MIN_POSITIVE),
+                    method: "invented".into(),
+                    quality: GaugingQuality::Fair,
+                })
+                .collect();
+            if let Ok(r) = fit(&set) {
+                assert!(
+                    r.fit.c.is_finite() && r.fit.b > 0.0,
+                    "trial {trial}: {:?}",
+                    r.fit
+                );
+            }
+        }
+    }
 }

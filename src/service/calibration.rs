@@ -62,7 +62,7 @@ impl Forecaster {
         if let Err(e) = budget::admit(&spec, &self.inner.config.budget(), span_s) {
             return Ok(Err(format!("the windows are too long to route: {e}")));
         }
-        let observed = self.observed_stage(&gauge, from, to).await?;
+        let observed = self.stages(&gauge, from, to).await?;
         let inflow = match self.past_inflow(&spec, from, to).await? {
             Ok(i) => i,
             Err(e) => return Ok(Err(e)),
@@ -84,25 +84,6 @@ impl Forecaster {
         .map_err(|e| format!("the calibration did not finish: {e}"))
         .and_then(|r| r);
         Ok(fitted.map(|c| (reach.version, c)))
-    }
-
-    /// The usable stage readings of `gauge` in `[from, to]`.
-    async fn observed_stage(
-        &self,
-        gauge: &str,
-        from: DateTime<Utc>,
-        to: DateTime<Utc>,
-    ) -> Result<Vec<(DateTime<Utc>, f64)>, CycleError> {
-        let rows = self
-            .inner
-            .store
-            .readings_for_forecast(gauge, from.timestamp_millis(), to.timestamp_millis())
-            .await?;
-        Ok(rows
-            .into_iter()
-            .filter(|r| r.for_forecast())
-            .filter_map(|r| Some((DateTime::from_timestamp_millis(r.time_ms)?, r.stage_m?)))
-            .collect())
     }
 
     /// The upstream inflow over `[from, to]` as a run issued at `to` with a

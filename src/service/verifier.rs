@@ -161,8 +161,9 @@ impl Forecaster {
         Ok(out)
     }
 
-    /// Usable stage readings of a gauge in `[from, to]`, oldest first.
-    async fn stages(
+    /// Usable stage readings of a gauge in `[from, to]`, oldest first (what
+    /// verification and calibration compare with).
+    pub(super) async fn stages(
         &self,
         gauge: &str,
         from: DateTime<Utc>,
