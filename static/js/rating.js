@@ -1,18 +1,13 @@
-// A gauge's rating as the dashboard shows it: the curve in force, the
-// gaugings with their deviation from the curve in force when each was
-// made, a band of the curve widened by the gaugings' RMS deviation, and a
-// chart of it all. Pure functions of the API's answers
-// (GET /api/gauges/{gauge}/ratings and .../gaugings); the evaluation rules
-// mirror src/engine/rating.rs so the page and the forecasts agree.
+// A gauge's rating on the dashboard: pure functions of GET
+// /api/gauges/{gauge}/ratings and .../gaugings. Evaluation mirrors
+// src/engine/rating.rs so the page and the forecasts agree.
 
+import { niceTicks } from "./chart.js";
 import { el, pathOf } from "./svg.js";
 
-/**
- * Discharge (m³/s) of `curve` at `stage` (m), or null where the curve has
- * none. Power: the first segment whose upper_stage ≥ stage (the last one
- * unbounded), Q = c (h − e)^b, zero at or below e. Table: linear
- * interpolation, null outside the table (the engine does not extrapolate).
- */
+// Q (m³/s) at `stage` (m), null where there is none. Power: the first
+// segment with upper_stage ≥ stage, c (h − e)^b, 0 at or below e. Table:
+// linear, null outside (the engine does not extrapolate).
 export function dischargeAt(curve, stage) {
   if (!curve || !Number.isFinite(stage)) return null;
   if (curve.kind === "power") {
@@ -34,11 +29,8 @@ export function dischargeAt(curve, stage) {
   return null;
 }
 
-/**
- * The curve in force at `t` (ms): the newest version valid from t or
- * earlier, else the gauge's own curve. Returns { curve, version } with
- * version null for the gauge's own, or null when there is no curve.
- */
+// { curve, version } in force at `t` (ms): the newest version valid from
+// t or earlier, else the gauge's own (version null); null without any.
 export function curveAt(ratings, t) {
   const versions = (ratings?.versions || []).filter((v) => Date.parse(v.valid_from) <= t);
   const newest = versions.reduce((a, v) => (a && Date.parse(a.valid_from) > Date.parse(v.valid_from) ? a : v), null);
@@ -51,24 +43,17 @@ export function hasRating(ratings) {
   return Boolean(ratings && (ratings.base || (ratings.versions || []).length));
 }
 
-/** The sum of the shifts covering `t` (ms), in m: from ≤ t < to. */
-export function shiftAt(ratings, t) {
-  return (ratings?.shifts || [])
-    .filter((s) => Date.parse(s.from) <= t && (s.to == null || t < Date.parse(s.to)))
-    .reduce((sum, s) => sum + s.offset_m, 0);
-}
-
-/** The shifts in force at `t` (ms). */
+/** The shifts in force at `t` (ms): from ≤ t < to. */
 export function shiftsInForce(ratings, t) {
   return (ratings?.shifts || []).filter((s) => Date.parse(s.from) <= t && (s.to == null || t < Date.parse(s.to)));
 }
 
-/**
- * Each gauging with its deviation in per cent, 100 (Q_measured / Q_rated − 1),
- * Q_rated from the curve and shifts in force at the gauging's time (as the
- * engine converts a stage read then). `deviation_pct` is null where the
- * curve gives no positive discharge (outside a table, at or below zero flow).
- */
+/** The sum of the shifts in force at `t` (ms), in m. */
+export const shiftAt = (ratings, t) => shiftsInForce(ratings, t).reduce((sum, s) => sum + s.offset_m, 0);
+
+// Each gauging with deviation_pct = 100 (Q_measured / Q_rated − 1), rated
+// with the curve and shifts in force at its time (as the engine converts a
+// stage read then); null where the curve gives no positive discharge.
 export function deviations(ratings, gaugings) {
   return (gaugings || []).map((g) => {
     const t = Date.parse(g.time);
@@ -86,11 +71,8 @@ export function rmsDeviation(devs) {
   return Math.sqrt(d.reduce((s, v) => s + v * v, 0) / d.length);
 }
 
-/**
- * The deviation band along `stages`: the curve × (1 ± RMS / 100), as
- * { rms_pct, low, high } (arrays beside `stages`, null where the curve has
- * no discharge), or null without a deviation to widen it by.
- */
+// The band along `stages`, curve × (1 ± RMS / 100): { rms_pct, low, high },
+// or null without a deviation to widen it by.
 export function band(curve, stages, rmsPct) {
   if (rmsPct == null || !Number.isFinite(rmsPct)) return null;
   const f = rmsPct / 100;
@@ -102,10 +84,8 @@ export function band(curve, stages, rmsPct) {
   };
 }
 
-/**
- * Stages to draw the curve over (m): the curve's own range (from the first
- * zero-flow stage, or the table) widened to every gauging, in `n` steps.
- */
+// Stages to draw over: the curve's range (from zero flow, or the table)
+// widened to every gauging, in `n` steps.
 export function stageRange(curve, gaugings, n = 80) {
   const hs = (gaugings || []).map((g) => g.stage_m).filter(Number.isFinite);
   let lo;
@@ -125,38 +105,17 @@ export function stageRange(curve, gaugings, n = 80) {
   return Array.from({ length: n + 1 }, (_, i) => lo + ((hi - lo) * i) / n);
 }
 
-/** Marker shape per gauging quality: shape, not colour alone, tells them apart. */
-export const QUALITY_SHAPES = { excellent: "circle", good: "square", fair: "triangle", poor: "cross" };
+// A marker per gauging quality, around (0, 0): shape, not colour alone.
+export const MARKS = {
+  excellent: "M-4,0A4,4 0 1 0 4,0A4,4 0 1 0 -4,0Z",
+  good: "M-4,-4H4V4H-4Z",
+  fair: "M0,-5L4,4H-4Z",
+  poor: "M-4,-4L4,4M4,-4L-4,4",
+};
 
-function marker(doc, parent, shape, cx, cy, cls) {
-  const r = 4;
-  const x = cx.toFixed(1);
-  const y = cy.toFixed(1);
-  if (shape === "circle") return el(doc, "circle", { cx: x, cy: y, r, class: cls }, parent);
-  if (shape === "square") return el(doc, "rect", { x: (cx - r).toFixed(1), y: (cy - r).toFixed(1), width: 2 * r, height: 2 * r, class: cls }, parent);
-  if (shape === "triangle") {
-    return el(doc, "path", { d: `M${x},${(cy - r - 1).toFixed(1)}L${(cx + r).toFixed(1)},${(cy + r).toFixed(1)}L${(cx - r).toFixed(1)},${(cy + r).toFixed(1)}Z`, class: cls }, parent);
-  }
-  return el(doc, "path", { d: `M${(cx - r).toFixed(1)},${(cy - r).toFixed(1)}L${(cx + r).toFixed(1)},${(cy + r).toFixed(1)}M${(cx + r).toFixed(1)},${(cy - r).toFixed(1)}L${(cx - r).toFixed(1)},${(cy + r).toFixed(1)}`, class: cls }, parent);
-}
-
-/** About five round tick values from lo to hi. */
-export function ticks(lo, hi, count = 5) {
-  const span = hi - lo;
-  if (!(span > 0)) return [lo];
-  const raw = span / count;
-  const mag = 10 ** Math.floor(Math.log10(raw));
-  const step = [1, 2, 5, 10].map((m) => m * mag).find((s) => s >= raw);
-  const out = [];
-  for (let v = Math.ceil(lo / step) * step; v <= hi + 1e-9 * span; v += step) out.push(Number(v.toPrecision(12)));
-  return out;
-}
-
-/**
- * The rating chart: discharge on x, stage on y (the way ratings are usually
- * drawn; common practice). The curve in force at `now` (ms) as a line, the
- * band shaded, the gaugings as points shaped by quality.
- */
+// The chart: discharge on x, stage on y (as ratings are usually drawn;
+// common practice); the curve in force at `now` (ms), its band shaded, the
+// gaugings shaped by quality.
 export function ratingChart(doc, { name, ratings, gaugings, now, titleId }) {
   const inForce = curveAt(ratings, now);
   const W = 560;
@@ -173,12 +132,11 @@ export function ratingChart(doc, { name, ratings, gaugings, now, titleId }) {
   const q = stages.map((h) => dischargeAt(inForce.curve, h));
   const b = band(inForce.curve, stages, rms);
   const qs = [...q, ...(b ? b.high : []), ...devs.map((g) => g.discharge_m3s)].filter((v) => v != null && Number.isFinite(v));
-  const qMax = Math.max(1, ...qs) * 1.05;
-  const hLo = stages[0];
-  const hHi = stages[stages.length - 1];
-  const x = (v) => m.l + ((W - m.l - m.r) * v) / qMax;
-  const y = (v) => H - m.b - ((H - m.t - m.b) * (v - hLo)) / (hHi - hLo || 1);
-  axes(doc, svg, { x, y, qMax, hLo, hHi, W, H, m });
+  const qa = niceTicks(0, Math.max(1, ...qs));
+  const ha = niceTicks(stages[0], stages[stages.length - 1]);
+  const x = (v) => m.l + ((W - m.l - m.r) * v) / qa.max;
+  const y = (v) => H - m.b - ((H - m.t - m.b) * (v - ha.min)) / (ha.max - ha.min);
+  axes(doc, svg, { x, y, qa, ha, W, H, m });
   if (b) {
     const pts = [];
     stages.forEach((h, i) => b.high[i] != null && pts.push(`${x(b.high[i]).toFixed(1)},${y(h).toFixed(1)}`));
@@ -188,23 +146,19 @@ export function ratingChart(doc, { name, ratings, gaugings, now, titleId }) {
   el(doc, "path", { d: pathOf(q, stages, x, y), class: "rating-curve", fill: "none" }, svg);
   const g = el(doc, "g", { class: "gaugings" }, svg);
   for (const d of devs) {
-    const shape = QUALITY_SHAPES[d.quality] || "circle";
-    const mk = marker(doc, g, shape, x(d.discharge_m3s), y(d.stage_m), `gauging q-${d.quality}`);
-    const dev = d.deviation_pct == null ? "no deviation (outside the curve)" : `${d.deviation_pct >= 0 ? "+" : ""}${d.deviation_pct.toFixed(1)} %`;
-    el(doc, "title", {}, mk, `${d.time}: ${d.stage_m.toFixed(2)} m, ${d.discharge_m3s.toFixed(2)} m³/s, ${d.quality}, ${dev}`);
+    const at = `translate(${x(d.discharge_m3s).toFixed(1)},${y(d.stage_m).toFixed(1)})`;
+    const mk = el(doc, "path", { d: MARKS[d.quality] || MARKS.excellent, transform: at, class: `gauging q-${d.quality}` }, g);
+    const dev = d.deviation_pct == null ? "" : `, ${d.deviation_pct.toFixed(1)} %`;
+    el(doc, "title", {}, mk, `${d.time}: ${d.stage_m} m, ${d.discharge_m3s} m³/s, ${d.quality}${dev}`);
   }
   return svg;
 }
 
-function axes(doc, svg, { x, y, qMax, hLo, hHi, W, H, m }) {
+function axes(doc, svg, { x, y, qa, ha, W, H, m }) {
   const g = el(doc, "g", { class: "axes" }, svg);
   el(doc, "path", { d: `M${m.l},${m.t}V${H - m.b}H${W - m.r}`, class: "axis", fill: "none" }, g);
-  for (const v of ticks(0, qMax)) {
-    el(doc, "text", { x: x(v).toFixed(1), y: H - m.b + 16, "text-anchor": "middle", class: "tick" }, g, String(v));
-  }
-  for (const v of ticks(hLo, hHi)) {
-    el(doc, "text", { x: m.l - 6, y: (y(v) + 4).toFixed(1), "text-anchor": "end", class: "tick" }, g, v.toFixed(2));
-  }
+  for (const v of qa.ticks) el(doc, "text", { x: x(v).toFixed(1), y: H - m.b + 16, "text-anchor": "middle", class: "tick" }, g, v.toFixed(qa.decimals));
+  for (const v of ha.ticks) el(doc, "text", { x: m.l - 6, y: (y(v) + 4).toFixed(1), "text-anchor": "end", class: "tick" }, g, v.toFixed(ha.decimals));
   el(doc, "text", { x: (m.l + W - m.r) / 2, y: H - 6, "text-anchor": "middle", class: "axis-label" }, g, "Discharge (m³/s)");
   el(doc, "text", { x: 14, y: (m.t + H - m.b) / 2, "text-anchor": "middle", class: "axis-label", transform: `rotate(-90 14 ${(m.t + H - m.b) / 2})` }, g, "Stage (m)");
 }

@@ -9,7 +9,7 @@
 import { test } from "node:test";
 import assert from "node:assert/strict";
 
-import { band, curveAt, deviations, dischargeAt, hasRating, ratingLines, rmsDeviation, shiftAt, stageRange, ticks } from "../../static/js/rating.js";
+import { band, curveAt, deviations, dischargeAt, hasRating, ratingLines, rmsDeviation, shiftAt, stageRange } from "../../static/js/rating.js";
 
 const close = (a, b, tol = 1e-9) => assert.ok(Math.abs(a - b) <= tol, `${a} vs ${b}`);
 const power = (c, e, b) => ({ kind: "power", segments: [{ c, e, b }] });
@@ -106,7 +106,6 @@ test("the stage range covers the curve's zero flow and every gauging", () => {
   assert.ok(s[10] > 22);
   const t = stageRange({ kind: "table", points: [[1, 0], [4, 9]] }, [], 3);
   assert.deepEqual(t, [1, 2, 3, 4]);
-  assert.deepEqual(ticks(0, 10), [0, 2, 4, 6, 8, 10]);
 });
 
 test("the text names the versions, the shifts in force and the gaugings' RMS", () => {
