@@ -221,11 +221,13 @@ function renderRatings(rated) {
     return;
   }
   const now = Date.now();
+  const zone = currentReach()?.time_zone;
+  const at = (t) => formatTime(t, zone);
   $("ratings-body").replaceChildren(...rated.map(({ gauge, ratings, gaugings }, i) =>
     h("section", { class: "rating-gauge", "data-gauge": gauge.id },
       h("h3", { text: gauge.name }),
       h("div", { class: "chart-box" }, ratingChart(document, { name: gauge.name, ratings, gaugings, now, titleId: `rating-title-${i}` })),
-      h("ul", { class: "rating-lines" }, ...ratingLines(ratings, gaugings, now).map((t) => h("li", { text: t }))))));
+      h("ul", { class: "rating-lines" }, ...ratingLines(ratings, gaugings, now, at).map((t) => h("li", { text: t }))))));
 }
 
 /**

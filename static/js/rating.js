@@ -163,17 +163,17 @@ function axes(doc, svg, { x, y, qa, ha, W, H, m }) {
   el(doc, "text", { x: 14, y: (m.t + H - m.b) / 2, "text-anchor": "middle", class: "axis-label", transform: `rotate(-90 14 ${(m.t + H - m.b) / 2})` }, g, "Stage (m)");
 }
 
-/** The short text beside a gauge's chart, one line per item. */
-export function ratingLines(ratings, gaugings, now) {
+/** The text beside a gauge's chart, one line per item; `at` words a time. */
+export function ratingLines(ratings, gaugings, now, at = (t) => t) {
   const lines = [];
   const versions = ratings?.versions || [];
   const inForce = curveAt(ratings, now);
   if (!versions.length) lines.push("No rating versions: the gauge's own curve is in force.");
-  for (const v of versions) lines.push(`Version ${v.version}, valid from ${v.valid_from}: ${v.note}`);
+  for (const v of versions) lines.push(`Version ${v.version}, valid from ${at(v.valid_from)}: ${v.note}`);
   if (inForce) lines.push(`In force now: ${inForce.version == null ? "the gauge's own curve" : `version ${inForce.version}`}.`);
   const shifts = shiftsInForce(ratings, now);
   if (shifts.length) {
-    for (const s of shifts) lines.push(`Shift in force: ${s.offset_m >= 0 ? "+" : ""}${s.offset_m.toFixed(2)} m from ${s.from}${s.to ? ` to ${s.to}` : ""} (${s.reason}).`);
+    for (const s of shifts) lines.push(`Shift in force: ${s.offset_m >= 0 ? "+" : ""}${s.offset_m.toFixed(2)} m from ${at(s.from)}${s.to ? ` to ${at(s.to)}` : ""} (${s.reason}).`);
   } else {
     lines.push("No shift in force.");
   }

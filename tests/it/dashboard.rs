@@ -2896,3 +2896,32 @@ async fn rating_chart_shows_the_curve_the_gaugings_and_the_band() {
     drop(b);
     s.app.stop().await;
 }
+
+/// A reach whose only gauge measures discharge, with no rating: no chart,
+/// one muted line saying so.
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn rating_section_says_so_when_no_gauge_has_a_rating() {
+    let _one = BROWSER.lock().await;
+    let s = bridge_app_without_forecast().await;
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/")).await;
+    let line = b
+        .wait_for(
+            "the no-rating line",
+            "const p = document.querySelector('#ratings-body p.muted'); return p && !p.textContent.startsWith('Loading') ? p.textContent : null",
+            30,
+        )
+        .await;
+    assert_eq!(line, "No gauge on this reach has a rating curve.");
+    let charts = b
+        .eval("return document.querySelectorAll('#ratings-body svg').length")
+        .await;
+    assert_eq!(charts, 0);
+    let errors = b
+        .page_errors(&["/api/reaches/test-reach/forecast?units=si - Failed to load resource: the server responded with a status of 404"])
+        .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}

@@ -117,7 +117,9 @@ test("the text names the versions, the shifts in force and the gaugings' RMS", (
   const lines = ratingLines(ratings, [{ time: iso(T0 + 1), stage_m: 20, discharge_m3s: 22, quality: "good" }], T0 + 10);
   assert.ok(lines.includes(`Version 1, valid from ${iso(T0)}: refit after the flood`), lines.join("\n"));
   assert.ok(lines.includes("In force now: version 1."));
-  assert.ok(lines.some((l) => l.startsWith("Shift in force: -0.05 m")));
+  assert.ok(lines.some((l) => l.startsWith(`Shift in force: -0.05 m from ${iso(T0)} (weed growth)`)));
+  const worded = ratingLines(ratings, [], T0 + 10, (t) => `<${t}>`);
+  assert.ok(worded.includes(`Version 1, valid from <${iso(T0)}>: refit after the flood`), "times go through the caller's wording");
   // at 20 − 0.05 m: 20 · 0.95^1.5 = 18.5187; 22 / 18.5187 − 1 = +18.8 %
   assert.ok(lines.includes("1 gauging; RMS deviation from the curve in force at each: 18.8 %."), lines.join("\n"));
   assert.ok(ratingLines({ base: power(1, 0, 1), versions: [], shifts: [] }, [], T0).includes("No gaugings yet, so no deviation band."));
