@@ -12,6 +12,7 @@ import { $, h, HttpError, readBody } from "./js/dom.js";
 import { serviceProblem } from "./js/service.js";
 import { BAND, bandTraces, chanceLines, crestRangeText, defaultsNote, ensembleSummary, onlyInScenarios, percentileName, rangeNote } from "./js/ensemble.js";
 import { loadUploads, wireForecaster } from "./js/forecaster.js";
+import { hasRating, ratingChart, ratingLines } from "./js/rating.js";
 import { bandRows, correctionText, crestLine, levelLines, skillChart, trackRecord } from "./js/verification.js";
 
 const params = new URLSearchParams(location.search);
@@ -90,6 +91,7 @@ async function refresh() {
       await refreshForecast();
       if (state.forecast) await refreshProfile();
       await refreshVerification();
+      await refreshRatings();
     }
     state.lastOk = Date.now();
     state.misses = state.forecast ? 0 : state.misses + 1;
@@ -188,6 +190,44 @@ function verificationPoint(p, i) {
     crest ? h("p", { text: crest }) : null,
     lines.length ? h("ul", { class: "level-record" }, ...lines.map((t) => h("li", { text: t }))) : h("p", { class: "muted", text: "No run's whole window has been observed yet: no crest or level record." }),
   );
+}
+
+/**
+ * The ratings of the current reach's gauges that have one. On any failure
+ * the section says it could not be read; the rest of the page stays.
+ */
+async function refreshRatings() {
+  const reach = state.reachId;
+  try {
+    const { body } = await getJson("/api/gauges");
+    const gauges = (Array.isArray(body) ? body : []).filter((g) => g.reach === reach);
+    const rated = [];
+    for (const g of gauges) {
+      const base = `/api/gauges/${encodeURIComponent(g.id)}`;
+      const ratings = (await getJson(`${base}/ratings`)).body;
+      if (!hasRating(ratings)) continue;
+      const gaugings = (await getJson(`${base}/gaugings`)).body.gaugings || [];
+      rated.push({ gauge: g, ratings, gaugings });
+    }
+    if (reach === state.reachId) renderRatings(rated);
+  } catch (err) {
+    $("ratings-body").replaceChildren(h("p", { class: "muted", text: `The ratings could not be read (${err.message}).` }));
+  }
+}
+
+function renderRatings(rated) {
+  if (!rated.length) {
+    $("ratings-body").replaceChildren(h("p", { class: "muted", text: "No gauge on this reach has a rating curve." }));
+    return;
+  }
+  const now = Date.now();
+  const zone = currentReach()?.time_zone;
+  const at = (t) => formatTime(t, zone);
+  $("ratings-body").replaceChildren(...rated.map(({ gauge, ratings, gaugings }, i) =>
+    h("section", { class: "rating-gauge", "data-gauge": gauge.id },
+      h("h3", { text: gauge.name }),
+      h("div", { class: "chart-box" }, ratingChart(document, { name: gauge.name, ratings, gaugings, now, titleId: `rating-title-${i}` })),
+      h("ul", { class: "rating-lines" }, ...ratingLines(ratings, gaugings, now, at).map((t) => h("li", { text: t }))))));
 }
 
 /**

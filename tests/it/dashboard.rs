@@ -2794,3 +2794,134 @@ async fn the_track_record_is_shown_beside_each_forecast_and_in_its_own_section()
     drop(b);
     s.app.stop().await;
 }
+
+/// Script: what the rating section of the first rated gauge shows.
+const RATING_SECTION: &str = r#"
+const s = document.querySelector('#ratings-body .rating-gauge');
+if (!s) return null;
+const svg = s.querySelector('svg.rating-chart');
+return { gauge: s.dataset.gauge, points: svg.querySelectorAll('.gaugings .gauging').length,
+         curve: svg.querySelector('.rating-curve')?.getAttribute('d') || '',
+         band: svg.querySelector('.rating-band')?.getAttribute('d') || '',
+         title: svg.querySelector('title')?.textContent || '', labels: svg.textContent,
+         text: s.querySelector('.rating-lines').textContent,
+         sections: document.querySelectorAll('#ratings-body .rating-gauge').length };
+"#;
+
+/// The references are the curve itself, Q = 10 (h − 19)^1.5 evaluated by
+/// hand, and the definition of a root mean square: gaugings alternately
+/// 2 % above and below the gauge's own curve, in force when they were
+/// made, deviate by exactly ±2 %, so their RMS deviation is 2.0 %.
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn rating_chart_shows_the_curve_the_gaugings_and_the_band() {
+    let _one = BROWSER.lock().await;
+    let reach = bridge_reach("Rating reach (invented)", "Test Bridge", "rated-gauge");
+    let curve = |c: f64| json!({"kind": "power", "segments": [{"c": c, "e": 19.0, "b": 1.5}]});
+    let gauge = json!({"name": "Rated stage gauge (invented)", "reach": "rating-reach", "chainage_m": 0.0,
+                       "measures": "stage", "stage_min_m": 19.0, "stage_max_m": 30.0,
+                       "max_rise_m_per_h": 2.0, "rating_curve": curve(10.0)});
+    let s = ReachApp::start(
+        |c| c.forecast.debounce_ms = 600_000,
+        ("rating-reach", &reach),
+        ("rated-gauge", &gauge),
+    )
+    .await;
+    let now = chrono::Utc::now();
+    let gaugings: Vec<Value> = (0..12)
+        .map(|k| {
+            let h = 19.4 + 0.25 * f64::from(k);
+            let q = 10.0 * (h - 19.0f64).powf(1.5) * if k % 2 == 0 { 1.02 } else { 0.98 };
+            let t = now - chrono::Duration::days(20) + chrono::Duration::hours(i64::from(k));
+            let quality = ["excellent", "good", "fair", "poor"][k as usize % 4];
+            json!({"time": t.to_rfc3339(), "stage_m": h, "discharge_m3s": q,
+                   "method": "current meter", "quality": quality})
+        })
+        .collect();
+    let key = &s.keys.forecaster;
+    let posted = s
+        .app
+        .post_json(
+            key,
+            "/api/gauges/rated-gauge/gaugings",
+            &json!({ "gaugings": gaugings }),
+        )
+        .await;
+    assert_success(posted).await;
+    let version = json!({"valid_from": (now - chrono::Duration::hours(1)).to_rfc3339(),
+                         "curve": curve(10.5), "note": "refit after the spring gaugings (invented)"});
+    let posted = s
+        .app
+        .post_json(key, "/api/gauges/rated-gauge/ratings", &version)
+        .await;
+    assert_success(posted).await;
+
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/")).await;
+    let shown = b.wait_for("the rating section", RATING_SECTION, 30).await;
+    assert_eq!(shown["gauge"], "rated-gauge", "{shown}");
+    assert_eq!(shown["sections"], 1, "{shown}");
+    assert_eq!(shown["points"], 12, "one point per gauging: {shown}");
+    let curve_d = shown["curve"].as_str().unwrap_or_default();
+    assert!(
+        curve_d.starts_with('M') && curve_d.matches('L').count() > 10,
+        "{shown}"
+    );
+    assert!(
+        shown["band"].as_str().unwrap_or_default().ends_with('Z'),
+        "{shown}"
+    );
+    let title = shown["title"].as_str().unwrap_or_default();
+    assert!(
+        title.contains("version 1 in force now, 12 gaugings, band ± 2.0 %"),
+        "{title}"
+    );
+    let labels = shown["labels"].as_str().unwrap_or_default();
+    assert!(
+        labels.contains("Discharge (m³/s)") && labels.contains("Stage (m)"),
+        "{labels}"
+    );
+    let text = shown["text"].as_str().unwrap_or_default();
+    assert!(text.contains("Version 1, valid from"), "{text}");
+    assert!(text.contains("refit after the spring gaugings"), "{text}");
+    assert!(
+        text.contains("12 gaugings; RMS deviation from the curve in force at each: 2.0 %"),
+        "{text}"
+    );
+    b.screenshot("rating-chart.png", Some("#ratings")).await;
+    let errors = b
+        .page_errors(&["/api/reaches/rating-reach/forecast?units=si - Failed to load resource: the server responded with a status of 404"])
+        .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
+
+/// A reach whose only gauge measures discharge, with no rating: no chart,
+/// one muted line saying so.
+#[tokio::test]
+#[ignore = "needs chromium and chromium-driver (apt-get install chromium chromium-driver)"]
+async fn rating_section_says_so_when_no_gauge_has_a_rating() {
+    let _one = BROWSER.lock().await;
+    let s = bridge_app_without_forecast().await;
+    let b = Browser::start().await;
+    b.goto(&s.app.url("/")).await;
+    let line = b
+        .wait_for(
+            "the no-rating line",
+            "const p = document.querySelector('#ratings-body p.muted'); return p && !p.textContent.startsWith('Loading') ? p.textContent : null",
+            30,
+        )
+        .await;
+    assert_eq!(line, "No gauge on this reach has a rating curve.");
+    let charts = b
+        .eval("return document.querySelectorAll('#ratings-body svg').length")
+        .await;
+    assert_eq!(charts, 0);
+    let errors = b
+        .page_errors(&["/api/reaches/test-reach/forecast?units=si - Failed to load resource: the server responded with a status of 404"])
+        .await;
+    assert!(errors.is_empty(), "console errors: {errors:#?}");
+    drop(b);
+    s.app.stop().await;
+}
