@@ -176,7 +176,7 @@ pub async fn seed(store: &Store) -> Result<(), DemoError> {
                 0,
             )
             .await?;
-        if store.newest_upload(REACH_ID).await?.is_none() {
+        if store.newest_upload(REACH_ID, None).await?.is_none() {
             let series = Hydrograph::parse(
                 storm
                     .iter()
@@ -193,6 +193,7 @@ pub async fn seed(store: &Store) -> Result<(), DemoError> {
                     },
                     "demo: synthetic storm hydrograph issued by the built-in demo forecaster",
                     DEMO_KEY_ID,
+                    None,
                 )
                 .await?;
         }

@@ -160,18 +160,22 @@ pub struct RunProvenance {
 pub struct LateralProvenance {
     /// The tributary's name in the reach description.
     pub name: String,
-    pub gauge: String,
-    /// The assembly from the gauge's readings; `None` when the gauge could
-    /// not be used.
+    /// Its gauge; `None` for a tributary fed by an upload alone.
+    pub gauge: Option<String>,
+    /// The assembly from the gauge's readings (and the upload after
+    /// them); `None` when the gauge could not be used.
     pub inflow: Option<assemble::Provenance>,
-    /// Why the reach description's own hydrograph was used instead.
+    /// The version of the upload for this tributary that was used.
+    pub upload_version: Option<i64>,
+    /// Why something other than the gauge was used.
     pub fallback: Option<String>,
 }
 
 impl LateralProvenance {
-    /// The gauge was silent (or unusable) when the run was made.
+    /// The tributary's gauge was silent (or unusable) when the run was
+    /// made; never for a tributary without a gauge.
     pub fn stale(&self) -> bool {
-        self.inflow.as_ref().is_none_or(|i| i.stale)
+        self.gauge.is_some() && self.inflow.as_ref().is_none_or(|i| i.stale)
     }
 }
 

@@ -130,7 +130,7 @@ pub(super) async fn freshness_of(
             .laterals
             .iter()
             .filter(|t| t.stale())
-            .map(|t| format!("{} ({})", t.name, t.gauge))
+            .map(|t| format!("{} ({})", t.name, t.gauge.as_deref().unwrap_or("-")))
             .collect(),
     }))
 }

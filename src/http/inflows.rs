@@ -84,6 +84,9 @@ struct TraceBody {
 struct UploadParams {
     reason: Option<String>,
     dry_run: Option<bool>,
+    /// The tributary the upload is for (`laterals[].name`); absent: the
+    /// upstream inflow.
+    boundary: Option<String>,
 }
 
 /// Query parameters of a download.
@@ -148,7 +151,21 @@ async fn upload(
     Params(params): Params<UploadParams>,
     body: Bytes,
 ) -> Result<Response, ApiError> {
-    super::reaches::find_reach(&state, &reach).await?;
+    let version = super::reaches::find_reach(&state, &reach).await?;
+    if let Some(b) = &params.boundary
+        && !version.spec.laterals.iter().any(|l| &l.name == b)
+    {
+        let names: Vec<&str> = version
+            .spec
+            .laterals
+            .iter()
+            .map(|l| l.name.as_str())
+            .collect();
+        let detail = format!(
+            "`{b}` is not a tributary of this reach (its tributaries: {names:?}); leave `boundary` out for the upstream inflow"
+        );
+        return Err(Problem::invalid("boundary", detail).into());
+    }
     let media = headers
         .get(header::CONTENT_TYPE)
         .and_then(|v| v.to_str().ok())
@@ -176,6 +193,10 @@ async fn upload(
     if series.len() > MAX_POINTS {
         return Err(Problem::invalid("series", format!("at most {MAX_POINTS} samples")).into());
     }
+    if params.dry_run == Some(true) && params.boundary.is_some() {
+        let detail = "a dry run previews the join with the upstream gauge only";
+        return Err(Problem::invalid("dry_run", detail).into());
+    }
     if params.dry_run == Some(true) {
         let join = state
             .forecaster
@@ -191,14 +212,20 @@ async fn upload(
     }
     let version = state
         .store
-        .insert_upload(&reach, &inflow, &reason, auth.caller().key_id())
+        .insert_upload(
+            &reach,
+            &inflow,
+            &reason,
+            auth.caller().key_id(),
+            params.boundary.as_deref(),
+        )
         .await?;
     state.forecaster.data_arrived(&reach);
     Ok((
         StatusCode::CREATED,
         Json(serde_json::json!({
             "reach": reach, "version": version, "points": series.len(),
-            "traces": inflow.traces.names(),
+            "traces": inflow.traces.names(), "boundary": params.boundary,
         })),
     )
         .into_response())
@@ -220,6 +247,8 @@ struct UploadView<'a> {
     points: usize,
     /// The names of its extra traces, in upload order.
     traces: Vec<String>,
+    /// The tributary it is for; `null`: the upstream inflow.
+    boundary: Option<&'a str>,
 }
 
 impl<'a> UploadView<'a> {
@@ -235,6 +264,7 @@ impl<'a> UploadView<'a> {
             withdrawn_at: u.withdrawn_at,
             points: u.series.len(),
             traces: u.traces.names(),
+            boundary: u.boundary.as_deref(),
         }
     }
 }
@@ -260,7 +290,7 @@ async fn find_upload(
     version: &str,
 ) -> Result<InflowUpload, ApiError> {
     let found = if version == "current" {
-        state.store.newest_upload(reach).await?
+        state.store.newest_upload(reach, None).await?
     } else {
         let v: i64 = version.parse().map_err(|_| {
             Problem::invalid(

@@ -110,7 +110,11 @@ impl Forecaster {
         let Some(knowledge) = basis.hindcast else {
             let reach = store.latest_reach(reach_id).await?.ok_or_else(missing)?;
             let provenance = self.provenance(&reach);
-            return Ok((reach, provenance, store.newest_upload(reach_id).await?));
+            return Ok((
+                reach,
+                provenance,
+                store.newest_upload(reach_id, None).await?,
+            ));
         };
         let (reach, first) = store
             .reach_as_of(reach_id, basis.issued)
@@ -122,7 +126,7 @@ impl Forecaster {
             knowledge,
             first_version_used: first,
         });
-        let upload = store.upload_as_of(reach_id, basis.issued).await?;
+        let upload = store.upload_as_of(reach_id, basis.issued, None).await?;
         Ok((reach, provenance, upload))
     }
 

@@ -40,6 +40,9 @@ pub struct InflowUpload {
     pub uploaded_by_name: Option<String>,
     /// Whether this is the upload in force: the one the next run uses.
     pub in_force: bool,
+    /// The tributary it is for (`laterals[].name`); `None`: the upstream
+    /// inflow.
+    pub boundary: Option<String>,
 }
 
 /// `SELECT` of uploads as `upload_from_row` reads them, from
@@ -51,9 +54,10 @@ macro_rules! select_uploads {
     ($tail:literal) => {
         concat!(
             "SELECT f.id, f.version, f.uploaded_at, f.uploaded_by, f.reason, f.withdrawn,
-                    f.withdrawn_at, f.series, f.traces, k.name AS uploaded_by_name,
+                    f.withdrawn_at, f.series, f.traces, f.boundary, k.name AS uploaded_by_name,
                     f.version IS (SELECT MAX(version) FROM inflow_forecasts
-                                  WHERE reach_id = ?1 AND withdrawn = 0) AS in_force
+                                  WHERE reach_id = ?1 AND withdrawn = 0
+                                    AND boundary IS f.boundary) AS in_force
              FROM inflow_forecasts f LEFT JOIN api_keys k ON k.id = f.uploaded_by ",
             $tail
         )
@@ -231,13 +235,15 @@ impl Store {
         rows.iter().map(reach_from_row).collect()
     }
 
-    /// Stores a revised inflow forecast as the next version for the reach.
+    /// Stores a revised inflow forecast as the next version for the reach,
+    /// for `boundary` (a tributary's name; `None`: the upstream inflow).
     pub async fn insert_upload(
         &self,
         reach_id: &str,
         inflow: &Inflow,
         reason: &str,
         key_id: &str,
+        boundary: Option<&str>,
     ) -> Result<i64, StoreError> {
         let r = async {
         let series = &inflow.series;
@@ -255,8 +261,9 @@ impl Store {
         .fetch_one(&mut *tx)
         .await?;
         sqlx::query(
-            "INSERT INTO inflow_forecasts (reach_id, version, uploaded_at, uploaded_by, reason, series, traces)
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+            "INSERT INTO inflow_forecasts (reach_id, version, uploaded_at, uploaded_by, reason, series, traces,
+                 boundary)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
         )
         .bind(reach_id)
         .bind(version)
@@ -265,6 +272,7 @@ impl Store {
         .bind(reason)
         .bind(&json)
         .bind(&traces)
+        .bind(boundary)
         .execute(&mut *tx)
         .await?;
         audit::record(
@@ -275,7 +283,7 @@ impl Store {
                 target: reach_id.to_owned(),
                 summary: serde_json::json!({
                     "version": version, "points": series.len(), "reason": reason,
-                    "traces": inflow.traces.names(),
+                    "traces": inflow.traces.names(), "boundary": boundary,
                 }),
             },
         )
@@ -336,11 +344,18 @@ impl Store {
     }
 
     /// The upload in force: the newest one that has not been withdrawn.
-    pub async fn newest_upload(&self, reach_id: &str) -> Result<Option<InflowUpload>, StoreError> {
-        let row = sqlx::query(select_uploads!("WHERE f.reach_id = ?1 AND in_force"))
-            .bind(reach_id)
-            .fetch_optional(&self.pool)
-            .await?;
+    pub async fn newest_upload(
+        &self,
+        reach_id: &str,
+        boundary: Option<&str>,
+    ) -> Result<Option<InflowUpload>, StoreError> {
+        let row = sqlx::query(select_uploads!(
+            "WHERE f.reach_id = ?1 AND in_force AND f.boundary IS ?2"
+        ))
+        .bind(reach_id)
+        .bind(boundary)
+        .fetch_optional(&self.pool)
+        .await?;
         row.as_ref().map(upload_from_row).transpose()
     }
 
@@ -364,14 +379,16 @@ impl Store {
         &self,
         reach_id: &str,
         at: DateTime<Utc>,
+        boundary: Option<&str>,
     ) -> Result<Option<InflowUpload>, StoreError> {
         let row = sqlx::query(select_uploads!(
             "WHERE f.reach_id = ?1 AND f.uploaded_at <= ?2
-               AND (f.withdrawn = 0 OR f.withdrawn_at > ?2)
+               AND (f.withdrawn = 0 OR f.withdrawn_at > ?2) AND f.boundary IS ?3
              ORDER BY f.version DESC LIMIT 1"
         ))
         .bind(reach_id)
         .bind(crate::wire_time::format(at))
+        .bind(boundary)
         .fetch_optional(&self.pool)
         .await?;
         row.as_ref().map(upload_from_row).transpose()
@@ -619,6 +636,7 @@ fn upload_from_row(row: &sqlx::sqlite::SqliteRow) -> Result<InflowUpload, StoreE
         },
         uploaded_by_name: row.try_get("uploaded_by_name")?,
         in_force: row.try_get::<i64, _>("in_force")? != 0,
+        boundary: row.try_get("boundary")?,
     })
 }
 

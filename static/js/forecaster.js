@@ -207,7 +207,7 @@ function uploadRow(u, zone) {
     version,
     h("td", { text: formatTime(u.uploaded_at, zone) }),
     h("td", { text: u.uploaded_by_name ?? `key ${u.uploaded_by}` }),
-    h("td", { text: u.reason }),
+    h("td", { text: u.boundary ? `${u.reason} (for the tributary ${u.boundary})` : u.reason }),
     h("td", { class: "num", text: u.points }),
     cell,
   );

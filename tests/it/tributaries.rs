@@ -167,3 +167,50 @@ async fn an_unusable_tributary_gauge_falls_back_or_fails_naming_the_tributary() 
     );
     s.app.stop().await;
 }
+
+#[tokio::test]
+async fn an_upload_names_its_tributary() {
+    // A tributary gauge that has never reported, and no hydrograph of its
+    // own: the upload for that tributary (15 m³/s) is what it carries.
+    let s = setup(json!({"name": "Mill Brook", "chainage": 2000.0, "gauge": TRIBUTARY})).await;
+    let now = Utc::now();
+    assert_success(
+        s.app
+            .post_readings(&s.keys.gauge, UPSTREAM, &steady(40.0, now))
+            .await,
+    )
+    .await;
+    let series: Vec<Value> = (-7..=7)
+        .map(|h| json!({"time": (now + Duration::hours(h)).to_rfc3339(), "discharge": 15.0}))
+        .collect();
+    let body = json!({"reason": "tributary forecast (invented)", "series": series});
+    let path = |q: &str| format!("/api/reaches/{REACH}/inflows{q}");
+    let res = s
+        .app
+        .post_json(&s.keys.forecaster, &path("?boundary=Mill%20Brook"), &body)
+        .await;
+    let v: Value = serde_json::from_str(&body_of(res, 201).await).expect("json");
+    assert_eq!(v["boundary"], "Mill Brook");
+    // Not a tributary of this reach: refused naming the parameter.
+    let res = s
+        .app
+        .post_json(&s.keys.forecaster, &path("?boundary=Nowhere%20Beck"), &body)
+        .await;
+    let p = crate::common::problem(res, 422).await;
+    assert_eq!(p["field"], "boundary");
+    // The upstream inflow has no upload: the tributary's is not mistaken
+    // for it.
+    let res = s.app.get(&path("/current")).await;
+    assert_eq!(res.status(), 404);
+    let (_, list) = s.app.get_json(&path("")).await;
+    assert_eq!(list["uploads"][0]["boundary"], "Mill Brook", "{list}");
+    assert_eq!(list["uploads"][0]["in_force"], true);
+
+    let (f, run) = run_once(&s).await;
+    assert_eq!(run["status"], "ok", "{run}");
+    let lat = &run["provenance"]["laterals"][0];
+    assert_eq!(lat["upload_version"], v["version"], "{lat}");
+    let q = f["points"][0]["peak_discharge"].as_f64().expect("peak");
+    assert!((q - 55.0).abs() < 1.0, "40 + 15 m³/s: {q}");
+    s.app.stop().await;
+}
