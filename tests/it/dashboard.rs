@@ -1503,6 +1503,24 @@ async fn first_forecast_appears_soon_after_the_page_opened_without_one() {
     )
     .await;
     b.eval("window.__noReload = 'still here'").await;
+    // The worker's first run (at the reach's creation, before any reading)
+    // must be over before the readings arrive, or on a loaded machine it
+    // could read them and land a forecast before the test's own run.
+    let deadline = Instant::now() + Duration::from_secs(60);
+    loop {
+        let (_, runs) = s.app.get_json("/api/reaches/test-reach/runs").await;
+        let done = runs["runs"]
+            .as_array()
+            .is_some_and(|r| !r.is_empty() && r.iter().all(|x| x["status"] != "running"));
+        if done {
+            break;
+        }
+        assert!(
+            Instant::now() < deadline,
+            "the first run never finished: {runs}"
+        );
+        tokio::time::sleep(Duration::from_millis(100)).await; // poll interval
+    }
     assert_success(
         s.app
             .post_readings(&s.keys.gauge, "test-gauge", &steady_readings(40.0))
