@@ -71,6 +71,77 @@ pub enum Command {
     /// current forecast, never alerting) and verified; safe while the
     /// service runs.
     Hindcast(HindcastArgs),
+    /// Fit a rating (one power segment Q = C (h - e)^b) to gaugings in a
+    /// CSV file (`time,stage_m,discharge_m3s,method,quality`, as
+    /// `GET /api/gauges/{gauge}/gaugings?format=csv` exports them) and print
+    /// it with each gauging's deviation; uses no database.
+    FitRating(FitRatingArgs),
+}
+
+#[derive(Debug, Args, Clone)]
+pub struct FitRatingArgs {
+    /// The gaugings (CSV).
+    #[arg(long, value_name = "FILE")]
+    pub gaugings: PathBuf,
+    /// Keep gaugings rated poor (left out by default).
+    #[arg(long)]
+    pub keep_poor: bool,
+    /// Write the fitted curve here as JSON (the `curve` of a rating
+    /// version: POST it to /api/gauges/{gauge}/ratings with `valid_from`).
+    #[arg(long, value_name = "FILE")]
+    pub out: Option<PathBuf>,
+}
+
+/// `reachcast fit-rating`: the fit and each gauging's deviation; what to
+/// print.
+pub fn run_fit_rating(args: &FitRatingArgs) -> anyhow::Result<String> {
+    use crate::gauge::ratings::{self, GaugingQuality, GaugingsCsvError};
+    use anyhow::Context;
+    let path = args.gaugings.display();
+    let body = std::fs::read(&args.gaugings).with_context(|| format!("reading {path}"))?;
+    let all = ratings::parse_gaugings_csv(&body).map_err(|e| match e {
+        GaugingsCsvError::Malformed(m) => anyhow::anyhow!("{path}: {m}"),
+        GaugingsCsvError::Row(r) => {
+            anyhow::anyhow!("{path}: row {}, {}: {}", r.row, r.field, r.message)
+        }
+    })?;
+    let chosen: Vec<_> = all
+        .into_iter()
+        .filter(|g| args.keep_poor || g.quality != GaugingQuality::Poor)
+        .collect();
+    let report = ratings::fit(&chosen).map_err(|e| anyhow::anyhow!("{path}: {e}"))?;
+    let f = &report.fit;
+    let caution = if f.e_at_search_limit {
+        "; the zero-flow stage sits at the search limit: treat e and b with caution"
+    } else {
+        ""
+    };
+    let mut out = format!(
+        "Q = {:.6} (h - {:.4})^{:.4}  from {} gaugings; RMS deviation {:.2} %, largest {:.2} %, r² (ln Q) {:.5}{caution}\n",
+        f.c,
+        f.e,
+        f.b,
+        f.n_points,
+        report.rms_deviation_pct,
+        100.0 * f.max_relative_error,
+        f.r_squared,
+    );
+    for (g, d) in chosen.iter().zip(&report.deviations_pct) {
+        out.push_str(&format!(
+            "  {}  h {:.3} m  Q {:.3} m³/s  {:+.2} %\n",
+            crate::wire_time::format(g.time),
+            g.stage_m,
+            g.discharge_m3s,
+            d
+        ));
+    }
+    if let Some(p) = &args.out {
+        let json = serde_json::to_string_pretty(&report.curve)?;
+        std::fs::write(p, json).with_context(|| format!("writing {}", p.display()))?;
+        out.push_str(&format!("curve written to {}\n", p.display()));
+    }
+    out.push_str("A proposal: review it before it becomes a rating version. Advisory.\n");
+    Ok(out)
 }
 
 #[derive(Debug, Args, Clone)]
@@ -439,7 +510,9 @@ impl Cli {
                 data_dir: k.data_dir.clone(),
             },
             None => self.serve.clone(),
-            Some(Command::Route(_) | Command::Calibrate(_)) => self.serve.clone(),
+            Some(Command::Route(_) | Command::Calibrate(_) | Command::FitRating(_)) => {
+                self.serve.clone()
+            }
             Some(Command::Backup(b)) => ServeArgs {
                 bind: None,
                 data_dir: b.data_dir.clone(),

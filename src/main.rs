@@ -34,6 +34,18 @@ fn main() -> ExitCode {
             }
         };
     }
+    if let Some(Command::FitRating(args)) = &cli.command {
+        return match reachcast::cli::run_fit_rating(args) {
+            Ok(text) => {
+                print!("{text}");
+                ExitCode::SUCCESS
+            }
+            Err(e) => {
+                eprintln!("reachcast fit-rating: {e:#}");
+                ExitCode::from(2)
+            }
+        };
+    }
     let args = cli.serve_args();
     let overrides = Overrides {
         bind: args.bind,

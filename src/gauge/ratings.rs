@@ -38,6 +38,66 @@ pub enum GaugingQuality {
     Poor,
 }
 
+/// Why a CSV of gaugings was refused.
+#[derive(Debug, Clone, PartialEq)]
+pub enum GaugingsCsvError {
+    /// Not CSV, or a header without the columns.
+    Malformed(String),
+    /// The first bad row.
+    Row(crate::row_error::RowError),
+}
+
+/// The CSV columns of gaugings, in order (the export writes them so).
+pub const GAUGINGS_CSV_HEADER: [&str; 5] =
+    ["time", "stage_m", "discharge_m3s", "method", "quality"];
+
+/// Parses gaugings from RFC 4180 CSV with the header
+/// [`GAUGINGS_CSV_HEADER`] (any order, `#` comment lines): RFC 3339 times,
+/// numbers, a method and a quality word. Ranges are checked by the caller,
+/// as for JSON.
+pub fn parse_gaugings_csv(body: &[u8]) -> Result<Vec<Gauging>, GaugingsCsvError> {
+    use crate::row_error::RowError;
+    let malformed =
+        |e: csv::Error| GaugingsCsvError::Malformed(format!("not valid CSV (RFC 4180): {e}"));
+    let mut reader = csv::ReaderBuilder::new()
+        .trim(csv::Trim::All)
+        .comment(Some(b'#'))
+        .from_reader(body);
+    let headers = reader.headers().map_err(malformed)?.clone();
+    let col = |n: &str| headers.iter().position(|h| h.eq_ignore_ascii_case(n));
+    let cols: Vec<usize> = GAUGINGS_CSV_HEADER.iter().filter_map(|n| col(n)).collect();
+    if cols.len() != GAUGINGS_CSV_HEADER.len() {
+        return Err(GaugingsCsvError::Malformed(format!(
+            "the header must name the columns {}; found `{}`",
+            GAUGINGS_CSV_HEADER.join(","),
+            headers.iter().collect::<Vec<_>>().join(",")
+        )));
+    }
+    let mut out = Vec::new();
+    for (i, rec) in reader.records().enumerate() {
+        let rec = rec.map_err(malformed)?;
+        let row = i + 1;
+        let cell = |k: usize| rec.get(cols[k]).unwrap_or("");
+        let bad = |k: usize, m: &str| {
+            GaugingsCsvError::Row(RowError::new(row, GAUGINGS_CSV_HEADER[k], m))
+        };
+        let time = DateTime::parse_from_rfc3339(cell(0))
+            .map(|t| t.with_timezone(&Utc))
+            .map_err(|_| bad(0, "not an RFC 3339 time with an offset"))?;
+        let number = |k: usize| cell(k).parse::<f64>().map_err(|_| bad(k, "not a number"));
+        let quality = serde_json::from_value(serde_json::Value::String(cell(4).to_owned()))
+            .map_err(|_| bad(4, "one of excellent, good, fair, poor"))?;
+        out.push(Gauging {
+            time,
+            stage_m: number(1)?,
+            discharge_m3s: number(2)?,
+            method: cell(3).to_owned(),
+            quality,
+        });
+    }
+    Ok(out)
+}
+
 /// A rating version: a curve valid from `valid_from` on.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct RatingVersion {
@@ -275,5 +335,37 @@ mod tests {
                 );
             }
         }
+    }
+
+    /// The CSV the API exports reads back to the same gaugings; a bad
+    /// cell names its row and column.
+    #[test]
+    fn gaugings_csv_reads_and_names_the_bad_cell() {
+        let text = "time,stage_m,discharge_m3s,method,quality\n\
+                    2026-03-14T06:00:00Z,20.5,31.25,acoustic-doppler,good\n\
+                    # a comment line\n\
+                    2026-03-14T09:00:00+01:00,21,45,current-meter,fair\n";
+        let g = parse_gaugings_csv(text.as_bytes()).unwrap();
+        assert_eq!(g.len(), 2);
+        let eight = DateTime::parse_from_rfc3339("2026-03-14T08:00:00Z").unwrap();
+        assert_eq!(
+            g[1].time,
+            eight.with_timezone(&Utc),
+            "the offset is applied"
+        );
+        assert_eq!((g[0].stage_m, g[0].discharge_m3s), (20.5, 31.25));
+        assert_eq!(g[1].quality, GaugingQuality::Fair);
+        let bad =
+            "time,stage_m,discharge_m3s,method,quality\n2026-03-14T06:00:00Z,20.5,lots,adcp,good\n";
+        match parse_gaugings_csv(bad.as_bytes()) {
+            Err(GaugingsCsvError::Row(e)) => {
+                assert_eq!((e.row, e.field.as_str()), (1, "discharge_m3s"))
+            }
+            other => panic!("{other:?}"),
+        }
+        assert!(matches!(
+            parse_gaugings_csv(b"time,stage\n"),
+            Err(GaugingsCsvError::Malformed(_))
+        ));
     }
 }

@@ -26,7 +26,7 @@ use super::{
 };
 use crate::{
     engine::rating::RatingCurve,
-    gauge::ratings::{self, FitReport, Gauging, GaugingQuality, Ratings, Shift},
+    gauge::ratings::{self, FitReport, Gauging, GaugingQuality, GaugingsCsvError, Ratings, Shift},
 };
 
 pub fn router() -> Router<AppState> {
@@ -84,13 +84,44 @@ fn check_gaugings(g: &[Gauging]) -> Result<(), Problem> {
     Ok(())
 }
 
+/// The gaugings of a JSON or CSV body.
+fn parse_gaugings(headers: &HeaderMap, body: &[u8]) -> Result<Vec<Gauging>, Problem> {
+    let media = headers
+        .get(header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .unwrap_or("application/json")
+        .split(';')
+        .next()
+        .unwrap_or("")
+        .trim()
+        .to_ascii_lowercase();
+    match media.as_str() {
+        "application/json" => Ok(parse_json::<GaugingsBody>(body)?.gaugings),
+        "text/csv" => ratings::parse_gaugings_csv(body).map_err(|e| match e {
+            GaugingsCsvError::Malformed(m) => Problem::malformed("csv", m),
+            GaugingsCsvError::Row(r) => {
+                Problem::invalid(r.field.clone(), r.message.clone()).with("row", r.row)
+            }
+        }),
+        other => Err(Problem::new(
+            StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            "unsupported-media-type",
+            "Unsupported media type",
+        )
+        .detail(format!("`{other}`: send application/json or text/csv"))),
+    }
+}
+
 async fn add(
     auth: RequireRole<Forecasting>,
     State(state): State<AppState>,
     Path(id): Path<String>,
+    headers: HeaderMap,
     body: Bytes,
 ) -> Result<Response, ApiError> {
-    let b: GaugingsBody = parse_json(&body)?;
+    let b = GaugingsBody {
+        gaugings: parse_gaugings(&headers, &body)?,
+    };
     check_gaugings(&b.gaugings)?;
     find_gauge(&state, &id).await?;
     let new = state
@@ -149,7 +180,7 @@ fn gaugings_csv(g: &[Gauging]) -> Result<Vec<u8>, csv::Error> {
     let mut w = csv::WriterBuilder::new()
         .terminator(csv::Terminator::CRLF)
         .from_writer(Vec::new());
-    w.write_record(["time", "stage_m", "discharge_m3s", "method", "quality"])?;
+    w.write_record(ratings::GAUGINGS_CSV_HEADER)?;
     for x in g {
         let quality = serde_json::to_value(x.quality)
             .ok()

@@ -142,6 +142,21 @@ async fn gaugings_fit_versions_and_shifts_change_what_the_stages_mean() {
     .await;
     assert!(csv.starts_with("time,stage_m,discharge_m3s,method,quality\r\n"));
     assert_eq!(csv.lines().count(), 13);
+    // The export posted back as CSV replaces the same twelve: none new.
+    let res = s
+        .app
+        .post_csv_to(
+            &s.keys.forecaster,
+            &format!("/api/gauges/{GAUGE}/gaugings"),
+            &csv,
+        )
+        .await;
+    let v: Value = serde_json::from_str(&body_of(res, 201).await).expect("json");
+    assert_eq!(
+        (v["new"].as_u64(), v["replaced"].as_u64()),
+        (Some(0), Some(12)),
+        "{v}"
+    );
     s.app.stop().await;
 }
 
@@ -155,6 +170,21 @@ async fn bad_gaugings_versions_and_shifts_are_refused_naming_the_field() {
     };
     let p = problem(post(&s, "/gaugings", &g(0.0)).await, 422).await;
     assert_eq!(p["field"], "gaugings[0].discharge_m3s");
+    let bad =
+        "time,stage_m,discharge_m3s,method,quality\n2026-03-14T06:00:00Z,20.5,lots,adcp,good\n";
+    let res = s
+        .app
+        .post_csv_to(
+            &s.keys.forecaster,
+            &format!("/api/gauges/{GAUGE}/gaugings"),
+            bad,
+        )
+        .await;
+    let p = problem(res, 422).await;
+    assert_eq!(
+        (p["field"].as_str(), p["row"].as_u64()),
+        (Some("discharge_m3s"), Some(1))
+    );
     let bad = json!({"valid_from": t, "curve": {"kind": "power", "segments": []}, "note": "x"});
     let p = problem(post(&s, "/ratings", &bad).await, 422).await;
     assert_eq!(p["field"], "curve");
@@ -181,4 +211,58 @@ async fn bad_gaugings_versions_and_shifts_are_refused_naming_the_field() {
         .await;
     let _ = body_of(res, 403).await;
     s.app.stop().await;
+}
+
+/// `reachcast fit-rating` on a CSV of gaugings made from Q = 30 (h − 19)^1.5
+/// (±1 %): the curve written recovers 30 m³/s at 20 m within 2 %, and a bad
+/// cell stops it with exit code 2 naming the row and column.
+#[test]
+fn the_fit_rating_command_fits_a_csv_of_gaugings() {
+    use crate::common::binary::reachcast;
+    let dir = tempfile::tempdir().expect("temp dir");
+    let mut csv = String::from("time,stage_m,discharge_m3s,method,quality\n");
+    for k in 0..12 {
+        let h = 19.4 + 0.25 * f64::from(k);
+        let q = 30.0 * (h - 19.0f64).powf(1.5) * if k % 2 == 0 { 1.01 } else { 0.99 };
+        csv.push_str(&format!(
+            "2026-03-{:02}T06:00:00Z,{h},{q},acoustic-doppler,good\n",
+            k + 1
+        ));
+    }
+    let file = dir.path().join("gaugings.csv");
+    std::fs::write(&file, &csv).expect("write");
+    let curve = dir.path().join("curve.json");
+    let out = reachcast()
+        .args(["fit-rating", "--gaugings"])
+        .arg(&file)
+        .arg("--out")
+        .arg(&curve)
+        .output()
+        .expect("run");
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(
+        out.status.success(),
+        "{text}{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert!(text.contains("from 12 gaugings"), "{text}");
+    let c: Value =
+        serde_json::from_str(&std::fs::read_to_string(&curve).expect("curve")).expect("json");
+    let seg = &c["segments"][0];
+    let q = seg["c"].as_f64().unwrap()
+        * (20.0 - seg["e"].as_f64().unwrap()).powf(seg["b"].as_f64().unwrap());
+    assert!((q / 30.0 - 1.0).abs() < 0.02, "{c}");
+    std::fs::write(
+        &file,
+        "time,stage_m,discharge_m3s,method,quality\n2026-03-01T00:00:00Z,20,x,adcp,good\n",
+    )
+    .expect("write");
+    let out = reachcast()
+        .args(["fit-rating", "--gaugings"])
+        .arg(&file)
+        .output()
+        .expect("run");
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("row 1, discharge_m3s"), "{err}");
 }

@@ -196,9 +196,15 @@ impl TestApp {
     }
 
     pub async fn post_csv(&self, key: &str, gauge: &str, body: &str) -> reqwest::Response {
+        self.post_csv_to(key, &format!("/api/gauges/{gauge}/readings"), body)
+            .await
+    }
+
+    /// Posts a `text/csv` body to `path`.
+    pub async fn post_csv_to(&self, key: &str, path: &str, body: &str) -> reqwest::Response {
         let req = self
             .client
-            .post(self.url(&format!("/api/gauges/{gauge}/readings")))
+            .post(self.url(path))
             .bearer_auth(key)
             .header("content-type", "text/csv")
             .body(body.to_owned());
