@@ -65,6 +65,29 @@ pub enum StoreError {
     Refused(String),
 }
 
+/// A database error already logged and recorded in the write health (by
+/// a failed commit or begin), so the method's watch does not log it again.
+#[derive(Debug)]
+struct Noted(sqlx::Error);
+
+impl std::fmt::Display for Noted {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        self.0.fmt(f)
+    }
+}
+
+impl std::error::Error for Noted {
+    fn source(&self) -> Option<&(dyn std::error::Error + 'static)> {
+        Some(&self.0)
+    }
+}
+
+impl StoreError {
+    fn noted(e: sqlx::Error) -> Self {
+        StoreError::Database(Box::new(Noted(e)))
+    }
+}
+
 impl From<sqlx::Error> for StoreError {
     fn from(e: sqlx::Error) -> Self {
         StoreError::Database(Box::new(e))
@@ -205,13 +228,15 @@ impl Store {
     async fn commit(&self, tx: sqlx::Transaction<'static, sqlx::Sqlite>) -> Result<(), StoreError> {
         let done = tx.commit().await;
         self.note_write(done.as_ref().map(|_| ()));
-        done.map_err(Into::into)
+        done.map_err(StoreError::noted)
     }
 
     /// Notes a database failure of a write method's body (a statement
     /// refused for a full database fails before the commit).
     fn watched<T>(&self, r: Result<T, StoreError>) -> Result<T, StoreError> {
-        if let Err(StoreError::Database(e)) = &r {
+        if let Err(StoreError::Database(e)) = &r
+            && !e.is::<Noted>()
+        {
             self.note_failure(e.to_string());
         }
         r
@@ -272,7 +297,7 @@ impl Store {
             Ok(tx) => tx,
             Err(e) => {
                 self.note_write(Err(&e));
-                return Err(e.into());
+                return Err(StoreError::noted(e));
             }
         };
         if let Some(observe) = self.write_waits.get() {
