@@ -1544,8 +1544,14 @@ async fn first_forecast_appears_soon_after_the_page_opened_without_one() {
     assert_eq!(shown.as_i64(), Some(run_id), "the page shows the API's run");
     let marker = b.eval("return window.__noReload || null").await;
     assert_eq!(marker, "still here", "updated in place, not reloaded");
+    // The status line is written when the whole refresh (forecast,
+    // profile, verification, ratings) is done: wait for it.
     let conn = b
-        .eval("return document.getElementById('conn').textContent")
+        .wait_for(
+            "the normal interval once a forecast is shown",
+            "const t = document.getElementById('conn').textContent; return t.includes('checks again every 30 s') ? t : null",
+            20,
+        )
         .await;
     assert!(
         conn.as_str()
@@ -2346,9 +2352,25 @@ async fn the_scenarios_range_is_shaded_behind_each_hydrograph_and_each_levels_ch
     let has_range = prof["highest_percentiles"]
         .as_array()
         .is_some_and(|t| t.len() >= 2);
-    assert_eq!(st["profileBand"].as_bool(), Some(has_range), "{st}");
+    // The profile is fetched after the forecast the snapshot waited for:
+    // wait for its band rather than race it.
+    let profile_band = if has_range {
+        b.wait_for(
+            "the profile's scenario band",
+            "return document.querySelector('#profile svg.profile-chart path.ensemble-band') ? true : null",
+            30,
+        )
+        .await
+        .as_bool()
+    } else {
+        st["profileBand"].as_bool()
+    };
+    assert_eq!(profile_band, Some(has_range), "{st}");
     if has_range {
-        let l = st["profileLegend"].as_str().unwrap_or_default();
+        let legend = b
+            .eval("return (document.querySelector('#profile .legend') || {}).textContent || ''")
+            .await;
+        let l = legend.as_str().unwrap_or_default();
         assert!(
             l.contains(&format!("p{lo}–p{hi} of {used} scenarios")),
             "{l}"
