@@ -485,6 +485,31 @@ const SCAN_STEPS: usize = 96;
 /// Golden-section refinement steps after the scan.
 const GOLDEN_STEPS: usize = 80;
 
+/// The minimum of `f` on `[a, b]` by [`GOLDEN_STEPS`] golden-section steps
+/// (the same evaluations, in the same order, as written inline before).
+fn golden_section(f: &dyn Fn(f64) -> f64, mut a: f64, mut b: f64) -> f64 {
+    let ratio = (5f64.sqrt() - 1.0) / 2.0;
+    let mut x1 = b - ratio * (b - a);
+    let mut x2 = a + ratio * (b - a);
+    let (mut f1, mut f2) = (f(x1), f(x2));
+    for _ in 0..GOLDEN_STEPS {
+        if f1 <= f2 {
+            b = x2;
+            x2 = x1;
+            f2 = f1;
+            x1 = b - ratio * (b - a);
+            f1 = f(x1);
+        } else {
+            a = x1;
+            x1 = x2;
+            f1 = f2;
+            x2 = a + ratio * (b - a);
+            f2 = f(x2);
+        }
+    }
+    0.5 * (a + b)
+}
+
 /// Fits Q = C (h − e)^b to (stage, discharge) points by least squares in log
 /// space.
 ///
@@ -565,28 +590,11 @@ pub fn fit_power_segment(points: &[(f64, f64)]) -> Result<PowerFit, RatingError>
         });
     }
     // Golden-section search on the scan interval either side of the best.
-    let mut a = s_lo + best_k.saturating_sub(1) as f64 * step;
-    let mut b = s_lo + (best_k + 1).min(SCAN_STEPS) as f64 * step;
-    let ratio = (5f64.sqrt() - 1.0) / 2.0;
-    let mut x1 = b - ratio * (b - a);
-    let mut x2 = a + ratio * (b - a);
-    let (mut f1, mut f2) = (rss(x1), rss(x2));
-    for _ in 0..GOLDEN_STEPS {
-        if f1 <= f2 {
-            b = x2;
-            x2 = x1;
-            f2 = f1;
-            x1 = b - ratio * (b - a);
-            f1 = rss(x1);
-        } else {
-            a = x1;
-            x1 = x2;
-            f1 = f2;
-            x2 = a + ratio * (b - a);
-            f2 = rss(x2);
-        }
-    }
-    let mut s_best = 0.5 * (a + b);
+    let mut s_best = golden_section(
+        &rss,
+        s_lo + best_k.saturating_sub(1) as f64 * step,
+        s_lo + (best_k + 1).min(SCAN_STEPS) as f64 * step,
+    );
     if rss(s_best) > best_rss {
         s_best = s_lo + best_k as f64 * step;
     }

@@ -100,6 +100,20 @@ impl Problem {
             .detail(detail)
     }
 
+    /// 415 for a body of a media type the endpoint does not read; it reads
+    /// JSON and CSV.
+    pub fn unsupported_media(other: &str) -> Self {
+        Problem::new(
+            StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            "unsupported-media-type",
+            "Unsupported media type",
+        )
+        .detail(format!(
+            "Content-Type `{other}` is not accepted here; send application/json or text/csv"
+        ))
+        .field("Content-Type")
+    }
+
     /// 422 for a well-formed body with a bad value in `field`.
     pub fn invalid(field: impl Into<String>, detail: impl Into<String>) -> Self {
         Problem::new(

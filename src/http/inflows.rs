@@ -134,12 +134,7 @@ fn parse_body(
             Err(InflowError::Malformed(m)) => Err(Problem::malformed("csv", m)),
             Err(InflowError::Rows(e)) => Err(rows_refused(&e)),
         },
-        other => Err(Problem::new(
-            StatusCode::UNSUPPORTED_MEDIA_TYPE,
-            "unsupported-media-type",
-            "Unsupported media type",
-        )
-        .detail(format!("`{other}`: send application/json or text/csv"))),
+        other => Err(Problem::unsupported_media(other)),
     }
 }
 
@@ -166,15 +161,7 @@ async fn upload(
         );
         return Err(Problem::invalid("boundary", detail).into());
     }
-    let media = headers
-        .get(header::CONTENT_TYPE)
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("application/json")
-        .split(';')
-        .next()
-        .unwrap_or("")
-        .trim()
-        .to_ascii_lowercase();
+    let media = super::query::media_type(&headers, "application/json");
     // A `reason` in the query is checked whatever the body: the document
     // promises its length, JSON body or not.
     if params

@@ -123,6 +123,22 @@ impl<'de> Deserialize<'de> for Time {
     }
 }
 
+/// The media type of a request's `Content-Type`, lower-cased and without
+/// parameters; `absent` when there is none.
+pub fn media_type(headers: &HeaderMap, absent: &str) -> String {
+    headers
+        .get(header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .map(|v| {
+            v.split(';')
+                .next()
+                .unwrap_or("")
+                .trim()
+                .to_ascii_lowercase()
+        })
+        .unwrap_or_else(|| absent.to_owned())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -86,15 +86,7 @@ fn check_gaugings(g: &[Gauging]) -> Result<(), Problem> {
 
 /// The gaugings of a JSON or CSV body.
 fn parse_gaugings(headers: &HeaderMap, body: &[u8]) -> Result<Vec<Gauging>, Problem> {
-    let media = headers
-        .get(header::CONTENT_TYPE)
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("application/json")
-        .split(';')
-        .next()
-        .unwrap_or("")
-        .trim()
-        .to_ascii_lowercase();
+    let media = super::query::media_type(headers, "application/json");
     match media.as_str() {
         "application/json" => Ok(parse_json::<GaugingsBody>(body)?.gaugings),
         "text/csv" => ratings::parse_gaugings_csv(body).map_err(|e| match e {
@@ -103,12 +95,7 @@ fn parse_gaugings(headers: &HeaderMap, body: &[u8]) -> Result<Vec<Gauging>, Prob
                 Problem::invalid(r.field.clone(), r.message.clone()).with("row", r.row)
             }
         }),
-        other => Err(Problem::new(
-            StatusCode::UNSUPPORTED_MEDIA_TYPE,
-            "unsupported-media-type",
-            "Unsupported media type",
-        )
-        .detail(format!("`{other}`: send application/json or text/csv"))),
+        other => Err(Problem::unsupported_media(other)),
     }
 }
 

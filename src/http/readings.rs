@@ -65,20 +65,6 @@ struct Report {
     errors: Vec<RowError>,
 }
 
-fn media_type(headers: &HeaderMap) -> String {
-    headers
-        .get(header::CONTENT_TYPE)
-        .and_then(|v| v.to_str().ok())
-        .map(|v| {
-            v.split(';')
-                .next()
-                .unwrap_or("")
-                .trim()
-                .to_ascii_lowercase()
-        })
-        .unwrap_or_default()
-}
-
 /// The rows of a body, each raw or already rejected, in body order.
 type RawRows = Vec<Result<RawReading, RowError>>;
 
@@ -236,18 +222,10 @@ fn parse_csv_rows(body: &[u8]) -> Result<RawRows, Problem> {
 
 /// Raw rows of a body, by its media type, and the format's name.
 fn parse_rows(headers: &HeaderMap, body: &[u8]) -> Result<(&'static str, RawRows), Problem> {
-    match media_type(headers).as_str() {
+    match super::query::media_type(headers, "").as_str() {
         "application/json" => Ok(("json", parse_json_rows(body)?)),
         "text/csv" => Ok(("csv", parse_csv_rows(body)?)),
-        other => Err(Problem::new(
-            StatusCode::UNSUPPORTED_MEDIA_TYPE,
-            "unsupported-media-type",
-            "Unsupported media type",
-        )
-        .detail(format!(
-            "Content-Type `{other}` is not accepted here; send application/json or text/csv"
-        ))
-        .field("Content-Type")),
+        other => Err(Problem::unsupported_media(other)),
     }
 }
 

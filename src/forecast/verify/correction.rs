@@ -20,6 +20,7 @@ use std::collections::BTreeMap;
 use serde::{Deserialize, Serialize};
 
 use super::tally::HourTally;
+use crate::forecast::calibrate::optimise::golden_section;
 
 /// The sums one lead hour keeps for the fit.
 #[derive(Debug, Clone, Copy, Default, PartialEq, Serialize, Deserialize)]
@@ -122,7 +123,8 @@ pub fn fit(hours: &BTreeMap<u32, HourTally>) -> Option<Fit> {
         .map(|i| f64::from(i) / 1000.0)
         .min_by(|a, b| sse(*a).total_cmp(&sse(*b)))
         .unwrap_or(0.0);
-    let phi = golden(&sse, (best - 0.001).max(0.0), (best + 0.001).min(1.0));
+    let cell = ((best - 0.001).max(0.0), (best + 0.001).min(1.0));
+    let phi = golden_section(sse, cell.0, cell.1, 1e-9).x;
     let total = |f: fn(&CorrectionSums) -> f64| sums.iter().map(|(_, s)| f(s)).sum::<f64>();
     let rms = |x: f64| (x / n as f64).sqrt();
     Some(Fit {
@@ -133,19 +135,6 @@ pub fn fit(hours: &BTreeMap<u32, HourTally>) -> Option<Fit> {
         rmse_corrected: rms(sse(phi)),
         rmse_persistence: rms(total(|s| s.s_pp)),
     })
-}
-
-fn golden(f: &dyn Fn(f64) -> f64, mut a: f64, mut b: f64) -> f64 {
-    let r = (5f64.sqrt() - 1.0) / 2.0;
-    for _ in 0..40 {
-        let (c, d) = (b - r * (b - a), a + r * (b - a));
-        if f(c) <= f(d) {
-            b = d;
-        } else {
-            a = c;
-        }
-    }
-    (a + b) / 2.0
 }
 
 /// The switch: on only with enough history and a corrected RMSE below
