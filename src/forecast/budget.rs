@@ -45,11 +45,11 @@ pub enum Refusal {
 /// The one check before a reach description is stored (by `PUT` or from
 /// the reach folder): valid, its nodes build, and a run fits the budgets.
 pub fn admit(spec: &ReachSpec, b: &Budget, window_s: f64) -> Result<(), Refusal> {
-    let nodes = super::run::nodes_for(spec).map_err(|e| match e {
+    let prepared = super::run::Prepared::new(spec).map_err(|e| match e {
         super::run::RunError::Spec(s) => Refusal::Invalid(s),
         other => Refusal::Invalid(SpecError::new("sections", other.to_string())),
     })?;
-    check(spec, nodes.len(), window_s, b).map_err(Refusal::OverBudget)
+    check(spec, prepared.node_count(), window_s, b).map_err(Refusal::OverBudget)
 }
 
 /// Checks a reach with `nodes` computational nodes routed over a window of

@@ -373,6 +373,7 @@ mod tests {
         PointForecast {
             id: crate::gauge::slug_of(name),
             name: name.into(),
+            channel: None,
             chainage: 1000.0,
             kind: PointKind::Bridge,
             bed_elevation: 8.0,
@@ -417,6 +418,7 @@ mod tests {
             points: vec![point("Sallowgate Bridge"), point("Second")],
             diagnostics: RunDiagnostics::default(),
             profile: None,
+            junctions: vec![],
         }
     }
 

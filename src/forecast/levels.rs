@@ -131,6 +131,7 @@ mod tests {
         PointSpec {
             id: None,
             name: "Sallowgate Bridge".into(),
+            channel: None,
             chainage: 0.0,
             kind: PointKind::Bridge,
             low_chord: Some(51.64),

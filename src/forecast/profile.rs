@@ -11,6 +11,8 @@
 //! from now on, without storing every node's whole hydrograph.
 
 use chrono::{DateTime, Duration, Utc};
+
+use crate::engine::section::CrossSection;
 use serde::{Deserialize, Serialize};
 
 use super::{
@@ -44,6 +46,9 @@ pub struct StoredProfile {
     /// Per node, the highest stage after the kept instants (the last kept
     /// sample when the run ends within the window).
     pub tail: Vec<TailCrest>,
+    /// In a network, where each channel's nodes are; empty for one channel.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub channels: Vec<ChannelSpan>,
 }
 
 /// The highest stage at a node after the window, and when.
@@ -62,6 +67,17 @@ pub struct NodeRows {
     pub times: Vec<DateTime<Utc>>,
     /// Stage per output instant, one value per node (m).
     pub stage: Vec<Vec<f64>>,
+    /// In a network, where each channel's nodes are (empty for one
+    /// channel).
+    pub spans: Vec<ChannelSpan>,
+}
+
+/// A channel's nodes among a network's: `len` nodes from `start`.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ChannelSpan {
+    pub name: String,
+    pub start: usize,
+    pub len: usize,
 }
 
 impl StoredProfile {
@@ -100,6 +116,7 @@ impl StoredProfile {
             times: rows.times[i0..=i1].to_vec(),
             stage: rows.stage[i0..=i1].to_vec(),
             tail,
+            channels: rows.spans.clone(),
         })
     }
 
@@ -201,6 +218,13 @@ pub struct ProfilePoint {
 /// The profile of a run seen at `now`.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Profile {
+    /// The channel drawn, when one was asked for; absent: the whole reach
+    /// (of one channel) or a network's main stem.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub channel: Option<String>,
+    /// A network's channels, each with whether it is on the main stem
+    /// (empty for a reach of one channel).
+    pub channels: Vec<ProfileChannel>,
     pub nodes: Vec<ProfileNode>,
     pub banks: Vec<Banks>,
     pub points: Vec<ProfilePoint>,
@@ -210,27 +234,81 @@ pub struct Profile {
     pub highest_percentiles: Vec<PercentileTrace>,
 }
 
+/// A channel of a network as the profile lists it.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ProfileChannel {
+    pub name: String,
+    pub main_stem: bool,
+}
+
+/// The channel asked for is not one of the reach's.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("`{asked}` is not a channel of this reach (its channels: {known})")]
+pub struct UnknownChannel {
+    pub asked: String,
+    pub known: String,
+}
+
+/// The channels drawn (indices into `spec.channels`), `None` for a reach
+/// of one channel: the one asked for, or the main stem.
+fn chosen(spec: &ReachSpec, channel: Option<&str>) -> Result<Option<Vec<usize>>, UnknownChannel> {
+    if spec.channels.is_empty() && channel.is_none() {
+        return Ok(None);
+    }
+    match channel {
+        None => Ok(Some(super::channels::main_stem(&spec.channels))),
+        Some(name) => match spec.channels.iter().position(|c| c.name == name) {
+            Some(i) => Ok(Some(vec![i])),
+            None => Err(UnknownChannel {
+                asked: name.to_owned(),
+                known: spec
+                    .channels
+                    .iter()
+                    .map(|c| format!("`{}`", c.name))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+            }),
+        },
+    }
+}
+
 /// The profile at `now` of a stored run with `results` in `units`: its
 /// nodes, the bank tops of `spec`'s sections, and its points as the
-/// forecast view sees them (observations are not drawn, so none are read).
+/// forecast view sees them (observations are not drawn, so none are read);
+/// in a network, of the channel asked for or else of the main stem.
 pub fn profile(
     stored: &StoredProfile,
     spec: &ReachSpec,
     results: &StoredResults,
     ensemble: Option<&EnsembleSummary>,
-    units: Units,
-    now: DateTime<Utc>,
-) -> Profile {
+    (units, now): (Units, DateTime<Utc>),
+    channel: Option<&str>,
+) -> Result<Profile, UnknownChannel> {
+    let chosen = chosen(spec, channel)?;
+    let names: Option<Vec<&str>> = chosen
+        .as_ref()
+        .map(|ix| ix.iter().map(|&i| spec.channels[i].name.as_str()).collect());
+    let drawn = |c: &Option<String>| match (&names, c) {
+        (None, _) => true,
+        (Some(n), Some(c)) => n.contains(&c.as_str()),
+        (Some(_), None) => false,
+    };
     let mut views = view::points(spec, results, ensemble, &|_| Vec::new(), now);
+    views.retain(|v| drawn(&v.forecast.channel));
     if units == Units::Us {
         views.iter_mut().for_each(PointView::to_us);
     }
-    let nodes = (0..stored.chainage.len())
-        .map(|j| stored.node_at(j, now))
-        .collect();
-    let banks = spec
-        .sections
-        .iter()
+    let indices = node_indices(stored, names.as_deref());
+    let nodes = indices.iter().map(|&j| stored.node_at(j, now)).collect();
+    let sections: Vec<&CrossSection> = match &chosen {
+        None => spec.sections.iter().collect(),
+        Some(ix) => ix
+            .iter()
+            .flat_map(|&i| spec.channels[i].sections.iter())
+            .collect(),
+    };
+    let banks = sections
+        .into_iter()
         .map(|s| {
             let [left_top, right_top] = s.geometry.bank_tops();
             Banks {
@@ -246,8 +324,25 @@ pub fn profile(
     let highest_percentiles = ensemble
         .map(|e| e.node_crest.clone())
         .filter(|b| b.iter().all(|t| t.stage.len() == stored.chainage.len()))
-        .unwrap_or_default();
+        .unwrap_or_default()
+        .into_iter()
+        .map(|t| PercentileTrace {
+            stage: indices.iter().map(|&j| t.stage[j]).collect(),
+            ..t
+        })
+        .collect();
+    let stem = super::channels::main_stem(&spec.channels);
     let mut p = Profile {
+        channel: channel.map(str::to_owned),
+        channels: spec
+            .channels
+            .iter()
+            .enumerate()
+            .map(|(i, c)| ProfileChannel {
+                name: c.name.clone(),
+                main_stem: stem.contains(&i),
+            })
+            .collect(),
         nodes,
         banks,
         points: views.iter().map(point).collect(),
@@ -256,7 +351,21 @@ pub fn profile(
     if units == Units::Us {
         p.nodes_to_us();
     }
-    p
+    Ok(p)
+}
+
+/// The stored nodes of the channels `names` in that order (all of them for
+/// one channel, or for a run stored before networks).
+fn node_indices(stored: &StoredProfile, names: Option<&[&str]>) -> Vec<usize> {
+    match names {
+        Some(names) if !stored.channels.is_empty() => names
+            .iter()
+            .filter_map(|n| stored.channels.iter().find(|s| s.name == *n))
+            .filter(|s| s.start + s.len <= stored.chainage.len())
+            .flat_map(|s| s.start..s.start + s.len)
+            .collect(),
+        _ => (0..stored.chainage.len()).collect(),
+    }
 }
 
 fn point(v: &PointView) -> ProfilePoint {
@@ -330,6 +439,7 @@ mod tests {
             bed: vec![7.0, 6.0],
             times,
             stage,
+            spans: vec![],
         }
     }
 

@@ -314,6 +314,10 @@ pub struct StoredResults {
     /// the profile existed.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub profile: Option<StoredProfile>,
+    /// In a reach of several channels, the flow split at every junction
+    /// (discharges at the points' times).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub junctions: Vec<crate::forecast::network::JunctionFlow>,
 }
 
 impl StoredResults {
@@ -329,6 +333,7 @@ impl StoredResults {
             end: out.end,
             nodes: out.nodes,
             points: out.points,
+            junctions: out.junctions,
             diagnostics,
         }
     }

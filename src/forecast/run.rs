@@ -23,8 +23,9 @@ use super::{
     hydrograph::{Hydrograph, seconds},
     level::{LevelOutlook, Trace},
     levels::levels_of,
-    profile::NodeRows,
-    spec::{DownstreamSpec, Method, PointKind, PointSpec, ReachSpec, SpecError},
+    network::{self, JunctionFlow, PreparedNetwork},
+    profile::{ChannelSpan, NodeRows},
+    spec::{DownstreamSpec, FlowPoint, Method, PointKind, PointSpec, ReachSpec, SpecError},
 };
 
 /// Why a run could not be made.
@@ -44,6 +45,9 @@ pub struct PointForecast {
     #[serde(default)]
     pub id: String,
     pub name: String,
+    /// The channel it lies on, in a reach of several channels.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub channel: Option<String>,
     pub chainage: f64,
     pub kind: PointKind,
     /// Bed elevation interpolated from the neighbouring nodes (m).
@@ -81,21 +85,17 @@ pub struct RunOutput {
     #[serde(with = "crate::wire_time")]
     pub end: DateTime<Utc>,
     pub nodes: usize,
-    /// Ordered downstream.
+    /// Ordered downstream (channel by channel in a network).
     pub points: Vec<PointForecast>,
     pub diagnostics: Diagnostics,
-    /// Water-surface elevation at every node at the end (hot start).
+    /// Water-surface elevation at every node at the end (hot start),
+    /// channel after channel in a network.
     pub final_state: Vec<f64>,
+    /// In a network, the flow split at every junction.
+    pub junctions: Vec<JunctionFlow>,
     /// Every node's stage hydrograph, for the longitudinal profile.
     #[serde(skip)]
     pub node_rows: NodeRows,
-}
-
-/// Builds the computational nodes of a reach (validated).
-pub fn nodes_for(spec: &ReachSpec) -> Result<Vec<Node>, RunError> {
-    spec.validate()?;
-    build_nodes(&spec.roughness.apply(&spec.sections), spec.max_node_spacing)
-        .map_err(|e| RunError::Spec(SpecError::new("sections", e.to_string())))
 }
 
 /// What every run of one reach version shares: the computational nodes
@@ -104,31 +104,46 @@ pub fn nodes_for(spec: &ReachSpec) -> Result<Vec<Node>, RunError> {
 /// every cycle, since building them costs about as much as a routing.
 #[derive(Debug)]
 pub struct Prepared {
-    nodes: Vec<Node>,
-    chainage: Vec<f64>,
+    shape: Shape,
     /// `(stage, discharge)` pairs of a `rating` downstream boundary.
     rating: Option<Vec<(f64, f64)>>,
+}
+
+/// One channel's nodes, or a network's.
+#[derive(Debug)]
+enum Shape {
+    One {
+        nodes: Vec<Node>,
+        chainage: Vec<f64>,
+    },
+    Network(PreparedNetwork),
 }
 
 impl Prepared {
     /// Validates `spec` and builds what its runs share.
     pub fn new(spec: &ReachSpec) -> Result<Self, RunError> {
-        let nodes = nodes_for(spec)?;
-        let chainage = nodes.iter().map(|n| n.chainage).collect();
+        spec.validate()?;
+        let shape = if spec.channels.is_empty() {
+            let nodes = build_nodes(&spec.roughness.apply(&spec.sections), spec.max_node_spacing)
+                .map_err(|e| RunError::Spec(SpecError::new("sections", e.to_string())))?;
+            let chainage = nodes.iter().map(|n| n.chainage).collect();
+            Shape::One { nodes, chainage }
+        } else {
+            Shape::Network(PreparedNetwork::new(spec)?)
+        };
         let rating = match &spec.downstream {
             DownstreamSpec::Rating { rating } => Some(rating_table(spec, rating)?),
             _ => None,
         };
-        Ok(Self {
-            nodes,
-            chainage,
-            rating,
-        })
+        Ok(Self { shape, rating })
     }
 
-    /// The computational nodes, upstream first.
-    pub fn nodes(&self) -> &[Node] {
-        &self.nodes
+    /// Number of computational nodes (of every channel).
+    pub fn node_count(&self) -> usize {
+        match &self.shape {
+            Shape::One { nodes, .. } => nodes.len(),
+            Shape::Network(net) => net.node_count(),
+        }
     }
 }
 
@@ -170,23 +185,125 @@ pub fn run_prepared(
     method: Option<Method>,
     adjust: Adjust,
 ) -> Result<RunOutput, RunError> {
-    if adjust.manning == 1.0 {
-        route_on(spec, prepared, &prepared.nodes, inflow, method, adjust)
-    } else {
-        let rough: Vec<Roughened<'_, Node>> = prepared
-            .nodes
-            .iter()
-            .map(|n| Roughened::new(n, adjust.manning))
-            .collect();
-        route_on(spec, prepared, &rough, inflow, method, adjust)
+    let factor = adjust.manning;
+    match &prepared.shape {
+        Shape::One { nodes, chainage } if adjust.manning == 1.0 => {
+            route_on(spec, prepared, (nodes, chainage), inflow, method, adjust)
+        }
+        Shape::One { nodes, chainage } => {
+            let rough = roughened(nodes, factor);
+            route_on(spec, prepared, (&rough, chainage), inflow, method, adjust)
+        }
+        Shape::Network(net) if adjust.manning == 1.0 => {
+            let views: Vec<&[Node]> = net.channels.iter().map(|c| c.nodes.as_slice()).collect();
+            route_network_on(spec, prepared, net, &views, inflow, adjust)
+        }
+        Shape::Network(net) => {
+            let rough: Vec<Vec<Roughened<'_, Node>>> = net
+                .channels
+                .iter()
+                .map(|c| roughened(&c.nodes, factor))
+                .collect();
+            let views: Vec<&[Roughened<'_, Node>]> = rough.iter().map(Vec::as_slice).collect();
+            route_network_on(spec, prepared, net, &views, inflow, adjust)
+        }
     }
+}
+
+/// A view of `nodes` with every Manning's n times `factor`.
+fn roughened(nodes: &[Node], factor: f64) -> Vec<Roughened<'_, Node>> {
+    nodes.iter().map(|n| Roughened::new(n, factor)).collect()
+}
+
+/// The diffusive solver's options from the reach's settings.
+fn options_of(spec: &ReachSpec) -> Options {
+    let defaults = Options::default();
+    Options {
+        theta: spec.routing.theta,
+        dt_max: spec.routing.dt_max_s,
+        // A largest step below the usual first step starts there.
+        dt_initial: defaults.dt_initial.min(spec.routing.dt_max_s),
+        ..defaults
+    }
+}
+
+/// A run of a network reach on `views` of its channels' nodes.
+fn route_network_on<H: Hydraulics>(
+    spec: &ReachSpec,
+    prepared: &Prepared,
+    net: &PreparedNetwork,
+    views: &[&[H]],
+    inflow: &Hydrograph,
+    adjust: Adjust,
+) -> Result<RunOutput, RunError> {
+    let (t0, t_end) = (inflow.start(), inflow.end());
+    let upstream = inflow.to_series(t0);
+    let series = |path: &str, points: &[FlowPoint]| flow_series(path, points, t0);
+    let inputs = network::Inputs {
+        upstream: &upstream,
+        downstream: downstream_boundary(spec, prepared, t0, adjust.rating)?,
+        options: options_of(spec),
+        output_times: output_times(seconds(t_end, t0), spec.routing.output_interval_s),
+        series: &series,
+    };
+    let routed = network::route(spec, net, views, inputs)?;
+    let times = instants(t0, &routed.result.output_times);
+    let mut points = Vec::with_capacity(spec.points.len());
+    for (ci, c) in net.channels.iter().enumerate() {
+        let out = &routed.result.channels[ci];
+        let mut on: Vec<&PointSpec> = spec
+            .points
+            .iter()
+            .filter(|p| p.channel.as_deref() == Some(c.name.as_str()))
+            .collect();
+        on.sort_by(|a, b| a.chainage.total_cmp(&b.chainage));
+        for p in on {
+            let rows = (out.stage.as_slice(), out.discharge.as_slice());
+            points.push(point_forecast(p, views[ci], &c.chainage, &times, rows)?);
+        }
+    }
+    let mut rows = NodeRows {
+        times,
+        ..NodeRows::default()
+    };
+    for (ci, c) in net.channels.iter().enumerate() {
+        rows.spans.push(ChannelSpan {
+            name: c.name.clone(),
+            start: rows.chainage.len(),
+            len: c.chainage.len(),
+        });
+        rows.chainage.extend_from_slice(&c.chainage);
+        rows.bed.extend(views[ci].iter().map(|n| n.bed_elevation()));
+    }
+    rows.stage = (0..rows.times.len())
+        .map(|k| {
+            routed
+                .result
+                .channels
+                .iter()
+                .flat_map(|c| c.stage[k].iter().copied())
+                .collect()
+        })
+        .collect();
+    Ok(RunOutput {
+        reach: spec.name.clone(),
+        method: Method::Diffusive,
+        start: t0,
+        end: t_end,
+        nodes: rows.chainage.len(),
+        points,
+        diagnostics: routed.result.diagnostics.clone(),
+        final_state: routed.result.final_state.concat(),
+        junctions: routed.junctions,
+        node_rows: rows,
+    })
 }
 
 /// The run on `nodes` (the prepared nodes, or a view of them).
 fn route_on<H: Hydraulics>(
     spec: &ReachSpec,
     prepared: &Prepared,
-    nodes: &[H],
+    (nodes, chainage): (&[H], &[f64]),
     inflow: &Hydrograph,
     method: Option<Method>,
     adjust: Adjust,
@@ -198,20 +315,12 @@ fn route_on<H: Hydraulics>(
     let output_times = output_times(seconds(t_end, t0), spec.routing.output_interval_s);
     let laterals = laterals_of(spec, t0)?;
 
-    let chainage = &prepared.chainage;
     let reach = Reach::new(chainage, nodes).map_err(|e| RunError::Routing(e.to_string()))?;
 
     let result = match method {
         Method::Diffusive => {
             let downstream = downstream_boundary(spec, prepared, t0, adjust.rating)?;
-            let defaults = Options::default();
-            let options = Options {
-                theta: spec.routing.theta,
-                dt_max: spec.routing.dt_max_s,
-                // A largest step below the usual first step starts there.
-                dt_initial: defaults.dt_initial.min(spec.routing.dt_max_s),
-                ..defaults
-            };
+            let options = options_of(spec);
             let problem = diffusive::Problem {
                 reach,
                 upstream,
@@ -250,16 +359,15 @@ fn output_of<H: Hydraulics>(
     (t0, t_end): (DateTime<Utc>, DateTime<Utc>),
     result: RoutingResult,
 ) -> Result<RunOutput, RunError> {
-    let times: Vec<DateTime<Utc>> = result
-        .output_times
-        .iter()
-        .map(|s| t0 + Duration::milliseconds((s * 1000.0).round() as i64))
-        .collect();
+    let times = instants(t0, &result.output_times);
     let mut order: Vec<&PointSpec> = spec.points.iter().collect();
     order.sort_by(|a, b| a.chainage.total_cmp(&b.chainage));
     let points = order
         .into_iter()
-        .map(|p| point_forecast(p, nodes, chainage, &times, &result.stage, &result.discharge))
+        .map(|p| {
+            let rows = (result.stage.as_slice(), result.discharge.as_slice());
+            point_forecast(p, nodes, chainage, &times, rows)
+        })
         .collect::<Result<Vec<_>, _>>()?;
 
     let node_rows = NodeRows {
@@ -267,6 +375,7 @@ fn output_of<H: Hydraulics>(
         chainage: chainage.to_vec(),
         times,
         stage: result.stage,
+        spans: Vec::new(),
     };
     Ok(RunOutput {
         reach: spec.name.clone(),
@@ -277,8 +386,17 @@ fn output_of<H: Hydraulics>(
         points,
         diagnostics: result.diagnostics,
         final_state: result.final_state,
+        junctions: Vec::new(),
         node_rows,
     })
+}
+
+/// The run's output instants as times.
+fn instants(t0: DateTime<Utc>, seconds: &[f64]) -> Vec<DateTime<Utc>> {
+    seconds
+        .iter()
+        .map(|s| t0 + Duration::milliseconds((s * 1000.0).round() as i64))
+        .collect()
 }
 
 /// Output instants (s from the start): every `step` from 0, plus the end
@@ -304,25 +422,24 @@ fn laterals_of(spec: &ReachSpec, t0: DateTime<Utc>) -> Result<Vec<Lateral>, RunE
         .iter()
         .enumerate()
         .map(|(i, l)| {
-            let series = Series::new(
-                l.inflow
-                    .iter()
-                    .map(|p| seconds(p.time.with_timezone(&Utc), t0))
-                    .collect(),
-                l.inflow.iter().map(|p| p.discharge).collect(),
-            )
-            .map_err(|e| {
-                RunError::Spec(SpecError::new(
-                    format!("laterals[{i}].inflow"),
-                    e.to_string(),
-                ))
-            })?;
             Ok(Lateral {
                 chainage: l.chainage,
-                inflow: series,
+                inflow: flow_series(&format!("laterals[{i}]"), &l.inflow, t0)?,
             })
         })
         .collect()
+}
+
+/// The hydrograph of the tributary at `path` in seconds from `t0`.
+fn flow_series(path: &str, points: &[FlowPoint], t0: DateTime<Utc>) -> Result<Series, RunError> {
+    Series::new(
+        points
+            .iter()
+            .map(|p| seconds(p.time.with_timezone(&Utc), t0))
+            .collect(),
+        points.iter().map(|p| p.discharge).collect(),
+    )
+    .map_err(|e| RunError::Spec(SpecError::new(format!("{path}.inflow"), e.to_string())))
 }
 
 /// The forecast at one point: node results interpolated to its chainage,
@@ -333,8 +450,7 @@ fn point_forecast<H: Hydraulics>(
     nodes: &[H],
     chainage: &[f64],
     times: &[DateTime<Utc>],
-    stage_rows: &[Vec<f64>],
-    discharge_rows: &[Vec<f64>],
+    (stage_rows, discharge_rows): (&[Vec<f64>], &[Vec<f64>]),
 ) -> Result<PointForecast, RunError> {
     let (i, w) = bracket(chainage, p.chainage);
     let lerp = |row: &Vec<f64>| row[i] * (1.0 - w) + row[i + 1] * w;
@@ -351,6 +467,7 @@ fn point_forecast<H: Hydraulics>(
     Ok(PointForecast {
         id: p.point_id(),
         name: p.name.clone(),
+        channel: p.channel.clone(),
         chainage: p.chainage,
         kind: p.kind,
         bed_elevation: bed,
@@ -427,8 +544,7 @@ fn downstream_boundary(
 /// range of stages the last section can hold.
 fn rating_table(spec: &ReachSpec, rating: &RatingCurve) -> Result<Vec<(f64, f64)>, RunError> {
     let last = spec
-        .sections
-        .last()
+        .outlet_section()
         .ok_or_else(|| RunError::Spec(SpecError::new("sections", "empty")))?;
     let table = crate::engine::section::PropertyTable::from_section(last)
         .map_err(|e| RunError::Spec(SpecError::new("sections", e.to_string())))?;

@@ -10,6 +10,7 @@
 use chrono::{DateTime, FixedOffset};
 use serde::{Deserialize, Serialize};
 
+use super::channels::{self, ChannelEnd, ChannelSpec, ChannelStart, check_on_channel};
 use crate::engine::{rating::RatingCurve, section::CrossSection};
 use crate::forecast::ensemble::EnsembleSpec;
 use crate::forecast::multipliers::RoughnessMultipliers;
@@ -25,8 +26,14 @@ pub struct ReachSpec {
     /// Free text shown with the reach.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub description: Option<String>,
-    /// Cross-sections, chainage (m) increasing downstream.
+    /// Cross-sections, chainage (m) increasing downstream; empty (absent)
+    /// in a reach of several `channels`.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub sections: Vec<CrossSection>,
+    /// Channels joined at junctions, each with its own sections
+    /// ([`super::channels`]); absent for a reach of one channel.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub channels: Vec<ChannelSpec>,
     /// Largest distance between computational nodes (m); sections are
     /// interpolated to meet it.
     #[serde(default = "default_max_node_spacing")]
@@ -132,6 +139,10 @@ pub struct FlowPoint {
 #[serde(deny_unknown_fields)]
 pub struct LateralSpec {
     pub name: String,
+    /// The channel it joins, in a reach of several `channels` (required
+    /// there, absent otherwise).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub channel: Option<String>,
     /// Chainage where it joins (m).
     pub chainage: f64,
     /// Its hydrograph; held constant before the first and after the last
@@ -181,7 +192,12 @@ pub struct PointSpec {
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub id: Option<String>,
     pub name: String,
-    /// Chainage (m); must lie within the first and last section.
+    /// The channel it lies on, in a reach of several `channels` (required
+    /// there, absent otherwise).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub channel: Option<String>,
+    /// Chainage (m); must lie within the first and last section (of its
+    /// channel).
     pub chainage: f64,
     pub kind: PointKind,
     /// Elevation of the underside of a bridge deck (m).
@@ -353,7 +369,7 @@ impl SpecError {
     }
 }
 
-fn finite(field: &str, v: f64) -> Result<(), SpecError> {
+pub(super) fn finite(field: &str, v: f64) -> Result<(), SpecError> {
     if v.is_finite() {
         Ok(())
     } else {
@@ -397,30 +413,19 @@ impl ReachSpec {
         if self.name.trim().is_empty() {
             return Err(SpecError::new("name", "must not be empty"));
         }
-        if self.sections.len() < 2 {
-            return Err(SpecError::new(
-                "sections",
-                format!(
-                    "a reach needs at least 2 sections, got {}",
-                    self.sections.len()
-                ),
-            ));
-        }
-        crate::engine::section::validate_reach(&self.sections)
-            .map_err(|e| SpecError::new("sections", e.to_string()))?;
-        let extent = self
-            .extent()
-            .ok_or_else(|| SpecError::new("sections", "must not be empty"))?;
         if !(self.max_node_spacing.is_finite() && self.max_node_spacing > 0.0) {
             return Err(SpecError::new(
                 "max_node_spacing",
                 format!("must be positive, got {}", self.max_node_spacing),
             ));
         }
-        self.downstream.validate()?;
-        for (i, l) in self.laterals.iter().enumerate() {
-            l.validate(&format!("laterals[{i}]"), extent)?;
+        if self.channels.is_empty() {
+            self.validate_one_channel()?;
+        } else {
+            self.validate_network()?;
         }
+        self.downstream.validate()?;
+        self.validate_tributary_names()?;
         if self.points.is_empty() {
             return Err(SpecError::new(
                 "points",
@@ -428,7 +433,7 @@ impl ReachSpec {
             ));
         }
         for (i, p) in self.points.iter().enumerate() {
-            p.validate(&format!("points[{i}]"), &self.points[..i], extent)?;
+            p.validate(&format!("points[{i}]"), &self.points[..i])?;
         }
         let tz = &self.service.time_zone;
         if !is_time_zone(tz) {
@@ -444,6 +449,207 @@ impl ReachSpec {
         self.roughness.validate("roughness")?;
         self.routing.validate()
     }
+
+    /// The sections, the chainages of laterals and points, and that no
+    /// `channel` is named.
+    fn validate_one_channel(&self) -> Result<(), SpecError> {
+        if self.sections.len() < 2 {
+            return Err(SpecError::new(
+                "sections",
+                format!(
+                    "a reach needs at least 2 sections, got {}",
+                    self.sections.len()
+                ),
+            ));
+        }
+        crate::engine::section::validate_reach(&self.sections)
+            .map_err(|e| SpecError::new("sections", e.to_string()))?;
+        let extent = self
+            .extent()
+            .ok_or_else(|| SpecError::new("sections", "must not be empty"))?;
+        let places = self
+            .laterals
+            .iter()
+            .enumerate()
+            .map(|(i, l)| (format!("laterals[{i}]"), &l.channel, l.chainage))
+            .chain(
+                self.points
+                    .iter()
+                    .enumerate()
+                    .map(|(i, p)| (format!("points[{i}]"), &p.channel, p.chainage)),
+            );
+        for (at, channel, chainage) in places {
+            if channel.is_some() {
+                return Err(SpecError::new(
+                    format!("{at}.channel"),
+                    "only a reach of several `channels` has channels to name",
+                ));
+            }
+            within(&format!("{at}.chainage"), chainage, extent)?;
+        }
+        for (i, l) in self.laterals.iter().enumerate() {
+            l.validate(&format!("laterals[{i}]"))?;
+        }
+        Ok(())
+    }
+
+    /// The channels, and every lateral and point on one of them.
+    fn validate_network(&self) -> Result<(), SpecError> {
+        if !self.sections.is_empty() {
+            return Err(SpecError::new(
+                "sections",
+                "a reach of several `channels` gives its sections per channel; leave `sections` out",
+            ));
+        }
+        channels::validate(&self.channels, self.max_node_spacing)?;
+        if self.routing.method == Method::Kinematic {
+            return Err(SpecError::new(
+                "routing.method",
+                "a reach of several channels is routed with the diffusive method only",
+            ));
+        }
+        for (i, l) in self.laterals.iter().enumerate() {
+            let at = format!("laterals[{i}]");
+            check_on_channel(&at, l.channel.as_deref(), l.chainage, &self.channels)?;
+            l.validate(&at)?;
+        }
+        for (i, p) in self.points.iter().enumerate() {
+            let at = format!("points[{i}]");
+            check_on_channel(&at, p.channel.as_deref(), p.chainage, &self.channels)?;
+        }
+        Ok(())
+    }
+
+    /// Tributaries (laterals and tributary channels) are told apart by
+    /// name: uploads and provenance name them.
+    fn validate_tributary_names(&self) -> Result<(), SpecError> {
+        let names = self.tributaries();
+        for (i, t) in names.iter().enumerate() {
+            if names[..i].iter().any(|u| u.name == t.name) {
+                return Err(SpecError::new(
+                    format!("{}.name", t.path),
+                    format!("`{}` names an earlier tributary too", t.name),
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    /// Every tributary inflow boundary: the laterals, then the channels
+    /// that start at a tributary.
+    pub fn tributaries(&self) -> Vec<Tributary<'_>> {
+        let laterals = self.laterals.iter().enumerate().map(|(i, l)| Tributary {
+            path: format!("laterals[{i}]"),
+            name: &l.name,
+            gauge: l.gauge.as_deref(),
+            inflow: &l.inflow,
+        });
+        let heads = self
+            .channels
+            .iter()
+            .enumerate()
+            .filter_map(|(i, c)| match &c.upstream {
+                ChannelStart::Tributary {
+                    name,
+                    inflow,
+                    gauge,
+                } => Some(Tributary {
+                    path: format!("channels[{i}].upstream"),
+                    name,
+                    gauge: gauge.as_deref(),
+                    inflow,
+                }),
+                _ => None,
+            });
+        laterals.chain(heads).collect()
+    }
+
+    /// Every tributary's hydrograph, to be filled in from its gauge or
+    /// upload, with its name and gauge; in [`Self::tributaries`]' order.
+    pub fn tributaries_mut(&mut self) -> Vec<TributaryMut<'_>> {
+        let laterals = self
+            .laterals
+            .iter_mut()
+            .enumerate()
+            .map(|(i, l)| TributaryMut {
+                path: format!("laterals[{i}]"),
+                name: &l.name,
+                gauge: l.gauge.as_deref(),
+                inflow: &mut l.inflow,
+            });
+        let heads =
+            self.channels
+                .iter_mut()
+                .enumerate()
+                .filter_map(|(i, c)| match &mut c.upstream {
+                    ChannelStart::Tributary {
+                        name,
+                        inflow,
+                        gauge,
+                    } => Some(TributaryMut {
+                        path: format!("channels[{i}].upstream"),
+                        name,
+                        gauge: gauge.as_deref(),
+                        inflow,
+                    }),
+                    _ => None,
+                });
+        laterals.chain(heads).collect()
+    }
+
+    /// The sections of every channel (of the one channel, or of each of
+    /// `channels` in order).
+    pub fn all_sections(&self) -> impl Iterator<Item = &CrossSection> {
+        self.sections
+            .iter()
+            .chain(self.channels.iter().flat_map(|c| c.sections.iter()))
+    }
+
+    /// The section at the outlet: the last of the reach, or of the channel
+    /// ending at the outlet.
+    pub fn outlet_section(&self) -> Option<&CrossSection> {
+        match self
+            .channels
+            .iter()
+            .find(|c| c.downstream == ChannelEnd::Outlet)
+        {
+            Some(c) => c.sections.last(),
+            None => self.sections.last(),
+        }
+    }
+
+    /// The first section of the channel the reach's inflow enters.
+    pub fn inflow_section(&self) -> Option<&CrossSection> {
+        match self
+            .channels
+            .iter()
+            .find(|c| c.upstream == ChannelStart::Inflow)
+        {
+            Some(c) => c.sections.first(),
+            None => self.sections.first(),
+        }
+    }
+}
+
+/// A tributary inflow boundary of a reach, as [`ReachSpec::tributaries`]
+/// lists them.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Tributary<'a> {
+    /// Its JSON path (`laterals[2]`, `channels[1].upstream`).
+    pub path: String,
+    pub name: &'a str,
+    pub gauge: Option<&'a str>,
+    /// The reach description's own hydrograph.
+    pub inflow: &'a [FlowPoint],
+}
+
+/// A tributary whose hydrograph may be replaced.
+#[derive(Debug)]
+pub struct TributaryMut<'a> {
+    pub path: String,
+    pub name: &'a str,
+    pub gauge: Option<&'a str>,
+    pub inflow: &'a mut Vec<FlowPoint>,
 }
 
 /// `x` is a finite chainage inside the reach's `(first, last)` extent.
@@ -517,51 +723,58 @@ impl DownstreamSpec {
 }
 
 impl LateralSpec {
-    /// `at` is the lateral's path, `laterals[i]`.
-    fn validate(&self, at: &str, extent: (f64, f64)) -> Result<(), SpecError> {
+    /// `at` is the lateral's path, `laterals[i]` (its chainage is checked
+    /// by the reach).
+    fn validate(&self, at: &str) -> Result<(), SpecError> {
         if self.name.trim().is_empty() {
             return Err(SpecError::new(format!("{at}.name"), "must not be empty"));
         }
-        within(&format!("{at}.chainage"), self.chainage, extent)?;
-        if self.inflow.is_empty() && self.gauge.is_none() {
-            return Err(SpecError::new(
-                format!("{at}.inflow"),
-                "must not be empty (or name a `gauge`)",
-            ));
-        }
-        if let Some(g) = &self.gauge
-            && !crate::gauge::valid_slug(g)
-        {
-            return Err(SpecError::new(
-                format!("{at}.gauge"),
-                "a gauge id is 1 to 64 of a-z, 0-9 and -",
-            ));
-        }
-        for (j, p) in self.inflow.iter().enumerate() {
-            let f = format!("{at}.inflow[{j}].discharge");
-            finite(&f, p.discharge)?;
-            if p.discharge < 0.0 {
-                return Err(SpecError::new(f, "must not be negative"));
-            }
-            if j > 0 && p.time <= self.inflow[j - 1].time {
-                return Err(SpecError::new(
-                    format!("{at}.inflow[{j}].time"),
-                    "times must increase strictly",
-                ));
-            }
-        }
-        Ok(())
+        check_flows(at, &self.inflow, self.gauge.as_deref())
     }
+}
+
+/// A tributary's own hydrograph and gauge at `at`: a hydrograph unless a
+/// gauge is named, a valid gauge id, discharges finite and not negative at
+/// strictly increasing times.
+pub(super) fn check_flows(
+    at: &str,
+    inflow: &[FlowPoint],
+    gauge: Option<&str>,
+) -> Result<(), SpecError> {
+    if inflow.is_empty() && gauge.is_none() {
+        return Err(SpecError::new(
+            format!("{at}.inflow"),
+            "must not be empty (or name a `gauge`)",
+        ));
+    }
+    if let Some(g) = gauge
+        && !crate::gauge::valid_slug(g)
+    {
+        return Err(SpecError::new(
+            format!("{at}.gauge"),
+            "a gauge id is 1 to 64 of a-z, 0-9 and -",
+        ));
+    }
+    for (j, p) in inflow.iter().enumerate() {
+        let f = format!("{at}.inflow[{j}].discharge");
+        finite(&f, p.discharge)?;
+        if p.discharge < 0.0 {
+            return Err(SpecError::new(f, "must not be negative"));
+        }
+        if j > 0 && p.time <= inflow[j - 1].time {
+            return Err(SpecError::new(
+                format!("{at}.inflow[{j}].time"),
+                "times must increase strictly",
+            ));
+        }
+    }
+    Ok(())
 }
 
 impl PointSpec {
     /// `at` is the point's path, `points[i]`; `earlier` the points before it.
-    fn validate(
-        &self,
-        at: &str,
-        earlier: &[PointSpec],
-        extent: (f64, f64),
-    ) -> Result<(), SpecError> {
+    /// (Its chainage is checked by the reach.)
+    fn validate(&self, at: &str, earlier: &[PointSpec]) -> Result<(), SpecError> {
         if self.name.trim().is_empty() {
             return Err(SpecError::new(format!("{at}.name"), "must not be empty"));
         }
@@ -578,7 +791,6 @@ impl PointSpec {
                 format!("`{id}` is the id of an earlier point; set a different `id`"),
             ));
         }
-        within(&format!("{at}.chainage"), self.chainage, extent)?;
         if let Some(v) = self.low_chord {
             finite(&format!("{at}.low_chord"), v)?;
         }

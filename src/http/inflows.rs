@@ -84,7 +84,8 @@ struct TraceBody {
 struct UploadParams {
     reason: Option<String>,
     dry_run: Option<bool>,
-    /// The tributary the upload is for (`laterals[].name`); absent: the
+    /// The tributary the upload is for (`laterals[].name`, or a tributary
+    /// channel's `upstream.name`); absent: the
     /// upstream inflow.
     boundary: Option<String>,
 }
@@ -147,15 +148,11 @@ async fn upload(
     body: Bytes,
 ) -> Result<Response, ApiError> {
     let version = super::reaches::find_reach(&state, &reach).await?;
+    let tributaries = version.spec.tributaries();
     if let Some(b) = &params.boundary
-        && !version.spec.laterals.iter().any(|l| &l.name == b)
+        && !tributaries.iter().any(|t| t.name == b)
     {
-        let names: Vec<&str> = version
-            .spec
-            .laterals
-            .iter()
-            .map(|l| l.name.as_str())
-            .collect();
+        let names: Vec<&str> = tributaries.iter().map(|t| t.name).collect();
         let detail = format!(
             "`{b}` is not a tributary of this reach (its tributaries: {names:?}); leave `boundary` out for the upstream inflow"
         );

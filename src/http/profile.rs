@@ -24,7 +24,7 @@ use super::{
 };
 use crate::forecast::{
     ensemble::summary::PercentileTrace,
-    profile::{Banks, ProfileNode, ProfilePoint, profile},
+    profile::{Banks, ProfileChannel, ProfileNode, ProfilePoint, profile},
     record::EnsembleRecord,
     spec::Units,
     view::{Freshness, UnitNames},
@@ -38,6 +38,8 @@ pub fn router() -> Router<AppState> {
 #[serde(deny_unknown_fields)]
 struct ProfileParams {
     units: Option<Units>,
+    /// A network's channel to draw; absent: its main stem.
+    channel: Option<String>,
 }
 
 /// The answer, lengths (chainage included) in the unit system asked for.
@@ -53,6 +55,9 @@ struct ProfileDoc {
     now: DateTime<Utc>,
     units: UnitNames,
     freshness: Freshness,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    channel: Option<String>,
+    channels: Vec<ProfileChannel>,
     nodes: Vec<ProfileNode>,
     banks: Vec<Banks>,
     points: Vec<ProfilePoint>,
@@ -72,7 +77,26 @@ async fn get_profile(
     let now = Utc::now();
     let fresh = freshness_of(&state, &loaded, now).await?;
     let units = params.units.unwrap_or(loaded.reach.spec.service.units);
-    let etag = forecast_etag(&loaded.run, &fresh, units, "profile");
+    let channel = params.channel.as_deref();
+    // A channel's name is free text: the tag names it by its index (an
+    // unknown name is refused before any tag is compared).
+    let index = channel.and_then(|c| loaded.reach.spec.channels.iter().position(|x| x.name == c));
+    let repr = match (channel, index) {
+        (None, _) => "profile".to_owned(),
+        (Some(_), Some(i)) => format!("profile-c{i}"),
+        (Some(c), None) => {
+            let known: Vec<&str> = loaded
+                .reach
+                .spec
+                .channels
+                .iter()
+                .map(|x| x.name.as_str())
+                .collect();
+            let detail = format!("`{c}` is not a channel of this reach (its channels: {known:?})");
+            return Err(Problem::invalid("channel", detail).into());
+        }
+    };
+    let etag = forecast_etag(&loaded.run, &fresh, units, &repr);
     if not_modified(&headers, &etag) {
         return Ok(with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag));
     }
@@ -97,9 +121,10 @@ async fn get_profile(
         &loaded.reach.spec,
         loaded.results()?,
         ensemble,
-        units,
-        now,
-    );
+        (units, now),
+        channel,
+    )
+    .map_err(|e| Problem::invalid("channel", e.to_string()))?;
     let body = ProfileDoc {
         caution: crate::CAUTION,
         reach: loaded.reach.reach_id.clone(),
@@ -109,6 +134,8 @@ async fn get_profile(
         now,
         units: UnitNames::of(units),
         freshness: fresh,
+        channel: p.channel,
+        channels: p.channels,
         nodes: p.nodes,
         banks: p.banks,
         points: p.points,

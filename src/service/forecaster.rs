@@ -221,9 +221,9 @@ impl Forecaster {
                             .iter()
                             .any(|p| p.gauge.as_deref() == Some(gauge_id))
                         || r.spec
-                            .laterals
+                            .tributaries()
                             .iter()
-                            .any(|l| l.gauge.as_deref() == Some(gauge_id));
+                            .any(|t| t.gauge == Some(gauge_id));
                     if uses {
                         self.data_arrived(&r.reach_id);
                     }

@@ -1,4 +1,5 @@
-//! Tributary inflows from their gauges and uploads: a lateral that names
+//! Tributary inflows from their gauges and uploads (laterals, and in a
+//! reach of several channels the channels starting at a tributary): one that names
 //! a gauge takes its hydrograph from that gauge's readings, then from the
 //! upload in force for that tributary, then from the extrapolation rule —
 //! the upstream inflow's rules (observed first, short gaps interpolated,
@@ -33,15 +34,15 @@ impl Forecaster {
     ) -> Result<Filled, StoreError> {
         let mut out = reach.clone();
         let mut provenance = Vec::new();
-        for (i, lateral) in out.spec.laterals.iter_mut().enumerate() {
+        for lateral in out.spec.tributaries_mut() {
             let upload = self
-                .tributary_upload(&reach.reach_id, &lateral.name, on)
+                .tributary_upload(&reach.reach_id, lateral.name, on)
                 .await?;
-            let Some(gauge) = lateral.gauge.clone() else {
+            let Some(gauge) = lateral.gauge.map(str::to_owned) else {
                 if let Some(u) = upload {
-                    lateral.inflow = flow_points(&u.series);
+                    *lateral.inflow = flow_points(&u.series);
                     provenance.push(LateralProvenance {
-                        name: lateral.name.clone(),
+                        name: lateral.name.to_owned(),
                         gauge: None,
                         inflow: None,
                         upload_version: Some(u.version),
@@ -64,7 +65,7 @@ impl Forecaster {
                 Err(e) => Err(e),
             };
             let mut entry = LateralProvenance {
-                name: lateral.name.clone(),
+                name: lateral.name.to_owned(),
                 gauge: Some(gauge.clone()),
                 inflow: None,
                 upload_version: None,
@@ -72,12 +73,12 @@ impl Forecaster {
             };
             match (assembled, upload) {
                 (Ok(a), _) => {
-                    lateral.inflow = flow_points(&a.series);
+                    *lateral.inflow = flow_points(&a.series);
                     entry.upload_version = a.provenance.upload_version;
                     entry.inflow = Some(a.provenance);
                 }
                 (Err(e), Some(u)) => {
-                    lateral.inflow = flow_points(&u.series);
+                    *lateral.inflow = flow_points(&u.series);
                     entry.upload_version = Some(u.version);
                     entry.fallback = Some(format!(
                         "gauge `{gauge}` could not be used ({e}); the upload for this tributary was used"
@@ -90,8 +91,8 @@ impl Forecaster {
                 }
                 (Err(e), None) => {
                     return Ok(Err(format!(
-                        "laterals[{i}] ({}): gauge `{gauge}` could not be used and the tributary has no upload or hydrograph of its own: {e}",
-                        lateral.name
+                        "{} ({}): gauge `{gauge}` could not be used and the tributary has no upload or hydrograph of its own: {e}",
+                        lateral.path, lateral.name
                     )));
                 }
             }

@@ -65,12 +65,14 @@ pub use description::{
 };
 pub use problem::{NetworkInitial, NetworkProblem};
 pub use result::{ChannelOutput, JunctionEnd, NetworkBalance, NetworkResult};
-pub use topology::{Channel, DownstreamEnd, Network, NetworkError, UpstreamEnd};
+pub use topology::{Channel, DownstreamEnd, Ends, Network, NetworkError, UpstreamEnd, check_ends};
 
 use crate::engine::budget::Budget;
+use crate::engine::diagnostics::{self, Method, StepStats, Watch};
 use crate::engine::diffusive::output::DenseOutput;
 use crate::engine::diffusive::problem::{check_boundary, check_options};
 use crate::engine::diffusive::step::StepControl;
+use crate::engine::diffusive::{DRY_RAMP_DEPTH, MIN_DEPTH};
 use crate::engine::diffusive::{RoutingError, TimeScheme};
 use crate::engine::props::Hydraulics;
 use crate::engine::routing::validate_output_times;
@@ -120,6 +122,11 @@ pub fn route_network<H: Hydraulics>(
     let mut out = DenseOutput::new(&p.output_times, t0, &w.z, &w.q_node);
     let mut control = StepControl::new(o);
     let (mut steps, mut rejected, mut iterations) = (0, 0, 0);
+    let mut stats = StepStats::new();
+    // As for one channel: films thinner than the drying ramp say nothing
+    // about inertia and are left out of the Froude maximum.
+    let mut watch = Watch::new(w.z.len(), w.chainage[0], t0, MIN_DEPTH + DRY_RAMP_DEPTH);
+    observe(&w, t0, &mut watch);
     let mut t = t0;
     while !out.pending().is_empty() {
         let (dt, t_new) = control.next(t, out.pending())?;
@@ -132,17 +139,20 @@ pub fn route_network<H: Hydraulics>(
         match newton_step(channels, &lay, b, o, lvl, &mut w) {
             Err(fail) => {
                 rejected += 1;
+                stats.reject();
                 control.reject(t, dt, fail, &w.chainage)?;
             }
             Ok(iters) => {
                 steps += 1;
                 iterations += iters;
+                stats.accept(dt, iters);
                 let new = advance(b, &lay, (dt, o.theta), &mut w);
                 budget.step(dt, &old, &new);
                 old = new;
                 let t_prev = t;
                 t = t_new;
                 fill_discharges(channels, &lay, old.outflow, &mut w);
+                observe(&w, t, &mut watch);
                 out.step(t_prev, t_new, &w.z, &w.q_node);
                 control.accept(iters);
             }
@@ -150,6 +160,10 @@ pub fn route_network<H: Hydraulics>(
     }
     let m = budget.close(w.v_old.iter().sum());
     let (stage, discharge) = out.finish();
+    // No applicability number: its one upstream hydrograph and one bed
+    // slope have no single meaning in a network.
+    let diagnostics =
+        diagnostics::summarise(Method::DiffusiveWave, m, watch, stats, None, &w.chainage);
     Ok(NetworkResult {
         output_times: p.output_times.clone(),
         channels: channels
@@ -178,7 +192,16 @@ pub fn route_network<H: Hydraulics>(
         steps,
         rejected_steps: rejected,
         newton_iterations: iterations,
+        diagnostics,
     })
+}
+
+/// Show the watch every node of the evaluated state at time `t`.
+fn observe(w: &Work, t: f64, watch: &mut Watch) {
+    for g in 0..w.z.len() {
+        let depth = w.z[g] - w.bed[g];
+        watch.observe(g, &w.props[g], w.q_node[g], depth, w.chainage[g], t);
+    }
 }
 
 /// Junction stages from a row of node stages.

@@ -4,6 +4,8 @@
 
 use serde::Serialize;
 
+use crate::engine::diagnostics::Diagnostics;
+
 use super::topology::{DownstreamEnd, Network, UpstreamEnd};
 
 /// One channel's results.
@@ -71,6 +73,10 @@ pub struct NetworkResult {
     pub rejected_steps: usize,
     /// Newton iterations of the accepted steps.
     pub newton_iterations: usize,
+    /// What the single-channel solver reports, over every node of every
+    /// channel (node `i` numbered channel after channel; chainages are
+    /// each channel's own), without the applicability number.
+    pub diagnostics: Diagnostics,
 }
 
 impl NetworkResult {

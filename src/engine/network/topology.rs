@@ -133,12 +133,11 @@ impl<'a, H: Hydraulics> Network<'a, H> {
     /// Check the channels and wrap them (see the module docs for the
     /// rules).
     pub fn new(channels: Vec<Channel<'a, H>>) -> Result<Self, NetworkError> {
-        if channels.is_empty() {
-            return Err(NetworkError::Empty);
-        }
-        let outlet = single_outlet(&channels)?;
-        let junctions = count_junctions(&channels)?;
-        check_connected(&channels, junctions, outlet)?;
+        let ends: Vec<Ends> = channels
+            .iter()
+            .map(|c| (up_junction(c), down_junction(c)))
+            .collect();
+        let (junctions, outlet) = check_ends(&ends)?;
         Ok(Self {
             channels,
             junctions,
@@ -189,11 +188,28 @@ pub(super) fn down_junction<H>(c: &Channel<'_, H>) -> Option<usize> {
     }
 }
 
-fn single_outlet<H>(channels: &[Channel<'_, H>]) -> Result<usize, NetworkError> {
-    let mut outlets = channels
+/// Each channel's ends as junction ids: `(upstream, downstream)`, `None`
+/// for an inflow boundary upstream and for the outlet downstream.
+pub type Ends = (Option<usize>, Option<usize>);
+
+/// The topology checks of [`Network::new`] on the channels' ends alone
+/// (so a caller can check a description before building its nodes):
+/// the number of junctions and the outlet channel.
+pub fn check_ends(ends: &[Ends]) -> Result<(usize, usize), NetworkError> {
+    if ends.is_empty() {
+        return Err(NetworkError::Empty);
+    }
+    let outlet = single_outlet(ends)?;
+    let junctions = count_junctions(ends)?;
+    check_connected(ends, junctions, outlet)?;
+    Ok((junctions, outlet))
+}
+
+fn single_outlet(ends: &[Ends]) -> Result<usize, NetworkError> {
+    let mut outlets = ends
         .iter()
         .enumerate()
-        .filter(|(_, c)| c.downstream == DownstreamEnd::Outlet)
+        .filter(|(_, e)| e.1.is_none())
         .map(|(i, _)| i);
     let first = outlets.next().ok_or(NetworkError::NoOutlet)?;
     if let Some(second) = outlets.next() {
@@ -203,10 +219,9 @@ fn single_outlet<H>(channels: &[Channel<'_, H>]) -> Result<usize, NetworkError> 
 }
 
 /// Junction ids must be 0..count, each met by at least two ends.
-fn count_junctions<H>(channels: &[Channel<'_, H>]) -> Result<usize, NetworkError> {
-    let mut ends: Vec<usize> = Vec::new();
-    for (i, c) in channels.iter().enumerate() {
-        let (up, down) = (up_junction(c), down_junction(c));
+fn count_junctions(ends: &[Ends]) -> Result<usize, NetworkError> {
+    let mut met: Vec<usize> = Vec::new();
+    for (i, &(up, down)) in ends.iter().enumerate() {
         if let (Some(a), Some(b)) = (up, down)
             && a == b
         {
@@ -216,37 +231,33 @@ fn count_junctions<H>(channels: &[Channel<'_, H>]) -> Result<usize, NetworkError
             });
         }
         for j in up.into_iter().chain(down) {
-            if j >= ends.len() {
-                ends.resize(j + 1, 0);
+            if j >= met.len() {
+                met.resize(j + 1, 0);
             }
-            ends[j] += 1;
+            met[j] += 1;
         }
     }
-    if let Some((junction, &n)) = ends.iter().enumerate().find(|&(_, &n)| n < 2) {
+    if let Some((junction, &n)) = met.iter().enumerate().find(|&(_, &n)| n < 2) {
         return Err(NetworkError::LonelyJunction { junction, ends: n });
     }
-    Ok(ends.len())
+    Ok(met.len())
 }
 
 /// Every channel reachable from the outlet channel through junctions.
-fn check_connected<H>(
-    channels: &[Channel<'_, H>],
-    junctions: usize,
-    outlet: usize,
-) -> Result<(), NetworkError> {
-    let mut seen_channel = vec![false; channels.len()];
+fn check_connected(ends: &[Ends], junctions: usize, outlet: usize) -> Result<(), NetworkError> {
+    let mut seen_channel = vec![false; ends.len()];
     let mut seen_junction = vec![false; junctions];
     let mut stack = vec![outlet];
     seen_channel[outlet] = true;
     while let Some(c) = stack.pop() {
-        let ch = &channels[c];
-        for j in up_junction(ch).into_iter().chain(down_junction(ch)) {
+        let (up, down) = ends[c];
+        for j in up.into_iter().chain(down) {
             if seen_junction[j] {
                 continue;
             }
             seen_junction[j] = true;
-            for (k, other) in channels.iter().enumerate() {
-                let meets = up_junction(other) == Some(j) || down_junction(other) == Some(j);
+            for (k, &(u, d)) in ends.iter().enumerate() {
+                let meets = u == Some(j) || d == Some(j);
                 if meets && !seen_channel[k] {
                     seen_channel[k] = true;
                     stack.push(k);

@@ -214,8 +214,7 @@ fn separability(
 ) -> Result<(Fitted, usize), CalibrateError> {
     let surveyed = p
         .spec
-        .sections
-        .iter()
+        .all_sections()
         .any(|s| matches!(s.geometry, SectionGeometry::StationElevation { .. }));
     if !surveyed {
         let reason = "every section is a trapezoid with one n, all channel".to_owned();

@@ -296,6 +296,7 @@ mod tests {
         let point = PointForecast {
             id: "sallowgate-bridge".into(),
             name: "Sallowgate Bridge".into(),
+            channel: None,
             chainage: 4200.0,
             kind: PointKind::Bridge,
             bed_elevation: 8.0,
