@@ -6,6 +6,7 @@ import { renderChart } from "./js/chart.js";
 import { crossingRows } from "./js/crossings.js";
 import { formatChainage, formatClock, formatDuration, formatFlow, formatLevel, formatTime, offsetLabel, offsetMinutes, toMs } from "./js/format.js";
 import { profileRows, renderProfile } from "./js/profile.js";
+import { channelOptions, splitRows } from "./js/network.js";
 import { nextCheckMs } from "./js/retry.js";
 import { clearance, levelSentence, levelsOf, levelWithId, pointStatus } from "./js/status.js";
 import { $, h, HttpError, readBody } from "./js/dom.js";
@@ -32,6 +33,7 @@ const state = {
   profile: null, // the longitudinal profile answer, or null: section hidden
   profileUrl: null,
   profileBrief: null, // the ensemble brief the profile was drawn with
+  channel: null, // the profile's channel in a network; null: the main stem
   fetchedAt: 0, // local clock when `forecast` arrived
   etags: new Map(), // url -> { etag, body }
   timer: null,
@@ -68,7 +70,8 @@ function forecastUrl() {
 }
 
 function profileUrl() {
-  return `/api/reaches/${encodeURIComponent(state.reachId)}/profile?units=${unitsWanted() === "us" ? "us" : "si"}`;
+  const channel = state.channel ? `&channel=${encodeURIComponent(state.channel)}` : "";
+  return `/api/reaches/${encodeURIComponent(state.reachId)}/profile?units=${unitsWanted() === "us" ? "us" : "si"}${channel}`;
 }
 
 // ---------------------------------------------------------------- polling
@@ -243,6 +246,11 @@ async function refreshProfile() {
     res = await getJson(url);
   } catch {
     clearProfile();
+    // A channel the reach no longer has: back to its main stem.
+    if (state.channel) {
+      state.channel = null;
+      return refreshProfile();
+    }
     return;
   }
   if (!Array.isArray(res.body?.nodes) || !res.body.nodes.length) {
@@ -629,10 +637,37 @@ function renderProfileSection(printWidth) {
       ...(d.freshness?.stale ? [h("strong", { class: "stale-mark", text: "stale data" }), " (may be out of date). "] : []),
       `Run #${d.run_id}, issued ${formatTime(d.issued_at, zone)}. Elevations in ${d.units.elevation}; upstream at the left.`,
     ),
+    channelPicker(d),
     rangeParagraph(range, brief),
     h("div", { class: "chart-box" }, svg),
     profileLegend(d, range),
     profileTable(d),
+    ...(state.forecast?.junctions || []).map((j) => splitTable(j, state.forecast)),
+  );
+}
+
+/** In a network, the channel the profile draws (absent for one channel). */
+function channelPicker(d) {
+  if (!d.channels?.length) return null;
+  const select = h("select", { id: "profile-channel" }, ...channelOptions(d.channels).map((o) => h("option", { value: o.value, selected: o.value === (state.channel || ""), text: o.label })));
+  select.addEventListener("change", (e) => {
+    state.channel = e.target.value || null;
+    refreshProfile();
+  });
+  return h("p", {}, h("label", { for: "profile-channel", text: "Channel drawn " }), select);
+}
+
+/** The flow split at a junction of a network, now and at each end's peak. */
+function splitTable(j, f) {
+  const q = f.units.discharge.replace("3/s", "³/s");
+  const rows = splitRows(j, f.now).map((r) =>
+    h("tr", { "data-channel": r.channel }, h("th", { scope: "row", text: r.channel }), h("td", { text: r.side }), ...[r.now, r.share, r.peak].map((t) => h("td", { class: "num", text: t })), h("td", { text: formatTime(r.peakTime, f.reach.time_zone) })),
+  );
+  const head = ["Channel", "Flow", `Now (${q})`, "Share now", `Peak (${q})`, "Peak at"];
+  return h(
+    "div",
+    { class: "table-wrap" },
+    h("table", { class: "split-table", "data-junction": j.name }, h("caption", { text: `Flow split at ${j.name} (share of the flow through it)` }), h("thead", {}, h("tr", {}, ...head.map((c) => h("th", { scope: "col", text: c })))), h("tbody", {}, ...rows)),
   );
 }
 
@@ -700,6 +735,7 @@ function wire() {
   $("reach-select").addEventListener("change", (e) => {
     state.reachId = e.target.value;
     state.units = null;
+    state.channel = null;
     history.replaceState(null, "", `#reach=${encodeURIComponent(state.reachId)}`);
     refresh();
     loadUploads();

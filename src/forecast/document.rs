@@ -16,6 +16,7 @@ use super::{
     levels_csv,
     record::{EnsembleRecord, RunDiagnostics, RunRecord, StoredResults},
     spec::{Method, ReachSpec, Units},
+    splits::{self, JunctionView},
     verify::{
         correction::{self, Correction},
         pass,
@@ -159,6 +160,9 @@ pub struct ForecastDoc {
     #[serde(with = "crate::wire_time")]
     pub now: DateTime<Utc>,
     pub points: Vec<PointView>,
+    /// In a reach of several channels, the flow split at every junction
+    /// (empty for one channel).
+    pub junctions: Vec<JunctionView>,
 }
 
 /// The forecast at one point, with the document's context.
@@ -278,6 +282,12 @@ pub fn build(i: &Inputs<'_>, freshness: Freshness) -> ForecastDoc {
         }),
         now: i.now,
         points,
+        junctions: i
+            .results
+            .junctions
+            .iter()
+            .map(|j| splits::view(j, i.units == Units::Us))
+            .collect(),
     }
 }
 

@@ -28,6 +28,7 @@ pub mod record;
 pub mod report;
 pub mod run;
 pub mod spec;
+pub mod splits;
 pub mod traces;
 pub mod verify;
 pub mod view;

@@ -6,6 +6,7 @@
 //! channel after channel for the profile, and the flow of every channel
 //! end at every junction (the flow split).
 
+use chrono::{DateTime, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::channels::{ChannelStart, junction_ids};
@@ -88,6 +89,9 @@ pub struct EndFlow {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct JunctionFlow {
     pub junction: String,
+    /// The run's output instants (the points' times).
+    #[serde(with = "crate::wire_time::vec")]
+    pub times: Vec<DateTime<Utc>>,
     pub ends: Vec<EndFlow>,
 }
 
@@ -103,6 +107,8 @@ pub type SeriesAt<'a> = &'a dyn Fn(&str, &[super::spec::FlowPoint]) -> Result<Se
 
 /// The inputs of one network run besides the nodes.
 pub struct Inputs<'a> {
+    /// The run's start, which the seconds count from.
+    pub start: DateTime<Utc>,
     /// The reach's inflow (seconds from the run's start).
     pub upstream: &'a Series,
     pub downstream: DownstreamBoundary,
@@ -131,9 +137,11 @@ pub fn route<H: Hydraulics>(
         options: inputs.options,
     };
     let result = route_network(&problem).map_err(|e| RunError::Routing(e.to_string()))?;
+    let times = super::run::instants(inputs.start, &result.output_times);
     let junctions = (0..net.junctions.len())
         .map(|j| JunctionFlow {
             junction: net.junctions[j].clone(),
+            times: times.clone(),
             ends: result
                 .junction_flows(&problem.network, j)
                 .into_iter()

@@ -31,10 +31,18 @@ use super::{
 /// Why a run could not be made.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum RunError {
+    // Not `#[from]`: that would make the field error the source too, and
+    // an error chain (`{:#}`) would print it twice.
     #[error("reach description: {0}")]
-    Spec(#[from] SpecError),
+    Spec(SpecError),
     #[error("routing failed: {0}")]
     Routing(String),
+}
+
+impl From<SpecError> for RunError {
+    fn from(e: SpecError) -> Self {
+        Self::Spec(e)
+    }
 }
 
 /// Forecast at one point of interest.
@@ -240,6 +248,7 @@ fn route_network_on<H: Hydraulics>(
     let upstream = inflow.to_series(t0);
     let series = |path: &str, points: &[FlowPoint]| flow_series(path, points, t0);
     let inputs = network::Inputs {
+        start: t0,
         upstream: &upstream,
         downstream: downstream_boundary(spec, prepared, t0, adjust.rating)?,
         options: options_of(spec),
@@ -392,7 +401,7 @@ fn output_of<H: Hydraulics>(
 }
 
 /// The run's output instants as times.
-fn instants(t0: DateTime<Utc>, seconds: &[f64]) -> Vec<DateTime<Utc>> {
+pub(super) fn instants(t0: DateTime<Utc>, seconds: &[f64]) -> Vec<DateTime<Utc>> {
     seconds
         .iter()
         .map(|s| t0 + Duration::milliseconds((s * 1000.0).round() as i64))

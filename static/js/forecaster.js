@@ -203,7 +203,7 @@ function uploadRow(u, zone) {
   if (u.in_force) version.append(h("br"), h("strong", { class: "in-force-mark", text: "in force" }));
   return h(
     "tr",
-    { "data-version": u.version, class: u.in_force ? "in-force" : null, "aria-current": u.in_force ? "true" : null },
+    { "data-version": u.version, "data-boundary": u.boundary, class: u.in_force ? "in-force" : null, "aria-current": u.in_force ? "true" : null },
     version,
     h("td", { text: formatTime(u.uploaded_at, zone) }),
     h("td", { text: u.uploaded_by_name ?? `key ${u.uploaded_by}` }),

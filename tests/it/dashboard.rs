@@ -730,20 +730,64 @@ async fn demo_dashboard_shows_every_point_with_a_row_and_a_chart() {
         Some(&format!("#chart-{bridge}")),
     )
     .await;
-    // The longitudinal profile: a marker per point, upstream first as
-    // the API lists them, and a table row per point.
+    // The longitudinal profile of the demo network's main stem: a marker
+    // per point on it, upstream first as the API lists them, and a table
+    // row per point. The tributary's footbridge is not on it.
+    let on_stem: Vec<&String> = names
+        .iter()
+        .filter(|n| n.as_str() != "Gill End footbridge")
+        .collect();
+    assert_eq!(on_stem.len() + 1, names.len(), "{names:?}");
+    let marker_script = |n: usize| {
+        format!(
+            "const p = [...document.querySelectorAll('#profile svg.profile-chart .poi')].map(g => g.dataset.point); return p.length === {n} && document.querySelectorAll('#profile table.profile-table tbody tr').length === p.length ? p : null"
+        )
+    };
     let pois = b
         .wait_for(
             "the profile with a marker per point",
-            &format!(
-                "const p = [...document.querySelectorAll('#profile svg.profile-chart .poi')].map(g => g.dataset.point); return p.length === {} && document.querySelectorAll('#profile table.profile-table tbody tr').length === p.length ? p : null",
-                names.len()
-            ),
+            &marker_script(on_stem.len()),
             30,
         )
         .await;
-    assert_eq!(pois, json!(names), "profile markers in the API's order");
+    assert_eq!(pois, json!(on_stem), "profile markers in the API's order");
+    // The flow split at the confluence: both rivers arrive, one leaves,
+    // and the arriving shares make up the whole (continuity, common
+    // practice).
+    let split = b
+        .wait_for(
+            "the flow split at Moss Foot",
+            "const r = [...document.querySelectorAll('#profile table.split-table[data-junction=\"Moss Foot\"] tbody tr')].map(t => [t.dataset.channel, t.cells[1].textContent, t.cells[3].textContent]); return r.length === 3 ? r : null",
+            30,
+        )
+        .await;
+    let rows = split.as_array().expect("rows");
+    let arriving: Vec<f64> = rows
+        .iter()
+        .filter(|r| r[1] == "arrives")
+        .map(|r| {
+            r[2].as_str()
+                .and_then(|t| t.trim_end_matches(" %").parse().ok())
+                .expect("a share")
+        })
+        .collect();
+    assert_eq!(arriving.len(), 2, "{split}");
+    assert!(
+        (arriving.iter().sum::<f64>() - 100.0).abs() <= 1.0,
+        "{split}"
+    );
     b.screenshot("profile-demo.png", Some("#profile")).await;
+    // The channel picker draws the tributary alone, with its footbridge.
+    b.eval("const s = document.getElementById('profile-channel'); s.value = 'Moss Gill'; s.dispatchEvent(new Event('change'))")
+        .await;
+    let gill = b
+        .wait_for("the Moss Gill profile", &marker_script(1), 30)
+        .await;
+    assert_eq!(gill, json!(["Gill End footbridge"]));
+    b.eval("const s = document.getElementById('profile-channel'); s.value = ''; s.dispatchEvent(new Event('change'))")
+        .await;
+    b.wait_for("the main stem again", &marker_script(on_stem.len()), 30)
+        .await;
     b.resize(1280, 1000).await;
 
     // The units toggle asks for US units and the rows follow the API's figures.
@@ -1296,7 +1340,7 @@ async fn upload_preview_states_the_jump_and_the_list_marks_the_upload_in_force()
         .wait_for(
             "the new upload marked in force",
             &format!(
-                "const r = [...document.querySelectorAll('#uploads-body tr.in-force')]; return r.length === 1 && Number(r[0].dataset.version) > {count} ? [r[0].dataset.version, r[0].innerText] : null"
+                "const r = [...document.querySelectorAll('#uploads-body tr.in-force:not([data-boundary])')]; return r.length === 1 && Number(r[0].dataset.version) > {count} ? [r[0].dataset.version, r[0].innerText] : null"
             ),
             30,
         )
@@ -1306,9 +1350,9 @@ async fn upload_preview_states_the_jump_and_the_list_marks_the_upload_in_force()
         .as_array()
         .expect("uploads")
         .iter()
-        .filter(|u| u["in_force"] == true)
+        .filter(|u| u["in_force"] == true && u["boundary"].is_null())
         .collect();
-    assert_eq!(in_force.len(), 1, "{after}");
+    assert_eq!(in_force.len(), 1, "one upstream inflow in force: {after}");
     assert_eq!(marked[0], in_force[0]["version"].to_string(), "{marked}");
     let row = marked[1].as_str().unwrap_or_default();
     assert!(

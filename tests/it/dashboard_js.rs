@@ -36,9 +36,9 @@ fn dashboard_javascript_unit_tests_pass() {
 }
 
 /// The whole dashboard (every file under `static/`: HTML, CSS, JS) stays
-/// under the 150 KB page-weight budget, uncompressed.
+/// under the 160 KB page-weight budget, uncompressed (README.md, section Dashboard).
 #[test]
-fn dashboard_page_weight_is_under_150_kb() {
+fn dashboard_page_weight_is_under_160_kb() {
     let bytes: u64 = files_under(&repo_path("static"))
         .iter()
         .map(|p| std::fs::metadata(p).expect("file size").len())
@@ -48,7 +48,7 @@ fn dashboard_page_weight_is_under_150_kb() {
         "the dashboard files are there: {bytes} bytes"
     );
     assert!(
-        bytes < 150 * 1024,
-        "page weight {bytes} bytes is over the 150 KB budget"
+        bytes < 160 * 1024,
+        "page weight {bytes} bytes is over the 160 KB budget"
     );
 }
