@@ -198,3 +198,7 @@ fn network_of<'a, H: Hydraulics>(
     }
     Network::new(channels).map_err(|e| RunError::Routing(e.to_string()))
 }
+
+#[cfg(test)]
+#[path = "network_tests.rs"]
+mod tests;

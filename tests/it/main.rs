@@ -28,6 +28,7 @@ mod hindcast;
 mod inflow_traces;
 mod ingest;
 mod metrics;
+mod networks;
 mod openapi;
 mod panel;
 mod ratings;
