@@ -51,17 +51,51 @@ pub fn summary(out: &RunOutput, wall_time_s: f64) -> String {
     for p in &out.points {
         point_lines(&mut s, p);
     }
+    for j in &out.junctions {
+        junction_lines(&mut s, &super::splits::view(j, false));
+    }
     diagnostics_lines(&mut s, d, wall_time_s);
     s
+}
+
+/// The flow split at one junction of a network: each channel end's peak
+/// and its share of the through-flow then.
+fn junction_lines(s: &mut String, j: &super::splits::JunctionView) {
+    let _ = writeln!(s);
+    let _ = writeln!(s, "flow split at junction {}", j.name);
+    for e in &j.ends {
+        let k = j.times.iter().position(|t| *t == e.peak_time).unwrap_or(0);
+        let share = e
+            .share
+            .get(k)
+            .copied()
+            .flatten()
+            .map_or("-".to_owned(), |x| format!("{:.0} %", 100.0 * x));
+        let side = match e.side {
+            super::splits::Side::Arrives => "arrives",
+            super::splits::Side::Leaves => "leaves",
+        };
+        let _ = writeln!(
+            s,
+            "  {} {side}: peak {:.1} m3/s at {} ({share} of the flow through the junction then)",
+            e.channel,
+            e.peak_discharge,
+            time(e.peak_time)
+        );
+    }
 }
 
 /// The lines of one point: crest, then each level (thresholds, low chord
 /// and deck).
 fn point_lines(s: &mut String, p: &PointForecast) {
     let _ = writeln!(s);
+    let on = p
+        .channel
+        .as_deref()
+        .map_or(String::new(), |c| format!("channel {c}, "));
     let _ = writeln!(
         s,
-        "{} ({}, chainage {:.0} m, bed {:.2} m)",
+        "{} ({}, {on}chainage {:.0} m, bed {:.2} m)",
         p.name, p.kind, p.chainage, p.bed_elevation
     );
     let _ = writeln!(

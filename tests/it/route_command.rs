@@ -330,3 +330,50 @@ fn route_with_trace_columns_routes_the_traces() {
         assert!(lo < d && d < hi, "{lo} < {d} < {hi}");
     }
 }
+
+/// The demo network routes offline with its tributary's own hydrograph:
+/// each point says its channel and the confluence's split is printed, the
+/// lower river's peak above the main river's (continuity, common
+/// practice: the tributary adds to it).
+#[test]
+fn route_on_a_network_prints_channels_and_the_flow_split() {
+    let out = route(
+        &demo_file("brindlemoor-network.json"),
+        &demo_file("brindlemoor-inflow.csv"),
+        &[],
+    );
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    assert!(
+        out.status.success(),
+        "{stdout}\n{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert!(
+        stdout.contains("channel Moss Gill, chainage 2500 m"),
+        "{stdout}"
+    );
+    assert!(
+        stdout.contains("flow split at junction Moss Foot"),
+        "{stdout}"
+    );
+    let peak = |channel: &str| -> f64 {
+        let line = stdout
+            .lines()
+            .find(|l| l.trim_start().starts_with(channel) && l.contains(": peak "))
+            .unwrap_or_else(|| panic!("{channel} in {stdout}"));
+        line.split(": peak ")
+            .nth(1)
+            .and_then(|r| r.split(' ').next())
+            .and_then(|q| q.parse().ok())
+            .expect("a peak")
+    };
+    let (above, gill, below) = (
+        peak("Brindle above Moss Foot"),
+        peak("Moss Gill"),
+        peak("Brindle below Moss Foot"),
+    );
+    assert!(
+        below > above && below < above + gill,
+        "{above} + {gill} -> {below}"
+    );
+}

@@ -44,11 +44,11 @@
 //! `topology` (channels, ends, junctions and their checks), `layout`
 //! (which unknown each node's stage is), `work` (arrays, balances, the
 //! Newton system), `bordered` (its solve), `newton` (one step), `problem`
-//! (inputs and forcing), `initial` (hot or steady start), `result`,
-//! `description` (a network as serde data, built into nodes).
+//! (inputs and forcing), `initial` (hot or steady start), `result`.
+//! The serde form of a network is REACH.json's `channels`
+//! (`crate::forecast::channels`), outside the engine.
 
 pub mod bordered;
-mod description;
 mod initial;
 mod layout;
 mod newton;
@@ -59,10 +59,6 @@ mod tests;
 mod topology;
 mod work;
 
-pub use description::{
-    BuiltChannel, BuiltNetwork, ChannelDescription, DescriptionError, DownstreamDescription,
-    NetworkDescription, UpstreamDescription,
-};
 pub use problem::{NetworkInitial, NetworkProblem};
 pub use result::{ChannelOutput, JunctionEnd, NetworkBalance, NetworkResult};
 pub use topology::{Channel, DownstreamEnd, Ends, Network, NetworkError, UpstreamEnd, check_ends};
