@@ -86,6 +86,11 @@ pub struct FitRatingArgs {
     /// Keep gaugings rated poor (left out by default).
     #[arg(long)]
     pub keep_poor: bool,
+    /// Stages (m) where one power segment ends and the next begins,
+    /// comma-separated and increasing; each segment above the first is
+    /// fitted through the one below at its break [default: one segment].
+    #[arg(long, value_name = "STAGES", value_delimiter = ',')]
+    pub breaks: Vec<f64>,
     /// Write the fitted curve here as JSON (the `curve` of a rating
     /// version: POST it to /api/gauges/{gauge}/ratings with `valid_from`).
     #[arg(long, value_name = "FILE")]
@@ -109,23 +114,33 @@ pub fn run_fit_rating(args: &FitRatingArgs) -> anyhow::Result<String> {
         .into_iter()
         .filter(|g| args.keep_poor || g.quality != GaugingQuality::Poor)
         .collect();
-    let report = ratings::fit(&chosen).map_err(|e| anyhow::anyhow!("{path}: {e}"))?;
-    let f = &report.fit;
-    let caution = if f.e_at_search_limit {
-        "; the zero-flow stage sits at the search limit: treat e and b with caution"
-    } else {
-        ""
-    };
-    let mut out = format!(
-        "Q = {:.6} (h - {:.4})^{:.4}  from {} gaugings; RMS deviation {:.2} %, largest {:.2} %, r² (ln Q) {:.5}{caution}\n",
-        f.c,
-        f.e,
-        f.b,
-        f.n_points,
-        report.rms_deviation_pct,
-        100.0 * f.max_relative_error,
-        f.r_squared,
-    );
+    let report = ratings::fit(&chosen, &args.breaks).map_err(|e| anyhow::anyhow!("{path}: {e}"))?;
+    let mut out = String::new();
+    for (k, f) in report.segments.iter().enumerate() {
+        let caution = if f.e_at_search_limit {
+            "; the zero-flow stage sits at the search limit: treat e and b with caution"
+        } else {
+            ""
+        };
+        let upto = args
+            .breaks
+            .get(k)
+            .map_or(String::new(), |b| format!(" up to {b} m"));
+        out.push_str(&format!(
+            "Q = {:.6} (h - {:.4})^{:.4}{upto}  from {} gaugings; largest deviation {:.2} %, r² (ln Q) {:.5}{caution}\n",
+            f.c,
+            f.e,
+            f.b,
+            f.n_points,
+            100.0 * f.max_relative_error,
+            f.r_squared,
+        ));
+    }
+    out.push_str(&format!(
+        "RMS deviation of all {} gaugings from the curve {:.2} %\n",
+        chosen.len(),
+        report.rms_deviation_pct
+    ));
     for (g, d) in chosen.iter().zip(&report.deviations_pct) {
         out.push_str(&format!(
             "  {}  h {:.3} m  Q {:.3} m³/s  {:+.2} %\n",

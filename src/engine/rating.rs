@@ -630,6 +630,111 @@ pub fn fit_power_segment(points: &[(f64, f64)]) -> Result<PowerFit, RatingError>
     })
 }
 
+/// Fits Q = C (h − e)^b to points above a break, through the break
+/// `(h_b, q_b)` where the segment below ends, so the rating is continuous
+/// there.
+///
+/// Through a fixed point, for a fixed `e` the model
+/// ln Q − ln q_b = b (ln(h − e) − ln(h_b − e)) is a line through the origin,
+/// solved in closed form; `e` below the break is found as in
+/// [`fit_power_segment`] (a scan of ln(h_b − e), then golden section).
+/// Needs at least two points above the break with positive finite
+/// discharge.
+pub fn fit_power_segment_through(
+    points: &[(f64, f64)],
+    (h_b, q_b): (f64, f64),
+) -> Result<PowerFit, RatingError> {
+    if points.len() < 2 {
+        return Err(RatingError::TooFewFitPoints {
+            count: points.len(),
+        });
+    }
+    for (index, &(stage, discharge)) in points.iter().enumerate() {
+        if !(stage.is_finite() && discharge.is_finite() && discharge > 0.0 && stage > h_b) {
+            return Err(RatingError::InvalidFitPoint {
+                index,
+                stage,
+                discharge,
+            });
+        }
+    }
+    if !(h_b.is_finite() && q_b.is_finite() && q_b > 0.0) {
+        return Err(RatingError::FitFailed {
+            reason: "the segment below gives no positive discharge at the break",
+        });
+    }
+    let h_max = points.iter().map(|p| p.0).fold(f64::NEG_INFINITY, f64::max);
+    let range = h_max - h_b;
+    // For e = h_b − exp(s): (rss, b).
+    let solve = |s: f64| -> Option<(f64, f64)> {
+        let e = h_b - s.exp();
+        let base = (h_b - e).ln();
+        let xy: Vec<(f64, f64)> = points
+            .iter()
+            .map(|&(h, q)| ((h - e).ln() - base, q.ln() - q_b.ln()))
+            .collect();
+        let sxx: f64 = xy.iter().map(|(x, _)| x * x).sum();
+        let b = xy.iter().map(|(x, y)| x * y).sum::<f64>() / sxx;
+        let rss: f64 = xy.iter().map(|(x, y)| (y - b * x).powi(2)).sum();
+        (rss.is_finite() && b.is_finite()).then_some((rss, b))
+    };
+    let rss = |s: f64| solve(s).map_or(f64::INFINITY, |r| r.0);
+    let s_lo = (range * 1e-6).ln();
+    let s_hi = (range * 1e3).ln();
+    let step = (s_hi - s_lo) / SCAN_STEPS as f64;
+    let (mut best_k, mut best_rss) = (0_usize, f64::INFINITY);
+    for k in 0..=SCAN_STEPS {
+        let v = rss(s_lo + k as f64 * step);
+        if v < best_rss {
+            best_rss = v;
+            best_k = k;
+        }
+    }
+    let failed = RatingError::FitFailed {
+        reason: "least squares did not produce a finite solution",
+    };
+    if !best_rss.is_finite() {
+        return Err(failed);
+    }
+    let mut s_best = golden_section(
+        &rss,
+        s_lo + best_k.saturating_sub(1) as f64 * step,
+        s_lo + (best_k + 1).min(SCAN_STEPS) as f64 * step,
+    );
+    if rss(s_best) > best_rss {
+        s_best = s_lo + best_k as f64 * step;
+    }
+    let (rss_best, exponent) = solve(s_best).ok_or(failed)?;
+    if exponent <= 0.0 {
+        return Err(RatingError::FitFailed {
+            reason: "discharge does not rise with stage",
+        });
+    }
+    let e = h_b - s_best.exp();
+    let c = q_b / (h_b - e).powf(exponent);
+    let y_mean = points.iter().map(|p| p.1.ln()).sum::<f64>() / points.len() as f64;
+    let ss_tot: f64 = points.iter().map(|p| (p.1.ln() - y_mean).powi(2)).sum();
+    let max_relative_error = points
+        .iter()
+        .map(|&(h, q)| (c * (h - e).powf(exponent) / q - 1.0).abs())
+        .fold(0.0, f64::max);
+    let edge = step * 0.5;
+    Ok(PowerFit {
+        c,
+        e,
+        b: exponent,
+        rmse_log: (rss_best / points.len() as f64).sqrt(),
+        max_relative_error,
+        r_squared: if ss_tot > 0.0 {
+            1.0 - rss_best / ss_tot
+        } else {
+            1.0
+        },
+        n_points: points.len(),
+        e_at_search_limit: s_best <= s_lo + edge || s_best >= s_hi - edge,
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -13,7 +13,9 @@
 use chrono::{DateTime, Utc};
 use serde::{Deserialize, Serialize};
 
-use crate::engine::rating::{PowerFit, RatingCurve, RatingError, fit_power_segment};
+use crate::engine::rating::{
+    PowerFit, PowerSegment, RatingCurve, RatingError, fit_power_segment, fit_power_segment_through,
+};
 
 /// One discharge measurement at a gauge.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -180,33 +182,94 @@ impl Ratings {
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct FitReport {
     pub curve: RatingCurve,
-    pub fit: PowerFit,
+    /// Each segment's fit, lowest first (one without breaks).
+    pub segments: Vec<PowerFit>,
     /// Per gauging (in the order given): 100 (Q_measured / Q_curve − 1).
     pub deviations_pct: Vec<f64>,
     /// Root mean square of those deviations (%).
     pub rms_deviation_pct: f64,
 }
 
-/// Fits one power segment Q = C (h − e)^b to `gaugings` (least squares in
-/// log space, the engine's [`fit_power_segment`]).
-pub fn fit(gaugings: &[Gauging]) -> Result<FitReport, RatingError> {
+/// Why a set of gaugings could not be fitted.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum FitError {
+    #[error("`breaks` must be finite and strictly increasing")]
+    Breaks,
+    #[error("segment {segment} (stages {range}) has {count} gaugings; it needs {needed}")]
+    TooFew {
+        segment: usize,
+        range: String,
+        count: usize,
+        needed: usize,
+    },
+    #[error("segment {segment}: {source}")]
+    Segment {
+        segment: usize,
+        #[source]
+        source: RatingError,
+    },
+}
+
+/// Fits a power rating to `gaugings`: one segment Q = C (h − e)^b without
+/// `breaks`; with them (stages, increasing) one segment per stage band,
+/// the lowest fitted freely and each next one through the discharge of
+/// the one below at their break, so the curve is continuous (least squares
+/// in log space, the engine's [`fit_power_segment`] and
+/// [`fit_power_segment_through`]).
+pub fn fit(gaugings: &[Gauging], breaks: &[f64]) -> Result<FitReport, FitError> {
+    if breaks.iter().any(|b| !b.is_finite()) || breaks.windows(2).any(|w| w[1] <= w[0]) {
+        return Err(FitError::Breaks);
+    }
     let points: Vec<(f64, f64)> = gaugings
         .iter()
         .map(|g| (g.stage_m, g.discharge_m3s))
         .collect();
-    let fit = fit_power_segment(&points)?;
-    let seg = fit.segment();
+    let mut segments: Vec<PowerSegment> = Vec::new();
+    let mut fits = Vec::new();
+    for k in 0..=breaks.len() {
+        let lo = k.checked_sub(1).map(|i| breaks[i]);
+        let hi = breaks.get(k).copied();
+        let band: Vec<(f64, f64)> = points
+            .iter()
+            .copied()
+            .filter(|&(h, _)| lo.is_none_or(|l| h > l) && hi.is_none_or(|u| h <= u))
+            .collect();
+        let needed = if k == 0 { 3 } else { 2 };
+        if band.len() < needed {
+            let range = match (lo, hi) {
+                (None, Some(u)) => format!("up to {u} m"),
+                (Some(l), None) => format!("above {l} m"),
+                (Some(l), Some(u)) => format!("{l} m to {u} m"),
+                (None, None) => "all".to_owned(),
+            };
+            return Err(FitError::TooFew {
+                segment: k,
+                range,
+                count: band.len(),
+                needed,
+            });
+        }
+        let fit = match (segments.last(), lo) {
+            (Some(below), Some(l)) => fit_power_segment_through(&band, (l, below.discharge(l))),
+            _ => fit_power_segment(&band),
+        }
+        .map_err(|source| FitError::Segment { segment: k, source })?;
+        segments.push(PowerSegment {
+            upper_stage: hi,
+            ..fit.segment()
+        });
+        fits.push(fit);
+    }
+    let curve = RatingCurve::Power { segments };
     let deviations_pct: Vec<f64> = points
         .iter()
-        .map(|&(h, q)| 100.0 * (q / seg.discharge(h) - 1.0))
+        .map(|&(h, q)| 100.0 * (q / curve.discharge(h).unwrap_or(f64::NAN) - 1.0))
         .collect();
     let rms =
         (deviations_pct.iter().map(|d| d * d).sum::<f64>() / deviations_pct.len() as f64).sqrt();
     Ok(FitReport {
-        curve: RatingCurve::Power {
-            segments: vec![seg],
-        },
-        fit,
+        curve,
+        segments: fits,
         deviations_pct,
         rms_deviation_pct: rms,
     })
@@ -215,7 +278,6 @@ pub fn fit(gaugings: &[Gauging]) -> Result<FitReport, RatingError> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::engine::rating::PowerSegment;
     use crate::forecast::ensemble::rng::SplitMix64;
 
     fn t(h: i64) -> DateTime<Utc> {
@@ -252,8 +314,8 @@ mod tests {
                 }
             })
             .collect();
-        let r = fit(&gaugings).unwrap();
-        let f = r.fit;
+        let r = fit(&gaugings, &[]).unwrap();
+        let f = r.segments[0];
         assert!((f.b - 1.6).abs() < 0.08, "{f:?}");
         assert!((f.e - 0.3).abs() < 0.05, "{f:?}");
         // At mid-range the fitted discharge is within 1 % of the truth.
@@ -262,6 +324,60 @@ mod tests {
         assert!((q / truth - 1.0).abs() < 0.01, "{q} vs {truth}");
         assert!(r.deviations_pct.iter().all(|d| d.abs() < 2.5));
         assert!(r.rms_deviation_pct > 0.1 && r.rms_deviation_pct < 2.0);
+    }
+
+    /// A two-segment rating, continuous at its break (common practice for
+    /// a control that changes, e.g. a bank or floodplain coming in):
+    /// Q = 12 (h − 0.3)^1.6 up to 2.0 m, then Q = c₂ (h − 1.0)^2.2 through
+    /// the same discharge at 2.0 m. From gaugings with ±2 % noise the fit
+    /// with `breaks = [2.0]` recovers both exponents, is continuous at the
+    /// break, and stays within 2 % of the truth across both segments.
+    #[test]
+    fn a_two_segment_curve_is_recovered_and_continuous_at_its_break() {
+        let q1 = |h: f64| 12.0 * (h - 0.3f64).powf(1.6);
+        let q_b = q1(2.0);
+        let q2 = |h: f64| q_b * (h - 1.0f64).powf(2.2);
+        let truth = |h: f64| if h <= 2.0 { q1(h) } else { q2(h) };
+        let mut rng = SplitMix64::new(11);
+        let gaugings: Vec<Gauging> = (0..40)
+            .map(|k| {
+                let h = 0.6 + 0.09 * f64::from(k);
+                Gauging {
+                    time: t(i64::from(k)),
+                    stage_m: h,
+                    discharge_m3s: truth(h) * (1.0 + 0.04 * (rng.next_unit() - 0.5)),
+                    method: "acoustic-doppler".into(),
+                    quality: GaugingQuality::Good,
+                }
+            })
+            .collect();
+        let r = fit(&gaugings, &[2.0]).unwrap();
+        let [low, high] = r.segments.as_slice() else {
+            panic!("two segments: {:?}", r.segments);
+        };
+        assert!((low.b - 1.6).abs() < 0.1, "{low:?}");
+        assert!((high.b - 2.2).abs() < 0.2, "{high:?}");
+        let RatingCurve::Power { segments } = &r.curve else {
+            panic!("a power curve");
+        };
+        assert_eq!(segments[0].upper_stage, Some(2.0));
+        assert_eq!(segments[1].upper_stage, None);
+        let (below, above) = (segments[0].discharge(2.0), segments[1].discharge(2.0));
+        assert!((above / below - 1.0).abs() < 1e-12, "{below} vs {above}");
+        for h in [0.8, 1.5, 2.0, 2.5, 3.5, 4.0] {
+            let q = r.curve.discharge(h).unwrap();
+            assert!(
+                (q / truth(h) - 1.0).abs() < 0.02,
+                "{h}: {q} vs {}",
+                truth(h)
+            );
+        }
+        assert!(r.rms_deviation_pct < 2.0);
+        assert_eq!(fit(&gaugings, &[2.0, 1.0]), Err(FitError::Breaks));
+        assert!(matches!(
+            fit(&gaugings, &[9.0]),
+            Err(FitError::TooFew { segment: 1, .. })
+        ));
     }
 
     /// A reading is converted with the rating valid at its time: before
@@ -327,12 +443,17 @@ mod tests {
                     quality: GaugingQuality::Fair,
                 })
                 .collect();
-            if let Ok(r) = fit(&set) {
-                assert!(
-                    r.fit.c.is_finite() && r.fit.b > 0.0,
-                    "trial {trial}: {:?}",
-                    r.fit
-                );
+            if let Ok(r) = fit(&set, &[]) {
+                let f = r.segments[0];
+                assert!(f.c.is_finite() && f.b > 0.0, "trial {trial}: {f:?}");
+            }
+            // And in two segments, broken at a middle gauging's stage.
+            let mut stages: Vec<f64> = set.iter().map(|g| g.stage_m).collect();
+            stages.sort_by(f64::total_cmp);
+            if let Ok(r) = fit(&set, &[stages[stages.len() / 2]]) {
+                for f in &r.segments {
+                    assert!(f.c.is_finite() && f.b > 0.0, "trial {trial}: {f:?}");
+                }
             }
         }
     }

@@ -40,6 +40,8 @@ pub fn router() -> Router<AppState> {
 /// Gaugings one request may carry at most.
 const MAX_GAUGINGS: usize = 10_000;
 
+/// Segment breaks one fit takes at most (a rating has a few segments).
+const MAX_BREAKS: usize = 8;
 /// Gaugings one fit takes at most (a rating is fitted from tens).
 const MAX_FITTED: usize = 2_000;
 
@@ -203,6 +205,10 @@ struct FitBody {
     /// Leave out gaugings rated poor (default true).
     #[serde(default = "yes")]
     exclude_poor: bool,
+    /// Stages where one segment ends and the next begins (increasing);
+    /// empty: one segment.
+    #[serde(default)]
+    breaks: Vec<f64>,
 }
 
 fn yes() -> bool {
@@ -259,10 +265,22 @@ async fn fit(
     }
     // The fit solves a least-squares problem per trial zero-flow stage:
     // off the async runtime, like routing.
-    let (report, chosen) = tokio::task::spawn_blocking(move || (ratings::fit(&chosen), chosen))
-        .await
-        .map_err(|e| ApiError::Internal(anyhow::anyhow!("rating fit task failed: {e}")))?;
-    let report = report.map_err(|e| Problem::invalid("gaugings", e.to_string()))?;
+    if b.breaks.len() > MAX_BREAKS {
+        let m = format!("at most {MAX_BREAKS} breaks, got {}", b.breaks.len());
+        return Err(Problem::invalid("breaks", m).into());
+    }
+    let breaks = b.breaks;
+    let (report, chosen) =
+        tokio::task::spawn_blocking(move || (ratings::fit(&chosen, &breaks), chosen))
+            .await
+            .map_err(|e| ApiError::Internal(anyhow::anyhow!("rating fit task failed: {e}")))?;
+    let report = report.map_err(|e| {
+        let field = match e {
+            ratings::FitError::Breaks => "breaks",
+            _ => "gaugings",
+        };
+        Problem::invalid(field, e.to_string())
+    })?;
     Ok(Json(FitAnswer {
         gauge: id,
         gaugings: chosen

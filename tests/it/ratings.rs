@@ -108,6 +108,26 @@ async fn gaugings_fit_versions_and_shifts_change_what_the_stages_mean() {
         .collect();
     assert_eq!(devs.len(), 12);
     assert!(devs.iter().all(|d| d.abs() < 2.0), "{devs:?}");
+    // In two segments broken at 20.5 m: continuous there, each with its
+    // statistics; breaks out of order name the field.
+    let two = json_of(
+        post(&s, "/ratings/fit", &json!({"breaks": [20.5]})).await,
+        200,
+    )
+    .await;
+    let segs = &two["report"]["curve"]["segments"];
+    assert_eq!(segs[0]["upper_stage"], 20.5, "{two}");
+    assert_eq!(two["report"]["segments"].as_array().map(Vec::len), Some(2));
+    let q_at = |g: &Value, h: f64| {
+        g["c"].as_f64().unwrap() * (h - g["e"].as_f64().unwrap()).powf(g["b"].as_f64().unwrap())
+    };
+    assert!((q_at(&segs[0], 20.5) / q_at(&segs[1], 20.5) - 1.0).abs() < 1e-9);
+    let p = problem(
+        post(&s, "/ratings/fit", &json!({"breaks": [21.0, 20.0]})).await,
+        422,
+    )
+    .await;
+    assert_eq!(p["field"], "breaks", "{p}");
 
     // The fitted curve as version 1, valid from three hours ago: readings
     // from then on are converted with it.
