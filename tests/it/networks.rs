@@ -98,6 +98,21 @@ async fn a_gauged_tributary_channel_feeds_the_network_and_the_split_is_reported(
     .await;
     let summary = json_of(s.app.run_and_wait(&s.keys.forecaster, REACH).await, 200).await;
     assert_eq!(summary["status"], "ok", "{summary}");
+    // The tributary channel's provenance: its gauge, its observations.
+    let (_, run) = s
+        .app
+        .get_json(&format!("/api/runs/{}", summary["run_id"]))
+        .await;
+    let beck = run["provenance"]["laterals"]
+        .as_array()
+        .and_then(|l| l.iter().find(|t| t["name"] == "Nettle Beck"))
+        .cloned()
+        .unwrap_or_else(|| panic!("Nettle Beck in {}", run["provenance"]));
+    assert_eq!(beck["gauge"], TRIBUTARY, "{beck}");
+    assert!(
+        beck["inflow"]["observed_count"].as_u64().unwrap_or(0) >= 20,
+        "{beck}"
+    );
     let (_, f) = s
         .app
         .get_json(&format!("/api/reaches/{REACH}/forecast"))
