@@ -627,7 +627,7 @@ function renderProfileSection(printWidth) {
   const svg = renderProfile(document, d, {
     width,
     titleId: "profile-title",
-    title: `Longitudinal profile of ${d.reach_name}, upstream to downstream: bed, bank tops, water surface now and the highest forecast water surface${range?.state === "ready" ? `, with ${range.label}' highest water surface shaded` : ""}, run #${d.run_id}.`,
+    title: `Longitudinal profile of ${d.reach_name}${d.channel ? ` (${d.channel})` : ""}, upstream to downstream: bed, bank tops, water surface now and the highest forecast water surface${range?.state === "ready" ? `, with ${range.label}' highest water surface shaded` : ""}, run #${d.run_id}.`,
   });
   box.replaceChildren(
     h("h2", { id: "profile-h", text: "Longitudinal profile" }),

@@ -469,6 +469,35 @@ pub struct PowerFit {
 }
 
 impl PowerFit {
+    /// The fit of `points` by Q = c (h − e)^b with its residual sum of
+    /// squares in ln Q and the total sum of squares of ln Q about its mean
+    /// (r² is 1 when that is zero: one discharge, fitted exactly).
+    fn of(
+        points: &[(f64, f64)],
+        (c, e, b): (f64, f64, f64),
+        (rss, ss_tot): (f64, f64),
+        e_at_search_limit: bool,
+    ) -> Self {
+        let max_relative_error = points
+            .iter()
+            .map(|&(h, q)| (c * (h - e).powf(b) / q - 1.0).abs())
+            .fold(0.0, f64::max);
+        Self {
+            c,
+            e,
+            b,
+            rmse_log: (rss / points.len() as f64).sqrt(),
+            max_relative_error,
+            r_squared: if ss_tot > 0.0 {
+                1.0 - rss / ss_tot
+            } else {
+                1.0
+            },
+            n_points: points.len(),
+            e_at_search_limit,
+        }
+    }
+
     /// The fit as an unbounded rating segment.
     pub fn segment(&self) -> PowerSegment {
         PowerSegment {
@@ -508,6 +537,39 @@ fn golden_section(f: &dyn Fn(f64) -> f64, mut a: f64, mut b: f64) -> f64 {
         }
     }
     0.5 * (a + b)
+}
+
+/// The offset s = ln(h_ref − e) minimising `rss`: a coarse scan of s over
+/// 10⁻⁶ to 10³ stage `range`s guards against local minima, and a
+/// golden-section search refines the best scan interval. Returns it and
+/// whether it sits at an end of the scan (within half a step); `None` when
+/// no trial gave a finite sum.
+fn search_log_offset(rss: &dyn Fn(f64) -> f64, range: f64) -> Option<(f64, bool)> {
+    let s_lo = (range * 1e-6).ln();
+    let s_hi = (range * 1e3).ln();
+    let step = (s_hi - s_lo) / SCAN_STEPS as f64;
+    let (mut best_k, mut best_rss) = (0_usize, f64::INFINITY);
+    for k in 0..=SCAN_STEPS {
+        let v = rss(s_lo + k as f64 * step);
+        if v < best_rss {
+            best_rss = v;
+            best_k = k;
+        }
+    }
+    if !best_rss.is_finite() {
+        return None;
+    }
+    // Golden-section search on the scan interval either side of the best.
+    let mut s_best = golden_section(
+        rss,
+        s_lo + best_k.saturating_sub(1) as f64 * step,
+        s_lo + (best_k + 1).min(SCAN_STEPS) as f64 * step,
+    );
+    if rss(s_best) > best_rss {
+        s_best = s_lo + best_k as f64 * step;
+    }
+    let edge = step * 0.5;
+    Some((s_best, s_best <= s_lo + edge || s_best >= s_hi - edge))
 }
 
 /// Fits Q = C (h − e)^b to (stage, discharge) points by least squares in log
@@ -573,31 +635,9 @@ pub fn fit_power_segment(points: &[(f64, f64)]) -> Result<PowerFit, RatingError>
     };
     let rss = |s: f64| solve(s).map_or(f64::INFINITY, |r| r.0);
 
-    let s_lo = (range * 1e-6).ln();
-    let s_hi = (range * 1e3).ln();
-    let step = (s_hi - s_lo) / SCAN_STEPS as f64;
-    let (mut best_k, mut best_rss) = (0_usize, f64::INFINITY);
-    for k in 0..=SCAN_STEPS {
-        let v = rss(s_lo + k as f64 * step);
-        if v < best_rss {
-            best_rss = v;
-            best_k = k;
-        }
-    }
-    if !best_rss.is_finite() {
-        return Err(RatingError::FitFailed {
-            reason: "least squares did not produce a finite solution",
-        });
-    }
-    // Golden-section search on the scan interval either side of the best.
-    let mut s_best = golden_section(
-        &rss,
-        s_lo + best_k.saturating_sub(1) as f64 * step,
-        s_lo + (best_k + 1).min(SCAN_STEPS) as f64 * step,
-    );
-    if rss(s_best) > best_rss {
-        s_best = s_lo + best_k as f64 * step;
-    }
+    let (s_best, at_limit) = search_log_offset(&rss, range).ok_or(RatingError::FitFailed {
+        reason: "least squares did not produce a finite solution",
+    })?;
     let (rss_best, ln_c, exponent) = solve(s_best).ok_or(RatingError::FitFailed {
         reason: "least squares did not produce a finite solution",
     })?;
@@ -613,21 +653,12 @@ pub fn fit_power_segment(points: &[(f64, f64)]) -> Result<PowerFit, RatingError>
             reason: "the fitted curve is not finite (stages or discharges span too many orders of magnitude)",
         });
     }
-    let max_relative_error = points
-        .iter()
-        .map(|&(h, q)| (c * (h - e).powf(exponent) / q - 1.0).abs())
-        .fold(0.0, f64::max);
-    let edge = step * 0.5;
-    Ok(PowerFit {
-        c,
-        e,
-        b: exponent,
-        rmse_log: (rss_best / points.len() as f64).sqrt(),
-        max_relative_error,
-        r_squared: 1.0 - rss_best / ss_tot,
-        n_points: points.len(),
-        e_at_search_limit: s_best <= s_lo + edge || s_best >= s_hi - edge,
-    })
+    Ok(PowerFit::of(
+        points,
+        (c, e, exponent),
+        (rss_best, ss_tot),
+        at_limit,
+    ))
 }
 
 /// Fits Q = C (h − e)^b to points above a break, through the break
@@ -679,31 +710,10 @@ pub fn fit_power_segment_through(
         (rss.is_finite() && b.is_finite()).then_some((rss, b))
     };
     let rss = |s: f64| solve(s).map_or(f64::INFINITY, |r| r.0);
-    let s_lo = (range * 1e-6).ln();
-    let s_hi = (range * 1e3).ln();
-    let step = (s_hi - s_lo) / SCAN_STEPS as f64;
-    let (mut best_k, mut best_rss) = (0_usize, f64::INFINITY);
-    for k in 0..=SCAN_STEPS {
-        let v = rss(s_lo + k as f64 * step);
-        if v < best_rss {
-            best_rss = v;
-            best_k = k;
-        }
-    }
     let failed = RatingError::FitFailed {
         reason: "least squares did not produce a finite solution",
     };
-    if !best_rss.is_finite() {
-        return Err(failed);
-    }
-    let mut s_best = golden_section(
-        &rss,
-        s_lo + best_k.saturating_sub(1) as f64 * step,
-        s_lo + (best_k + 1).min(SCAN_STEPS) as f64 * step,
-    );
-    if rss(s_best) > best_rss {
-        s_best = s_lo + best_k as f64 * step;
-    }
+    let (s_best, at_limit) = search_log_offset(&rss, range).ok_or(failed.clone())?;
     let (rss_best, exponent) = solve(s_best).ok_or(failed)?;
     if exponent <= 0.0 {
         return Err(RatingError::FitFailed {
@@ -714,25 +724,12 @@ pub fn fit_power_segment_through(
     let c = q_b / (h_b - e).powf(exponent);
     let y_mean = points.iter().map(|p| p.1.ln()).sum::<f64>() / points.len() as f64;
     let ss_tot: f64 = points.iter().map(|p| (p.1.ln() - y_mean).powi(2)).sum();
-    let max_relative_error = points
-        .iter()
-        .map(|&(h, q)| (c * (h - e).powf(exponent) / q - 1.0).abs())
-        .fold(0.0, f64::max);
-    let edge = step * 0.5;
-    Ok(PowerFit {
-        c,
-        e,
-        b: exponent,
-        rmse_log: (rss_best / points.len() as f64).sqrt(),
-        max_relative_error,
-        r_squared: if ss_tot > 0.0 {
-            1.0 - rss_best / ss_tot
-        } else {
-            1.0
-        },
-        n_points: points.len(),
-        e_at_search_limit: s_best <= s_lo + edge || s_best >= s_hi - edge,
-    })
+    Ok(PowerFit::of(
+        points,
+        (c, e, exponent),
+        (rss_best, ss_tot),
+        at_limit,
+    ))
 }
 
 #[cfg(test)]

@@ -9,10 +9,10 @@
 //! river carries the upstream 40 m³/s plus the tributary's 20 m³/s, and
 //! the two arrive at the junction in the shares 2/3 and 1/3.
 
-use chrono::{Duration, Utc};
+use chrono::{DateTime, Duration, Utc};
 use serde_json::{Value, json};
 
-use crate::common::{ReachApp, assert_success, json_of, problem, reach_gauge};
+use crate::common::{ReachApp, assert_success, json_of, problem, reach_gauge, steady_discharge};
 
 const REACH: &str = "network-reach";
 const UPSTREAM: &str = "network-upstream";
@@ -50,16 +50,6 @@ fn doc() -> Value {
     })
 }
 
-fn steady(q: f64, end: chrono::DateTime<Utc>) -> Value {
-    let readings: Vec<Value> = (0..=24)
-        .map(|k| {
-            let t = end - Duration::minutes(15 * (24 - k));
-            json!({"time": t.to_rfc3339(), "discharge": q, "quality": "good"})
-        })
-        .collect();
-    json!({ "readings": readings })
-}
-
 async fn setup() -> ReachApp {
     let upstream = reach_gauge("Harrow upstream (invented)", REACH, "discharge", 19.0, 2.0);
     let s = ReachApp::start(
@@ -79,23 +69,19 @@ async fn setup() -> ReachApp {
     s
 }
 
+/// Posts 6 h of a steady discharge `q` ending `now` to a gauge as `key`.
+async fn post_steady(s: &ReachApp, (key, gauge): (&str, &str), q: f64, now: DateTime<Utc>) {
+    let body = steady_discharge(q, now);
+    assert_success(s.app.post_readings(key, gauge, &body).await).await;
+}
+
 #[tokio::test]
 async fn a_gauged_tributary_channel_feeds_the_network_and_the_split_is_reported() {
     let s = setup().await;
     let now = Utc::now();
-    assert_success(
-        s.app
-            .post_readings(&s.keys.gauge, UPSTREAM, &steady(40.0, now))
-            .await,
-    )
-    .await;
+    post_steady(&s, (&s.keys.gauge, UPSTREAM), 40.0, now).await;
     let trib_key = s.app.key(reachcast::auth::Role::Gauge, &[TRIBUTARY]).await;
-    assert_success(
-        s.app
-            .post_readings(&trib_key, TRIBUTARY, &steady(20.0, now))
-            .await,
-    )
-    .await;
+    post_steady(&s, (&trib_key, TRIBUTARY), 20.0, now).await;
     let summary = json_of(s.app.run_and_wait(&s.keys.forecaster, REACH).await, 200).await;
     assert_eq!(summary["status"], "ok", "{summary}");
     // The tributary channel's provenance: its gauge, its observations.
@@ -169,12 +155,7 @@ async fn a_gauged_tributary_channel_feeds_the_network_and_the_split_is_reported(
 async fn the_profile_draws_the_main_stem_or_the_channel_asked_for() {
     let s = setup().await;
     let now = Utc::now();
-    assert_success(
-        s.app
-            .post_readings(&s.keys.gauge, UPSTREAM, &steady(40.0, now))
-            .await,
-    )
-    .await;
+    post_steady(&s, (&s.keys.gauge, UPSTREAM), 40.0, now).await;
     // The tributary gauge has never reported and its channel has no
     // upload or hydrograph of its own: the run fails naming it.
     let summary = json_of(s.app.run_and_wait(&s.keys.forecaster, REACH).await, 200).await;
@@ -185,12 +166,7 @@ async fn the_profile_draws_the_main_stem_or_the_channel_asked_for() {
         "{error}"
     );
     let trib_key = s.app.key(reachcast::auth::Role::Gauge, &[TRIBUTARY]).await;
-    assert_success(
-        s.app
-            .post_readings(&trib_key, TRIBUTARY, &steady(20.0, now))
-            .await,
-    )
-    .await;
+    post_steady(&s, (&trib_key, TRIBUTARY), 20.0, now).await;
     let summary = json_of(s.app.run_and_wait(&s.keys.forecaster, REACH).await, 200).await;
     assert_eq!(summary["status"], "ok", "{summary}");
 

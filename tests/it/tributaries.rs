@@ -11,7 +11,9 @@
 use chrono::{Duration, Utc};
 use serde_json::{Value, json};
 
-use crate::common::{ReachApp, assert_success, body_of, bridge_reach, reach_gauge};
+use crate::common::{
+    ReachApp, assert_success, body_of, bridge_reach, reach_gauge, steady_discharge,
+};
 
 const REACH: &str = "tributary-reach";
 const UPSTREAM: &str = "tributary-upstream";
@@ -43,16 +45,6 @@ async fn setup(lateral: Value) -> ReachApp {
     s
 }
 
-fn steady(q: f64, end: chrono::DateTime<Utc>) -> Value {
-    let readings: Vec<Value> = (0..=24)
-        .map(|k| {
-            let t = end - Duration::minutes(15 * (24 - k));
-            json!({"time": t.to_rfc3339(), "discharge": q, "quality": "good"})
-        })
-        .collect();
-    json!({ "readings": readings })
-}
-
 /// Runs and returns (forecast, run) of the new run.
 async fn run_once(s: &ReachApp) -> (Value, Value) {
     let res = s.app.run_and_wait(&s.keys.forecaster, REACH).await;
@@ -74,14 +66,14 @@ async fn a_gauged_tributary_feeds_the_forecast_and_its_silence_is_reported() {
     let now = Utc::now();
     assert_success(
         s.app
-            .post_readings(&s.keys.gauge, UPSTREAM, &steady(40.0, now))
+            .post_readings(&s.keys.gauge, UPSTREAM, &steady_discharge(40.0, now))
             .await,
     )
     .await;
     let trib_key = s.app.key(reachcast::auth::Role::Gauge, &[TRIBUTARY]).await;
     assert_success(
         s.app
-            .post_readings(&trib_key, TRIBUTARY, &steady(20.0, now))
+            .post_readings(&trib_key, TRIBUTARY, &steady_discharge(20.0, now))
             .await,
     )
     .await;
@@ -105,14 +97,14 @@ async fn a_gauged_tributary_feeds_the_forecast_and_its_silence_is_reported() {
     let s2 = setup(json!({"name": "Mill Brook", "chainage": 2000.0, "gauge": TRIBUTARY})).await;
     assert_success(
         s2.app
-            .post_readings(&s2.keys.gauge, UPSTREAM, &steady(40.0, now))
+            .post_readings(&s2.keys.gauge, UPSTREAM, &steady_discharge(40.0, now))
             .await,
     )
     .await;
     let key2 = s2.app.key(reachcast::auth::Role::Gauge, &[TRIBUTARY]).await;
     assert_success(
         s2.app
-            .post_readings(&key2, TRIBUTARY, &steady(20.0, old))
+            .post_readings(&key2, TRIBUTARY, &steady_discharge(20.0, old))
             .await,
     )
     .await;
@@ -135,7 +127,7 @@ async fn an_unusable_tributary_gauge_falls_back_or_fails_naming_the_tributary() 
     .await;
     assert_success(
         s.app
-            .post_readings(&s.keys.gauge, UPSTREAM, &steady(40.0, Utc::now()))
+            .post_readings(&s.keys.gauge, UPSTREAM, &steady_discharge(40.0, Utc::now()))
             .await,
     )
     .await;
@@ -151,7 +143,7 @@ async fn an_unusable_tributary_gauge_falls_back_or_fails_naming_the_tributary() 
     let s = setup(json!({"name": "Mill Brook", "chainage": 2000.0, "gauge": TRIBUTARY})).await;
     assert_success(
         s.app
-            .post_readings(&s.keys.gauge, UPSTREAM, &steady(40.0, Utc::now()))
+            .post_readings(&s.keys.gauge, UPSTREAM, &steady_discharge(40.0, Utc::now()))
             .await,
     )
     .await;
@@ -176,7 +168,7 @@ async fn an_upload_names_its_tributary() {
     let now = Utc::now();
     assert_success(
         s.app
-            .post_readings(&s.keys.gauge, UPSTREAM, &steady(40.0, now))
+            .post_readings(&s.keys.gauge, UPSTREAM, &steady_discharge(40.0, now))
             .await,
     )
     .await;

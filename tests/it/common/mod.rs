@@ -12,4 +12,6 @@ pub mod xml;
 
 pub use answers::{assert_success, assert_wire_time, body_of, json_of, problem};
 pub use app::{Keys, TestApp, make_key, open_store, spawn_app, spawn_app_with, test_config};
-pub use reaches::{ReachApp, bridge_reach, gauge_body, reach_gauge, triangular_flood};
+pub use reaches::{
+    ReachApp, bridge_reach, gauge_body, reach_gauge, steady_discharge, triangular_flood,
+};

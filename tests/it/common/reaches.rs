@@ -106,3 +106,15 @@ pub fn triangular_flood(
         })
         .collect()
 }
+
+/// 25 readings of a steady discharge `q`, every 15 minutes up to `end`
+/// (quality good), as a readings batch.
+pub fn steady_discharge(q: f64, end: chrono::DateTime<chrono::Utc>) -> Value {
+    let readings: Vec<Value> = (0..=24)
+        .map(|k| {
+            let t = end - chrono::Duration::minutes(15 * (24 - k));
+            json!({"time": t.to_rfc3339(), "discharge": q, "quality": "good"})
+        })
+        .collect();
+    json!({ "readings": readings })
+}
