@@ -98,6 +98,8 @@ pub struct JunctionFlow {
 /// What a network run gives back, per channel.
 pub struct Routed {
     pub result: NetworkResult,
+    /// The output instants.
+    pub times: Vec<DateTime<Utc>>,
     pub junctions: Vec<JunctionFlow>,
 }
 
@@ -153,7 +155,11 @@ pub fn route<H: Hydraulics>(
                 .collect(),
         })
         .collect();
-    Ok(Routed { result, junctions })
+    Ok(Routed {
+        result,
+        times,
+        junctions,
+    })
 }
 
 /// The engine's network for one run.

@@ -249,42 +249,52 @@ pub struct UnknownChannel {
     pub known: String,
 }
 
-/// The channels drawn (indices into `spec.channels`), `None` for a reach
-/// of one channel: the one asked for, or the main stem.
-fn chosen(spec: &ReachSpec, channel: Option<&str>) -> Result<Option<Vec<usize>>, UnknownChannel> {
-    if spec.channels.is_empty() && channel.is_none() {
-        return Ok(None);
+/// The channel named `asked` (its index in `spec.channels`), or `None`
+/// when none is asked for; a name that is not one of the reach's channels
+/// (a reach of one channel has none) is refused.
+pub fn resolve_channel(
+    spec: &ReachSpec,
+    asked: Option<&str>,
+) -> Result<Option<usize>, UnknownChannel> {
+    let Some(name) = asked else { return Ok(None) };
+    match spec.channels.iter().position(|c| c.name == name) {
+        Some(i) => Ok(Some(i)),
+        None => Err(UnknownChannel {
+            asked: name.to_owned(),
+            known: spec
+                .channels
+                .iter()
+                .map(|c| format!("`{}`", c.name))
+                .collect::<Vec<_>>()
+                .join(", "),
+        }),
     }
+}
+
+/// The channels drawn (indices into `spec.channels`), `None` for a reach
+/// of one channel: `channel`, or the main stem.
+fn chosen(spec: &ReachSpec, channel: Option<usize>) -> Option<Vec<usize>> {
     match channel {
-        None => Ok(Some(super::channels::main_stem(&spec.channels))),
-        Some(name) => match spec.channels.iter().position(|c| c.name == name) {
-            Some(i) => Ok(Some(vec![i])),
-            None => Err(UnknownChannel {
-                asked: name.to_owned(),
-                known: spec
-                    .channels
-                    .iter()
-                    .map(|c| format!("`{}`", c.name))
-                    .collect::<Vec<_>>()
-                    .join(", "),
-            }),
-        },
+        Some(i) => Some(vec![i]),
+        None if spec.channels.is_empty() => None,
+        None => Some(super::channels::main_stem(&spec.channels)),
     }
 }
 
 /// The profile at `now` of a stored run with `results` in `units`: its
 /// nodes, the bank tops of `spec`'s sections, and its points as the
 /// forecast view sees them (observations are not drawn, so none are read);
-/// in a network, of the channel asked for or else of the main stem.
+/// in a network, of `channel` (from [`resolve_channel`]) or else of the
+/// main stem.
 pub fn profile(
     stored: &StoredProfile,
     spec: &ReachSpec,
     results: &StoredResults,
     ensemble: Option<&EnsembleSummary>,
     (units, now): (Units, DateTime<Utc>),
-    channel: Option<&str>,
-) -> Result<Profile, UnknownChannel> {
-    let chosen = chosen(spec, channel)?;
+    channel: Option<usize>,
+) -> Profile {
+    let chosen = chosen(spec, channel);
     let names: Option<Vec<&str>> = chosen
         .as_ref()
         .map(|ix| ix.iter().map(|&i| spec.channels[i].name.as_str()).collect());
@@ -333,7 +343,7 @@ pub fn profile(
         .collect();
     let stem = super::channels::main_stem(&spec.channels);
     let mut p = Profile {
-        channel: channel.map(str::to_owned),
+        channel: channel.map(|i| spec.channels[i].name.clone()),
         channels: spec
             .channels
             .iter()
@@ -351,7 +361,7 @@ pub fn profile(
     if units == Units::Us {
         p.nodes_to_us();
     }
-    Ok(p)
+    p
 }
 
 /// The stored nodes of the channels `names` in that order (all of them for

@@ -11,6 +11,7 @@ use serde::{Deserialize, Serialize};
 use crate::engine::{
     diffusive::{self, Diagnostics, DownstreamBoundary, InitialState, Lateral, Options, Reach},
     kinematic,
+    network::NetworkResult,
     props::Hydraulics,
     rating::RatingCurve,
     roughness::Roughened,
@@ -255,11 +256,14 @@ fn route_network_on<H: Hydraulics>(
         output_times: output_times(seconds(t_end, t0), spec.routing.output_interval_s),
         series: &series,
     };
-    let routed = network::route(spec, net, views, inputs)?;
-    let times = instants(t0, &routed.result.output_times);
+    let network::Routed {
+        result,
+        times,
+        junctions,
+    } = network::route(spec, net, views, inputs)?;
     let mut points = Vec::with_capacity(spec.points.len());
     for (ci, c) in net.channels.iter().enumerate() {
-        let out = &routed.result.channels[ci];
+        let out = &result.channels[ci];
         let mut on: Vec<&PointSpec> = spec
             .points
             .iter()
@@ -271,6 +275,29 @@ fn route_network_on<H: Hydraulics>(
             points.push(point_forecast(p, views[ci], &c.chainage, &times, rows)?);
         }
     }
+    let rows = network_rows(net, views, &result, times);
+    Ok(RunOutput {
+        reach: spec.name.clone(),
+        method: Method::Diffusive,
+        start: t0,
+        end: t_end,
+        nodes: rows.chainage.len(),
+        points,
+        diagnostics: result.diagnostics,
+        final_state: result.final_state.concat(),
+        junctions,
+        node_rows: rows,
+    })
+}
+
+/// Every node's rows of a network run for the profile: channel after
+/// channel, with where each channel's nodes are.
+fn network_rows<H: Hydraulics>(
+    net: &PreparedNetwork,
+    views: &[&[H]],
+    result: &NetworkResult,
+    times: Vec<DateTime<Utc>>,
+) -> NodeRows {
     let mut rows = NodeRows {
         times,
         ..NodeRows::default()
@@ -286,26 +313,14 @@ fn route_network_on<H: Hydraulics>(
     }
     rows.stage = (0..rows.times.len())
         .map(|k| {
-            routed
-                .result
+            result
                 .channels
                 .iter()
                 .flat_map(|c| c.stage[k].iter().copied())
                 .collect()
         })
         .collect();
-    Ok(RunOutput {
-        reach: spec.name.clone(),
-        method: Method::Diffusive,
-        start: t0,
-        end: t_end,
-        nodes: rows.chainage.len(),
-        points,
-        diagnostics: routed.result.diagnostics.clone(),
-        final_state: routed.result.final_state.concat(),
-        junctions: routed.junctions,
-        node_rows: rows,
-    })
+    rows
 }
 
 /// The run on `nodes` (the prepared nodes, or a view of them).

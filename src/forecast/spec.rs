@@ -564,37 +564,18 @@ impl ReachSpec {
         laterals.chain(heads).collect()
     }
 
-    /// Every tributary's hydrograph, to be filled in from its gauge or
-    /// upload, with its name and gauge; in [`Self::tributaries`]' order.
-    pub fn tributaries_mut(&mut self) -> Vec<TributaryMut<'_>> {
-        let laterals = self
-            .laterals
+    /// The hydrograph of tributary `k` in [`Self::tributaries`]' order, to
+    /// be filled in from its gauge or upload.
+    pub fn tributary_inflow_mut(&mut self, k: usize) -> Option<&mut Vec<FlowPoint>> {
+        let laterals = self.laterals.iter_mut().map(|l| &mut l.inflow);
+        let heads = self
+            .channels
             .iter_mut()
-            .enumerate()
-            .map(|(i, l)| TributaryMut {
-                path: format!("laterals[{i}]"),
-                name: &l.name,
-                gauge: l.gauge.as_deref(),
-                inflow: &mut l.inflow,
+            .filter_map(|c| match &mut c.upstream {
+                ChannelStart::Tributary { inflow, .. } => Some(inflow),
+                _ => None,
             });
-        let heads =
-            self.channels
-                .iter_mut()
-                .enumerate()
-                .filter_map(|(i, c)| match &mut c.upstream {
-                    ChannelStart::Tributary {
-                        name,
-                        inflow,
-                        gauge,
-                    } => Some(TributaryMut {
-                        path: format!("channels[{i}].upstream"),
-                        name,
-                        gauge: gauge.as_deref(),
-                        inflow,
-                    }),
-                    _ => None,
-                });
-        laterals.chain(heads).collect()
+        laterals.chain(heads).nth(k)
     }
 
     /// The sections of every channel (of the one channel, or of each of
@@ -641,15 +622,6 @@ pub struct Tributary<'a> {
     pub gauge: Option<&'a str>,
     /// The reach description's own hydrograph.
     pub inflow: &'a [FlowPoint],
-}
-
-/// A tributary whose hydrograph may be replaced.
-#[derive(Debug)]
-pub struct TributaryMut<'a> {
-    pub path: String,
-    pub name: &'a str,
-    pub gauge: Option<&'a str>,
-    pub inflow: &'a mut Vec<FlowPoint>,
 }
 
 /// `x` is a finite chainage inside the reach's `(first, last)` extent.

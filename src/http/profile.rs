@@ -24,7 +24,7 @@ use super::{
 };
 use crate::forecast::{
     ensemble::summary::PercentileTrace,
-    profile::{Banks, ProfileChannel, ProfileNode, ProfilePoint, profile},
+    profile::{Banks, ProfileChannel, ProfileNode, ProfilePoint, profile, resolve_channel},
     record::EnsembleRecord,
     spec::Units,
     view::{Freshness, UnitNames},
@@ -77,25 +77,11 @@ async fn get_profile(
     let now = Utc::now();
     let fresh = freshness_of(&state, &loaded, now).await?;
     let units = params.units.unwrap_or(loaded.reach.spec.service.units);
-    let channel = params.channel.as_deref();
-    // A channel's name is free text: the tag names it by its index (an
-    // unknown name is refused before any tag is compared).
-    let index = channel.and_then(|c| loaded.reach.spec.channels.iter().position(|x| x.name == c));
-    let repr = match (channel, index) {
-        (None, _) => "profile".to_owned(),
-        (Some(_), Some(i)) => format!("profile-c{i}"),
-        (Some(c), None) => {
-            let known: Vec<&str> = loaded
-                .reach
-                .spec
-                .channels
-                .iter()
-                .map(|x| x.name.as_str())
-                .collect();
-            let detail = format!("`{c}` is not a channel of this reach (its channels: {known:?})");
-            return Err(Problem::invalid("channel", detail).into());
-        }
-    };
+    // An unknown name is refused before any tag is compared; a channel's
+    // name is free text, so the tag names it by its index.
+    let channel = resolve_channel(&loaded.reach.spec, params.channel.as_deref())
+        .map_err(|e| Problem::invalid("channel", e.to_string()))?;
+    let repr = channel.map_or("profile".to_owned(), |i| format!("profile-c{i}"));
     let etag = forecast_etag(&loaded.run, &fresh, units, &repr);
     if not_modified(&headers, &etag) {
         return Ok(with_etag(StatusCode::NOT_MODIFIED.into_response(), &etag));
@@ -123,8 +109,7 @@ async fn get_profile(
         ensemble,
         (units, now),
         channel,
-    )
-    .map_err(|e| Problem::invalid("channel", e.to_string()))?;
+    );
     let body = ProfileDoc {
         caution: crate::CAUTION,
         reach: loaded.reach.reach_id.clone(),

@@ -34,13 +34,17 @@ impl Forecaster {
     ) -> Result<Filled, StoreError> {
         let mut out = reach.clone();
         let mut provenance = Vec::new();
-        for lateral in out.spec.tributaries_mut() {
+        for (k, lateral) in reach.spec.tributaries().into_iter().enumerate() {
+            // In `tributaries` order, so `k` finds the same one in the copy.
+            let Some(inflow) = out.spec.tributary_inflow_mut(k) else {
+                continue;
+            };
             let upload = self
                 .tributary_upload(&reach.reach_id, lateral.name, on)
                 .await?;
             let Some(gauge) = lateral.gauge.map(str::to_owned) else {
                 if let Some(u) = upload {
-                    *lateral.inflow = flow_points(&u.series);
+                    *inflow = flow_points(&u.series);
                     provenance.push(LateralProvenance {
                         name: lateral.name.to_owned(),
                         gauge: None,
@@ -73,12 +77,12 @@ impl Forecaster {
             };
             match (assembled, upload) {
                 (Ok(a), _) => {
-                    *lateral.inflow = flow_points(&a.series);
+                    *inflow = flow_points(&a.series);
                     entry.upload_version = a.provenance.upload_version;
                     entry.inflow = Some(a.provenance);
                 }
                 (Err(e), Some(u)) => {
-                    *lateral.inflow = flow_points(&u.series);
+                    *inflow = flow_points(&u.series);
                     entry.upload_version = Some(u.version);
                     entry.fallback = Some(format!(
                         "gauge `{gauge}` could not be used ({e}); the upload for this tributary was used"

@@ -6,7 +6,10 @@
 
 use std::process::Output;
 
-use crate::common::{binary::reachcast, files::demo_file};
+use crate::common::{
+    binary::{reachcast, stdout_of_success},
+    files::demo_file,
+};
 
 fn calibrate(observed: &std::path::Path, out: &std::path::Path) -> Output {
     reachcast()
@@ -31,12 +34,7 @@ fn calibrate_recovers_the_demo_multipliers_and_writes_a_valid_proposal() {
     let dir = tempfile::tempdir().expect("temp dir");
     let proposed = dir.path().join("proposed.json");
     let out = calibrate(&demo_file("brindlemoor-fennick-observed.csv"), &proposed);
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(
-        out.status.success(),
-        "{stdout}\n{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    let stdout = stdout_of_success(&out);
     assert!(
         stdout.contains("channel and floodplain multipliers separately"),
         "{stdout}"

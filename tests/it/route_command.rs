@@ -6,7 +6,7 @@ use std::{path::Path, process::Output};
 use reachcast::forecast::{hydrograph::Hydrograph, inflow, run, spec::ReachSpec};
 
 use crate::common::{
-    binary::reachcast,
+    binary::{reachcast, stdout_of_success},
     files::{demo_file, demo_reach_json},
 };
 
@@ -43,12 +43,7 @@ fn route_prints_summary_and_writes_hydrographs() {
         &demo_file("brindlemoor-inflow.csv"),
         &["--out".as_ref(), out_csv.as_os_str()],
     );
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(
-        out.status.success(),
-        "{stdout}\n{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    let stdout = stdout_of_success(&out);
     assert!(stdout.contains("not an official warning"), "caution shown");
     let (spec, inflow) = demo_inputs();
     for p in &spec.points {
@@ -342,12 +337,7 @@ fn route_on_a_network_prints_channels_and_the_flow_split() {
         &demo_file("brindlemoor-inflow.csv"),
         &[],
     );
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(
-        out.status.success(),
-        "{stdout}\n{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    let stdout = stdout_of_success(&out);
     assert!(
         stdout.contains("channel Moss Gill, chainage 2500 m"),
         "{stdout}"

@@ -7,6 +7,18 @@ use std::{
     process::{Child, ChildStderr, Command, Output, Stdio},
 };
 
+/// The stdout of a run that must have succeeded (else its stdout and
+/// stderr are the failure message).
+pub fn stdout_of_success(out: &Output) -> String {
+    let stdout = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert!(
+        out.status.success(),
+        "{stdout}\n{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    stdout
+}
+
 /// The binary cargo built for these tests.
 pub fn reachcast() -> Command {
     Command::new(env!("CARGO_BIN_EXE_reachcast"))
