@@ -19,6 +19,8 @@ pub mod row_error;
 pub mod service;
 pub mod store;
 pub mod telemetry;
+pub mod text;
+pub mod wire_int;
 pub mod wire_time;
 
 /// The caution every forecast output carries.

@@ -178,13 +178,8 @@ impl GaugeSpec {
     /// first bad field is named. Whether `reach` exists is for the caller
     /// (it needs the store).
     pub fn check(mut self) -> Result<Self, FieldError> {
+        crate::text::check(&self.name, MAX_NAME_CHARS).map_err(|m| FieldError::new("name", m))?;
         self.name = self.name.trim().to_owned();
-        if self.name.is_empty() || self.name.chars().count() > MAX_NAME_CHARS {
-            return Err(FieldError::new(
-                "name",
-                format!("must be 1 to {MAX_NAME_CHARS} characters"),
-            ));
-        }
         self.check_stage()?;
         if let Some(c) = self.chainage_m {
             finite("chainage_m", c)?;

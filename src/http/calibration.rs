@@ -21,7 +21,7 @@ use super::{
 use crate::{
     CAUTION,
     forecast::calibrate::{report, window::Window},
-    service::calibration::CalibrationRequest,
+    service::calibration::{CalibrationRequest, Refused},
 };
 
 pub fn router() -> Router<AppState> {
@@ -72,7 +72,10 @@ async fn calibrate(
         .calibration(&id, &req)
         .await
         .map_err(|e| ApiError::Internal(anyhow::anyhow!(e)))?;
-    let (version, c) = answer.map_err(|e| Problem::invalid("calibration", e))?;
+    let (version, c) = answer.map_err(|e| match e {
+        Refused::Invalid(m) => Problem::invalid("calibration", m),
+        Refused::Conflict(m) => Problem::conflict("calibration", m),
+    })?;
     Ok(Json(serde_json::json!({
         "caution": CAUTION,
         "reach": id,

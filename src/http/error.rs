@@ -125,6 +125,21 @@ impl Problem {
         .detail(detail)
     }
 
+    /// 409 for a request that is valid on its own but does not fit what is
+    /// stored now: it names a tributary, point or reach the service does not
+    /// hold, or needs stored data that is not there. 422 stays for what is
+    /// wrong with the request whatever is stored, so a client can tell "fix
+    /// the request" from "fix (or wait for) the stored configuration".
+    pub fn conflict(field: impl Into<String>, detail: impl Into<String>) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "state-conflict",
+            "Does not fit what is stored",
+        )
+        .field(field)
+        .detail(detail)
+    }
+
     pub fn detail(mut self, detail: impl Into<String>) -> Self {
         self.detail = Some(detail.into());
         self
@@ -421,7 +436,12 @@ pub const PROBLEM_TYPES: &[ProblemType] = &[
     pt(
         "invalid-value",
         "Invalid value",
-        "The body is well-formed but a value in it is not acceptable (a member missing, unknown or of the wrong type, a number out of range, a reference to something that does not exist), or a path segment such as a time or an id is not of the right form. The member field names the value (a path for nested members). Nothing was stored.",
+        "The body is well-formed but a value in it is not acceptable whatever is stored (a member missing, unknown or of the wrong type, a number out of range, values that contradict each other), or a path segment such as a time or an id is not of the right form. The member field names the value (a path for nested members). Nothing was stored.",
+    ),
+    pt(
+        "state-conflict",
+        "Does not fit what is stored",
+        "The request is valid on its own but does not fit what the service holds now: it names a tributary, point, channel or reach that is not there, or it needs stored data that is missing (for example gaugings to fit a rating to). The member field names the value and the detail says what is stored. Nothing was changed; change the request, or the stored configuration first. The answer is 409.",
     ),
     pt(
         "invalid-readings",

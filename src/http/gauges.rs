@@ -107,7 +107,7 @@ async fn put(
     if let Some(reach) = &spec.reach
         && !state.store.reach_exists(reach).await?
     {
-        return Err(Problem::invalid("reach", format!("there is no reach `{reach}`")).into());
+        return Err(Problem::conflict("reach", format!("there is no reach `{reach}`")).into());
     }
     let saved = state
         .store

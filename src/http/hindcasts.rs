@@ -35,6 +35,7 @@ struct HindcastBody {
     from: DateTime<Utc>,
     #[serde(with = "crate::wire_time")]
     to: DateTime<Utc>,
+    #[serde(deserialize_with = "crate::wire_int::whole")]
     every_minutes: u64,
     #[serde(default)]
     knowledge: Knowledge,

@@ -156,24 +156,20 @@ async fn upload(
         let detail = format!(
             "`{b}` is not a tributary of this reach (its tributaries: {names:?}); leave `boundary` out for the upstream inflow"
         );
-        return Err(Problem::invalid("boundary", detail).into());
+        return Err(Problem::conflict("boundary", detail).into());
     }
     let media = super::query::media_type(&headers, "application/json");
     // A `reason` in the query is checked whatever the body: the document
     // promises its length, JSON body or not.
-    if params
-        .reason
-        .as_ref()
-        .is_some_and(|r| !(1..=500).contains(&r.trim().chars().count()))
-    {
-        return Err(Problem::invalid("reason", "say why in 1 to 500 characters").into());
+    if let Some(r) = &params.reason {
+        crate::text::check(r, 500)
+            .map_err(|m| Problem::invalid("reason", format!("say why: {m}")))?;
     }
     let (reason, inflow) = parse_body(&media, &body, params.reason)?;
     let series = &inflow.series;
+    crate::text::check(&reason, 500)
+        .map_err(|m| Problem::invalid("reason", format!("say why: {m}")))?;
     let reason = reason.trim().to_owned();
-    if reason.is_empty() || reason.chars().count() > 500 {
-        return Err(Problem::invalid("reason", "say why in 1 to 500 characters").into());
-    }
     if series.len() > MAX_POINTS {
         return Err(Problem::invalid("series", format!("at most {MAX_POINTS} samples")).into());
     }

@@ -80,7 +80,7 @@ async fn get_profile(
     // An unknown name is refused before any tag is compared; a channel's
     // name is free text, so the tag names it by its index.
     let channel = resolve_channel(&loaded.reach.spec, params.channel.as_deref())
-        .map_err(|e| Problem::invalid("channel", e.to_string()))?;
+        .map_err(|e| Problem::missing("channel", e.to_string()))?;
     let repr = channel.map_or("profile".to_owned(), |i| format!("profile-c{i}"));
     let etag = forecast_etag(&loaded.run, &fresh, units, &repr);
     if not_modified(&headers, &etag) {

@@ -70,12 +70,8 @@ fn check_gaugings(g: &[Gauging]) -> Result<(), Problem> {
                 "must be a positive finite number (m³/s)",
             ));
         }
-        if x.method.trim().is_empty() || x.method.chars().count() > 100 {
-            return Err(Problem::invalid(
-                format!("gaugings[{i}].method"),
-                "1 to 100 characters",
-            ));
-        }
+        crate::text::check(&x.method, 100)
+            .map_err(|m| Problem::invalid(format!("gaugings[{i}].method"), m))?;
         if g[..i].iter().any(|y| y.time == x.time) {
             return Err(Problem::invalid(
                 format!("gaugings[{i}].time"),
@@ -261,7 +257,7 @@ async fn fit(
             "{} gaugings chosen; a fit takes at most {MAX_FITTED}: narrow the window",
             chosen.len()
         );
-        return Err(Problem::invalid("from", m).into());
+        return Err(Problem::conflict("from", m).into());
     }
     // The fit solves a least-squares problem per trial zero-flow stage:
     // off the async runtime, like routing.
@@ -274,12 +270,11 @@ async fn fit(
         tokio::task::spawn_blocking(move || (ratings::fit(&chosen, &breaks), chosen))
             .await
             .map_err(|e| ApiError::Internal(anyhow::anyhow!("rating fit task failed: {e}")))?;
-    let report = report.map_err(|e| {
-        let field = match e {
-            ratings::FitError::Breaks => "breaks",
-            _ => "gaugings",
-        };
-        Problem::invalid(field, e.to_string())
+    // Bad breaks are the request's fault; too few or unfittable gaugings
+    // are what is stored.
+    let report = report.map_err(|e| match e {
+        ratings::FitError::Breaks => Problem::invalid("breaks", e.to_string()),
+        _ => Problem::conflict("gaugings", e.to_string()),
     })?;
     Ok(Json(FitAnswer {
         gauge: id,
@@ -316,9 +311,8 @@ async fn add_version(
     b.curve
         .validate()
         .map_err(|e| Problem::invalid("curve", e.to_string()))?;
-    if b.note.trim().is_empty() || b.note.chars().count() > 500 {
-        return Err(Problem::invalid("note", "1 to 500 characters: why this version").into());
-    }
+    crate::text::check(&b.note, 500)
+        .map_err(|m| Problem::invalid("note", format!("{m}: why this version")))?;
     find_gauge(&state, &id).await?;
     let version = state
         .store
@@ -346,9 +340,7 @@ async fn add_shift(
     if s.to.is_some_and(|to| to <= s.from) {
         return Err(Problem::invalid("to", "must be after `from`").into());
     }
-    if s.reason.trim().is_empty() || s.reason.chars().count() > 500 {
-        return Err(Problem::invalid("reason", "1 to 500 characters").into());
-    }
+    crate::text::check(&s.reason, 500).map_err(|m| Problem::invalid("reason", m))?;
     find_gauge(&state, &id).await?;
     state
         .store

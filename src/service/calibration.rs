@@ -27,8 +27,28 @@ pub struct CalibrationRequest {
     pub bounds: (f64, f64),
 }
 
-/// A calibration, or why the stored data cannot give one.
-pub type Calibrated = Result<(i64, Calibration), String>;
+/// Why no calibration was made: the request itself is wrong (bounds,
+/// overlapping or over-long windows), or it does not fit what is stored
+/// (no such point, no gauge at it, no readings to compare with).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum Refused {
+    #[error("{0}")]
+    Invalid(String),
+    #[error("{0}")]
+    Conflict(String),
+}
+
+impl From<calibrate::CalibrateError> for Refused {
+    fn from(e: calibrate::CalibrateError) -> Self {
+        match e {
+            calibrate::CalibrateError::Setup(m) => Refused::Invalid(m),
+            other => Refused::Conflict(other.to_string()),
+        }
+    }
+}
+
+/// A calibration, or why none was made.
+pub type Calibrated = Result<(i64, Calibration), Refused>;
 
 impl Forecaster {
     /// Fits the multipliers of reach `reach_id`'s latest version; returns
@@ -46,13 +66,12 @@ impl Forecaster {
             .ok_or_else(|| CycleError::NoReach(reach_id.to_owned()))?;
         let spec = reach.spec;
         let Some(point) = spec.points.iter().find(|p| p.point_id() == req.point) else {
-            return Ok(Err(format!("the reach has no point `{}`", req.point)));
+            let m = format!("the reach has no point `{}`", req.point);
+            return Ok(Err(Refused::Conflict(m)));
         };
         let Some(gauge) = point.gauge.clone() else {
-            return Ok(Err(format!(
-                "point `{}` has no gauge to calibrate against",
-                req.point
-            )));
+            let m = format!("point `{}` has no gauge to calibrate against", req.point);
+            return Ok(Err(Refused::Conflict(m)));
         };
         let from = req.fit.from.min(req.held_out.from) - WARM_UP;
         let to = req.fit.to.max(req.held_out.to);
@@ -60,12 +79,13 @@ impl Forecaster {
         // does (the fit makes at most about eighty of them).
         let span_s = (to - from).num_seconds() as f64;
         if let Err(e) = budget::admit(&spec, &self.inner.config.budget(), span_s) {
-            return Ok(Err(format!("the windows are too long to route: {e}")));
+            let m = format!("the windows are too long to route: {e}");
+            return Ok(Err(Refused::Invalid(m)));
         }
         let observed = self.stages(&gauge, from, to).await?;
         let inflow = match self.past_inflow(&spec, from, to).await? {
             Ok(i) => i,
-            Err(e) => return Ok(Err(e)),
+            Err(e) => return Ok(Err(Refused::Conflict(e))),
         };
         let req = req.clone();
         let fitted = tokio::task::spawn_blocking(move || {
@@ -78,11 +98,10 @@ impl Forecaster {
                 held_out: req.held_out,
                 bounds: req.bounds,
             };
-            calibrate::calibrate(&problem).map_err(|e| e.to_string())
+            calibrate::calibrate(&problem).map_err(Refused::from)
         })
         .await
-        .map_err(|e| format!("the calibration did not finish: {e}"))
-        .and_then(|r| r);
+        .map_err(|e| CycleError::Task(format!("the calibration did not finish: {e}")))?;
         Ok(fitted.map(|c| (reach.version, c)))
     }
 

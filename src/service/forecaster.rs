@@ -77,6 +77,9 @@ pub enum CycleError {
     NoReach(String),
     #[error(transparent)]
     Store(#[from] StoreError),
+    /// Blocking work panicked or was cancelled.
+    #[error("{0}")]
+    Task(String),
 }
 
 impl Forecaster {

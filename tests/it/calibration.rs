@@ -153,5 +153,13 @@ async fn the_endpoint_recovers_a_known_multiplier_and_applies_nothing() {
     let problem = json_of(a, 422).await;
     let detail = problem["detail"].as_str().unwrap_or_default();
     assert!(detail.contains("too long"), "{problem}");
+    // A point the stored reach does not have: the request is well-formed,
+    // the reach is not what it assumes (409).
+    let elsewhere =
+        json!({"point": "no-such-point", "fit": body["fit"], "held_out": body["held_out"]});
+    let a = s.app.post_json(&s.keys.forecaster, &url, &elsewhere).await;
+    let problem = json_of(a, 409).await;
+    assert_eq!(problem["type"], "/problems/state-conflict", "{problem}");
+    assert_eq!(problem["field"], "calibration", "{problem}");
     s.app.stop().await;
 }

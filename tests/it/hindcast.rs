@@ -66,7 +66,9 @@ async fn run_stage(s: &ReachApp, id: &Value) -> (Vec<f64>, Value) {
 }
 
 async fn one_run(s: &ReachApp, at: DateTime<Utc>, knowledge: &str) -> Value {
-    let body = json!({"from": at.to_rfc3339(), "to": at.to_rfc3339(), "every_minutes": 60,
+    // `60.0` is an integer to JSON Schema (2020-12 validation §6.1.1), as
+    // the document's `"type": "integer"` promises.
+    let body = json!({"from": at.to_rfc3339(), "to": at.to_rfc3339(), "every_minutes": 60.0,
                       "knowledge": knowledge});
     let v = json_of(hindcast(s, &body).await, 200).await;
     assert!(
@@ -214,6 +216,10 @@ async fn a_bad_hindcast_is_refused_naming_the_field() {
         ),
         (
             json!({"from": past, "to": past, "every_minutes": 1}),
+            "every_minutes",
+        ),
+        (
+            json!({"from": past, "to": past, "every_minutes": 60.5}),
             "every_minutes",
         ),
         (

@@ -907,21 +907,24 @@ async fn gauges_are_created_updated_and_checked() {
         }
         b
     };
-    for (patch, field) in [
-        (json!({"stage_max_m": -1.0}), "stage_max_m"),
-        (json!({"max_rise_m_per_h": 0.0}), "max_rise_m_per_h"),
-        (json!({"measures": "rainfall"}), "measures"),
-        (json!({"name": ""}), "name"),
-        (json!({"rating_curve": [1, 2]}), "rating_curve"),
-        (json!({"reach": "no-such-reach"}), "reach"),
-        (json!({"discharge_min_m3s": -3.0}), "discharge_min_m3s"),
-        (json!({"colour": "blue"}), ""),
+    // A reach that is not stored is a conflict with what is stored (409),
+    // not a bad value (422): the same body is fine once the reach exists.
+    for (patch, field, status) in [
+        (json!({"stage_max_m": -1.0}), "stage_max_m", 422),
+        (json!({"max_rise_m_per_h": 0.0}), "max_rise_m_per_h", 422),
+        (json!({"measures": "rainfall"}), "measures", 422),
+        (json!({"name": ""}), "name", 422),
+        (json!({"name": " \u{3000}\n"}), "name", 422),
+        (json!({"rating_curve": [1, 2]}), "rating_curve", 422),
+        (json!({"reach": "no-such-reach"}), "reach", 409),
+        (json!({"discharge_min_m3s": -3.0}), "discharge_min_m3s", 422),
+        (json!({"colour": "blue"}), "", 422),
     ] {
         let p = problem(
             f.app
                 .put_gauge(&f.admin, "brook-end", &bad(patch.clone()))
                 .await,
-            422,
+            status,
         )
         .await;
         if field.is_empty() {

@@ -219,7 +219,8 @@ async fn the_profile_draws_the_main_stem_or_the_channel_asked_for() {
     assert_eq!(beck["points"][0]["name"], "Nettle ford");
     assert_eq!(beck["banks"].as_array().map(Vec::len), Some(2));
 
-    let p = problem(s.app.get(&path("?channel=Nowhere")).await, 422).await;
+    // No such channel: the profile asked for does not exist.
+    let p = problem(s.app.get(&path("?channel=Nowhere")).await, 404).await;
     assert_eq!(p["field"], "channel", "{p}");
     s.app.stop().await;
 }

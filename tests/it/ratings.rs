@@ -219,8 +219,11 @@ async fn bad_gaugings_versions_and_shifts_are_refused_naming_the_field() {
     )
     .await;
     assert_eq!(p["field"], "offset_m");
-    let p = problem(post(&s, "/ratings/fit", &json!({})).await, 422).await;
+    // Nothing stored to fit: the request is fine, what is stored is not
+    // enough (409).
+    let p = problem(post(&s, "/ratings/fit", &json!({})).await, 409).await;
     assert_eq!(p["field"], "gaugings", "no gaugings to fit");
+    assert_eq!(p["type"], "/problems/state-conflict");
     let res = s
         .app
         .post_json(

@@ -183,12 +183,14 @@ async fn an_upload_names_its_tributary() {
         .await;
     let v: Value = serde_json::from_str(&body_of(res, 201).await).expect("json");
     assert_eq!(v["boundary"], "Mill Brook");
-    // Not a tributary of this reach: refused naming the parameter.
+    // Not a tributary of this reach: refused naming the parameter, as a
+    // conflict with the stored reach (409), not a bad value.
     let res = s
         .app
         .post_json(&s.keys.forecaster, &path("?boundary=Nowhere%20Beck"), &body)
         .await;
-    let p = crate::common::problem(res, 422).await;
+    let p = crate::common::problem(res, 409).await;
+    assert_eq!(p["type"], "/problems/state-conflict");
     assert_eq!(p["field"], "boundary");
     // The upstream inflow has no upload: the tributary's is not mistaken
     // for it.

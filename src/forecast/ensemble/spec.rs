@@ -20,6 +20,7 @@ pub struct EnsembleSpec {
     /// Members per run; 0 turns the ensemble off. The default, 50, routes
     /// in a few seconds on two cores for the demo reach (README,
     /// "Performance").
+    #[serde(deserialize_with = "crate::wire_int::whole")]
     pub members: usize,
     /// Percentiles reported, in percent, strictly increasing in (0, 100).
     pub percentiles: Vec<f64>,
