@@ -414,6 +414,16 @@ pub const PROBLEM_TYPES: &[ProblemType] = &[
         "The request could not be read as sent, for example a path segment of the wrong form. The detail says what was wrong; the same request sent again gets the same answer.",
     ),
     pt(
+        "header-too-large",
+        "Request header too large",
+        "The request line and headers together are longer than server.max_header_bytes. The answer is 431 and the connection is closed; send a shorter request (a long query, many or large cookies or custom headers are the usual cause).",
+    ),
+    pt(
+        "uri-too-long",
+        "Request target too long",
+        "The request target (path and query) is longer than the server reads. The answer is 414 and the connection is closed.",
+    ),
+    pt(
         "malformed-json",
         "Malformed JSON body",
         "The body is not well-formed JSON (RFC 8259). The members line and column point at the first error. Nothing in the body was stored.",

@@ -3,7 +3,8 @@
 //! a client must send its request head within `server.header_read_timeout_secs`
 //! (one that opens a connection and never finishes its headers is closed,
 //! not held for ever), the head is capped at `server.max_header_bytes`
-//! (hyper answers 431), and at most `server.max_connections` are open at
+//! (431; hyper's bare answers to unreadable heads become problem documents
+//! in `unreadable`), and at most `server.max_connections` are open at
 //! once (more are answered 503 with a problem document and closed).
 //! Shutdown stops accepting, lets requests in flight finish and closes
 //! idle connections.
@@ -11,6 +12,7 @@
 use std::{future::Future, sync::Arc, time::Duration};
 
 use super::error::{PROBLEM_JSON, Problem};
+use super::unreadable::ProblemAnswers;
 use axum::{
     Router,
     extract::{ConnectInfo, Request},
@@ -87,7 +89,10 @@ pub async fn serve(
         let service = TowerToHyperService::new(with_peer);
         // No upgrades (the API has no WebSocket): a plain connection,
         // which the graceful shutdown can watch.
-        let conn = graceful.watch(builder.serve_connection(TokioIo::new(stream), service));
+        let conn = graceful.watch(builder.serve_connection(
+            TokioIo::new(ProblemAnswers::new(stream, limits.max_header_bytes)),
+            service,
+        ));
         tokio::spawn(async move {
             if let Err(e) = conn.await {
                 tracing::debug!(error = %e, "connection ended with an error");

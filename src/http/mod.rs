@@ -29,6 +29,7 @@ pub mod ratings;
 pub mod reaches;
 pub mod readings;
 pub mod runs;
+pub mod unreadable;
 pub mod verification;
 
 use std::{

@@ -3,7 +3,8 @@
 //! is closed after `server.header_read_timeout_secs` (they used to be held
 //! for ever: 2,000 of them were all still open after 45 s), connections
 //! over `server.max_connections` are answered 503 with a problem document,
-//! and a request head over `server.max_header_bytes` is refused with 431.
+//! a request head over `server.max_header_bytes` is refused with 431, and
+//! an unreadable request with 400, both as problem documents.
 
 use std::time::{Duration, Instant};
 
@@ -86,6 +87,67 @@ async fn slow_many_and_oversized_clients_are_answered_or_closed() {
     );
     let _ = big.write_all(head.as_bytes()).await;
     let (answer, _) = read_to_close(&mut big, Duration::from_secs(10)).await;
-    assert!(answer.starts_with("HTTP/1.1 431"), "{:?}", answer.get(..80));
+    let p = problem_answer(&answer, 431);
+    assert_eq!(p["type"], "/problems/header-too-large", "{p}");
+    app.stop().await;
+}
+
+/// The status line and problem document of a raw HTTP/1.1 answer; checks
+/// the status, the media type (RFC 9457 §3) and that the body is whole.
+fn problem_answer(answer: &str, status: u16) -> serde_json::Value {
+    let (head, body) = answer.split_once("\r\n\r\n").unwrap_or((answer, ""));
+    assert!(
+        head.starts_with(&format!("HTTP/1.1 {status} ")),
+        "{:?}",
+        answer.get(..120)
+    );
+    let head = head.to_ascii_lowercase();
+    assert!(
+        head.contains("content-type: application/problem+json"),
+        "{head}"
+    );
+    assert!(
+        head.contains(&format!("content-length: {}", body.len())),
+        "{head}"
+    );
+    let p: serde_json::Value = serde_json::from_str(body).expect("a JSON problem document");
+    assert_eq!(p["status"], status, "{p}");
+    assert!(p["detail"].as_str().is_some_and(|d| !d.is_empty()), "{p}");
+    p
+}
+
+/// A request that is not HTTP/1.1 (RFC 9112 §3: method SP target SP
+/// version) gets a 400 problem document, not hyper's bare status line:
+/// as the first request of a connection and after a good one on a kept
+/// connection.
+#[tokio::test]
+async fn unreadable_requests_are_answered_with_problem_documents() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let app = spawn_app_with(test_config(dir.path())).await;
+    let addr = app.url("").trim_start_matches("http://").to_owned();
+    for garbled in [
+        "GARBAGE\r\n\r\n",
+        "GET /health HTTP/1.1\r\nHost reachcast.test\r\n\r\n",
+        "GET /he alth HTTP/1.1\r\nHost: reachcast.test\r\n\r\n",
+    ] {
+        let mut s = TcpStream::connect(&addr).await.expect("connect");
+        s.write_all(garbled.as_bytes()).await.expect("write");
+        let (answer, closed) = read_to_close(&mut s, Duration::from_secs(10)).await;
+        assert!(closed, "{garbled:?}: the connection was kept");
+        let p = problem_answer(&answer, 400);
+        assert_eq!(p["type"], "/problems/bad-request", "{garbled:?}: {p}");
+    }
+    let mut s = TcpStream::connect(&addr).await.expect("connect");
+    s.write_all(b"GET /health HTTP/1.1\r\nHost: reachcast.test\r\n\r\nGET /health HTTP/1.1\r\nHost reachcast.test\r\n\r\n")
+        .await
+        .expect("write");
+    let (answer, _) = read_to_close(&mut s, Duration::from_secs(10)).await;
+    let (first, rest) = answer
+        .split_once("HTTP/1.1 400 ")
+        .expect("a 400 after the first answer");
+    assert!(first.starts_with("HTTP/1.1 200 OK"), "{first}");
+    assert!(first.contains("\"status\":\"ok\""), "{first}");
+    let p = problem_answer(&format!("HTTP/1.1 400 {rest}"), 400);
+    assert_eq!(p["type"], "/problems/bad-request", "{p}");
     app.stop().await;
 }
