@@ -94,9 +94,9 @@ async fn a_database_locked_by_another_process_refuses_writes_visibly() {
     app.stop().await;
 }
 
-/// The disk filling up, made with SQLite's own size limit
-/// (`storage.max_size_mib`, `PRAGMA max_page_count`; no loop-mounted file
-/// system is needed): batches are acknowledged until the database is full,
+/// The database filling up, made with SQLite's own size limit
+/// (`storage.max_size_mib`, `PRAGMA max_page_count`; needs no mount, so it
+/// runs where the tmpfs test above is skipped): batches are acknowledged until the database is full,
 /// then refused with a 503 that says nothing was changed, `/ready` says
 /// writes are failing, and after a restart with room again every
 /// acknowledged reading is there and no refused one is.
@@ -164,6 +164,114 @@ async fn a_full_database_refuses_batches_whole_and_loses_nothing_acknowledged() 
     assert_eq!(stored, acknowledged);
     let (status, _) = app.get_json("/ready").await;
     assert_eq!(status, 200);
+    app.stop().await;
+}
+
+/// A small tmpfs mounted for one test (the machine's own file system is
+/// never filled); unmounted when dropped, panic or not.
+struct SmallDisk {
+    dir: tempfile::TempDir,
+}
+
+impl SmallDisk {
+    /// Mounts `mib` MiB, or `None` where mounting is not allowed (not root,
+    /// or a container without the capability).
+    fn mount(mib: u64) -> Option<Self> {
+        let dir = tempfile::tempdir().ok()?;
+        let size = format!("size={mib}m");
+        let ok = std::process::Command::new("mount")
+            .args(["-t", "tmpfs", "-o", &size, "tmpfs"])
+            .arg(dir.path())
+            .stderr(std::process::Stdio::null())
+            .status()
+            .is_ok_and(|s| s.success());
+        ok.then_some(Self { dir })
+    }
+
+    fn resize(&self, mib: u64) {
+        let opts = format!("remount,size={mib}m");
+        let ok = std::process::Command::new("mount")
+            .args(["-o", &opts])
+            .arg(self.dir.path())
+            .status()
+            .is_ok_and(|s| s.success());
+        assert!(ok, "remounting the tmpfs larger");
+    }
+}
+
+impl Drop for SmallDisk {
+    fn drop(&mut self) {
+        let _ = std::process::Command::new("umount")
+            .arg("-l")
+            .arg(self.dir.path())
+            .status();
+    }
+}
+
+/// The disk really filling up: the data directory on a 4 MiB tmpfs.
+/// Batches are acknowledged until SQLite cannot grow its files, then
+/// refused whole with a 503 that says nothing was changed; `/ready`, which
+/// answered 200 on the empty disk, answers 503 naming the free space under
+/// the floor; after the file system is made larger and the service
+/// restarted, every acknowledged reading is there and no refused one is.
+/// Skipped, saying so, where the test may not mount a file system.
+#[tokio::test]
+async fn a_full_disk_refuses_batches_whole_and_loses_nothing_acknowledged() {
+    let Some(disk) = SmallDisk::mount(4) else {
+        eprintln!("skipped: mounting a tmpfs is not permitted here");
+        return;
+    };
+    let mut config = test_config(disk.dir.path());
+    config.storage.min_free_mib = 1;
+    let (app, keys) = app_with_gauge(config.clone(), "disk-gauge").await;
+    let (status, ready) = app.get_json("/ready").await;
+    assert_eq!(status, 200, "{ready}");
+    let t0 = chrono::DateTime::parse_from_rfc3339("2026-11-01T00:00:00Z").unwrap();
+    let mut acknowledged = Vec::new();
+    let mut refused = false;
+    for batch in 0..400 {
+        let times: Vec<i64> = (0..500)
+            .map(|k| (t0 + chrono::Duration::minutes(batch * 500 + k)).timestamp_millis())
+            .collect();
+        let rows: Vec<serde_json::Value> = times
+            .iter()
+            .map(|&ms| {
+                let t = chrono::DateTime::from_timestamp_millis(ms).unwrap();
+                serde_json::json!({"time": t.to_rfc3339(), "stage": 1.25, "quality": "good"})
+            })
+            .collect();
+        let body = serde_json::json!({"readings": rows});
+        let res = app.post_readings(&keys.gauge, "disk-gauge", &body).await;
+        if res.status() == 503 {
+            let p: serde_json::Value = res.json().await.expect("problem");
+            let detail = p["detail"].as_str().unwrap_or_default();
+            assert!(detail.contains("nothing was changed"), "{p}");
+            refused = true;
+            break;
+        }
+        assert_eq!(json_of(res, 200).await["accepted"], 500);
+        acknowledged.extend(times);
+    }
+    assert!(refused, "4 MiB filled within 400 batches of 500 readings");
+    assert!(!acknowledged.is_empty());
+    let p = problem(app.get("/ready").await, 503).await;
+    let detail = p["detail"].as_str().unwrap_or_default();
+    assert!(detail.contains("MiB free under the data directory"), "{p}");
+    app.stop().await;
+
+    disk.resize(64);
+    let app = spawn_app_with(config).await;
+    let stored: Vec<i64> = app
+        .store
+        .readings_for_forecast("disk-gauge", i64::MIN, i64::MAX)
+        .await
+        .expect("readings")
+        .iter()
+        .map(|r| r.time_ms)
+        .collect();
+    assert_eq!(stored, acknowledged);
+    let (status, ready) = app.get_json("/ready").await;
+    assert_eq!(status, 200, "{ready}");
     app.stop().await;
 }
 
