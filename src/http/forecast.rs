@@ -173,14 +173,10 @@ async fn build_doc(
     let results = l.results()?;
     let observed = observations(state, l, results.start, now).await?;
     let days = state.config.verification.window_days;
-    let verified = crate::service::verifier::report(
-        &state.store,
-        &state.config.verification,
-        &l.reach,
-        days,
-        now,
-    )
-    .await?;
+    let verified = state
+        .forecaster
+        .verification_report(&l.reach, days, now)
+        .await?;
     let corrections = state.store.run_corrections(l.run.id).await?;
     let inputs = Inputs {
         reach_id: &l.reach.reach_id,

@@ -11,7 +11,7 @@ use axum::{
     response::{IntoResponse, Response},
     routing::get,
 };
-use chrono::{DateTime, Duration, Utc};
+use chrono::{DateTime, Utc};
 use serde::{Deserialize, Serialize};
 
 use super::{
@@ -47,20 +47,21 @@ struct Needs {
 }
 
 #[derive(Debug, Serialize)]
-struct VerificationDoc {
+struct VerificationDoc<'a> {
     caution: &'static str,
     reach: String,
     reach_name: String,
     #[serde(with = "crate::wire_time")]
     now: DateTime<Utc>,
-    /// Runs issued from this instant on (whole UTC days for the scores).
+    /// Runs issued from this instant on: the start of the first UTC day
+    /// (the scores are kept per issue day).
     #[serde(with = "crate::wire_time")]
     from: DateTime<Utc>,
     days: u64,
     bands_hours: Vec<u32>,
     needs: Needs,
     method: &'static str,
-    points: Vec<PointVerification>,
+    points: &'a [PointVerification],
 }
 
 /// How the figures are made, in the answer itself.
@@ -88,7 +89,10 @@ async fn verification(
     }
     let reach = find_reach(&state, &id).await?;
     let now = Utc::now();
-    let points = verifier::report(&state.store, cfg, &reach, days, now).await?;
+    let points = state
+        .forecaster
+        .verification_report(&reach, days, now)
+        .await?;
     let format = Format::choose(params.format, &headers);
     let mut res = match format {
         Format::Csv => {
@@ -108,7 +112,7 @@ async fn verification(
             reach_name: reach.spec.name.clone(),
             reach: reach.reach_id,
             now,
-            from: now - Duration::days(i64::try_from(days).unwrap_or(3_650)),
+            from: verifier::window_start(days, now),
             days,
             bands_hours: cfg.band_edges().unwrap_or_default(),
             needs: Needs {
@@ -116,7 +120,7 @@ async fn verification(
                 pairs: cfg.min_pairs,
             },
             method: METHOD,
-            points,
+            points: &points,
         })
         .into_response(),
     };

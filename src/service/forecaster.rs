@@ -62,6 +62,8 @@ pub(super) struct Inner {
     pub(super) metrics: Arc<crate::metrics::Metrics>,
     /// The prepared tables of each reach's newest version.
     pub(super) prepared: StdMutex<HashMap<String, (i64, Arc<Prepared>)>>,
+    /// Verification reports merged since each reach's last pass.
+    pub(super) reports: super::verification_cache::ReportCache,
 }
 
 /// Handle to the forecast cycle. Cheap to clone.
@@ -104,6 +106,7 @@ impl Forecaster {
                 shutdown,
                 metrics: Arc::default(),
                 prepared: StdMutex::new(HashMap::new()),
+                reports: Default::default(),
             }),
         }
     }

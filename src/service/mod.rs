@@ -15,6 +15,7 @@ pub mod hindcast;
 mod laterals;
 pub mod preview;
 pub mod retention;
+mod verification_cache;
 pub mod verifier;
 
 pub use forecaster::{CycleError, Forecaster, RunSummary};

@@ -6,10 +6,11 @@
 //! never fails a run; the next pass picks up where the stored state says.
 
 use std::collections::{BTreeMap, HashMap};
+use std::sync::Arc;
 
-use chrono::{DateTime, Duration, Utc};
+use chrono::{DateTime, Duration, NaiveDate, NaiveTime, Utc};
 
-use super::Forecaster;
+use super::{Forecaster, verification_cache::Key};
 use crate::{
     config::VerificationConfig,
     forecast::{
@@ -23,8 +24,21 @@ use crate::{
     store::{ReachVersion, Store, StoreError},
 };
 
+/// The first instant a report of `days` up to `now` counts.
+pub fn window_start(days: u64, now: DateTime<Utc>) -> DateTime<Utc> {
+    span(days, now).0.and_time(NaiveTime::MIN).and_utc()
+}
+
+/// The UTC days a report of `days` up to `now` spans: the tallies are per
+/// issue day, and events are counted from the start of the first day too.
+fn span(days: u64, now: DateTime<Utc>) -> (NaiveDate, NaiveDate) {
+    let from = now - Duration::days(i64::try_from(days).unwrap_or(3_650).min(3_650));
+    (from.date_naive(), now.date_naive())
+}
+
 /// The verification of every point of `reach` over the runs issued in the
-/// `days` up to `now`, merged from the stored tallies and events.
+/// UTC days of the `days` up to `now`, merged from the stored tallies and
+/// events.
 pub async fn report(
     store: &Store,
     cfg: &VerificationConfig,
@@ -32,11 +46,13 @@ pub async fn report(
     days: u64,
     now: DateTime<Utc>,
 ) -> Result<Vec<PointVerification>, StoreError> {
-    let from = now - Duration::days(i64::try_from(days).unwrap_or(3_650).min(3_650));
+    let (from_day, to_day) = span(days, now);
     let hours = store
-        .verification_hours(&reach.reach_id, from.date_naive(), now.date_naive())
+        .verification_hours(&reach.reach_id, from_day, to_day)
         .await?;
-    let events = store.verification_events(&reach.reach_id, from).await?;
+    let events = store
+        .verification_events(&reach.reach_id, window_start(days, now))
+        .await?;
     // Validated when the configuration loaded, so never empty here.
     let edges = cfg.band_edges().unwrap_or_default();
     Ok(report::points(&Sources {
@@ -49,6 +65,41 @@ pub async fn report(
 }
 
 impl Forecaster {
+    /// [`report`], merged once per verification pass and day
+    /// (`verification_cache`).
+    pub async fn verification_report(
+        &self,
+        reach: &ReachVersion,
+        days: u64,
+        now: DateTime<Utc>,
+    ) -> Result<Arc<Vec<PointVerification>>, StoreError> {
+        let cache = &self.inner.reports;
+        let (from_day, to_day) = span(days, now);
+        let key = Key {
+            reach_id: reach.reach_id.clone(),
+            version: reach.version,
+            days,
+            from_day,
+            to_day,
+            generation: cache.generation(&reach.reach_id),
+        };
+        if let Some(hit) = cache.get(&key) {
+            return Ok(hit);
+        }
+        let merged = Arc::new(
+            report(
+                &self.inner.store,
+                &self.inner.verification,
+                reach,
+                days,
+                now,
+            )
+            .await?,
+        );
+        cache.put(key, merged.clone());
+        Ok(merged)
+    }
+
     /// One verification pass of a reach, now.
     pub(super) async fn verify(&self, reach_id: &str) {
         if let Err(e) = self.verify_at(reach_id, Utc::now()).await {
@@ -106,7 +157,11 @@ impl Forecaster {
         if outcome.is_empty() {
             return Ok(());
         }
-        store.apply_verification(reach_id, &outcome).await
+        let stored = store.apply_verification(reach_id, &outcome).await;
+        // Whether or not the write went through, what was merged before
+        // may no longer be what is stored.
+        self.inner.reports.invalidate(reach_id);
+        stored
     }
 
     /// How far back the first pass of a reach opens runs: one run window.
