@@ -29,6 +29,49 @@ async fn app_with_gauge(config: Config, id: &str) -> (TestApp, Keys) {
     (app, keys)
 }
 
+/// Posts batches of 500 readings to `gauge` until one is refused with a
+/// 503 that says nothing was changed (at most `batches`); the times of
+/// every acknowledged reading.
+async fn fill_until_refused(app: &TestApp, keys: &Keys, gauge: &str, batches: i64) -> Vec<i64> {
+    let t0 = chrono::DateTime::parse_from_rfc3339("2026-11-01T00:00:00Z").unwrap();
+    let mut acknowledged = Vec::new();
+    for batch in 0..batches {
+        let times: Vec<i64> = (0..500)
+            .map(|k| (t0 + chrono::Duration::minutes(batch * 500 + k)).timestamp_millis())
+            .collect();
+        let rows: Vec<serde_json::Value> = times
+            .iter()
+            .map(|&ms| {
+                let t = chrono::DateTime::from_timestamp_millis(ms).unwrap();
+                serde_json::json!({"time": t.to_rfc3339(), "stage": 1.25, "quality": "good"})
+            })
+            .collect();
+        let body = serde_json::json!({"readings": rows});
+        let res = app.post_readings(&keys.gauge, gauge, &body).await;
+        if res.status() == 503 {
+            let p: serde_json::Value = res.json().await.expect("problem");
+            let detail = p["detail"].as_str().unwrap_or_default();
+            assert!(detail.contains("nothing was changed"), "{p}");
+            assert!(!acknowledged.is_empty(), "the first batch was refused");
+            return acknowledged;
+        }
+        assert_eq!(json_of(res, 200).await["accepted"], 500);
+        acknowledged.extend(times);
+    }
+    panic!("{batches} batches of 500 readings were all acknowledged: nothing filled up");
+}
+
+/// The times of every stored reading of `gauge`.
+async fn stored_times(app: &TestApp, gauge: &str) -> Vec<i64> {
+    app.store
+        .readings_for_forecast(gauge, i64::MIN, i64::MAX)
+        .await
+        .expect("readings")
+        .iter()
+        .map(|r| r.time_ms)
+        .collect()
+}
+
 /// The database locked by another process (here another connection to the
 /// same file, which SQLite locks the same way): a write waits
 /// `storage.busy_timeout_ms`, then is refused with a 503 problem that says
@@ -106,44 +149,7 @@ async fn a_full_database_refuses_batches_whole_and_loses_nothing_acknowledged() 
     let mut config = test_config(dir.path());
     config.storage.max_size_mib = 1;
     let (app, keys) = app_with_gauge(config.clone(), "full-gauge").await;
-    let t0 = chrono::DateTime::parse_from_rfc3339("2026-11-01T00:00:00Z").unwrap();
-    let mut acknowledged = Vec::new();
-    let mut refused = false;
-    for batch in 0..200 {
-        let times: Vec<i64> = (0..500)
-            .map(|k| (t0 + chrono::Duration::minutes(batch * 500 + k)).timestamp_millis())
-            .collect();
-        let rows: Vec<serde_json::Value> = times
-            .iter()
-            .map(|&ms| {
-                let t = chrono::DateTime::from_timestamp_millis(ms).unwrap();
-                serde_json::json!({"time": t.to_rfc3339(), "stage": 1.25, "quality": "good"})
-            })
-            .collect();
-        let res = app
-            .post_readings(
-                &keys.gauge,
-                "full-gauge",
-                &serde_json::json!({"readings": rows}),
-            )
-            .await;
-        if res.status() == 503 {
-            let p: serde_json::Value = res.json().await.expect("problem");
-            assert!(
-                p["detail"]
-                    .as_str()
-                    .unwrap()
-                    .contains("nothing was changed"),
-                "{p}"
-            );
-            refused = true;
-            break;
-        }
-        assert_eq!(json_of(res, 200).await["accepted"], 500);
-        acknowledged.extend(times);
-    }
-    assert!(refused, "1 MiB filled within 200 batches of 500 readings");
-    assert!(!acknowledged.is_empty());
+    let acknowledged = fill_until_refused(&app, &keys, "full-gauge", 200).await;
     let p = problem(app.get("/ready").await, 503).await;
     assert!(
         p["detail"].as_str().unwrap().contains("writes are failing"),
@@ -153,15 +159,7 @@ async fn a_full_database_refuses_batches_whole_and_loses_nothing_acknowledged() 
 
     config.storage.max_size_mib = 0;
     let app = spawn_app_with(config).await;
-    let stored: Vec<i64> = app
-        .store
-        .readings_for_forecast("full-gauge", i64::MIN, i64::MAX)
-        .await
-        .expect("readings")
-        .iter()
-        .map(|r| r.time_ms)
-        .collect();
-    assert_eq!(stored, acknowledged);
+    assert_eq!(stored_times(&app, "full-gauge").await, acknowledged);
     let (status, _) = app.get_json("/ready").await;
     assert_eq!(status, 200);
     app.stop().await;
@@ -226,34 +224,7 @@ async fn a_full_disk_refuses_batches_whole_and_loses_nothing_acknowledged() {
     let (app, keys) = app_with_gauge(config.clone(), "disk-gauge").await;
     let (status, ready) = app.get_json("/ready").await;
     assert_eq!(status, 200, "{ready}");
-    let t0 = chrono::DateTime::parse_from_rfc3339("2026-11-01T00:00:00Z").unwrap();
-    let mut acknowledged = Vec::new();
-    let mut refused = false;
-    for batch in 0..400 {
-        let times: Vec<i64> = (0..500)
-            .map(|k| (t0 + chrono::Duration::minutes(batch * 500 + k)).timestamp_millis())
-            .collect();
-        let rows: Vec<serde_json::Value> = times
-            .iter()
-            .map(|&ms| {
-                let t = chrono::DateTime::from_timestamp_millis(ms).unwrap();
-                serde_json::json!({"time": t.to_rfc3339(), "stage": 1.25, "quality": "good"})
-            })
-            .collect();
-        let body = serde_json::json!({"readings": rows});
-        let res = app.post_readings(&keys.gauge, "disk-gauge", &body).await;
-        if res.status() == 503 {
-            let p: serde_json::Value = res.json().await.expect("problem");
-            let detail = p["detail"].as_str().unwrap_or_default();
-            assert!(detail.contains("nothing was changed"), "{p}");
-            refused = true;
-            break;
-        }
-        assert_eq!(json_of(res, 200).await["accepted"], 500);
-        acknowledged.extend(times);
-    }
-    assert!(refused, "4 MiB filled within 400 batches of 500 readings");
-    assert!(!acknowledged.is_empty());
+    let acknowledged = fill_until_refused(&app, &keys, "disk-gauge", 400).await;
     let p = problem(app.get("/ready").await, 503).await;
     let detail = p["detail"].as_str().unwrap_or_default();
     assert!(detail.contains("MiB free under the data directory"), "{p}");
@@ -261,15 +232,7 @@ async fn a_full_disk_refuses_batches_whole_and_loses_nothing_acknowledged() {
 
     disk.resize(64);
     let app = spawn_app_with(config).await;
-    let stored: Vec<i64> = app
-        .store
-        .readings_for_forecast("disk-gauge", i64::MIN, i64::MAX)
-        .await
-        .expect("readings")
-        .iter()
-        .map(|r| r.time_ms)
-        .collect();
-    assert_eq!(stored, acknowledged);
+    assert_eq!(stored_times(&app, "disk-gauge").await, acknowledged);
     let (status, ready) = app.get_json("/ready").await;
     assert_eq!(status, 200, "{ready}");
     app.stop().await;
