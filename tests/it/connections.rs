@@ -149,5 +149,17 @@ async fn unreadable_requests_are_answered_with_problem_documents() {
     assert!(first.contains("\"status\":\"ok\""), "{first}");
     let p = problem_answer(&format!("HTTP/1.1 400 {rest}"), 400);
     assert_eq!(p["type"], "/problems/bad-request", "{p}");
+    // The service's own 400 to a HEAD request has no body (RFC 9110
+    // §9.3.2) and is left alone: the kept connection answers the next
+    // request in step.
+    let mut s = TcpStream::connect(&addr).await.expect("connect");
+    s.write_all(b"HEAD /api/exceedances?min_severity=zzz HTTP/1.1\r\nHost: reachcast.test\r\n\r\nGET /health HTTP/1.1\r\nHost: reachcast.test\r\nConnection: close\r\n\r\n")
+        .await
+        .expect("write");
+    let (answer, _) = read_to_close(&mut s, Duration::from_secs(10)).await;
+    let (head, rest) = answer.split_once("\r\n\r\n").expect("a first answer");
+    assert!(head.starts_with("HTTP/1.1 400 "), "{head}");
+    assert!(!head.contains("connection: close"), "{head}");
+    assert!(rest.starts_with("HTTP/1.1 200 OK"), "{rest}");
     app.stop().await;
 }
