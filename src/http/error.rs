@@ -161,6 +161,27 @@ impl Problem {
     }
 }
 
+impl Problem {
+    /// The problem as a whole HTTP/1.1 response that closes the connection,
+    /// for answers written on the socket below the router (a connection
+    /// over the cap, a head hyper could not read); `extra_headers` are
+    /// whole `name: value\r\n` lines.
+    pub fn to_closing_http1(&self, extra_headers: &str) -> Vec<u8> {
+        let body = serde_json::to_string(self).unwrap_or_default();
+        let status = StatusCode::from_u16(self.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR);
+        let mut out = format!(
+            "HTTP/1.1 {} {}\r\ncontent-type: {PROBLEM_JSON}\r\ncontent-length: {}\r\n\
+             {extra_headers}connection: close\r\n\r\n",
+            status.as_u16(),
+            status.canonical_reason().unwrap_or(""),
+            body.len()
+        )
+        .into_bytes();
+        out.extend_from_slice(body.as_bytes());
+        out
+    }
+}
+
 impl IntoResponse for Problem {
     fn into_response(mut self) -> Response {
         if self.detail.is_none() {

@@ -161,14 +161,15 @@ async fn upload(
     let media = super::query::media_type(&headers, "application/json");
     // A `reason` in the query is checked whatever the body: the document
     // promises its length, JSON body or not.
+    let check_reason = |r: &str| {
+        crate::text::check(r, 500).map_err(|m| Problem::invalid("reason", format!("say why: {m}")))
+    };
     if let Some(r) = &params.reason {
-        crate::text::check(r, 500)
-            .map_err(|m| Problem::invalid("reason", format!("say why: {m}")))?;
+        check_reason(r)?;
     }
     let (reason, inflow) = parse_body(&media, &body, params.reason)?;
     let series = &inflow.series;
-    crate::text::check(&reason, 500)
-        .map_err(|m| Problem::invalid("reason", format!("say why: {m}")))?;
+    check_reason(&reason)?;
     let reason = reason.trim().to_owned();
     if series.len() > MAX_POINTS {
         return Err(Problem::invalid("series", format!("at most {MAX_POINTS} samples")).into());

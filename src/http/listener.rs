@@ -11,7 +11,7 @@
 
 use std::{future::Future, sync::Arc, time::Duration};
 
-use super::error::{PROBLEM_JSON, Problem};
+use super::error::Problem;
 use super::unreadable::ProblemAnswers;
 use axum::{
     Router,
@@ -114,15 +114,9 @@ async fn refuse(mut stream: TcpStream) {
         "Too many connections",
     )
     .detail("The server has server.max_connections connections open; retry shortly.");
-    let body = serde_json::to_string(&problem).unwrap_or_default();
-    let head = format!(
-        "HTTP/1.1 503 Service Unavailable\r\ncontent-type: {PROBLEM_JSON}\r\n\
-         content-length: {}\r\nretry-after: 1\r\nconnection: close\r\n\r\n",
-        body.len()
-    );
+    let answer = problem.to_closing_http1("retry-after: 1\r\n");
     let write = async {
-        stream.write_all(head.as_bytes()).await?;
-        stream.write_all(body.as_bytes()).await?;
+        stream.write_all(&answer).await?;
         stream.shutdown().await
     };
     let _ = tokio::time::timeout(Duration::from_secs(1), write).await;

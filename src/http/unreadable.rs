@@ -21,7 +21,7 @@ use std::{
 use axum::http::StatusCode;
 use tokio::io::{AsyncRead, AsyncWrite, ReadBuf};
 
-use super::error::{PROBLEM_JSON, Problem};
+use super::error::Problem;
 
 /// A connection's stream whose automatic parse-error answers become
 /// problem documents.
@@ -78,17 +78,7 @@ fn replacement(status: StatusCode, max_header_bytes: usize) -> Vec<u8> {
              the connection is closed.",
         ),
     };
-    let body = serde_json::to_string(&problem).unwrap_or_default();
-    let reason = status.canonical_reason().unwrap_or("");
-    let mut out = format!(
-        "HTTP/1.1 {} {reason}\r\ncontent-type: {PROBLEM_JSON}\r\ncontent-length: {}\r\n\
-         connection: close\r\n\r\n",
-        status.as_u16(),
-        body.len()
-    )
-    .into_bytes();
-    out.extend_from_slice(body.as_bytes());
-    out
+    problem.to_closing_http1("")
 }
 
 impl<S: AsyncWrite + Unpin> ProblemAnswers<S> {

@@ -116,6 +116,14 @@ fn problem_answer(answer: &str, status: u16) -> serde_json::Value {
     p
 }
 
+/// Sends `bytes` on a new connection and reads the answer until the
+/// server closes it (10 s at most).
+async fn exchange(addr: &str, bytes: &[u8]) -> (String, bool) {
+    let mut s = TcpStream::connect(addr).await.expect("connect");
+    s.write_all(bytes).await.expect("write");
+    read_to_close(&mut s, Duration::from_secs(10)).await
+}
+
 /// A request that is not HTTP/1.1 (RFC 9112 §3: method SP target SP
 /// version) gets a 400 problem document, not hyper's bare status line:
 /// as the first request of a connection and after a good one on a kept
@@ -130,18 +138,12 @@ async fn unreadable_requests_are_answered_with_problem_documents() {
         "GET /health HTTP/1.1\r\nHost reachcast.test\r\n\r\n",
         "GET /he alth HTTP/1.1\r\nHost: reachcast.test\r\n\r\n",
     ] {
-        let mut s = TcpStream::connect(&addr).await.expect("connect");
-        s.write_all(garbled.as_bytes()).await.expect("write");
-        let (answer, closed) = read_to_close(&mut s, Duration::from_secs(10)).await;
+        let (answer, closed) = exchange(&addr, garbled.as_bytes()).await;
         assert!(closed, "{garbled:?}: the connection was kept");
         let p = problem_answer(&answer, 400);
         assert_eq!(p["type"], "/problems/bad-request", "{garbled:?}: {p}");
     }
-    let mut s = TcpStream::connect(&addr).await.expect("connect");
-    s.write_all(b"GET /health HTTP/1.1\r\nHost: reachcast.test\r\n\r\nGET /health HTTP/1.1\r\nHost reachcast.test\r\n\r\n")
-        .await
-        .expect("write");
-    let (answer, _) = read_to_close(&mut s, Duration::from_secs(10)).await;
+    let (answer, _) = exchange(&addr, b"GET /health HTTP/1.1\r\nHost: reachcast.test\r\n\r\nGET /health HTTP/1.1\r\nHost reachcast.test\r\n\r\n").await;
     let (first, rest) = answer
         .split_once("HTTP/1.1 400 ")
         .expect("a 400 after the first answer");
@@ -152,11 +154,7 @@ async fn unreadable_requests_are_answered_with_problem_documents() {
     // The service's own 400 to a HEAD request has no body (RFC 9110
     // §9.3.2) and is left alone: the kept connection answers the next
     // request in step.
-    let mut s = TcpStream::connect(&addr).await.expect("connect");
-    s.write_all(b"HEAD /api/exceedances?min_severity=zzz HTTP/1.1\r\nHost: reachcast.test\r\n\r\nGET /health HTTP/1.1\r\nHost: reachcast.test\r\nConnection: close\r\n\r\n")
-        .await
-        .expect("write");
-    let (answer, _) = read_to_close(&mut s, Duration::from_secs(10)).await;
+    let (answer, _) = exchange(&addr, b"HEAD /api/exceedances?min_severity=zzz HTTP/1.1\r\nHost: reachcast.test\r\n\r\nGET /health HTTP/1.1\r\nHost: reachcast.test\r\nConnection: close\r\n\r\n").await;
     let (head, rest) = answer.split_once("\r\n\r\n").expect("a first answer");
     assert!(head.starts_with("HTTP/1.1 400 "), "{head}");
     assert!(!head.contains("connection: close"), "{head}");
